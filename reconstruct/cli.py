@@ -1,0 +1,193 @@
+"""The ``reconstruct`` command: from pick tables to a velocity voxel cube.
+
+Thin layer: parse arguments, call the library, write files, print a summary.
+A user's mistake ends as clear lines on stderr and exit code 2, never a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+from . import __version__
+from .errors import InputError
+
+__all__ = ["main"]
+
+_EPILOG_UNITS = "Units: metres (m), nanoseconds (ns), velocities in m/ns, conductivity in mS/m."
+
+
+def _progress_printer(quiet: bool):
+    start = time.perf_counter()
+    last = [0.0]
+
+    def say(message: str):
+        if quiet:
+            return
+        now = time.perf_counter()
+        # ray batches report often; keep stderr readable
+        if message.startswith("straight rays:") and now - last[0] < 1.0 and "/" in message:
+            done, total = message.split(":")[1].strip().split("/")
+            if done != total:
+                return
+        last[0] = now
+        print(f"[{now - start:7.1f} s] {message}", file=sys.stderr, flush=True)
+
+    return say
+
+
+def _add_inversion_arguments(p: argparse.ArgumentParser):
+    g = p.add_argument_group("inversion")
+    g.add_argument("--smoothing", type=float, default=None, metavar="LAMBDA",
+                   help="smoothing weight lambda_s in the column-scaled system (dimensionless); "
+                        "default: chosen automatically (discrepancy principle chi^2 = N when the "
+                        "picks carry sigma_ns, else the L-curve corner)")
+    g.add_argument("--damping-ratio", type=float, default=0.1, metavar="R",
+                   help="damping towards the reference velocity as a fraction of lambda_s "
+                        "(lambda_d = R * lambda_s; default 0.1)")
+    g.add_argument("--horizontal-weight", type=float, default=1.0, metavar="W",
+                   help="weight of roughness along x and y (default 1)")
+    g.add_argument("--vertical-weight", type=float, default=1.0, metavar="W",
+                   help="weight of roughness along z (default 1); lower it to allow sharper "
+                        "vertical changes")
+    g.add_argument("--velocity-min", type=float, default=0.03, metavar="M_PER_NS",
+                   help="lowest velocity kept, m/ns (default 0.03: water is about 0.033)")
+    g.add_argument("--velocity-max", type=float, default=0.30, metavar="M_PER_NS",
+                   help="highest velocity kept, m/ns (default 0.30: air; never above c = 0.2998)")
+    g.add_argument("--time-zero", choices=("clock", "delay", "none"), default="clock",
+                   help="time-zero term per node: 'clock' (default) t = t_ray + tau_rx - tau_tx "
+                        "for node clock offsets, reported relative to their mean; 'delay' "
+                        "t = t_ray + tau_tx + tau_rx for instrument delays; 'none'")
+    g.add_argument("--max-iterations", type=int, default=400, metavar="N",
+                   help="LSQR iteration limit per solve (default 400)")
+    g.add_argument("--default-sigma", type=float, default=1.0, metavar="NS",
+                   help="pick uncertainty in ns assumed when the pick table has no sigma_ns "
+                        "column (weights only; default 1 ns)")
+    g.add_argument("--snap-tolerance", type=float, default=None, metavar="M",
+                   help="largest allowed shift in metres when a node is snapped onto the ground "
+                        "(default: the larger of 2 m and two cell diagonals)")
+
+
+def _options_from(args):
+    from .inversion import InversionOptions
+
+    return InversionOptions(
+        velocity_min_m_per_ns=args.velocity_min, velocity_max_m_per_ns=args.velocity_max,
+        horizontal_weight=args.horizontal_weight, vertical_weight=args.vertical_weight,
+        smoothing=args.smoothing, damping_ratio=args.damping_ratio, time_zero=args.time_zero,
+        max_iterations=args.max_iterations, default_sigma_ns=args.default_sigma,
+    )
+
+
+def _cmd_invert(args) -> int:
+    from .outputs import utc_now_iso
+    from .site import load_site
+    from .tables import read_nodes, read_picks
+    from .workflow import straight_ray_tomography, write_tomography
+
+    started = utc_now_iso()
+    say = _progress_printer(args.quiet)
+    options = _options_from(args)
+    site = load_site(args.site)
+    nodes = read_nodes(args.nodes)
+    picks = read_picks(args.picks, nodes)
+    say(f"read {len(nodes)} nodes and {picks.n_rows} pick rows ({len(picks.excluded)} excluded on reading)")
+    run = straight_ray_tomography(site, nodes, picks, options, snap_tolerance_m=args.snap_tolerance, progress=say)
+    parameters = {k: v for k, v in vars(args).items() if k not in ("func", "quiet")}
+    summary = write_tomography(
+        run, args.out, inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
+        parameters=parameters, started=started, command="reconstruct invert",
+    )
+    m, lam, v = summary["misfit"], summary["lambda"], summary["velocity_m_per_ns"]
+    chi = "" if m["chi2"] is None else f", chi^2/N {m['chi2_per_pick']:.3f}"
+    print(f"site: {summary['site']}")
+    print(f"picks inverted: {summary['picks']['inverted']} (excluded {summary['picks']['excluded']}, "
+          f"see excluded_picks.csv)")
+    print(f"misfit: RMS {m['rms_ns']:.3f} ns{chi}")
+    print(f"lambda: {lam['smoothing']:.4g} by {lam['method']} ({lam['note']})")
+    print(f"ground velocity: {v['ground_min']:.4f} to {v['ground_max']:.4f} m/ns, median "
+          f"{v['ground_median']:.4f}; {summary['nodes']['snapped']} nodes snapped to the ground")
+    print(f"output: {Path(args.out)}")
+    return 0
+
+
+def _cmd_check(args) -> int:
+    from .placement import place_nodes
+    from .site import load_site
+    from .tables import read_nodes, read_picks
+    from .workflow import model_grid
+
+    site = load_site(args.site)
+    grid, ground = model_grid(site)
+    print(f"site: {site.name}: grid {grid.shape[0]} x {grid.shape[1]} x {grid.shape[2]} = "
+          f"{grid.n_cells:,} cells, {int(ground.sum()):,} ground")
+    if args.nodes:
+        nodes = read_nodes(args.nodes)
+        placement = place_nodes(nodes, grid, ground, snap_tolerance_m=args.snap_tolerance)
+        print(f"nodes: {len(nodes)} read, {int(placement.snapped.sum())} would be snapped to the "
+              f"ground (largest shift {placement.shift_length_m.max():.2f} m)")
+        if args.picks:
+            picks = read_picks(args.picks, nodes)
+            print(f"picks: {picks.n_rows} rows, {len(picks)} usable, {len(picks.excluded)} excluded")
+    print("inputs are valid")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="reconstruct",
+        description="Radar travel-time tomography: from node and pick tables to a velocity voxel cube.",
+        epilog=_EPILOG_UNITS,
+    )
+    parser.add_argument("--version", action="version", version=f"voidcube {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser(
+        "invert", help="invert first-arrival times into a velocity cube (straight rays)",
+        description="Invert first-arrival pick times into a velocity voxel cube with straight "
+                    "rays, regularised LSQR and a time-zero term per node. Writes velocity.vti, "
+                    "residuals.csv, time_zero.csv, nodes_used.csv, excluded_picks.csv, "
+                    "summary.json and manifest.json into OUT.",
+        epilog=_EPILOG_UNITS,
+    )
+    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--nodes", required=True, help="node table (CSV: node_id,x_m,y_m,z_m[,kind,borehole])")
+    p.add_argument("--picks", required=True,
+                   help="pick table (CSV: tx,rx,time_ns[,sigma_ns,amplitude,quality]); times in ns")
+    p.add_argument("--out", required=True, help="output folder (created if missing)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    _add_inversion_arguments(p)
+    p.set_defaults(func=_cmd_invert)
+
+    p = sub.add_parser("check", help="validate a site description and, optionally, node and pick tables",
+                       description="Load and validate the inputs without inverting; list every problem.",
+                       epilog=_EPILOG_UNITS)
+    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--nodes", help="node table (CSV)")
+    p.add_argument("--picks", help="pick table (CSV); needs --nodes")
+    p.add_argument("--snap-tolerance", type=float, default=None, metavar="M",
+                   help="largest allowed snap onto the ground, metres")
+    p.set_defaults(func=_cmd_check)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 2
+    try:
+        return args.func(args)
+    except InputError as error:
+        print(f"error: {error}", file=sys.stderr)
+        return 2
+    except MemoryError:
+        print("error: out of memory; use larger cells (model.cell_m) or a smaller model box",
+              file=sys.stderr)
+        return 3
+    except KeyboardInterrupt:
+        print("interrupted; files already written are complete, none is half-written", file=sys.stderr)
+        return 130

@@ -1,0 +1,176 @@
+"""Writing results: atomic files, CSV and JSON, VTK image data, the run manifest.
+
+Every file is first written to a temporary name in the destination folder and
+then moved into place with :func:`os.replace`, which is atomic on one file
+system: an interrupted run leaves either the old file, or no file, or the new
+complete file, never half a file under the final name.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import os
+import platform
+import sys
+import tempfile
+from contextlib import contextmanager
+from datetime import datetime, timezone
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+
+__all__ = [
+    "atomic_path",
+    "write_text_atomic",
+    "write_json_atomic",
+    "write_csv_atomic",
+    "write_cell_arrays_vti",
+    "sha256_of_file",
+    "package_versions",
+    "build_manifest",
+    "utc_now_iso",
+]
+
+
+@contextmanager
+def atomic_path(path, suffix: str | None = None):
+    """Yield a temporary path beside ``path``; move it into place on success.
+
+    The temporary name keeps the file's extension (``suffix``) so that writers
+    that choose a format by extension still work. On an exception the
+    temporary file is removed and ``path`` is left untouched.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    suffix = path.suffix if suffix is None else suffix
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=f".partial{suffix}", dir=path.parent)
+    os.close(fd)
+    try:
+        yield Path(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def write_text_atomic(path, text: str) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` atomically."""
+    with atomic_path(path) as tmp:
+        with open(tmp, "w", encoding="utf-8", newline="") as handle:
+            handle.write(text)
+            handle.flush()
+            os.fsync(handle.fileno())
+    return Path(path)
+
+
+def _json_default(value):
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, Path):
+        return str(value)
+    raise TypeError(f"cannot write {type(value).__name__} to JSON")
+
+
+def write_json_atomic(path, data) -> Path:
+    """Write ``data`` as indented JSON atomically (NaN written as null)."""
+
+    def clean(obj):
+        if isinstance(obj, float) and not np.isfinite(obj):
+            return None
+        if isinstance(obj, np.floating) and not np.isfinite(obj):
+            return None
+        if isinstance(obj, dict):
+            return {str(k): clean(v) for k, v in obj.items()}
+        if isinstance(obj, (list, tuple)):
+            return [clean(v) for v in obj]
+        return obj
+
+    text = json.dumps(clean(data), indent=2, default=_json_default, allow_nan=False)
+    return write_text_atomic(path, text + "\n")
+
+
+def write_csv_atomic(path, header, rows) -> Path:
+    """Write a CSV file atomically. ``rows`` is an iterable of sequences."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(header)
+    for row in rows:
+        writer.writerow(row)
+    return write_text_atomic(path, buffer.getvalue())
+
+
+def write_cell_arrays_vti(path, grid, cell_arrays: dict) -> Path:
+    """Write cell arrays over a grid as VTK XML image data (``.vti``), atomically.
+
+    Parameters
+    ----------
+    path : path-like
+    grid : reconstruct.grid.Grid
+    cell_arrays : dict of str -> ndarray of shape grid.shape (indexed [ix, iy, iz])
+        Boolean arrays are written as uint8.
+    """
+    import pyvista  # imported here only: the numerical core never needs it
+
+    image = pyvista.ImageData(
+        dimensions=tuple(n + 1 for n in grid.shape),
+        spacing=grid.cell_m,
+        origin=grid.origin_m,
+    )
+    for name, values in cell_arrays.items():
+        values = np.asarray(values)
+        if values.shape != grid.shape:
+            raise ValueError(f"cell array {name!r} has shape {values.shape}, expected {grid.shape}")
+        if values.dtype == bool:
+            values = values.astype(np.uint8)
+        image.cell_data[name] = values.ravel(order="F")  # VTK: x varies fastest
+    with atomic_path(path, suffix=".vti") as tmp:
+        image.save(str(tmp), binary=True)
+    return Path(path)
+
+
+def sha256_of_file(path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def package_versions(names=("voidcube", "numpy", "scipy", "networkx", "pyvista", "vtk", "pyyaml")):
+    versions = {"python": sys.version.split()[0], "platform": platform.platform()}
+    for name in names:
+        try:
+            versions[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            versions[name] = None
+    return versions
+
+
+def utc_now_iso() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+def build_manifest(*, command, inputs: dict, parameters: dict, outputs, started: str, finished: str):
+    """The run manifest: inputs with sha256, parameters, versions, times, outputs."""
+    return {
+        "command": command,
+        "started_utc": started,
+        "finished_utc": finished,
+        "inputs": {
+            role: {"path": str(p), "sha256": sha256_of_file(p), "bytes": os.path.getsize(p)}
+            for role, p in inputs.items()
+            if p is not None
+        },
+        "parameters": parameters,
+        "versions": package_versions(),
+        "outputs": sorted(str(o) for o in outputs),
+    }

@@ -65,6 +65,11 @@ def _cmd_simulate(args) -> int:
     truth = load_truth(args.truth)
     survey = simulate_picks(site, nodes, truth, both_directions=not args.one_way,
                             max_distance_m=args.max_distance, progress=say)
+    if survey.tx.size == 0:
+        raise InputError(
+            f"no transmitter-receiver pair to simulate ({len(nodes)} nodes"
+            + (f", none within --max-distance {args.max_distance:g} m" if args.max_distance is not None else "")
+            + "); give more nodes or a larger --max-distance")
     ids = nodes.ids
     write_csv_atomic(
         args.out, ["tx", "rx", "time_ns", "sigma_ns"],
@@ -123,6 +128,10 @@ def main(argv=None) -> int:
     except InputError as error:
         print(f"error: {error}", file=sys.stderr)
         return 2
+    except MemoryError:
+        print("error: out of memory; use a smaller refine in the truth model or larger cells",
+              file=sys.stderr)
+        return 3
     except KeyboardInterrupt:
         print("interrupted; files already written are complete, none is half-written", file=sys.stderr)
         return 130

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from reconstruct.grid import Grid, ground_mask
+from reconstruct.grid import Grid, check_grid_fits_memory, ground_mask
 from reconstruct.placement import place_nodes
 from reconstruct.site import Site
 from reconstruct.straight_rays import straight_ray_matrix
@@ -61,6 +61,7 @@ def simulate_picks(
 ) -> SimulatedSurvey:
     """Simulate a survey in which every node transmits and all others listen."""
     fine = refined_grid(site.grid(), truth.refine)
+    check_grid_fits_memory(fine, source=truth.source, key="refine")
     ground = ground_mask(fine, site.ground.elevation_m)
     placement = place_nodes(nodes, fine, ground)
     xyz = placement.xyz_m

@@ -112,6 +112,10 @@ def parse_truth(data, source: str = "truth") -> TruthModel:
     if data.get("background_velocity_m_per_ns") is not None:
         background = _number(data["background_velocity_m_per_ns"], "background_velocity_m_per_ns",
                              problems, positive=True)
+        if background is not None and background > AIR_VELOCITY_M_PER_NS * 1.0001:
+            problems.append(f"background_velocity_m_per_ns {background} is faster than light "
+                            f"({AIR_VELOCITY_M_PER_NS:.4f} m/ns); rock is about 0.06 to 0.15 m/ns")
+            background = None
     bodies = []
     raw_bodies = data.get("bodies") or []
     if not isinstance(raw_bodies, list):
@@ -129,6 +133,11 @@ def parse_truth(data, source: str = "truth") -> TruthModel:
             problems.append(f"{path}.shape must be one of {', '.join(_SHAPES)} (got {shape!r})")
             continue
         centre = _triple(b.get("centre_m"), f"{path}.centre_m", problems)
+        wrong = "size_m" if shape == "ellipsoid" else "semi_axes_m"
+        if wrong in b:
+            right = "semi_axes_m" if shape == "ellipsoid" else "size_m"
+            problems.append(f"{path}.{wrong} does not apply to shape {shape}; give {right} instead")
+            continue
         if shape == "ellipsoid":
             half = _triple(b.get("semi_axes_m"), f"{path}.semi_axes_m", problems, positive=True)
         else:

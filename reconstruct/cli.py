@@ -81,6 +81,12 @@ def _options_from(args):
     )
 
 
+def _check_output_folder(out) -> None:
+    path = Path(out)
+    if path.exists() and not path.is_dir():
+        raise InputError(f"--out {out}: this is an existing file, not a folder; give a folder path")
+
+
 def _cmd_invert(args) -> int:
     from .outputs import utc_now_iso
     from .site import load_site
@@ -88,6 +94,7 @@ def _cmd_invert(args) -> int:
     from .workflow import straight_ray_tomography, write_tomography
 
     started = utc_now_iso()
+    _check_output_folder(args.out)
     say = _progress_printer(args.quiet)
     options = _options_from(args)
     site = load_site(args.site)
@@ -119,6 +126,8 @@ def _cmd_check(args) -> int:
     from .tables import read_nodes, read_picks
     from .workflow import model_grid
 
+    if args.picks and not args.nodes:
+        raise InputError("--picks needs --nodes: picks name nodes of the node table; give both")
     site = load_site(args.site)
     grid, ground = model_grid(site)
     print(f"site: {site.name}: grid {grid.shape[0]} x {grid.shape[1]} x {grid.shape[2]} = "
@@ -174,6 +183,9 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
+    from .allocator import keep_freed_memory_for_reuse
+
+    keep_freed_memory_for_reuse()
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):

@@ -15,6 +15,7 @@ and not an unknown.
 
 from __future__ import annotations
 
+import math
 import os
 from dataclasses import dataclass
 
@@ -73,7 +74,7 @@ class Grid:
 
     @classmethod
     def from_box(cls, origin_m, size_m, cell_m) -> "Grid":
-        """Grid covering a box; the cell count is ``round(size / cell)``.
+        """Grid covering a box; the cell count is ``ceil(size / cell)``.
 
         The box is kept exactly when size is a multiple of the cell size;
         otherwise the grid extends to the next whole cell.
@@ -85,7 +86,9 @@ class Grid:
 
     @property
     def n_cells(self) -> int:
-        return int(np.prod(self.shape))
+        # math.prod on Python ints: np.prod wraps around in int64 for absurd
+        # grids (e.g. a 5 km box with mm cells), which hid them from the memory check
+        return math.prod(self.shape)
 
     @property
     def size_m(self) -> np.ndarray:
@@ -143,7 +146,7 @@ def ground_mask(grid: Grid, ground_elevation_m) -> np.ndarray:
     """
     xs, ys = grid.centres_m(0), grid.centres_m(1)
     x2, y2 = np.meshgrid(xs, ys, indexing="ij")
-    surface = np.asarray(ground_elevation_m(x2, y2), dtype=float)
+    surface = np.broadcast_to(np.asarray(ground_elevation_m(x2, y2), dtype=float), x2.shape)
     zs = grid.centres_m(2)
     return zs[None, None, :] < surface[:, :, None]
 

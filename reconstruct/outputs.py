@@ -14,8 +14,8 @@ import io
 import json
 import os
 import platform
+import secrets
 import sys
-import tempfile
 from contextlib import contextmanager
 from datetime import datetime, timezone
 from importlib import metadata
@@ -47,7 +47,10 @@ def atomic_path(path, suffix: str | None = None):
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     suffix = path.suffix if suffix is None else suffix
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=f".partial{suffix}", dir=path.parent)
+    # not tempfile.mkstemp: it creates mode 0600, and os.replace would keep that,
+    # leaving results unreadable to colleagues; os.open with 0o666 honours the umask
+    tmp = path.parent / f".{path.name}.{secrets.token_hex(8)}.partial{suffix}"
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
     os.close(fd)
     try:
         yield Path(tmp)
@@ -84,6 +87,12 @@ def write_json_atomic(path, data) -> Path:
     """Write ``data`` as indented JSON atomically (NaN written as null)."""
 
     def clean(obj):
+        # arrays and numpy scalars first, so NaN inside them also becomes null
+        # (json.dumps with allow_nan=False would raise on them otherwise)
+        if isinstance(obj, np.ndarray):
+            return clean(obj.tolist())
+        if isinstance(obj, np.generic):
+            obj = obj.item()
         if isinstance(obj, float) and not np.isfinite(obj):
             return None
         if isinstance(obj, np.floating) and not np.isfinite(obj):

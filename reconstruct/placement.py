@@ -107,7 +107,8 @@ def place_nodes(nodes: Nodes, grid: Grid, ground: np.ndarray, *, snap_tolerance_
     others = np.flatnonzero(in_air & ~surface)
     if others.size:
         if not ground.any():
-            raise InputError("the model has no ground cells; check the site's ground surface and model box")
+            raise InputError(f"{nodes.source}: the model has no ground cells to place nodes in; check the "
+                             "site's ground surface and model box")
         _, nearest = ndimage.distance_transform_edt(~ground, sampling=grid.cell_m, return_indices=True)
         for k in others:
             cell = tuple(grid.cell_index(new[k])[0])

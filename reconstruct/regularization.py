@@ -53,8 +53,10 @@ def first_difference_operator(
     ground = np.asarray(ground, dtype=bool)
     if ground.shape != grid.shape:
         raise ValueError(f"ground has shape {ground.shape}, expected {grid.shape}")
-    if horizontal_weight < 0 or vertical_weight < 0:
-        raise ValueError("smoothing weights must be >= 0")
+    # written so that NaN fails too (NaN < 0 is False and would fill the operator with NaN)
+    for name, value in (("horizontal_weight", horizontal_weight), ("vertical_weight", vertical_weight)):
+        if not (np.isfinite(value) and value >= 0):
+            raise ValueError(f"{name} must be finite and >= 0 (got {value!r})")
     index = unknown_index_map(ground).reshape(grid.shape)
     n_unknown = int(ground.sum())
     h_ref = float(np.mean(grid.cell_m))

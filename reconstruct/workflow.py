@@ -20,6 +20,7 @@ from .outputs import (
     write_csv_atomic,
     write_json_atomic,
 )
+from .multilevel import choose_coarsening_factor, coarse_level
 from .placement import NodePlacement, place_nodes
 from .regularization import first_difference_operator
 from .site import Site
@@ -114,9 +115,16 @@ def straight_ray_tomography(
         grid, ground, horizontal_weight=options.horizontal_weight, vertical_weight=options.vertical_weight
     )
     sigma = None if picks.sigma_ns is None else picks.sigma_ns[used]
+    coarse = None
+    factor = choose_coarsening_factor(int(ground.sum()))
+    if options.smoothing is None and factor > 1:
+        coarse = coarse_level(grid, ground, factor, horizontal_weight=options.horizontal_weight,
+                              vertical_weight=options.vertical_weight)
+        _say(progress, f"lambda search on a coarse grid of {factor} x {factor} x {factor} blocks "
+                       f"({int(coarse.ground.sum()):,} unknowns)")
     result = invert_travel_times(
         G, picks.time_ns[used], picks.tx[used], picks.rx[used], len(nodes), ground_flat, reference, D,
-        sigma_ns=sigma, options=options, progress=progress,
+        cell_m=grid.cell_m, sigma_ns=sigma, options=options, coarse=coarse, progress=progress,
     )
     ray_length = np.asarray(G.sum(axis=0)).ravel().reshape(grid.shape)
     ray_count = np.bincount(G.indices, minlength=grid.n_cells).reshape(grid.shape)
@@ -200,7 +208,13 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
     ``manifest.json``. Each is written atomically.
     """
     out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        from .errors import InputError
+
+        raise InputError(f"{out}: cannot create the output folder ({error.strerror}); "
+                         "choose a folder you can write to") from None
     r = run.result
     grid = run.grid
     slowness = r.slowness_ns_per_m.reshape(grid.shape)

@@ -1,0 +1,237 @@
+"""Tests for the ``plan`` command line (``plan.cli.main``): describe and simulate.
+
+Runs are in-process on a small invented site written to pytest's tmp_path
+(20 x 10 x 20 m box, 1 m cells, flat ground at 18 m, 17 nodes).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import io
+import math
+
+import numpy as np
+import pytest
+import scipy.constants
+
+from plan.cli import main
+from reconstruct.tables import read_nodes, read_picks
+
+C_M_PER_NS = scipy.constants.c * 1e-9
+
+SITE_YAML = """\
+# invented test site
+name: test box
+model:
+  origin_m: [0, 0, 0]
+  size_m: [20, 10, 20]
+  cell_m: 1.0
+ground:
+  flat_elevation_m: 18
+rock:
+  velocity_m_per_ns: 0.12
+  conductivity_ms_per_m: 2.5
+  antenna_frequency_mhz: 100
+boreholes:
+  - {id: BH1, collar_m: [4, 5, 18], azimuth_deg: 0, dip_deg: 90, length_m: 16}
+  - {id: BH2, collar_m: [16, 5, 18], azimuth_deg: 0, dip_deg: 90, length_m: 16}
+"""
+
+TRUTH_YAML = """\
+# invented truth model
+bodies:
+  - {name: fast box, shape: box, centre_m: [10, 5, 10], size_m: [4, 4, 4], fill: air}
+noise: {sigma_ns: 0.3, clock_offset_sigma_ns: 1.0, seed: 3}
+refine: 2
+"""
+
+N_NODES = 17
+
+
+def _node_text():
+    rows = ["node_id,x_m,y_m,z_m,kind,borehole"]
+    for hole, x in (("BH1", 4), ("BH2", 16)):
+        for k, z in enumerate(range(16, 3, -2)):
+            rows.append(f"{hole}-{k + 1:02d},{x},5,{z},borehole,{hole}")
+    for k, x in enumerate((2, 10, 18)):
+        rows.append(f"S{k + 1},{x},5,18,surface,")
+    return "\n".join(rows) + "\n"
+
+
+@pytest.fixture()
+def files(tmp_path):
+    paths = {"site": tmp_path / "site.yaml", "nodes": tmp_path / "nodes.csv", "truth": tmp_path / "truth.yaml"}
+    paths["site"].write_text(SITE_YAML, encoding="utf-8")
+    paths["nodes"].write_text(_node_text(), encoding="utf-8")
+    paths["truth"].write_text(TRUTH_YAML, encoding="utf-8")
+    return paths
+
+
+def _run(argv):
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        try:
+            code = main([str(a) for a in argv])
+        except SystemExit as stop:
+            code = stop.code
+    return code, out.getvalue(), err.getvalue()
+
+
+def _simulate(files, out, *extra):
+    return _run(["simulate", "--site", files["site"], "--nodes", files["nodes"],
+                 "--truth", files["truth"], "--out", out, *extra])
+
+
+def _assert_user_error(code, stdout, stderr, *fragments):
+    assert code == 2, (code, stdout, stderr)
+    assert "Traceback" not in stderr and "Traceback" not in stdout
+    lines = stderr.splitlines()
+    first = next((k for k, line in enumerate(lines) if line.startswith("error: ")), None)
+    assert first is not None, stderr
+    message = "\n".join(lines[first:])
+    for fragment in fragments:
+        assert fragment in message, (fragment, message)
+
+
+# -------------------------------------------------------------- simulate
+
+def test_simulate_writes_a_pick_table_that_reconstruct_reads(files, tmp_path):
+    before = {k: p.read_bytes() for k, p in files.items()}
+    out = tmp_path / "picks.csv"
+    code, stdout, stderr = _simulate(files, out)
+    assert code == 0, stderr
+    nodes = read_nodes(files["nodes"])
+    picks = read_picks(out, nodes)
+    assert len(picks) == picks.n_rows == N_NODES * (N_NODES - 1)
+    assert picks.excluded == ()
+    np.testing.assert_array_equal(picks.sigma_ns, 0.3)
+    pairs = set(zip(picks.tx.tolist(), picks.rx.tolist()))
+    assert len(pairs) == math.perm(N_NODES, 2)
+    # shortest pair: neighbouring nodes 2 m apart in one borehole; through rock
+    # at 0.12 m/ns that is 16.7 ns before clock offsets and noise
+    assert picks.time_ns.min() > 5 and picks.time_ns.max() < 300
+    with open(out, newline="", encoding="utf-8") as f:
+        assert next(csv.reader(f)) == ["tx", "rx", "time_ns", "sigma_ns"]
+    assert stdout.strip() == (
+        f"{N_NODES * (N_NODES - 1)} synthetic picks written to {out} (noise 0.3 ns, clock offsets "
+        f"sd 1 ns, times {picks.time_ns.min():.1f} to {picks.time_ns.max():.1f} ns)")
+    assert "simulating 272 picks on a 40 x 20 x 40 grid" in stderr
+    assert {k: p.read_bytes() for k, p in files.items()} == before
+    assert [p.name for p in tmp_path.iterdir() if "partial" in p.name] == []
+
+
+def test_simulate_one_way_quiet_and_clock_out(files, tmp_path):
+    out, clock = tmp_path / "picks.csv", tmp_path / "clock.csv"
+    code, stdout, stderr = _simulate(files, out, "--one-way", "--quiet", "--clock-out", clock)
+    assert code == 0
+    assert stderr == ""
+    picks = read_picks(out, read_nodes(files["nodes"]))
+    assert len(picks) == math.comb(N_NODES, 2)
+    with open(clock, newline="", encoding="utf-8") as f:
+        rows = list(csv.DictReader(f))
+    assert [r["node_id"] for r in rows] == list(read_nodes(files["nodes"]).ids)
+    tau = np.array([float(r["clock_offset_ns"]) for r in rows])
+    assert abs(tau.mean()) < 1e-3  # mean zero, written to 1e-4 ns
+    assert tau.std() > 0.2
+
+
+def test_simulate_is_repeatable(files, tmp_path):
+    a, b = tmp_path / "a.csv", tmp_path / "b.csv"
+    assert _simulate(files, a, "--quiet")[0] == 0
+    assert _simulate(files, b, "--quiet")[0] == 0
+    assert a.read_bytes() == b.read_bytes()
+
+
+def test_simulate_max_distance(files, tmp_path):
+    out = tmp_path / "picks.csv"
+    code, _, _ = _simulate(files, out, "--max-distance", "6", "--quiet")
+    assert code == 0
+    nodes = read_nodes(files["nodes"])
+    picks = read_picks(out, nodes)
+    # surface nodes are snapped to 18 m before distances are measured; all
+    # other nodes keep their table positions
+    xyz = np.array(nodes.xyz_m)
+    xyz[[k for k, kind in enumerate(nodes.kinds) if kind == "surface"], 2] = 18.0
+    d = np.linalg.norm(xyz[:, None] - xyz[None, :], axis=-1)
+    expected = int(((d <= 6.0 + 1e-5) & ~np.eye(len(nodes), dtype=bool)).sum())
+    assert len(picks) == expected
+
+
+def test_simulate_bad_truth_is_a_user_error(files, tmp_path):
+    files["truth"].write_text("bodys: []\n", encoding="utf-8")
+    code, out, err = _simulate(files, tmp_path / "picks.csv")
+    _assert_user_error(code, out, err, str(files["truth"]), "bodys: unknown key; did you mean 'bodies'?")
+    assert not (tmp_path / "picks.csv").exists()
+
+
+def test_simulate_missing_truth_file(files, tmp_path):
+    missing = tmp_path / "nowhere.yaml"
+    files["truth"] = missing
+    code, out, err = _simulate(files, tmp_path / "picks.csv")
+    _assert_user_error(code, out, err, str(missing), "cannot read the truth model")
+
+
+def test_simulate_node_outside_box(files, tmp_path):
+    with open(files["nodes"], "a", encoding="utf-8") as f:
+        f.write("FAR,40,5,10,borehole,\n")
+    code, out, err = _simulate(files, tmp_path / "picks.csv")
+    _assert_user_error(code, out, err, str(files["nodes"]), f"line {N_NODES + 2}: node FAR",
+                       "outside the model box")
+
+
+def test_simulate_with_no_pairs_left_is_a_user_error(files, tmp_path):
+    code, out, err = _simulate(files, tmp_path / "picks.csv", "--max-distance", "0.5", "--quiet")
+    _assert_user_error(code, out, err, "--max-distance")
+
+
+# -------------------------------------------------------------- describe
+
+def test_describe_prints_grid_ground_and_rock(files):
+    code, out, err = _run(["describe", files["site"]])
+    assert code == 0, err
+    assert "site: test box" in out
+    # 20 x 10 x 20 cells; cell centres below 18 m: 18 of the 20 layers are ground
+    assert "grid: 20 x 10 x 20 cells of 1 x 1 x 1 m = 4,000 cells; 3,600 ground (unknowns), 400 air" in out
+    assert "ground surface (flat): 18 to 18 m elevation" in out
+    # K = (c / v)^2 for low-loss rock; wavelength = v / f = 0.12 m/ns / 0.1 GHz
+    k = (C_M_PER_NS / 0.12) ** 2
+    assert f"rock: 0.1200 m/ns (K = {k:.2f})" in out
+    assert f"K = {k:.2f}" == "K = 6.24"
+    assert "2.5 mS/m, antenna 100 MHz, wavelength in rock 1.20 m" in out
+    assert "boreholes: 2; planned works: 0; exclusion zones: 0" in out
+
+
+def test_describe_bad_site_is_a_user_error(files):
+    files["site"].write_text(SITE_YAML.replace("cell_m: 1.0", "cell_m: -1"), encoding="utf-8")
+    code, out, err = _run(["describe", files["site"]])
+    _assert_user_error(code, out, err, str(files["site"]), "model.cell_m must be greater than 0")
+
+
+# -------------------------------------------------------------- help
+
+def _help(argv, capsys) -> str:
+    with pytest.raises(SystemExit) as stop:
+        main(argv)
+    assert stop.value.code == 0
+    return " ".join(capsys.readouterr().out.split())  # argparse wraps lines
+
+
+def test_plan_help_mentions_units(capsys):
+    text = _help(["--help"], capsys)
+    assert "describe" in text and "simulate" in text
+    for unit in ("metres (m)", "nanoseconds (ns)", "m/ns", "MHz"):
+        assert unit in text
+
+
+def test_simulate_help_mentions_units(capsys):
+    text = _help(["simulate", "--help"], capsys)
+    for unit in ("metres (m)", "nanoseconds (ns)", "m/ns", "M metres", "tx,rx,time_ns,sigma_ns"):
+        assert unit in text
+    for option in ("--site", "--nodes", "--truth", "--out", "--clock-out", "--one-way", "--max-distance"):
+        assert option in text
+
+
+def test_no_subcommand_prints_help_and_exits_2(capsys):
+    assert main([]) == 2
+    assert "usage: plan" in capsys.readouterr().out

@@ -312,7 +312,7 @@ def _record(search, level, lam, sol, n_picks):
                        roughness=sol.roughness, iterations=sol.iterations))
 
 
-def _sweep(problem, options, n_picks, stop_below, progress, level, search, tolerance):
+def _sweep(problem, options, n_picks, stop_below, progress, level, search, tolerance, x_start):
     """Solve for lambda from large to small, each warm-started from the last.
 
     Stops early once chi^2 <= ``stop_below`` (None: never), or once chi^2 falls
@@ -322,7 +322,7 @@ def _sweep(problem, options, n_picks, stop_below, progress, level, search, toler
     ratio = options.damping_ratio
     lambdas = np.geomspace(options.lambda_max, options.lambda_min, options.n_lambda)
     trials = []
-    y0 = None
+    y0 = x_start * problem.scale
     for k, lam in enumerate(lambdas):
         sol = problem.solve(lam, ratio * lam, y0, options.max_iterations, tolerance)
         y0 = sol.y
@@ -553,6 +553,20 @@ def invert_travel_times(
     if kappa_damp == 0:
         raise ValueError("no ray passes through a ground cell")
 
+    # Time-zeros first, with the reference model held fixed: a small problem
+    # (one unknown per node) whose answer starts every solve. Without it LSQR
+    # creeps towards large offsets, since a slowness change around a node
+    # mimics part of a time-zero term.
+    if options.time_zero == "none":
+        tau_start = np.zeros(0)
+    else:
+        WC = (weighted @ C).tocsr()
+        tau_start = lsqr(WC, weight * residual_ref, damp=1e-6, atol=1e-10, btol=1e-10,
+                         iter_lim=20 * n_nodes + 100)[0]
+
+    def start(n_cells_level):
+        return np.concatenate([np.zeros(n_cells_level), tau_start])
+
     fine = _ScaledProblem(assemble(Gg), weight * residual_ref, smoothing_operator, n_slowness,
                           cell, kappa_damp, kappa_smooth)
     ratio = options.damping_ratio
@@ -560,7 +574,8 @@ def invert_travel_times(
     search: list = []
     if options.smoothing is not None:
         lam = float(options.smoothing)
-        sol = fine.solve(lam, ratio * lam, None, options.max_iterations, options.tolerance)
+        sol = fine.solve(lam, ratio * lam, start(n_slowness) * fine.scale, options.max_iterations,
+                         options.tolerance)
         _record(search, "fine", lam, sol, n_picks)
         method, note = "user", "set by the user"
     else:
@@ -575,7 +590,8 @@ def invert_travel_times(
             )
         trials = _sweep(level_problem, options, n_picks,
                         (2.0 if coarse is not None else 1.0) * target if have_sigma else None, progress,
-                        level, search, options.search_tolerance if coarse is not None else options.tolerance)
+                        level, search, options.search_tolerance if coarse is not None else options.tolerance,
+                        start(level_problem.n_slowness))
         chi2s = np.array([t[1].misfit ** 2 for t in trials])
         if have_sigma:
             method = "discrepancy"

@@ -175,6 +175,8 @@ def _summary(run: TomographyRun) -> dict:
         },
         "solver": {
             "name": "scipy.sparse.linalg.lsqr", "iterations": r.iterations,
+            "solves": len(r.lambda_search),
+            "total_iterations": int(sum(s["iterations"] for s in r.lambda_search)),
             "stop_code": r.stop_code, "stop_reason": r.stop_reason,
         },
         "time_zero": {

@@ -11,6 +11,7 @@ import time
 from pathlib import Path
 
 from reconstruct import __version__
+from reconstruct.cli import run_command
 from reconstruct.errors import InputError
 
 __all__ = ["main"]
@@ -118,20 +119,5 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    if not getattr(args, "func", None):
-        parser.print_help()
-        return 2
-    try:
-        return args.func(args)
-    except InputError as error:
-        print(f"error: {error}", file=sys.stderr)
-        return 2
-    except MemoryError:
-        print("error: out of memory; use a smaller refine in the truth model or larger cells",
-              file=sys.stderr)
-        return 3
-    except KeyboardInterrupt:
-        print("interrupted; files already written are complete, none is half-written", file=sys.stderr)
-        return 130
+    return run_command(build_parser(), argv,
+                       memory_hint="use a smaller refine in the truth model or larger cells")

@@ -182,11 +182,17 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def main(argv=None) -> int:
+def run_command(parser: argparse.ArgumentParser, argv, *, memory_hint: str) -> int:
+    """Parse ``argv``, run the chosen subcommand and turn user errors into exit codes.
+
+    Shared by the ``reconstruct`` and ``plan`` commands: an :class:`InputError`
+    prints its message on stderr and returns 2; running out of memory returns 3
+    with ``memory_hint``; Ctrl-C returns 130. Other exceptions are bugs and
+    keep their traceback.
+    """
     from .allocator import keep_freed_memory_for_reuse
 
     keep_freed_memory_for_reuse()
-    parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()
@@ -197,9 +203,13 @@ def main(argv=None) -> int:
         print(f"error: {error}", file=sys.stderr)
         return 2
     except MemoryError:
-        print("error: out of memory; use larger cells (model.cell_m) or a smaller model box",
-              file=sys.stderr)
+        print(f"error: out of memory; {memory_hint}", file=sys.stderr)
         return 3
     except KeyboardInterrupt:
         print("interrupted; files already written are complete, none is half-written", file=sys.stderr)
         return 130
+
+
+def main(argv=None) -> int:
+    return run_command(build_parser(), argv,
+                       memory_hint="use larger cells (model.cell_m) or a smaller model box")

@@ -296,14 +296,26 @@ class _ScaledProblem:
 
 
 def _l_curve_corner(log_rho: np.ndarray, log_eta: np.ndarray) -> int:
-    """Index of largest curvature of the parametric curve (log rho, log eta)."""
-    t = np.arange(log_rho.size, dtype=float)
-    d_r, d_e = np.gradient(log_rho, t), np.gradient(log_eta, t)
-    dd_r, dd_e = np.gradient(d_r, t), np.gradient(d_e, t)
-    kappa = (d_r * dd_e - dd_r * d_e) / np.maximum((d_r**2 + d_e**2) ** 1.5, 1e-300)
-    interior = kappa[1:-1]
-    # the L-curve traversed from large to small lambda turns one way at its corner
-    return int(np.argmax(interior) + 1) if interior.size else 0
+    """Index of the corner of a sampled L-curve, traversed from large to small lambda.
+
+    The curve (log residual norm, log regularisation norm) runs left along its
+    flat leg, then turns up its steep leg; the corner is the point of largest
+    curvature (Hansen, 1992). On a few samples whose spacing shrinks along the
+    steep leg, finite-difference curvature is dominated by the spacing, so the
+    discrete version used here is the interior point with the largest
+    clockwise turning angle between its two segments (in the spirit of the
+    triangle method of Castellanos, Gomez and Guerra, 2002, Applied Numerical
+    Mathematics 43, 359-373; cited from memory).
+    """
+    points = np.c_[np.asarray(log_rho, float), np.asarray(log_eta, float)]
+    if points.shape[0] < 3:
+        return 0
+    seg = np.diff(points, axis=0)
+    angle = np.arctan2(seg[:, 1], seg[:, 0])
+    turn = np.angle(np.exp(1j * (angle[1:] - angle[:-1])))  # wrapped to (-pi, pi]
+    tiny = np.linalg.norm(seg, axis=1) < 1e-12
+    turn[tiny[1:] | tiny[:-1]] = np.inf  # a repeated point has no direction
+    return int(np.argmin(turn)) + 1
 
 
 def _record(search, level, lam, sol, n_picks):
@@ -312,7 +324,7 @@ def _record(search, level, lam, sol, n_picks):
                        roughness=sol.roughness, iterations=sol.iterations))
 
 
-def _sweep(problem, options, n_picks, stop_below, progress, level, search, tolerance, x_start):
+def _sweep(problem, options, n_picks, stop_below, progress, level, search, tolerance, x_start, lambdas=None):
     """Solve for lambda from large to small, each warm-started from the last.
 
     Stops early once chi^2 <= ``stop_below`` (None: never), or once chi^2 falls
@@ -320,7 +332,8 @@ def _sweep(problem, options, n_picks, stop_below, progress, level, search, toler
     Returns a list of ``(lambda, _Solve)``.
     """
     ratio = options.damping_ratio
-    lambdas = np.geomspace(options.lambda_max, options.lambda_min, options.n_lambda)
+    if lambdas is None:
+        lambdas = np.geomspace(options.lambda_max, options.lambda_min, options.n_lambda)
     trials = []
     y0 = x_start * problem.scale
     for k, lam in enumerate(lambdas):
@@ -614,12 +627,23 @@ def invert_travel_times(
             x_coarse = start_sol.y / level_problem.scale
             n_c = coarse.prolongation.shape[1]
             x0 = np.concatenate([coarse.prolongation @ x_coarse[:n_c], x_coarse[n_c:]])
-            sol = fine.solve(lam, ratio * lam, x0 * fine.scale, options.max_iterations,
-                             options.search_tolerance if method == "discrepancy" else options.tolerance)
-            _record(search, "fine", lam, sol, n_picks)
-            if progress:
-                progress(f"fine grid: lambda {lam:.4g}, weighted misfit^2 {sol.misfit**2:.5g}, "
-                         f"{sol.iterations} iterations")
+            if method == "discrepancy":
+                sol = fine.solve(lam, ratio * lam, x0 * fine.scale, options.max_iterations,
+                                 options.search_tolerance)
+                _record(search, "fine", lam, sol, n_picks)
+                if progress:
+                    progress(f"fine grid: lambda {lam:.4g}, weighted misfit^2 {sol.misfit**2:.5g}, "
+                             f"{sol.iterations} iterations")
+            else:
+                # The coarse curve levels off early (its cells cannot fit small
+                # bodies), which moves its corner to larger lambda: trace the
+                # L-curve again on the model grid from there downwards.
+                fine_lambdas = lam * np.geomspace(10**0.5, 10**-2.5, 7)
+                fine_trials = _sweep(fine, options, n_picks, None, progress, "fine", search,
+                                     options.tolerance, x0, lambdas=fine_lambdas)
+                k = _l_curve_choice(fine_trials, ratio) if len(fine_trials) >= 3 else len(fine_trials) - 1
+                lam, sol = fine_trials[k]
+                trials = fine_trials
         else:
             sol = start_sol
         if method == "discrepancy":

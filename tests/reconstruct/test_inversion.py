@@ -121,15 +121,20 @@ def test_l_curve_is_used_without_sigmas():
 
 def test_l_curve_corner_is_on_the_rounded_corner_of_an_l():
     # Hansen (1992): the corner is the point of largest curvature. Geometry: an L
-    # made of two straight legs joined by a quarter circle of radius 1 (curvature
-    # 1) around (1, 1); straight legs have zero curvature.
-    leg1 = np.c_[np.zeros(6), np.linspace(6, 1, 6, endpoint=False)]
-    angles = np.linspace(np.pi, 1.5 * np.pi, 7)
+    # traversed as an L-curve is from large to small lambda (left along the flat
+    # leg y = 0, then up the steep leg x = 0), with the legs joined by a quarter
+    # circle of radius 1 around (1, 1): curvature 1 on the arc, 0 on the legs.
+    flat = np.c_[np.linspace(6, 1, 6)[:-1], np.zeros(5)]
+    angles = np.linspace(1.5 * np.pi, np.pi, 7)
     arc = np.c_[1 + np.cos(angles), 1 + np.sin(angles)]
-    leg2 = np.c_[np.linspace(1, 6, 6)[1:], np.zeros(5)]
-    points = np.r_[leg1, arc, leg2]
+    steep = np.c_[np.zeros(5), np.linspace(1, 6, 6)[1:]]
+    points = np.r_[flat, arc, steep]
     k = _l_curve_corner(points[:, 0], points[:, 1])
-    assert 6 <= k <= 12  # an index on the arc
+    assert 5 <= k <= 11  # an index on the arc
+    # samples bunched at the end of the steep leg (as when the misfit levels
+    # off) must not pull the corner there
+    bunched = np.r_[flat, arc, np.c_[np.zeros(4), 1 + np.cumsum([1.0, 0.1, 0.01, 0.001])]]
+    assert 5 <= _l_curve_corner(bunched[:, 0], bunched[:, 1]) <= 11
 
 
 def test_lsqr_equals_dense_lstsq_on_the_stacked_system():

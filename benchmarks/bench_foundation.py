@@ -15,10 +15,14 @@ from __future__ import annotations
 
 import argparse
 import resource
+import sys
 import time
+from pathlib import Path
 
 import numpy as np
 from scipy.sparse.linalg import lsqr
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
 
 from reconstruct.allocator import keep_freed_memory_for_reuse
 from reconstruct.grid import Grid, ground_mask

@@ -68,6 +68,24 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
     g.add_argument("--snap-tolerance", type=float, default=None, metavar="M",
                    help="largest allowed shift in metres when a node is snapped onto the ground "
                         "(default: the larger of 2 m and two cell diagonals)")
+    b = p.add_argument_group("bent rays")
+    b.add_argument("--rays", choices=("straight", "bent"), default="straight",
+                   help="forward model: 'straight' rays, or 'bent' rays traced through eikonal "
+                        "travel-time fields (air included), iterated from the straight-ray model")
+    b.add_argument("--iterations", type=int, default=4, metavar="N",
+                   help="bent-ray iterations after the straight-ray start (default 4); stops earlier "
+                        "when the misfit improves by less than 2 %%")
+    b.add_argument("--executor", choices=("serial", "processes", "dask"), default="processes",
+                   help="where the per-node travel-time fields are computed: 'processes' (default, a "
+                        "local process pool on all cores), 'serial', or 'dask'")
+    b.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="number of local worker processes (default: all cores)")
+    b.add_argument("--scheduler", default=None, metavar="tcp://HOST:PORT",
+                   help="address of a running Dask scheduler; sends the per-node work to that "
+                        "cluster (implies --executor dask)")
+    b.add_argument("--write-rays", action="store_true",
+                   help="also write rays.vtp: the final bent rays as polylines with pair ids and "
+                        "observed and predicted times (ns)")
 
 
 def _options_from(args):
@@ -101,7 +119,20 @@ def _cmd_invert(args) -> int:
     nodes = read_nodes(args.nodes)
     picks = read_picks(args.picks, nodes)
     say(f"read {len(nodes)} nodes and {picks.n_rows} pick rows ({len(picks.excluded)} excluded on reading)")
-    run = straight_ray_tomography(site, nodes, picks, options, snap_tolerance_m=args.snap_tolerance, progress=say)
+    if args.rays == "bent":
+        from .bent_tomography import BentOptions, bent_ray_tomography
+        from .parallel import executor_from_options
+
+        executor = executor_from_options(args.executor if args.scheduler is None else "dask",
+                                         args.workers, args.scheduler)
+        bent = BentOptions(max_iterations=args.iterations, keep_rays=args.write_rays)
+        run = bent_ray_tomography(site, nodes, picks, options, bent=bent, executor=executor,
+                                  snap_tolerance_m=args.snap_tolerance, progress=say)
+    else:
+        if args.write_rays:
+            raise InputError("--write-rays needs --rays bent (straight rays are the node-to-node lines)")
+        run = straight_ray_tomography(site, nodes, picks, options, snap_tolerance_m=args.snap_tolerance,
+                                      progress=say)
     parameters = {k: v for k, v in vars(args).items() if k not in ("func", "quiet")}
     summary = write_tomography(
         run, args.out, inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
@@ -112,6 +143,9 @@ def _cmd_invert(args) -> int:
     print(f"site: {summary['site']}")
     print(f"picks inverted: {summary['picks']['inverted']} (excluded {summary['picks']['excluded']}, "
           f"see excluded_picks.csv)")
+    if len(summary["iterations"]) > 1:
+        steps = ", ".join(f"{h['rms_ns']:.3f}" for h in summary["iterations"])
+        print(f"rays: {summary['rays']}; RMS per iteration (ns): {steps}")
     print(f"misfit: RMS {m['rms_ns']:.3f} ns{chi}")
     print(f"lambda: {lam['smoothing']:.4g} by {lam['method']} ({lam['note']})")
     print(f"ground velocity: {v['ground_min']:.4f} to {v['ground_max']:.4f} m/ns, median "
@@ -154,11 +188,11 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser(
-        "invert", help="invert first-arrival times into a velocity cube (straight rays)",
-        description="Invert first-arrival pick times into a velocity voxel cube with straight "
-                    "rays, regularised LSQR and a time-zero term per node. Writes velocity.vti, "
+        "invert", help="invert first-arrival times into a velocity cube (straight or bent rays)",
+        description="Invert first-arrival pick times into a velocity voxel cube with straight or "
+                    "bent rays, regularised LSQR and a time-zero term per node. Writes velocity.vti, "
                     "residuals.csv, time_zero.csv, nodes_used.csv, excluded_picks.csv, "
-                    "summary.json and manifest.json into OUT.",
+                    "summary.json, manifest.json and, with --write-rays, rays.vtp into OUT.",
         epilog=_EPILOG_UNITS,
     )
     p.add_argument("--site", required=True, help="site description (YAML)")

@@ -29,6 +29,7 @@ __all__ = [
     "write_json_atomic",
     "write_csv_atomic",
     "write_cell_arrays_vti",
+    "write_rays_vtp",
     "sha256_of_file",
     "package_versions",
     "build_manifest",
@@ -143,6 +144,87 @@ def write_cell_arrays_vti(path, grid, cell_arrays: dict) -> Path:
         image.cell_data[name] = values.ravel(order="F")  # VTK: x varies fastest
     with atomic_path(path, suffix=".vti") as tmp:
         image.save(str(tmp), binary=True)
+    return Path(path)
+
+
+def _string_array(name, values):
+    """A VTK string array (UTF-8), built directly: pyvista's own conversion
+    refuses non-ASCII text, and node ids may be any UTF-8 text."""
+    from vtkmodules.vtkCommonCore import vtkStringArray
+
+    array = vtkStringArray()
+    array.SetName(name)
+    array.SetNumberOfValues(len(values))
+    for i, value in enumerate(values):
+        array.SetValue(i, str(value))
+    return array
+
+
+def write_rays_vtp(path, polylines, *, tx_ids, rx_ids, observed_ns=None, predicted_ns=None, lines=None) -> Path:
+    """Write ray paths as VTK XML poly data (``.vtp``), one polyline per ray, atomically.
+
+    Parameters
+    ----------
+    path : path-like
+    polylines : list of ndarray, each of shape (k_i, 3), k_i >= 2
+        Points of each ray from transmitter to receiver, metres, columns x, y, z.
+    tx_ids, rx_ids : sequence of str, length n_rays
+        Transmitter and receiver node ids, written as the string cell arrays
+        ``tx`` and ``rx`` (UTF-8).
+    observed_ns, predicted_ns : sequence of float, length n_rays, optional
+        Picked and modelled travel times in ns (NaN allowed), written as cell
+        arrays of the same names.
+    lines : sequence of int, length n_rays, optional
+        Line of each pick in the pick table, written as cell array ``line``.
+
+    Notes
+    -----
+    Cell ``i`` is ray ``i``; the cell array ``pair_index`` holds ``i`` so that
+    a selection made in a viewer can be traced back to the input order.
+    """
+    import pyvista  # imported here only: the numerical core never needs it
+
+    n_rays = len(polylines)
+    points = []
+    for i, polyline in enumerate(polylines):
+        polyline = np.asarray(polyline, dtype=float)
+        if polyline.ndim != 2 or polyline.shape[1] != 3 or polyline.shape[0] < 2:
+            raise ValueError(f"polylines[{i}] has shape {polyline.shape}; expected (k, 3) with k >= 2")
+        if not np.all(np.isfinite(polyline)):
+            raise ValueError(f"polylines[{i}] has non-finite coordinates")
+        points.append(polyline)
+    for name, values in (("tx_ids", tx_ids), ("rx_ids", rx_ids)):
+        if len(values) != n_rays:
+            raise ValueError(f"{name} has {len(values)} entries, expected one per polyline ({n_rays})")
+    numbers = {}
+    for name, values, dtype in (
+        ("observed_ns", observed_ns, np.float64),
+        ("predicted_ns", predicted_ns, np.float64),
+        ("line", lines, np.int64),
+    ):
+        if values is None:
+            continue
+        values = np.asarray(values, dtype=dtype)
+        if values.shape != (n_rays,):
+            argument = "lines" if name == "line" else name
+            raise ValueError(f"{argument} has shape {values.shape}, expected ({n_rays},)")
+        numbers[name] = values
+
+    if n_rays:
+        counts = np.array([p.shape[0] for p in points], dtype=np.int64)
+        starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+        # VTK legacy cell layout: for each cell its point count, then its point numbers
+        cells = np.concatenate([np.concatenate(([k], s + np.arange(k))) for k, s in zip(counts, starts)])
+        rays = pyvista.PolyData(np.vstack(points), lines=cells)
+    else:
+        rays = pyvista.PolyData()
+    rays.cell_data["pair_index"] = np.arange(n_rays, dtype=np.int64)
+    rays.GetCellData().AddArray(_string_array("tx", tx_ids))
+    rays.GetCellData().AddArray(_string_array("rx", rx_ids))
+    for name, values in numbers.items():
+        rays.cell_data[name] = values
+    with atomic_path(path, suffix=".vtp") as tmp:
+        rays.save(str(tmp), binary=True)
     return Path(path)
 
 

@@ -48,6 +48,8 @@ class TomographyRun:
     options: InversionOptions
     rays: str = "straight"
     notes: tuple = field(default=())
+    history: tuple = field(default=())  # per-iteration misfits of bent-ray runs
+    polylines: list | None = None  # rays per inverted pick, when kept
 
 
 def model_grid(site: Site, *, memory_limit_bytes: int | None = None):
@@ -147,6 +149,9 @@ def _summary(run: TomographyRun) -> dict:
     return {
         "site": run.site.name,
         "rays": run.rays,
+        "iterations": list(run.history) if run.history else [
+            {"iteration": 0, "rays": "straight", "rms_ns": r.rms_ns, "chi2": r.chi2,
+             "lambda_smooth": r.lambda_smooth}],
         "grid": {
             "origin_m": list(run.grid.origin_m), "cell_m": list(run.grid.cell_m),
             "shape": list(run.grid.shape), "n_cells": run.grid.n_cells,
@@ -206,8 +211,9 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
     """Write the output folder of a run; returns the summary dictionary.
 
     Files: ``velocity.vti``, ``residuals.csv``, ``time_zero.csv``,
-    ``nodes_used.csv``, ``excluded_picks.csv``, ``summary.json`` and, last,
-    ``manifest.json``. Each is written atomically.
+    ``nodes_used.csv``, ``excluded_picks.csv``, ``rays.vtp`` (when the run kept
+    its rays), ``summary.json`` and, last, ``manifest.json``. Each is written
+    atomically.
     """
     out = Path(out_dir)
     try:
@@ -261,6 +267,13 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
         out / "excluded_picks.csv", ["line", "tx", "rx", "time_ns", "reason"],
         ([e.line, e.tx, e.rx, e.time_text, e.reason] for e in run.excluded),
     ))
+    if run.polylines is not None:
+        from .outputs import write_rays_vtp
+
+        written.append(write_rays_vtp(
+            out / "rays.vtp", run.polylines, tx_ids=[ids[picks.tx[k]] for k in u],
+            rx_ids=[ids[picks.rx[k]] for k in u], observed_ns=picks.time_ns[u], predicted_ns=r.predicted_ns,
+            lines=picks.lines[u]))
     summary = _summary(run)
     written.append(write_json_atomic(out / "summary.json", summary))
     manifest = build_manifest(

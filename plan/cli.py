@@ -64,8 +64,12 @@ def _cmd_simulate(args) -> int:
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
     truth = load_truth(args.truth)
+    from reconstruct.parallel import executor_from_options
+
+    executor = executor_from_options(args.executor, args.workers, None)
     survey = simulate_picks(site, nodes, truth, both_directions=not args.one_way,
-                            max_distance_m=args.max_distance, progress=say)
+                            max_distance_m=args.max_distance, rays=args.rays, executor=executor,
+                            progress=say)
     if survey.tx.size == 0:
         raise InputError(
             f"no transmitter-receiver pair to simulate ({len(nodes)} nodes"
@@ -113,6 +117,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--one-way", action="store_true", help="one pick per pair instead of both directions")
     p.add_argument("--max-distance", type=float, default=None, metavar="M",
                    help="leave out pairs further apart than M metres")
+    p.add_argument("--rays", choices=("bent", "straight"), default="bent",
+                   help="'bent' (default): true first arrivals from eikonal travel-time fields, air "
+                        "included (air waves, rays drawn into fast voids); 'straight': slowness "
+                        "integrated along straight lines, for straight-ray tests only")
+    p.add_argument("--executor", choices=("serial", "processes"), default="processes",
+                   help="where the travel-time fields are computed (default: a local process pool)")
+    p.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="number of worker processes (default: all cores)")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     p.set_defaults(func=_cmd_simulate)
     return parser

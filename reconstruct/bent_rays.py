@@ -154,7 +154,7 @@ def trace_rays(field: TimeField, receivers_xyz_m, *, step_fraction: float = 0.5,
 
 
 @njit(cache=True)
-def _polyline_cells(points, origin, cell, shape, cols, lens):
+def _polyline_cells(points, origin, cell, shape, slowness, face_tolerance, cols, lens):
     """Exact per-cell lengths of one polyline; returns the number of entries."""
     count = 0
     alphas = np.empty(64)
@@ -188,14 +188,31 @@ def _polyline_cells(points, origin, cell, shape, cols, lens):
             if da * length <= 1e-12:
                 continue
             am = 0.5 * (seg[q] + seg[q + 1])
-            flat = 0
+            ijk = np.empty(3, np.int64)
             for a in range(3):
                 idx = int(np.floor((p0[a] + am * d[a] - origin[a]) / cell[a]))
-                if idx < 0:
-                    idx = 0
-                if idx > shape[a] - 1:
-                    idx = shape[a] - 1
-                flat = flat * shape[a] + idx
+                ijk[a] = min(max(idx, 0), shape[a] - 1)
+            if face_tolerance > 0.0:
+                # A piece that runs along a cell face (both ends within the tolerance
+                # of it) is a head wave on that face: it travels in the faster of the
+                # two cells sharing the face (Podvin and Lecomte, 1991).
+                for a in range(3):
+                    ua = p0[a] + seg[q] * d[a]
+                    ub = p0[a] + seg[q + 1] * d[a]
+                    lower = origin[a] + ijk[a] * cell[a]
+                    for side in range(2):
+                        face = lower + side * cell[a]
+                        if (abs(ua - face) <= face_tolerance * cell[a]
+                                and abs(ub - face) <= face_tolerance * cell[a]):
+                            other = ijk[a] + (1 if side == 1 else -1)
+                            if 0 <= other < shape[a]:
+                                here = slowness[ijk[0], ijk[1], ijk[2]]
+                                nb = ijk.copy()
+                                nb[a] = other
+                                if slowness[nb[0], nb[1], nb[2]] < here:
+                                    ijk[a] = other
+                            break
+            flat = (ijk[0] * shape[1] + ijk[1]) * shape[2] + ijk[2]
             if count >= cols.size:
                 return -1
             cols[count] = flat
@@ -204,15 +221,24 @@ def _polyline_cells(points, origin, cell, shape, cols, lens):
     return count
 
 
-def polyline_matrix(grid: Grid, polylines) -> sp.csr_matrix:
+def polyline_matrix(grid: Grid, polylines, *, slowness_ns_per_m=None, face_tolerance: float = 0.25) -> sp.csr_matrix:
     """Per-cell path lengths of polylines, shape (n_rays, grid.n_cells), metres.
 
     Points outside the grid are clamped into the edge cells (rays are traced
-    inside the model box).
+    inside the model box). With ``slowness_ns_per_m`` (shape grid.shape), a piece
+    of a ray that runs along a cell face, within ``face_tolerance`` cell sizes,
+    is given to the faster of the two cells that share the face: a ray traced
+    through a travel-time field follows a head wave (the air wave along the
+    ground surface above all) only to within a fraction of a cell.
     """
     origin = np.asarray(grid.origin_m, dtype=float)
     cell = np.asarray(grid.cell_m, dtype=float)
     shape = np.asarray(grid.shape, dtype=np.int64)
+    if slowness_ns_per_m is None:
+        slowness = np.zeros((1, 1, 1))
+        face_tolerance = 0.0
+    else:
+        slowness = np.ascontiguousarray(np.asarray(slowness_ns_per_m, dtype=float).reshape(grid.shape))
     rows, cols_all, lens_all = [], [], []
     for i, pts in enumerate(polylines):
         pts = np.ascontiguousarray(pts, dtype=float)
@@ -220,7 +246,7 @@ def polyline_matrix(grid: Grid, polylines) -> sp.csr_matrix:
         while True:
             cols = np.empty(capacity, dtype=np.int64)
             lens = np.empty(capacity)
-            n = _polyline_cells(pts, origin, cell, shape, cols, lens)
+            n = _polyline_cells(pts, origin, cell, shape, slowness, float(face_tolerance), cols, lens)
             if n >= 0:
                 break
             capacity *= 2

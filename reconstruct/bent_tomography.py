@@ -48,7 +48,8 @@ from .parallel import Executor, map_tasks
 from .regularization import first_difference_operator
 from .workflow import TomographyRun, straight_ray_tomography
 
-__all__ = ["BentOptions", "ForwardResult", "choose_sources", "bent_ray_forward", "bent_ray_tomography"]
+__all__ = ["BentOptions", "ForwardResult", "choose_sources", "bent_ray_forward", "bent_ray_tomography",
+           "first_arrival_times"]
 
 
 @dataclass(frozen=True)
@@ -126,7 +127,7 @@ def _forward_task(task, shared):
     field = travel_time_field(grid, shared["slowness"], xyz[source], options=shared["eikonal"])
     times = field.interpolate(xyz[others])
     polylines, reached = trace_rays(field, xyz[others])
-    matrix = polyline_matrix(grid, polylines)
+    matrix = polyline_matrix(grid, polylines, slowness_ns_per_m=shared["slowness"])
     return {
         "pair_index": pair_index,
         "time_ns": times,
@@ -136,6 +137,36 @@ def _forward_task(task, shared):
         "reached": reached,
         "polylines": polylines if shared["keep_rays"] else None,
     }
+
+
+def _times_task(task, shared):
+    """One source: its field and the first-arrival times at the other ends of its pairs."""
+    from .eikonal import travel_time_field
+
+    source, pair_index, others = task
+    grid = Grid(**shared["grid"])
+    xyz = shared["xyz"]
+    field = travel_time_field(grid, shared["slowness"], xyz[source], options=shared["eikonal"])
+    return pair_index, field.interpolate(xyz[others])
+
+
+def first_arrival_times(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, executor: Executor,
+                        eikonal_options=None, progress=None) -> np.ndarray:
+    """First-arrival times (ns) of node pairs through a model, without tracing rays."""
+    from .eikonal import EikonalOptions
+
+    xyz = np.asarray(xyz_m, dtype=float)
+    tasks = choose_sources(pair_a, pair_b, xyz.shape[0])
+    shared = {
+        "grid": {"origin_m": grid.origin_m, "cell_m": grid.cell_m, "shape": grid.shape},
+        "slowness": np.ascontiguousarray(np.asarray(slowness_ns_per_m, dtype=float).reshape(grid.shape)),
+        "xyz": xyz,
+        "eikonal": eikonal_options if eikonal_options is not None else EikonalOptions(),
+    }
+    times = np.empty(np.asarray(pair_a).size)
+    for index, values in map_tasks(executor, _times_task, tasks, shared=shared, progress=progress):
+        times[index] = values
+    return times
 
 
 def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, executor: Executor,
@@ -185,6 +216,17 @@ def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, ex
     inverse[order] = np.arange(order.size)
     operator = stacked[inverse]
     return ForwardResult(time_ns=time_ns, operator=operator, reached=reached, polylines=polylines)
+
+
+def _best_time_zero(C, weight, residual):
+    """Time-zeros that best explain a residual on their own (weighted least squares)."""
+    from scipy.sparse.linalg import lsqr
+
+    if C.nnz == 0:
+        return np.zeros(C.shape[1])
+    WC = sp.diags(weight) @ C
+    tau = lsqr(WC, weight * residual, damp=1e-6, atol=1e-10, btol=1e-10, iter_lim=20 * C.shape[1] + 100)[0]
+    return tau
 
 
 def _pairs_of(picks_tx, picks_rx):
@@ -241,21 +283,33 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         r = t_obs - pred
         return float(np.sum((weight * r) ** 2)), float(np.sqrt(np.mean(r**2)))
 
+    # Start from the straight-ray model unless the reference model (rock and air)
+    # explains the data better through bent rays: where air waves arrive first,
+    # straight rays force absurd velocities that bent rays need not undo.
     model = start.result.slowness_ns_per_m.copy()
     tau = start.result.time_zero_ns.copy()
     fwd = forward(model)
-    pred = fwd.time_ns[pick_pair] + C @ tau
-    current, rms = misfit(pred)
-    history = [dict(iteration=0, rays="straight model, bent forward", rms_ns=rms,
-                    chi2=current if sigma is not None else None, lambda_smooth=start.result.lambda_smooth,
+    current, rms = misfit(fwd.time_ns[pick_pair] + C @ tau)
+    start_name = "straight-ray model"
+    fwd_ref = forward(reference)
+    tau_ref = _best_time_zero(C, weight, t_obs - fwd_ref.time_ns[pick_pair])
+    value_ref, rms_ref = misfit(fwd_ref.time_ns[pick_pair] + C @ tau_ref)
+    say(f"iteration 0: RMS through bent rays {rms:.3f} ns from the straight-ray model, "
+        f"{rms_ref:.3f} ns from the reference model")
+    if value_ref < current:
+        model, tau, fwd, current, rms = reference.copy(), tau_ref, fwd_ref, value_ref, rms_ref
+        start_name = "reference model"
+    history = [dict(iteration=0, rays=f"bent rays through the {start_name}", rms_ns=rms,
+                    chi2=current if sigma is not None else None, lambda_smooth=None,
                     step=None, rays_not_reaching_source=int((~fwd.reached).sum()))]
-    say(f"iteration 0 (straight-ray model): RMS {rms:.3f} ns through bent rays")
     result = start.result
+    lambda_floor = options.lambda_min
     for iteration in range(1, bent.max_iterations + 1):
         G = fwd.operator[pick_pair]
         t_eff = t_obs - fwd.time_ns[pick_pair] + G @ model
+        step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
         trial = invert_travel_times(G, t_eff, tx, rx, len(nodes), ground_flat, reference, D,
-                                    cell_m=grid.cell_m, sigma_ns=sigma, options=options, coarse=coarse,
+                                    cell_m=grid.cell_m, sigma_ns=sigma, options=step_options, coarse=coarse,
                                     progress=progress)
         step = 1.0
         while True:
@@ -264,7 +318,7 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
             fwd_new = forward(candidate)
             pred_new = fwd_new.time_ns[pick_pair] + C @ tau_candidate
             value, rms_new = misfit(pred_new)
-            if value < current or step <= 0.25:
+            if value < current or step <= 0.125:
                 break
             step *= 0.5
             say(f"iteration {iteration}: misfit rose to RMS {rms_new:.3f} ns; halving the step to {step:g}")
@@ -274,6 +328,8 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         improvement = (current - value) / current
         model, tau, fwd, current = candidate, tau_candidate, fwd_new, value
         result = trial
+        # roughen gradually: the next lambda may fall at most tenfold
+        lambda_floor = max(options.lambda_min, trial.lambda_smooth / 10)
         history.append(dict(iteration=iteration, rays="bent", rms_ns=rms_new,
                             chi2=value if sigma is not None else None, lambda_smooth=trial.lambda_smooth,
                             step=step, rays_not_reaching_source=int((~fwd.reached).sum())))

@@ -649,6 +649,15 @@ def invert_travel_times(
         if method == "discrepancy":
             lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), target, progress, "fine",
                                                   search, n_picks, slope=slope)
+            fallback = ""
+            if not reached and sol.misfit**2 > target:
+                # the data cannot be fit to their sigmas (forward-model error, outliers or
+                # sigmas too small): rougher models only chase the misfit floor, so
+                # take the L-curve corner of the sweep instead of the smallest lambda
+                corner = trials[_l_curve_choice(trials, ratio)][0] if len(trials) >= 3 else lam
+                if corner > lam:
+                    lam = corner
+                    fallback = f"; fell back to the L-curve corner, lambda {lam:.4g}"
             # the search solves stop at the looser search tolerance: polish the last one
             sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
             _record(search, "fine", lam, sol, n_picks)
@@ -660,7 +669,7 @@ def invert_travel_times(
             else:
                 note = (f"chi^2 = N not reached (chi^2 {sol.misfit**2:.5g}, N = {n_picks}) within lambda "
                         f"{options.lambda_min:g} to {options.lambda_max:g}; the sigmas may be too small, or "
-                        "outliers or forward-model error remain")
+                        "outliers or forward-model error remain" + fallback)
         else:
             note = f"L-curve corner at lambda {lam:.4g} (trial {k + 1} of {len(trials)})"
         if coarse is not None:

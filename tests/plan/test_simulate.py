@@ -56,7 +56,7 @@ def _quiet(**changes):
 
 def test_no_bodies_no_noise_gives_distance_over_velocity():
     nodes = _rock_nodes()
-    survey = simulate_picks(_site(), nodes, _quiet())
+    survey = simulate_picks(_site(), nodes, _quiet(), rays="straight")
     # no node lies in air, so none is moved
     np.testing.assert_array_equal(survey.node_xyz_m, nodes.xyz_m)
     # every straight ray between two points below a flat surface stays in rock:
@@ -69,7 +69,7 @@ def test_no_bodies_no_noise_gives_distance_over_velocity():
 
 def test_background_velocity_of_the_truth_replaces_the_rock_velocity():
     nodes = _rock_nodes()
-    survey = simulate_picks(_site(), nodes, _quiet(background_velocity_m_per_ns=0.09), both_directions=False)
+    survey = simulate_picks(_site(), nodes, _quiet(background_velocity_m_per_ns=0.09), both_directions=False, rays="straight")
     distance = np.linalg.norm(nodes.xyz_m[survey.rx] - nodes.xyz_m[survey.tx], axis=1)
     np.testing.assert_allclose(survey.time_ns, distance / 0.09, rtol=1e-10)
 
@@ -79,7 +79,7 @@ def test_ray_through_a_fast_box_is_faster_by_the_path_inside():
     # spanning x 8..12 m: t = 8 m / v_rock + 4 m / c (geometry)
     nodes = _nodes([[4, 5.2, 10.3], [16, 5.2, 10.3]])
     truth = _quiet(bodies=[{"shape": "box", "centre_m": [10, 5, 10], "size_m": [4, 4, 4], "fill": "air"}])
-    survey = simulate_picks(_site(), nodes, truth)
+    survey = simulate_picks(_site(), nodes, truth, rays="straight")
     np.testing.assert_allclose(survey.time_ns, 8 / ROCK_M_PER_NS + 4 / C_M_PER_NS, rtol=1e-10)
 
 
@@ -89,7 +89,7 @@ def test_clock_offsets_cancel_in_reciprocal_pairs():
         "bodies": [{"shape": "ellipsoid", "centre_m": [10, 5, 9], "semi_axes_m": [3, 2, 2], "fill": "water"}],
         "noise": {"sigma_ns": 0, "clock_offset_sigma_ns": 2.0, "seed": 11},
     })
-    survey = simulate_picks(_site(), nodes, truth)
+    survey = simulate_picks(_site(), nodes, truth, rays="straight")
     tau = survey.clock_offset_ns
     assert np.std(tau) > 0.5
     # offsets are reported relative to their mean
@@ -118,9 +118,9 @@ def test_pair_counts(n):
 
 def test_simulated_survey_has_every_ordered_pair():
     nodes = _rock_nodes(n=9)
-    survey = simulate_picks(_site(), nodes, _quiet())
+    survey = simulate_picks(_site(), nodes, _quiet(), rays="straight")
     assert survey.tx.size == 9 * 8
-    one_way = simulate_picks(_site(), nodes, _quiet(), both_directions=False)
+    one_way = simulate_picks(_site(), nodes, _quiet(), both_directions=False, rays="straight")
     assert one_way.tx.size == 9 * 8 // 2
 
 
@@ -128,7 +128,7 @@ def test_max_distance_keeps_only_near_pairs():
     nodes = _rock_nodes()
     d_all = np.linalg.norm(nodes.xyz_m[:, None, :] - nodes.xyz_m[None, :, :], axis=-1)
     expected = int(((d_all <= 8.0) & ~np.eye(len(nodes), dtype=bool)).sum())
-    survey = simulate_picks(_site(), nodes, _quiet(), max_distance_m=8.0)
+    survey = simulate_picks(_site(), nodes, _quiet(), max_distance_m=8.0, rays="straight")
     assert survey.tx.size == expected
     d = np.linalg.norm(nodes.xyz_m[survey.rx] - nodes.xyz_m[survey.tx], axis=1)
     assert d.max() <= 8.0
@@ -137,18 +137,18 @@ def test_max_distance_keeps_only_near_pairs():
 def test_seed_makes_runs_repeatable():
     nodes = _rock_nodes()
     noisy = {"noise": {"sigma_ns": 0.5, "clock_offset_sigma_ns": 1.0, "seed": 42}}
-    a = simulate_picks(_site(), nodes, parse_truth(noisy))
-    b = simulate_picks(_site(), nodes, parse_truth(noisy))
+    a = simulate_picks(_site(), nodes, parse_truth(noisy), rays="straight")
+    b = simulate_picks(_site(), nodes, parse_truth(noisy), rays="straight")
     np.testing.assert_array_equal(a.time_ns, b.time_ns)
     np.testing.assert_array_equal(a.clock_offset_ns, b.clock_offset_ns)
-    c = simulate_picks(_site(), nodes, parse_truth({"noise": {**noisy["noise"], "seed": 43}}))
+    c = simulate_picks(_site(), nodes, parse_truth({"noise": {**noisy["noise"], "seed": 43}}), rays="straight")
     assert not np.array_equal(a.time_ns, c.time_ns)
     np.testing.assert_array_equal(a.true_travel_time_ns, c.true_travel_time_ns)
 
 
 def test_noise_has_the_requested_spread_and_sigma_column():
     nodes = _rock_nodes(n=20)
-    survey = simulate_picks(_site(), nodes, parse_truth({"noise": {"sigma_ns": 0.5, "seed": 9}}))
+    survey = simulate_picks(_site(), nodes, parse_truth({"noise": {"sigma_ns": 0.5, "seed": 9}}), rays="straight")
     noise = survey.time_ns - survey.true_travel_time_ns
     # 380 Gaussian draws: the sample standard deviation is within 5 standard
     # errors (0.5 / sqrt(2 * 380) ~ 0.018 ns) of 0.5 ns
@@ -168,7 +168,34 @@ def test_refined_grid_keeps_the_box():
 
 def test_surface_nodes_are_placed_on_the_ground():
     nodes = _nodes([[2, 5, 19.5], [18, 5, 19.5]], kind="surface")
-    survey = simulate_picks(_site(), nodes, _quiet())
+    survey = simulate_picks(_site(), nodes, _quiet(), rays="straight")
     # snapped a micrometre below the flat ground at 18 m; the ray runs just under it
     np.testing.assert_allclose(survey.node_xyz_m[:, 2], 18.0, atol=1e-5)
     np.testing.assert_allclose(survey.time_ns, 16.0 / ROCK_M_PER_NS, rtol=1e-6)
+
+
+def test_bent_simulation_of_a_uniform_rock_gives_distance_over_velocity():
+    # geometry: in a homogeneous medium the first arrival travels the straight
+    # line; nodes deep enough (>= 6 m below the ground at 18 m) that the air wave
+    # over the surface is slower than the direct wave at these offsets
+    from reconstruct.parallel import Executor
+
+    rng = np.random.default_rng(11)
+    xyz = rng.uniform([1.0, 1.0, 1.0], [19.0, 9.0, 6.0], size=(8, 3))
+    nodes = _nodes(xyz)
+    survey = simulate_picks(_site(), nodes, _quiet(refine=1), rays="bent", executor=Executor(kind="serial"))
+    distance = np.linalg.norm(xyz[survey.rx] - xyz[survey.tx], axis=1)
+    far = distance >= 3.0
+    np.testing.assert_allclose(survey.time_ns[far], distance[far] / ROCK_M_PER_NS, rtol=5e-3)
+
+
+def test_bent_simulation_finds_the_air_wave_between_surface_nodes():
+    # surface-to-surface first arrival is the direct air wave x / c (c from
+    # scipy.constants), far earlier than the path through 0.12 m/ns rock
+    from reconstruct.parallel import Executor
+
+    xyz = [[2.0, 5.0, 18.0], [9.0, 5.0, 18.0], [18.0, 5.0, 18.0]]
+    nodes = _nodes(xyz, kind="surface")
+    survey = simulate_picks(_site(), nodes, _quiet(refine=1), rays="bent", executor=Executor(kind="serial"))
+    distance = np.linalg.norm(np.asarray(xyz)[survey.rx] - np.asarray(xyz)[survey.tx], axis=1)
+    np.testing.assert_allclose(survey.time_ns, distance / C_M_PER_NS, rtol=5e-3)

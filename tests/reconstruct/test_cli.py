@@ -93,7 +93,7 @@ def _write_inputs(folder: Path, *, node_rows=None):
         "refine": 2,
     })
     table = read_nodes(nodes)
-    survey = simulate_picks(load_site(site), table, truth)
+    survey = simulate_picks(load_site(site), table, truth, rays="straight")
     lines = ["tx,rx,time_ns,sigma_ns"]
     for a, b, t, s in zip(survey.tx, survey.rx, survey.time_ns, survey.sigma_ns):
         lines.append(f"{table.ids[a]},{table.ids[b]},{t:.3f},{s:.3f}")

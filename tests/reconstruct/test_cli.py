@@ -513,3 +513,36 @@ def test_check_picks_without_nodes_is_refused(inputs):
     code, out, err = _run(["check", "--site", site, "--picks", site.parent / "no_such_picks.csv"])
     assert code == 2
     assert "inputs are valid" not in out
+
+
+@pytest.mark.slow
+def test_bent_rays_through_the_command_line_write_iterations_and_rays(inputs, tmp_path):
+    site, nodes, picks = inputs
+    out = tmp_path / "bent"
+    code, stdout, stderr = _run(_invert_args(site, nodes, picks, out, "--rays", "bent", "--iterations", "1",
+                                             "--executor", "serial", "--smoothing", "1", "--write-rays"))
+    assert code == 0, stderr
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["rays"] == "bent"
+    assert summary["iterations"][0]["iteration"] == 0
+    assert all("rms_ns" in step for step in summary["iterations"])
+    import pyvista
+
+    rays = pyvista.read(str(out / "rays.vtp"))
+    residuals = _read_csv(out / "residuals.csv")
+    assert rays.n_cells == len(residuals)  # one polyline per inverted pick
+    assert {"tx", "rx", "observed_ns", "predicted_ns", "pair_index", "line"} <= set(rays.cell_data.keys())
+    assert "rays: bent" in stdout
+
+
+def test_write_rays_needs_bent_rays(inputs, tmp_path):
+    site, nodes, picks = inputs
+    code, out, err = _run(_invert_args(site, nodes, picks, tmp_path / "o", "--write-rays"))
+    _assert_user_error(code, out, err, "--write-rays needs --rays bent")
+
+
+def test_a_malformed_scheduler_address_is_refused(inputs, tmp_path):
+    site, nodes, picks = inputs
+    code, out, err = _run(_invert_args(site, nodes, picks, tmp_path / "o", "--rays", "bent",
+                                       "--scheduler", "localhost-8786"))
+    _assert_user_error(code, out, err, "tcp://")

@@ -89,8 +89,6 @@ def _void_times():
     return bent, straight
 
 
-@pytest.mark.xfail(strict=True, reason="measured: 10 of 120 pairs later than the straight ray, worst "
-                                       "1.41 %, behind the void (kinked field, interpolation)")
 def test_first_arrivals_are_never_later_than_the_straight_ray_through_a_fast_void():
     # Fermat: the first arrival cannot be later than the time along any path,
     # including the straight one (tolerance: the 0.1 % accuracy asked of the solver)
@@ -99,11 +97,9 @@ def test_first_arrivals_are_never_later_than_the_straight_ray_through_a_fast_voi
 
 
 def test_rays_are_drawn_into_a_fast_void():
-    # Fermat: many first arrivals gain by crossing the fast void; the level of
-    # the lateness that remains is pinned at its measured value (1.5 %)
+    # Fermat: many first arrivals gain by crossing the fast void
     bent, straight = _void_times()
     assert np.mean(bent < straight - 0.5) > 0.2
-    assert np.all(bent <= straight * 1.015)
 
 
 @pytest.mark.slow

@@ -83,16 +83,15 @@ def simulate_picks(
                                 progress=(lambda d, n: progress(f"rays {d:,}/{n:,}")) if progress else None)
         travel = G @ (1.0 / velocity).ravel()
     elif rays == "bent":
-        from reconstruct.bent_tomography import first_arrival_times
+        from reconstruct.bent_tomography import first_arrival_times, unique_pairs
         from reconstruct.parallel import Executor
 
-        a, b = np.minimum(tx, rx), np.maximum(tx, rx)
-        keys, inverse = np.unique(np.stack([a, b], axis=1), axis=0, return_inverse=True)
+        pair_a, pair_b, pick_pair = unique_pairs(tx, rx)
         pair_times = first_arrival_times(
-            fine, 1.0 / velocity, xyz, keys[:, 0], keys[:, 1],
+            fine, 1.0 / velocity, xyz, pair_a, pair_b,
             executor=executor if executor is not None else Executor(kind="processes"),
             progress=(lambda d, n: progress(f"fields {d}/{n}")) if progress else None)
-        travel = pair_times[inverse.ravel()]
+        travel = pair_times[pick_pair]
     else:
         raise ValueError(f"rays must be 'bent' or 'straight' (got {rays!r})")
     rng = np.random.default_rng(truth.seed)

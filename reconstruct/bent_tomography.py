@@ -42,14 +42,20 @@ import scipy.sparse as sp
 
 from .bent_rays import polyline_matrix, trace_rays
 from .grid import Grid
-from .inversion import AIR_VELOCITY_M_PER_NS, InversionOptions, invert_travel_times, time_zero_matrix
+from .inversion import (
+    AIR_VELOCITY_M_PER_NS,
+    InversionOptions,
+    estimate_time_zero,
+    invert_travel_times,
+    time_zero_matrix,
+)
 from .multilevel import choose_coarsening_factor, coarse_level
 from .parallel import Executor, map_tasks
 from .regularization import first_difference_operator
-from .workflow import TomographyRun, straight_ray_tomography
+from .workflow import TomographyRun, ray_coverage, straight_ray_tomography
 
 __all__ = ["BentOptions", "ForwardResult", "choose_sources", "bent_ray_forward", "bent_ray_tomography",
-           "first_arrival_times"]
+           "first_arrival_times", "unique_pairs"]
 
 
 @dataclass(frozen=True)
@@ -117,16 +123,36 @@ def choose_sources(pair_a: np.ndarray, pair_b: np.ndarray, n_nodes: int):
     return tasks
 
 
-def _forward_task(task, shared):
-    """One source: its field, the times at its receivers and their traced rays."""
+def _shared_inputs(grid: Grid, slowness_ns_per_m, xyz_m, eikonal_options, **extra) -> dict:
+    """The read-only inputs every per-source task needs, sent once per map."""
+    from .eikonal import EikonalOptions
+
+    return {
+        "grid": {"origin_m": grid.origin_m, "cell_m": grid.cell_m, "shape": grid.shape},
+        "slowness": np.ascontiguousarray(np.asarray(slowness_ns_per_m, dtype=float).reshape(grid.shape)),
+        "xyz": np.asarray(xyz_m, dtype=float),
+        "eikonal": eikonal_options if eikonal_options is not None else EikonalOptions(),
+        **extra,
+    }
+
+
+def _task_field(task, shared):
+    """The grid, the source's travel-time field and the receiver positions of one task."""
     from .eikonal import travel_time_field
 
-    source, pair_index, others = task
+    source, _, others = task
     grid = Grid(**shared["grid"])
     xyz = shared["xyz"]
     field = travel_time_field(grid, shared["slowness"], xyz[source], options=shared["eikonal"])
-    times = field.interpolate(xyz[others])
-    polylines, reached = trace_rays(field, xyz[others])
+    return grid, field, xyz[others]
+
+
+def _forward_task(task, shared):
+    """One source: its field, the times at its receivers and their traced rays."""
+    pair_index = task[1]
+    grid, field, receivers = _task_field(task, shared)
+    times = field.interpolate(receivers)
+    polylines, reached = trace_rays(field, receivers)
     matrix = polyline_matrix(grid, polylines, slowness_ns_per_m=shared["slowness"])
     return {
         "pair_index": pair_index,
@@ -141,28 +167,15 @@ def _forward_task(task, shared):
 
 def _times_task(task, shared):
     """One source: its field and the first-arrival times at the other ends of its pairs."""
-    from .eikonal import travel_time_field
-
-    source, pair_index, others = task
-    grid = Grid(**shared["grid"])
-    xyz = shared["xyz"]
-    field = travel_time_field(grid, shared["slowness"], xyz[source], options=shared["eikonal"])
-    return pair_index, field.interpolate(xyz[others])
+    _, field, receivers = _task_field(task, shared)
+    return task[1], field.interpolate(receivers)
 
 
 def first_arrival_times(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, executor: Executor,
                         eikonal_options=None, progress=None) -> np.ndarray:
     """First-arrival times (ns) of node pairs through a model, without tracing rays."""
-    from .eikonal import EikonalOptions
-
-    xyz = np.asarray(xyz_m, dtype=float)
-    tasks = choose_sources(pair_a, pair_b, xyz.shape[0])
-    shared = {
-        "grid": {"origin_m": grid.origin_m, "cell_m": grid.cell_m, "shape": grid.shape},
-        "slowness": np.ascontiguousarray(np.asarray(slowness_ns_per_m, dtype=float).reshape(grid.shape)),
-        "xyz": xyz,
-        "eikonal": eikonal_options if eikonal_options is not None else EikonalOptions(),
-    }
+    shared = _shared_inputs(grid, slowness_ns_per_m, xyz_m, eikonal_options)
+    tasks = choose_sources(pair_a, pair_b, shared["xyz"].shape[0])
     times = np.empty(np.asarray(pair_a).size)
     for index, values in map_tasks(executor, _times_task, tasks, shared=shared, progress=progress):
         times[index] = values
@@ -182,18 +195,8 @@ def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, ex
         The two nodes of each pair (order does not matter: reciprocity).
     executor : Executor
     """
-    from .eikonal import EikonalOptions
-
-    slowness = np.ascontiguousarray(np.asarray(slowness_ns_per_m, dtype=float).reshape(grid.shape))
-    xyz = np.asarray(xyz_m, dtype=float)
-    tasks = choose_sources(pair_a, pair_b, xyz.shape[0])
-    shared = {
-        "grid": {"origin_m": grid.origin_m, "cell_m": grid.cell_m, "shape": grid.shape},
-        "slowness": slowness,
-        "xyz": xyz,
-        "eikonal": eikonal_options if eikonal_options is not None else EikonalOptions(),
-        "keep_rays": keep_rays,
-    }
+    shared = _shared_inputs(grid, slowness_ns_per_m, xyz_m, eikonal_options, keep_rays=keep_rays)
+    tasks = choose_sources(pair_a, pair_b, shared["xyz"].shape[0])
     results = map_tasks(executor, _forward_task, tasks, shared=shared, progress=progress)
     n_pairs = np.asarray(pair_a).size
     time_ns = np.empty(n_pairs)
@@ -218,19 +221,11 @@ def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, ex
     return ForwardResult(time_ns=time_ns, operator=operator, reached=reached, polylines=polylines)
 
 
-def _best_time_zero(C, weight, residual):
-    """Time-zeros that best explain a residual on their own (weighted least squares)."""
-    from scipy.sparse.linalg import lsqr
+def unique_pairs(picks_tx, picks_rx):
+    """Unique unordered node pairs and, for every pick, its pair number.
 
-    if C.nnz == 0:
-        return np.zeros(C.shape[1])
-    WC = sp.diags(weight) @ C
-    tau = lsqr(WC, weight * residual, damp=1e-6, atol=1e-10, btol=1e-10, iter_lim=20 * C.shape[1] + 100)[0]
-    return tau
-
-
-def _pairs_of(picks_tx, picks_rx):
-    """Unique unordered pairs and, for every pick, its pair number."""
+    Returns ``(pair_a, pair_b, pick_pair)`` with ``pair_a < pair_b``.
+    """
     a = np.minimum(picks_tx, picks_rx)
     b = np.maximum(picks_tx, picks_rx)
     keys = np.stack([a, b], axis=1)
@@ -260,7 +255,7 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
     t_obs = picks.time_ns[used]
     sigma = None if picks.sigma_ns is None else picks.sigma_ns[used]
     weight = np.ones(used.size) if sigma is None else 1.0 / sigma
-    pair_a, pair_b, pick_pair = _pairs_of(tx, rx)
+    pair_a, pair_b, pick_pair = unique_pairs(tx, rx)
     C = time_zero_matrix(tx, rx, len(nodes), options.time_zero)
     ground_flat = ground.ravel()
     reference = np.where(ground_flat, 1.0 / site.rock.velocity_m_per_ns, 1.0 / AIR_VELOCITY_M_PER_NS)
@@ -292,7 +287,7 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
     current, rms = misfit(fwd.time_ns[pick_pair] + C @ tau)
     start_name = "straight-ray model"
     fwd_ref = forward(reference)
-    tau_ref = _best_time_zero(C, weight, t_obs - fwd_ref.time_ns[pick_pair])
+    tau_ref = estimate_time_zero(C, weight, t_obs - fwd_ref.time_ns[pick_pair])
     value_ref, rms_ref = misfit(fwd_ref.time_ns[pick_pair] + C @ tau_ref)
     say(f"iteration 0: RMS through bent rays {rms:.3f} ns from the straight-ray model, "
         f"{rms_ref:.3f} ns from the reference model")
@@ -349,8 +344,7 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         rms_ns=float(np.sqrt(np.mean(residual**2))),
         chi2=float(np.sum((residual / sigma) ** 2)) if sigma is not None else None,
     )
-    ray_length = np.asarray(G.sum(axis=0)).ravel().reshape(grid.shape)
-    ray_count = np.bincount(G.indices, minlength=grid.n_cells).reshape(grid.shape)
+    ray_length, ray_count = ray_coverage(G, grid)
     return dataclasses.replace(
         start, result=final_result, ray_length_m=ray_length, ray_count=ray_count, rays="bent",
         history=tuple(history),

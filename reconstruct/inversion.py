@@ -31,6 +31,7 @@ __all__ = [
     "InversionResult",
     "invert_travel_times",
     "time_zero_matrix",
+    "estimate_time_zero",
     "AIR_VELOCITY_M_PER_NS",
     "TIME_ZERO_MODELS",
 ]
@@ -164,6 +165,25 @@ _LSQR_REASONS = {
     6: "condition number at machine precision",
     7: "iteration limit reached",
 }
+
+
+def estimate_time_zero(C, weight, residual_ns) -> np.ndarray:
+    """Time-zeros that best explain a residual on their own (weighted least squares).
+
+    Parameters
+    ----------
+    C : scipy.sparse matrix, shape (n_picks, n_nodes)
+        :func:`time_zero_matrix`.
+    weight : ndarray, shape (n_picks,)
+        ``1 / sigma``.
+    residual_ns : ndarray, shape (n_picks,)
+        Observed minus predicted travel times.
+    """
+    if C.nnz == 0:
+        return np.zeros(C.shape[1])
+    WC = (sp.diags(weight) @ C).tocsr()
+    return lsqr(WC, weight * residual_ns, damp=1e-6, atol=1e-10, btol=1e-10,
+                iter_lim=20 * C.shape[1] + 100)[0]
 
 
 def time_zero_matrix(tx, rx, n_nodes: int, model: str = "clock") -> sp.csr_matrix:
@@ -570,12 +590,7 @@ def invert_travel_times(
     # (one unknown per node) whose answer starts every solve. Without it LSQR
     # creeps towards large offsets, since a slowness change around a node
     # mimics part of a time-zero term.
-    if options.time_zero == "none":
-        tau_start = np.zeros(0)
-    else:
-        WC = (weighted @ C).tocsr()
-        tau_start = lsqr(WC, weight * residual_ref, damp=1e-6, atol=1e-10, btol=1e-10,
-                         iter_lim=20 * n_nodes + 100)[0]
+    tau_start = np.zeros(0) if options.time_zero == "none" else estimate_time_zero(C, weight, residual_ref)
 
     def start(n_cells_level):
         return np.concatenate([np.zeros(n_cells_level), tau_start])

@@ -27,7 +27,7 @@ from .site import Site
 from .straight_rays import straight_ray_matrix
 from .tables import ExcludedPick, Nodes, Picks
 
-__all__ = ["TomographyRun", "straight_ray_tomography", "write_tomography", "model_grid"]
+__all__ = ["TomographyRun", "straight_ray_tomography", "write_tomography", "model_grid", "ray_coverage"]
 
 
 @dataclass(frozen=True)
@@ -50,6 +50,14 @@ class TomographyRun:
     notes: tuple = field(default=())
     history: tuple = field(default=())  # per-iteration misfits of bent-ray runs
     polylines: list | None = None  # rays per inverted pick, when kept
+
+
+def ray_coverage(operator, grid: Grid):
+    """Total ray length (m) and number of rays in every cell, both shaped like the grid."""
+    G = operator.tocsr()
+    length = np.asarray(G.sum(axis=0)).ravel().reshape(grid.shape)
+    count = np.bincount(G.indices, minlength=grid.n_cells).reshape(grid.shape)
+    return length, count
 
 
 def model_grid(site: Site, *, memory_limit_bytes: int | None = None):
@@ -128,8 +136,7 @@ def straight_ray_tomography(
         G, picks.time_ns[used], picks.tx[used], picks.rx[used], len(nodes), ground_flat, reference, D,
         cell_m=grid.cell_m, sigma_ns=sigma, options=options, coarse=coarse, progress=progress,
     )
-    ray_length = np.asarray(G.sum(axis=0)).ravel().reshape(grid.shape)
-    ray_count = np.bincount(G.indices, minlength=grid.n_cells).reshape(grid.shape)
+    ray_length, ray_count = ray_coverage(G, grid)
     return TomographyRun(
         site=site, grid=grid, ground=ground, nodes=nodes, placement=placement, picks=picks,
         used=used, excluded=tuple(excluded), ray_length_m=ray_length, ray_count=ray_count,

@@ -139,32 +139,55 @@ def trace_rays(field: TimeField, receivers_xyz_m, *, step_fraction: float = 0.5,
     step = step_fraction * float(spacing.min())
     # within two lattice spacings of the source the field is too coarse to steer by
     end_radius = max(2.0 * float(spacing.max()), 1.5 * step)
-    polylines, reached = [], np.zeros(rx.shape[0], dtype=bool)
-    for i, r in enumerate(rx):
-        straight = float(np.linalg.norm(r - source))
-        max_steps = int(max_length_factor * straight / step) + 10
-        buffer = np.empty((max_steps + 2, 3))
-        n, ok = _trace(times, origin, spacing, source, r, step, end_radius, max_steps, buffer)
-        if ok:
-            polylines.append(buffer[:n].copy())
-        else:
-            polylines.append(np.vstack([r, source]))
-        reached[i] = ok
+    straight = np.linalg.norm(rx - source, axis=1)
+    max_steps = (max_length_factor * straight / step).astype(np.int64) + 10
+    offsets = np.zeros(rx.shape[0] + 1, dtype=np.int64)
+    np.cumsum(max_steps + 2, out=offsets[1:])
+    buffer = np.empty((int(offsets[-1]), 3))
+    counts = np.zeros(rx.shape[0], dtype=np.int64)
+    reached = np.zeros(rx.shape[0], dtype=bool)
+    _trace_all(times, origin, spacing, source, rx, step, end_radius, max_steps, offsets, buffer, counts, reached)
+    polylines = [
+        buffer[offsets[i]:offsets[i] + counts[i]].copy() if reached[i] else np.vstack([rx[i], source])
+        for i in range(rx.shape[0])
+    ]
     return polylines, reached
 
 
 @njit(cache=True)
-def _polyline_cells(points, origin, cell, shape, slowness, face_tolerance, cols, lens):
-    """Exact per-cell lengths of one polyline; returns the number of entries."""
+def _trace_all(times, origin, spacing, source, receivers, step, end_radius, max_steps, offsets, out,
+               counts, reached):
+    """Trace every receiver in one compiled loop; ray i fills out[offsets[i]:]."""
+    for i in range(receivers.shape[0]):
+        view = out[offsets[i]:offsets[i + 1]]
+        n, ok = _trace(times, origin, spacing, source, receivers[i].copy(), step, end_radius, max_steps[i], view)
+        counts[i] = n
+        reached[i] = ok
+
+
+@njit(cache=True)
+def _polyline_cells(points, starts, origin, cell, shape, slowness, face_tolerance, rows, cols, lens):
+    """Exact per-cell lengths of all polylines in one compiled loop.
+
+    Polyline r is ``points[starts[r]:starts[r + 1]]``. Returns the number of
+    entries written to rows, cols and lens (sized by the caller for the worst case).
+    """
     count = 0
-    alphas = np.empty(64)
     for s in range(points.shape[0] - 1):
+        ray = np.searchsorted(starts, s, side="right") - 1
+        if s + 1 >= starts[ray + 1]:
+            continue  # the last point of a polyline starts no segment
         p0 = points[s]
         p1 = points[s + 1]
         d = p1 - p0
         length = np.sqrt(np.sum(d * d))
         if length == 0.0:
             continue
+        crossings = 0
+        for a in range(3):
+            crossings += abs(int(np.floor((p1[a] - origin[a]) / cell[a]))
+                             - int(np.floor((p0[a] - origin[a]) / cell[a])))
+        alphas = np.empty(crossings + 2)
         na = 2
         alphas[0] = 0.0
         alphas[1] = 1.0
@@ -176,8 +199,6 @@ def _polyline_cells(points, origin, cell, shape, slowness, face_tolerance, cols,
             lo = min(i0, i1) + 1
             hi = max(i0, i1)
             for kp in range(lo, hi + 1):
-                if na >= alphas.size:
-                    break
                 al = (origin[a] + kp * cell[a] - p0[a]) / d[a]
                 if 0.0 < al < 1.0:
                     alphas[na] = al
@@ -213,8 +234,7 @@ def _polyline_cells(points, origin, cell, shape, slowness, face_tolerance, cols,
                                     ijk[a] = other
                             break
             flat = (ijk[0] * shape[1] + ijk[1]) * shape[2] + ijk[2]
-            if count >= cols.size:
-                return -1
+            rows[count] = ray
             cols[count] = flat
             lens[count] = da * length
             count += 1
@@ -239,25 +259,20 @@ def polyline_matrix(grid: Grid, polylines, *, slowness_ns_per_m=None, face_toler
         face_tolerance = 0.0
     else:
         slowness = np.ascontiguousarray(np.asarray(slowness_ns_per_m, dtype=float).reshape(grid.shape))
-    rows, cols_all, lens_all = [], [], []
-    for i, pts in enumerate(polylines):
-        pts = np.ascontiguousarray(pts, dtype=float)
-        capacity = 8 * pts.shape[0] + 16
-        while True:
-            cols = np.empty(capacity, dtype=np.int64)
-            lens = np.empty(capacity)
-            n = _polyline_cells(pts, origin, cell, shape, slowness, float(face_tolerance), cols, lens)
-            if n >= 0:
-                break
-            capacity *= 2
-        rows.append(np.full(n, i, dtype=np.int64))
-        cols_all.append(cols[:n])
-        lens_all.append(lens[:n])
-    if rows:
-        r, c, v = np.concatenate(rows), np.concatenate(cols_all), np.concatenate(lens_all)
-    else:
-        r = c = np.zeros(0, dtype=np.int64)
-        v = np.zeros(0)
+    if len(polylines) == 0:
+        return sp.csr_matrix((0, grid.n_cells))
+    points = np.ascontiguousarray(np.concatenate([np.asarray(p, dtype=float) for p in polylines]))
+    starts = np.zeros(len(polylines) + 1, dtype=np.int64)
+    np.cumsum([len(p) for p in polylines], out=starts[1:])
+    # worst case: every face crossing of every segment starts a new piece
+    index = np.floor((points - origin) / cell).astype(np.int64)
+    steps = np.abs(np.diff(index, axis=0)).sum(axis=1) + 1
+    capacity = int(steps.sum()) + 1
+    r = np.empty(capacity, dtype=np.int64)
+    c = np.empty(capacity, dtype=np.int64)
+    v = np.empty(capacity)
+    n = _polyline_cells(points, starts, origin, cell, shape, slowness, float(face_tolerance), r, c, v)
+    r, c, v = r[:n], c[:n], v[:n]
     matrix = sp.csr_matrix((v, (r, c)), shape=(len(polylines), grid.n_cells))
     matrix.sum_duplicates()
     return matrix

@@ -110,3 +110,12 @@ def test_a_stuck_descent_falls_back_to_the_straight_segment():
     polylines, reached = trace_rays(field, [[5.0, 5.0, 5.0]])
     assert not reached[0]
     np.testing.assert_allclose(polylines[0], [[5, 5, 5], [1, 1, 1]])
+
+
+def test_long_segments_crossing_many_cells_equal_siddon():
+    # a fallback straight segment may cross hundreds of cell faces (Siddon 1985 as reference)
+    grid = Grid((0, 0, 0), (1, 1, 1), (120, 40, 50))
+    a = np.array([[0.5, 0.5, 0.5], [119.5, 2.3, 48.1]])
+    b = np.array([[119.2, 39.1, 49.6], [0.7, 37.9, 1.2]])
+    mine = polyline_matrix(grid, [np.vstack([p, q]) for p, q in zip(a, b)])
+    assert abs(mine - straight_ray_matrix(grid, a, b)).max() < 1e-9

@@ -338,6 +338,32 @@ def _factored_stencil(use, kn, Af, qa, qb):
 
 
 @njit(cache=True)
+def _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean):
+    """The fastest of the octant cells on side ``sa`` of axis ``a`` (and side ``sb`` of
+    axis ``b`` unless ``b < 0``): its slowness, factored flag and air flag.
+
+    An edge update (one axis) looks at the 4 cells sharing the edge, a face update
+    (two axes) at the 2 cells sharing the face (Podvin and Lecomte, 1991). In a
+    smooth region (``s_mean > 0``) the mean slowness replaces the fastest one.
+    """
+    s = np.inf
+    fac = 0
+    fa = 0
+    for o in range(8):
+        if ((o >> (2 - a)) & 1) != sa:
+            continue
+        if b >= 0 and ((o >> (2 - b)) & 1) != sb:
+            continue
+        if cs[o] < s:
+            s = cs[o]
+            fac = cf[o]
+            fa = ca[o]
+    if s < np.inf and s_mean > 0.0:
+        s = s_mean
+    return s, fac, fa
+
+
+@njit(cache=True)
 def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
            second_order, smooth, factor_cells, seed_direct, xe, s1, fast_cells):
     n_nodes = npx * npy * npz
@@ -554,18 +580,9 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
                         q = 2 * a + sd
                         if kn[q] == 0:
                             continue
-                        s = np.inf
-                        fac = 0
-                        fa = 0
-                        for o in range(8):
-                            if ((o >> (2 - a)) & 1) == sd and cs[o] < s:
-                                s = cs[o]
-                                fac = cf[o]
-                                fa = ca[o]
+                        s, fac, fa = _fastest_cell(cs, cf, ca, a, sd, -1, 0, s_mean)
                         if s == np.inf:
                             continue
-                        if s_mean > 0.0:
-                            s = s_mean
                         if fac == 1 and kf[q] == 1:
                             if tie:
                                 nu = _factored_stencil(use, kn, Af, q, -1)
@@ -589,18 +606,9 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
                             for sb in range(2):
                                 if kn[2 * b + sb] == 0:
                                     continue
-                                s = np.inf
-                                fac = 0
-                                fa = 0
-                                for o in range(8):
-                                    if ((o >> (2 - a)) & 1) == sa and ((o >> (2 - b)) & 1) == sb and cs[o] < s:
-                                        s = cs[o]
-                                        fac = cf[o]
-                                        fa = ca[o]
+                                s, fac, fa = _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean)
                                 if s == np.inf:
                                     continue
-                                if s_mean > 0.0:
-                                    s = s_mean
                                 if fac == 1 and kf[2 * a + sa] == 1 and kf[2 * b + sb] == 1:
                                     if tie:
                                         nu = _factored_stencil(use, kn, Af, 2 * a + sa, 2 * b + sb)

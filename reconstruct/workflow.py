@@ -61,9 +61,15 @@ def ray_coverage(operator, grid: Grid):
 
 
 def model_grid(site: Site, *, memory_limit_bytes: int | None = None):
-    """The site's grid and ground mask, refusing grids too large for memory."""
+    """The site's grid and ground mask.
+
+    Loading a site already refuses a grid too large for this machine's memory;
+    give ``memory_limit_bytes`` to hold it to a tighter limit.
+    """
     grid = site.grid()
-    check_grid_fits_memory(grid, memory_limit_bytes=memory_limit_bytes, source=str(site.source_path or "site"))
+    if memory_limit_bytes is not None:
+        check_grid_fits_memory(grid, memory_limit_bytes=memory_limit_bytes,
+                               source=str(site.source_path or "site"))
     return grid, ground_mask(grid, site.ground.elevation_m)
 
 

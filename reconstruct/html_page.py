@@ -1,0 +1,133 @@
+"""Self-contained HTML pages: the safety cautions, tables and embedded pictures.
+
+Every report voidcube writes (data quality, plan, voids) is one HTML file that
+opens in a browser with no network and no software of ours: styles inline,
+pictures embedded as base64 PNG. Text that comes from inputs (site names, node
+ids, file names) is always escaped here, never by the caller.
+
+Figures are made with :class:`matplotlib.figure.Figure` directly (never
+``pyplot``), which draws with the Agg canvas and needs no display.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+from collections.abc import Iterable, Sequence
+
+__all__ = [
+    "CAUTIONS",
+    "escape",
+    "cautions_html",
+    "table_html",
+    "png_img_html",
+    "figure_png",
+    "html_document",
+]
+
+#: The cautions every report carries at its top (and the README repeats).
+CAUTIONS = (
+    "This is an interpretation aid, not a guarantee. Radar tomography images "
+    "velocity, not voids; every indication depends on the data, the layout and "
+    "the processing choices recorded in the manifest.",
+    "Confirm every void indication by probe drilling before anyone relies on it.",
+    "A null result does not prove that there is no void: voids smaller than the "
+    "resolution, slow (water- or clay-filled) voids that first arrivals avoid, "
+    "and voids outside the ray coverage can go unseen.",
+    "Defer to local regulations, the site's geotechnical engineer and licensed "
+    "practice; this output is a screening aid, not a design.",
+    "Radar transmitters fall under local radio-spectrum rules; check the licence "
+    "conditions before fieldwork.",
+)
+
+_STYLE = """
+body { font-family: sans-serif; margin: 1.5em auto; max-width: 70em; color: #1b1b1b;
+       line-height: 1.4; padding: 0 1em; }
+h1 { font-size: 1.5em; } h2 { font-size: 1.2em; margin-top: 1.6em; }
+.cautions { border: 2px solid #8a4b00; background: #fff6e8; padding: 0.6em 1em; }
+.cautions h2 { margin-top: 0.2em; }
+table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.9em; }
+th, td { border: 1px solid #b8b8b8; padding: 0.2em 0.5em; text-align: right; }
+th { background: #ececec; } td.text { text-align: left; }
+figure { margin: 1em 0; } figcaption { font-size: 0.9em; color: #444; }
+img { max-width: 100%; }
+.meta { font-size: 0.85em; color: #444; }
+"""
+
+
+def escape(value) -> str:
+    """Text of ``value`` made safe to place in HTML (quotes included)."""
+    return html.escape(str(value), quote=True)
+
+
+def cautions_html() -> str:
+    """The cautions block that goes at the top of every report."""
+    items = "".join(f"<li>{escape(text)}</li>" for text in CAUTIONS)
+    return (
+        '<section class="cautions"><h2>Read this first</h2>'
+        f"<ul>{items}</ul></section>"
+    )
+
+
+def _cell(value, float_format: str) -> str:
+    if isinstance(value, float):
+        return f"<td>{escape(format(value, float_format))}</td>"
+    if isinstance(value, (int,)) and not isinstance(value, bool):
+        return f"<td>{value}</td>"
+    return f'<td class="text">{escape(value)}</td>'
+
+
+def table_html(
+    columns: Sequence[str],
+    rows: Iterable[Sequence],
+    *,
+    float_format: str = ".3g",
+    caption: str | None = None,
+) -> str:
+    """An HTML table; floats formatted with ``float_format``, text escaped."""
+    head = "".join(f"<th>{escape(name)}</th>" for name in columns)
+    body = []
+    for row in rows:
+        if len(row) != len(columns):
+            raise ValueError(
+                f"table row has {len(row)} values, expected {len(columns)} "
+                f"({', '.join(columns)})"
+            )
+        body.append("<tr>" + "".join(_cell(v, float_format) for v in row) + "</tr>")
+    cap = f"<caption>{escape(caption)}</caption>" if caption else ""
+    return f"<table>{cap}<thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def png_img_html(png_bytes: bytes, alt: str, caption: str | None = None) -> str:
+    """An embedded PNG picture (base64 data URI) with its alternative text."""
+    if not png_bytes.startswith(b"\x89PNG\r\n\x1a\n"):
+        raise ValueError("png_img_html expects the bytes of a PNG file")
+    data = base64.b64encode(png_bytes).decode("ascii")
+    img = f'<img src="data:image/png;base64,{data}" alt="{escape(alt)}">'
+    if caption is None:
+        return f"<figure>{img}</figure>"
+    return f"<figure>{img}<figcaption>{escape(caption)}</figcaption></figure>"
+
+
+def figure_png(figure, dpi: int = 110) -> bytes:
+    """PNG bytes of a :class:`matplotlib.figure.Figure` (no pyplot, no display)."""
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=dpi, bbox_inches="tight")
+    return buffer.getvalue()
+
+
+def html_document(title: str, body_html: str, *, generated_by: str = "voidcube") -> str:
+    """A complete page: title, cautions at the top, then ``body_html``.
+
+    ``body_html`` must already be built from escaped parts (:func:`escape`,
+    :func:`table_html`, :func:`png_img_html`).
+    """
+    return (
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        f"<title>{escape(title)}</title><style>{_STYLE}</style></head><body>"
+        f"<h1>{escape(title)}</h1>{cautions_html()}{body_html}"
+        f'<p class="meta">Written by {escape(generated_by)}. '
+        "Self-contained page: no network access is needed to view it.</p>"
+        "</body></html>\n"
+    )

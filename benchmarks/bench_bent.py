@@ -57,7 +57,7 @@ def main(argv=None):
     keep = np.sort(rng.choice(len(xyz), size=min(args.nodes, len(xyz)), replace=False))
     xyz = xyz[keep]
     a, b = np.triu_indices(len(xyz), 1)
-    n_fields = len(choose_sources(a, b, len(xyz)))
+    n_fields = len(choose_sources(a, b, len(xyz), xyz))
     print(f"grid {grid.shape} = {grid.n_cells:,} cells, {len(xyz)} nodes, {a.size:,} pairs, {n_fields} fields")
 
     travel_time_field(grid, slowness, xyz[0])  # compile

@@ -364,8 +364,15 @@ def _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean):
 
 
 @njit(cache=True)
-def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
-           second_order, smooth, factor_cells, seed_direct, xe, s1, fast_cells):
+def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
+           second_order, smooth, seed_direct, xe, s1, targets, margin):
+    """Fast marching over the lattice; ``*_pad`` are the lattice cells' slowness,
+    factored flag and fast-region flag, padded by one cell (inf / 0) all round:
+    cell (I, J, K) sits at [I + 1, J + 1, K + 1] (see :func:`_padded_cells`).
+
+    With ``targets`` (lattice point numbers), the march stops ``margin`` ns after
+    the last of them is accepted; later points are set to inf. Returns the times
+    and the time up to which they are final (inf: all of them)."""
     n_nodes = npx * npy * npz
     T = np.full(n_nodes, np.inf)
     state = np.zeros(n_nodes, dtype=np.uint8)  # 0 far, 1 trial, 2 accepted, 3 start
@@ -411,13 +418,26 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
     use = np.empty(3, dtype=np.int64)
     ijk = np.empty(3, dtype=np.int64)
     g = np.empty(3)
-    nfx, nfy, nfz = factor_cells.shape
+
+    is_target = np.zeros(n_nodes if targets.shape[0] > 0 else 0, dtype=np.uint8)
+    remaining = 0
+    for q in range(targets.shape[0]):
+        if is_target[targets[q]] == 0:
+            is_target[targets[q]] = 1
+            remaining += 1
+    t_stop = np.inf
 
     while size > 0:
         t, n, size = _heap_pop(hk, hv, size)
         if state[n] == 2 or t > T[n]:
             continue  # stale heap entry (lazy deletion)
+        if t > t_stop:
+            break
         state[n] = 2
+        if remaining > 0 and is_target[n] == 1:
+            remaining -= 1
+            if remaining == 0:
+                t_stop = t + margin
         i0 = n // strides[0]
         j0 = (n // strides[1]) % npy
         k0 = n % npz
@@ -433,28 +453,52 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
                 if state[m] >= 2:
                     continue
                 i, j, k = ijk[0], ijk[1], ijk[2]
+                # the 8 cells around the point (padded arrays: no bounds tests);
+                # the factored and additive terms are worked out only where a
+                # cell around the point can use them (results are unchanged)
+                any_f = False
+                any_a = False
+                for o in range(8):
+                    pi = i + (o >> 2)
+                    pj = j + ((o >> 1) & 1)
+                    pk = k + (o & 1)
+                    cs[o] = cs_pad[pi, pj, pk]
+                    cf[o] = cf_pad[pi, pj, pk]
+                    ca[o] = ca_pad[pi, pj, pk]
+                    if cf[o] == 1:
+                        any_f = True
+                    if ca[o] == 1:
+                        any_a = True
+                use_add = any_a and s1 > 0.0
                 x0 = i * hx - src[0]
                 x1 = j * hy - src[1]
                 x2 = k * hz - src[2]
-                dist = math.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
-                T0 = s0 * dist
-                if dist > 0.0:
-                    g[0] = s0 * x0 / dist
-                    g[1] = s0 * x1 / dist
-                    g[2] = s0 * x2 / dist
-                else:
-                    g[0] = 0.0
-                    g[1] = 0.0
-                    g[2] = 0.0
-                e0 = i * hx - xe[0]
-                e1 = j * hy - xe[1]
-                e2 = k * hz - xe[2]
-                re = math.sqrt(e0 * e0 + e1 * e1 + e2 * e2)
-                # virtual axes only in the slab of a tie: the point and its
-                # mirror across the source plane are equally far from the source
-                Af[6] = abs(g[0]) if abs(x0) <= 0.5 * hx * (1.0 + 1e-9) else np.inf
-                Af[7] = abs(g[1]) if abs(x1) <= 0.5 * hy * (1.0 + 1e-9) else np.inf
-                Af[8] = abs(g[2]) if abs(x2) <= 0.5 * hz * (1.0 + 1e-9) else np.inf
+                T0 = 0.0
+                if any_f:
+                    dist = math.sqrt(x0 * x0 + x1 * x1 + x2 * x2)
+                    T0 = s0 * dist
+                    if dist > 0.0:
+                        g[0] = s0 * x0 / dist
+                        g[1] = s0 * x1 / dist
+                        g[2] = s0 * x2 / dist
+                    else:
+                        g[0] = 0.0
+                        g[1] = 0.0
+                        g[2] = 0.0
+                    # virtual axes only in the slab of a tie: the point and its
+                    # mirror across the source plane are equally far from the source
+                    Af[6] = abs(g[0]) if abs(x0) <= 0.5 * hx * (1.0 + 1e-9) else np.inf
+                    Af[7] = abs(g[1]) if abs(x1) <= 0.5 * hy * (1.0 + 1e-9) else np.inf
+                    Af[8] = abs(g[2]) if abs(x2) <= 0.5 * hz * (1.0 + 1e-9) else np.inf
+                e0 = 0.0
+                e1 = 0.0
+                e2 = 0.0
+                re = 0.0
+                if use_add:
+                    e0 = i * hx - xe[0]
+                    e1 = j * hy - xe[1]
+                    e2 = k * hz - xe[2]
+                    re = math.sqrt(e0 * e0 + e1 * e1 + e2 * e2)
                 n_known = 0
                 for a in range(3):
                     for sd in range(2):
@@ -470,26 +514,18 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
                             continue
                         kn[q] = 1
                         n_known += 1
-                        y0 = x0 + (dd * hx if a == 0 else 0.0)
-                        y1 = x1 + (dd * hy if a == 1 else 0.0)
-                        y2 = x2 + (dd * hz if a == 2 else 0.0)
-                        r1 = math.sqrt(y0 * y0 + y1 * y1 + y2 * y2)
                         # second order (Sethian and Popovici 1999) when the point
                         # two steps back is known, earlier, and all in smooth
                         # slowness; first order across sharp contrasts
                         two = False
                         T2 = 0.0
-                        r2 = 0.0
                         c2 = c1 + dd
+                        m2 = m1
                         if second_order and c2 >= 0 and c2 < dims[a]:
                             m2 = m1 + dd * strides[a]
                             if state[m2] == 2 and T[m2] <= T[m1] and smooth[m] == 1 and smooth[m1] == 1:
                                 two = True
                                 T2 = T[m2]
-                                z0 = y0 + (dd * hx if a == 0 else 0.0)
-                                z1 = y1 + (dd * hy if a == 1 else 0.0)
-                                z2 = y2 + (dd * hz if a == 2 else 0.0)
-                                r2 = math.sqrt(z0 * z0 + z1 * z1 + z2 * z2)
                         kf[q] = direct[m1]
                         if two and direct[m2] == 0:
                             kf[q] = 0
@@ -501,7 +537,7 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
                             Ap[q] = 1.0 / h[a]
                             Bp[q] = T[m1] / h[a]
                         Bc[q] = Bp[q]
-                        if s1 > 0.0 and re > 0.0:
+                        if use_add and re > 0.0:
                             # T1 = s1 |x - xe|: differences of T - T1 plus the
                             # exact derivative of T1 (the additive factor)
                             w0 = e0 + (dd * hx if a == 0 else 0.0)
@@ -519,8 +555,20 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
                             else:
                                 comb = s1 * re - t1n
                             Bc[q] = Bp[q] + (comb - h[a] * g1s) / h[a]
+                        if not any_f:
+                            continue
                         # factored form T = T0 tau (Fomel, Luo and Zhao 2009):
                         # d(T0 tau) = tau dT0 (exact) + T0 d(tau) (differenced)
+                        y0 = x0 + (dd * hx if a == 0 else 0.0)
+                        y1 = x1 + (dd * hy if a == 1 else 0.0)
+                        y2 = x2 + (dd * hz if a == 2 else 0.0)
+                        r1 = math.sqrt(y0 * y0 + y1 * y1 + y2 * y2)
+                        r2 = 0.0
+                        if two:
+                            z0 = y0 + (dd * hx if a == 0 else 0.0)
+                            z1 = y1 + (dd * hy if a == 1 else 0.0)
+                            z2 = y2 + (dd * hz if a == 2 else 0.0)
+                            r2 = math.sqrt(z0 * z0 + z1 * z1 + z2 * z2)
                         ga = -g[a] if dd > 0 else g[a]
                         if r1 == 0.0 or (two and r2 == 0.0):
                             # a neighbour is the source, where tau has no limit
@@ -539,24 +587,10 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
                 if n_known == 0:
                     continue
                 tie = False
-                for a in range(3):
-                    if Af[6 + a] < np.inf and kn[2 * a] == 0 and kn[2 * a + 1] == 0:
-                        tie = True
-                for o in range(8):
-                    I = i - 1 + (o >> 2)
-                    J = j - 1 + ((o >> 1) & 1)
-                    K = k - 1 + (o & 1)
-                    cs[o] = _cell_slowness(slow, r, I, J, K)
-                    cf[o] = 0
-                    ca[o] = 0
-                    if cs[o] < np.inf:
-                        cf[o] = factor_cells[I // r, J // r, K // r]
-                        ca[o] = fast_cells[I // r, J // r, K // r]
-                # In smoothly varying slowness the equation wants the slowness AT
-                # the point: the mean of its cells is second-order accurate there,
-                # whereas one cell (half a step away) or the fastest of several
-                # biases the front by a first-order amount (measured: -0.8 % at
-                # 10 m in the linear-gradient check).
+                if any_f:
+                    for a in range(3):
+                        if Af[6 + a] < np.inf and kn[2 * a] == 0 and kn[2 * a + 1] == 0:
+                            tie = True
                 s_mean = -1.0
                 if smooth[m] == 1:
                     s_mean = 0.0
@@ -654,7 +688,11 @@ def _march(slow, r, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
                     direct[m] = best_direct
                     state[m] = 1
                     hk, hv, size = _heap_push(hk, hv, size, best, m)
-    return T
+    if t_stop < np.inf:
+        for n in range(n_nodes):
+            if state[n] != 2:
+                T[n] = np.inf
+    return T, t_stop
 
 
 
@@ -793,6 +831,17 @@ def _check_inputs(grid, slowness_ns_per_m, source_xyz_m, options):
     return np.ascontiguousarray(s), p
 
 
+def _padded_cells(values, r, fill):
+    """Values per lattice cell (model cells refined ``r`` times), padded by one
+    cell all round with ``fill``: lattice cell (I, J, K) at [I + 1, J + 1, K + 1]."""
+    fine = values
+    for axis in range(3):
+        fine = np.repeat(fine, r, axis=axis)
+    out = np.full(tuple(n + 2 for n in fine.shape), fill, dtype=values.dtype)
+    out[1:-1, 1:-1, 1:-1] = fine
+    return out
+
+
 def _source_slowness(slow, r, n_lat, u):
     """Slowness of the fastest lattice cell touching the source, for the factor."""
     cand = []
@@ -839,10 +888,23 @@ def _fast_region(slow, cell, src, s0, ratio):
     return np.ascontiguousarray(near[q], dtype=float), s1, cells
 
 
-def _lattice_times(slow, r, cell, src, options, local):
+def _corner_targets(points, h, n_lat):
+    """Lattice point numbers of the 8 corners of the lattice cell holding each point."""
+    upper = np.asarray(n_lat) - 1
+    u = np.clip(np.asarray(points, dtype=float) / h, 0.0, upper)
+    i0 = np.minimum(np.floor(u).astype(np.int64), np.maximum(upper - 1, 0))
+    corners = [i0 + np.array([(o >> 2) & 1, (o >> 1) & 1, o & 1]) for o in range(8)]
+    ijk = np.minimum(np.concatenate(corners), upper)
+    return np.unique(np.ravel_multi_index(tuple(ijk.T), n_lat)).astype(np.int64)
+
+
+def _lattice_times(slow, r, cell, src, options, local, targets_m=None):
     """Times on the corner lattice of ``slow`` refined ``r`` times, source ``src``
     (metres from the lattice origin). With ``local``, the start values near the
-    source come from a finer solve of a small box around it."""
+    source come from a finer solve of a small box around it. With ``targets_m``
+    (points, metres from the lattice origin) the march stops once the times
+    around them, and the gradients a ray traced back from them needs, are final.
+    Returns the times and the time up to which they are final."""
     h = cell / r
     n_lat = tuple(int(n) * r + 1 for n in slow.shape)
     u = src / h
@@ -866,10 +928,20 @@ def _lattice_times(slow, r, cell, src, options, local):
     else:
         factor_cells = np.zeros(slow.shape, dtype=np.uint8)
     xe, s1, fast_cells = _fast_region(slow, cell, src, s0, float(options.smooth_contrast))
-    T = _march(slow, r, n_lat[0], n_lat[1], n_lat[2], h[0], h[1], h[2], src, float(s0),
-               nodes, times, bool(options.second_order), smooth, factor_cells, seed_direct,
-               xe, s1, fast_cells)
-    return T.reshape(n_lat)
+    if targets_m is None or len(targets_m) == 0:
+        targets = np.zeros(0, dtype=np.int64)
+    else:
+        targets = _corner_targets(targets_m, h, n_lat)
+    # A ray traced back from a target steers by central differences around the
+    # lattice cells it crosses: points at most (sqrt(3) + 1) steps from a point
+    # whose time is below the target's. Four steps at the slowest cell's
+    # slowness bound their times from above.
+    margin = 4.0 * float(slow.max()) * float(np.max(h))
+    T, t_final = _march(_padded_cells(slow, r, np.inf), _padded_cells(factor_cells, r, 0),
+                        _padded_cells(fast_cells, r, 0), n_lat[0], n_lat[1], n_lat[2], h[0], h[1], h[2],
+                        src, float(s0), nodes, times, bool(options.second_order), smooth, seed_direct,
+                        xe, s1, targets, margin)
+    return T.reshape(n_lat), t_final
 
 
 def _local_seeds(slow, r, cell, src, u, n_lat, options, nodes, times):
@@ -889,7 +961,7 @@ def _local_seeds(slow, r, cell, src, u, n_lat, options, nodes, times):
     lo = np.maximum(c_src - half, 0)
     hi = np.minimum(c_src + half + 1, np.asarray(slow.shape))
     crop = np.ascontiguousarray(slow[lo[0]:hi[0], lo[1]:hi[1], lo[2]:hi[2]])
-    fine = _lattice_times(crop, r * k, cell, src - lo * cell, options, local=False)
+    fine, _ = _lattice_times(crop, r * k, cell, src - lo * cell, options, local=False)
     # the coarse lattice points of the ball that the box holds, in fine steps
     ijk = np.stack(np.unravel_index(nodes, n_lat), axis=1) - lo * r
     inside = np.all((ijk >= 0) & (ijk * k < np.asarray(fine.shape)), axis=1)
@@ -899,8 +971,29 @@ def _local_seeds(slow, r, cell, src, u, n_lat, options, nodes, times):
     return better
 
 
+def _air_ceiling_layers(slow, points_z_m, cell_z_m):
+    """Number of cell layers (from the bottom) the solve needs when only times at
+    ``points_z_m`` (metres above the grid origin) are wanted.
+
+    Above the highest layer that holds a cell slower than the model's fastest
+    cell, the model is uniform at the fastest slowness (the air over the
+    ground). A first-arrival path between two points below a level H through
+    such a region never needs to rise above H: the part above H can be replaced
+    by the chord along the plane z = H, shorter and no slower. Two uniform
+    layers are kept above the highest point and the highest non-uniform layer:
+    the times in them are those of the whole box, and so are the central
+    differences rays steer by (with one layer, rays along the ground surface
+    came out up to 0.3 m apart).
+    """
+    s_min = float(slow.min())
+    mixed = np.flatnonzero(np.any(slow > s_min, axis=(0, 1)))
+    top = int(mixed[-1]) + 1 if mixed.size else 0
+    top = max(top, int(np.floor(float(np.max(points_z_m)) / cell_z_m)) + 1)
+    return min(top + 2, slow.shape[2])
+
+
 def travel_time_field(grid: Grid, slowness_ns_per_m, source_xyz_m, *,
-                      options: EikonalOptions = EikonalOptions()) -> TimeField:
+                      options: EikonalOptions = EikonalOptions(), receivers_xyz_m=None) -> TimeField:
     """First-arrival travel times from one source over the whole model box.
 
     Parameters
@@ -912,27 +1005,52 @@ def travel_time_field(grid: Grid, slowness_ns_per_m, source_xyz_m, *,
     source_xyz_m : array_like, shape (3,)
         Source position in metres, anywhere in the box (boundary included).
     options : EikonalOptions, optional
+    receivers_xyz_m : array_like, shape (n, 3), optional
+        When given, only the times at these points and the rays traced back
+        from them are wanted: the march stops once the field around them is
+        final, and uniform fastest cells (air) above the highest of them, the
+        source and every other kind of cell are left out (see
+        :func:`_air_ceiling_layers`). The field then covers less than the box
+        and later times are inf; ``final_until_ns`` says up to when it is
+        complete. The times at the receivers are the same as without it.
 
     Returns
     -------
     TimeField
         Times in ns at the lattice ``grid.origin_m + (i, j, k) * cell_m / refine``,
-        ``grid.shape * refine + 1`` points: the cell corners of the refined grid.
+        ``grid.shape * refine + 1`` points (fewer layers in z when cropped): the
+        cell corners of the refined grid.
 
     Raises
     ------
     ValueError
         Naming the argument: wrong shape, NaN, non-positive slowness, a source
-        outside the box.
+        or receiver outside the box.
     """
     slow, p = _check_inputs(grid, slowness_ns_per_m, source_xyz_m, options)
     r = int(options.refine)
-    h = np.asarray(grid.cell_m, dtype=float) / r
-    T = _lattice_times(slow, r, np.asarray(grid.cell_m, dtype=float),
-                       p - np.asarray(grid.origin_m), options, local=options.source_refine > 1)
+    cell = np.asarray(grid.cell_m, dtype=float)
+    h = cell / r
+    origin = np.asarray(grid.origin_m, dtype=float)
+    targets = None
+    if receivers_xyz_m is not None:
+        targets = np.atleast_2d(np.asarray(receivers_xyz_m, dtype=float))
+        if targets.ndim != 2 or targets.shape[1] != 3 or not np.all(np.isfinite(targets)):
+            raise ValueError(f"receivers_xyz_m must be finite points of shape (n, 3) (got {targets.shape})")
+        outside = ~grid.contains(targets)
+        if outside.any():
+            raise ValueError(f"receivers_xyz_m: {int(outside.sum())} point(s) lie outside the model box, "
+                             f"the first at {tuple(targets[outside][0])}")
+        targets = targets - origin
+        if targets.size:
+            layers = _air_ceiling_layers(slow, np.append(targets[:, 2], p[2] - origin[2]), cell[2])
+            slow = np.ascontiguousarray(slow[:, :, :layers])
+    T, final_until_ns = _lattice_times(slow, r, cell, p - origin, options,
+                                       local=options.source_refine > 1, targets_m=targets)
     return TimeField(
         origin_m=tuple(grid.origin_m),
         spacing_m=tuple(float(v) for v in h),
         times_ns=T,
         source_xyz_m=p.copy(),
+        final_until_ns=float(final_until_ns),
     )

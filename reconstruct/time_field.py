@@ -4,7 +4,8 @@ The eikonal solver (:mod:`reconstruct.eikonal`) returns one; ray tracing
 (:mod:`reconstruct.bent_rays`) reads it. Times are given at the lattice points
 ``origin_m + (i, j, k) * spacing_m`` for ``0 <= i < shape[0]`` and so on; the
 lattice covers the whole model box, so every node inside the box can be
-interpolated.
+interpolated (unless the solve was limited to some receivers: then only
+around them, see ``final_until_ns``).
 
 Between lattice points the *apparent slowness* ``q = T / |x - x_s|`` is
 interpolated trilinearly and multiplied back by the distance to the source.
@@ -38,12 +39,16 @@ class TimeField:
         First-arrival times in ns, indexed [i, j, k] like the grid.
     source_xyz_m : ndarray, shape (3,)
         The source position, metres.
+    final_until_ns : float
+        Times up to this value are final; later lattice points were not solved
+        (inf) because only some receivers were wanted. inf: the whole lattice.
     """
 
     origin_m: tuple
     spacing_m: tuple
     times_ns: np.ndarray
     source_xyz_m: np.ndarray
+    final_until_ns: float = float("inf")
 
     @property
     def shape(self):

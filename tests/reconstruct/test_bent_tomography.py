@@ -48,6 +48,20 @@ def test_choose_sources_covers_every_pair_once():
         assert np.all(others == np.where(a[index] == source, b[index], a[index]))
 
 
+def test_choose_sources_with_positions_starts_at_the_ends_and_still_covers_every_pair():
+    # nodes on a line: ties go to the node farthest from the centroid of the nodes
+    # still waiting, so the sources work inwards from both ends
+    xyz = np.c_[np.arange(7.0) * 10, np.zeros(7), np.zeros(7)]
+    a, b = np.triu_indices(7, 1)
+    tasks = choose_sources(a, b, 7, xyz)
+    assert sorted(np.concatenate([t[1] for t in tasks]).tolist()) == list(range(a.size))
+    waiting = set(range(7))
+    for source, _, _ in tasks:
+        assert source in (min(waiting), max(waiting))  # always an end of the waiting interval
+        waiting.discard(source)
+    assert len(tasks) == 6  # a complete graph needs n - 1 sources
+
+
 HOMOGENEOUS_RTOL = 1e-3  # the target: within 0.1 % of distance / velocity
 FERMAT_RTOL = 1e-3
 

@@ -157,6 +157,34 @@ def test_half_space_borehole_source_level(half_space):
     assert far.max() <= 0.005
 
 
+def test_field_limited_to_receivers_matches_the_whole_box(half_space):
+    # A solve asked only for some receivers stops once they are final and leaves
+    # out the uniform air above them (a path above them can always be replaced by a
+    # chord lower down, no slower). Both are exact: same times and same rays as the
+    # whole-box solve, and both agree with the half-space formula (Telford, Geldart
+    # and Sheriff 1990, Applied Geophysics, head wave with the fast medium above).
+    from reconstruct.bent_rays import trace_rays
+
+    grid, s = half_space
+    src = np.array([8.3, 8.1, ZG - 3.0])
+    rx = np.array([[20.0, 5.0, ZG - 1e-6], [30.5, 9.0, ZG - 2.0], [40.0, 12.0, ZG - 6.0],
+                   [14.0, 3.0, ZG - 3.0]])
+    whole = travel_time_field(grid, s, src)
+    limited = travel_time_field(grid, s, src, receivers_xyz_m=rx)
+    assert limited.shape[2] < whole.shape[2] and np.isfinite(limited.final_until_ns)
+    assert np.isinf(limited.times_ns).mean() > 0.2  # the far part of the box was left out
+    np.testing.assert_array_equal(limited.interpolate(rx), whole.interpolate(rx))
+    for a, b in zip(trace_rays(whole, rx)[0], trace_rays(limited, rx)[0]):
+        np.testing.assert_array_equal(a, b)
+    assert _rel(limited.interpolate(rx), _half_space_time(src, rx)).max() <= 0.005
+
+
+def test_receivers_outside_the_box_are_refused(half_space):
+    grid, s = half_space
+    with pytest.raises(ValueError, match="receivers_xyz_m: 1 point"):
+        travel_time_field(grid, s, np.array([5.0, 5.0, 5.0]), receivers_xyz_m=[[5.0, 5.0, 99.0]])
+
+
 def _half_space_errors_far(half_space, depth_src):
     grid, s = half_space
     src = np.array([8.3, 8.1, ZG - depth_src])

@@ -32,6 +32,18 @@ Design
   in the cells reached from it without a sharp jump. On a flat ground the
   air wave's time on the surface is exactly such a cone (plus a constant);
   plain first-order differences of it ran up to 1.8 ns late 10-20 m out.
+* Two wave families per lattice point: the source's own wave in its smooth
+  region (factored) and every wave that crossed a sharp contrast (plain).
+  Inside the source's region a stencil takes neighbours of one family only:
+  where the refracted air wave overtakes the direct wave (5-7 m from a source
+  3 m deep) the two fronts cross at a kink, and stencils mixing them ran up to
+  1.6 ns early. Under cells outside that region each neighbour's earlier time
+  is used (the source's wave crossing into another medium, an interface wave
+  feeding its head wave back). A family more than one lattice step (at the
+  slowest cell's slowness) later than the other at a point is not marched on.
+  :class:`~reconstruct.time_field.TimeField` interpolates the families one by
+  one and takes the earliest: interpolating the minimum across the kink ran
+  up to 1.2 ns early (the chord under a concave kink).
 * Start values (final, never overwritten: difference stencils across the
   point source ran up to 13 % early in the plain form): lattice points within
   ``source_radius`` steps get the straight-ray time through the cells (exact
@@ -40,27 +52,26 @@ Design
   model cells ``source_refine`` times finer (a source 0.5 m under the surface
   sends its head wave up at the critical angle, which a 1 m lattice misses by
   0.3 ns for good).
+* Only some receivers wanted (``receivers_xyz_m``): the march stops once the
+  field around them is final, and the uniform air above them is left out;
+  both exact (same times and rays).
 
 Measured (1 m cells, default options, this machine, 2 cores, shared)
 -------------------------------------------------------------------
-* 200 x 60 x 70 cells with ground, air and three bodies: 1.3-2.5 s per field
-  against 0.6-1.0 s for scikit-fmm (order 2, one-cell source) in the same run,
-  ratio 1.6-3.4 while other jobs loaded both cores (2.5 on a quieter machine
-  before the tie rule; interleaved runs with and without it showed no
-  difference beyond that noise). Memory: 6.6 MiB of times per field, about
-  13 MiB while solving. ``refine=2`` is 8 times the points and about 8 times
-  slower.
+* 200 x 60 x 70 cells with ground, air and a void, whole box: 1.5-2.7 s CPU
+  per field against 0.5-0.8 s for scikit-fmm (order 2, one-cell source) in
+  the same run, ratio 2.3-3.5 on a loaded machine (the one-family solver
+  before the wave families: 1.9-2.5). Memory: 6.6 MiB of times per field and
+  about 40 MiB while solving (two families, heap, flags).
 * Homogeneous: exact to 1e-12 at lattice points and, with TimeField's
   apparent-slowness interpolation, between them (crosshole pairs 2-16 m).
-* Surface source over a flat ground, receivers 5-150 m on and under the
-  surface: median 0.000 %, max 0.24 % (scikit-fmm naive: 1.8 %, 25 %).
-* Source 3 m deep: median 0.005 %, max 3.5 % (before the additive factor
-  0.21 %, 3.1 %: the air wave ran late by a near-constant delay); 15-80 m out
-  max 0.15 %. The max is early, 5-7 m out where the head wave in the rock
-  overtakes the direct wave: a 2D stencil mixing the two families runs up to
-  1.1 ns early (allowing no mixed stencils: max 1.6 %, median 0.03 %, not
-  kept). scikit-fmm naive: 1.0 %, 16 %.
-* Linear gradient (Slotnick 1959): median 0.015 %, max 1.5 %.
+* Surface source over a flat ground, receivers 5-80 m on and under the
+  surface: median 0.000 %, max 0.42 % (scikit-fmm naive: 1.8 %, 25 %).
+* Source 3 m deep: median 0.005 %, max 0.10 % (one family: max 2.3 %, 1.1 ns
+  early where the air wave overtakes the direct wave). scikit-fmm naive:
+  1.0 %, 16 %.
+* Linear gradient (Slotnick 1959), offsets 5-150 m: median 0.014 %, max
+  0.13 %; rays within 0.2 m of the analytic circular arcs.
 * Crosshole through an air-filled sphere of 3.5 m radius: no pair time later
   than the straight ray through the same cells (Fermat's principle, Cerveny
   2001); before the additive factor 10 of 120 were, worst 1.4 %.
@@ -98,6 +109,9 @@ __all__ = ["EikonalOptions", "travel_time_field"]
 #: air wave along the surface starts at the source.
 _ON_PLANE_FRACTION = 1e-4
 _HEAD_WAVE_MARGIN = 0.02
+#: A wave family more than this many lattice steps (at the slowest cell's
+#: slowness) later than the other at a point is not marched on from it.
+_DOMINANCE_STEPS = 1.0
 
 
 @dataclass(frozen=True)
@@ -235,7 +249,7 @@ def _factor_region(slow, seed_cells, ratio):
     return inside
 
 
-@njit(cache=True)
+@njit(cache=True, inline='always')
 def _heap_push(hk, hv, size, key, val):
     if size >= hk.shape[0]:
         nk = np.empty(hk.shape[0] * 2)
@@ -258,7 +272,7 @@ def _heap_push(hk, hv, size, key, val):
     return hk, hv, size + 1
 
 
-@njit(cache=True)
+@njit(cache=True, inline='always')
 def _heap_pop(hk, hv, size):
     key = hk[0]
     val = hv[0]
@@ -283,7 +297,7 @@ def _heap_pop(hk, hv, size):
     return key, val, size
 
 
-@njit(cache=True)
+@njit(cache=True, inline='always')
 def _solve(A, B, s, use, m):
     """Largest root tau of sum over used axes (A tau - B)^2 = s^2, or inf.
 
@@ -310,7 +324,7 @@ def _solve(A, B, s, use, m):
     return tau
 
 
-@njit(cache=True)
+@njit(cache=True, inline='always')
 def _factored_stencil(use, kn, Af, qa, qb):
     """Fill ``use`` with the differenced axis-sides ``qa`` (and ``qb`` if >= 0)
     plus the axes that have no accepted neighbour at all; return the count.
@@ -337,16 +351,18 @@ def _factored_stencil(use, kn, Af, qa, qb):
     return nu
 
 
-@njit(cache=True)
+@njit(cache=True, inline='always')
 def _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean):
     """The fastest of the octant cells on side ``sa`` of axis ``a`` (and side ``sb`` of
-    axis ``b`` unless ``b < 0``): its slowness, factored flag and air flag.
+    axis ``b`` unless ``b < 0``): its slowness, factored flag and air flag, and the
+    slowness of the fastest of them inside the source's smooth region (inf: none).
 
     An edge update (one axis) looks at the 4 cells sharing the edge, a face update
     (two axes) at the 2 cells sharing the face (Podvin and Lecomte, 1991). In a
     smooth region (``s_mean > 0``) the mean slowness replaces the fastest one.
     """
     s = np.inf
+    s_in = np.inf
     fac = 0
     fa = 0
     for o in range(8):
@@ -358,27 +374,77 @@ def _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean):
             s = cs[o]
             fac = cf[o]
             fa = ca[o]
-    if s < np.inf and s_mean > 0.0:
-        s = s_mean
-    return s, fac, fa
+        if cf[o] == 1 and cs[o] < s_in:
+            s_in = cs[o]
+    if s_mean > 0.0:
+        if s < np.inf:
+            s = s_mean
+        if s_in < np.inf:
+            s_in = s_mean
+    return s, fac, fa, s_in
+
+
+@njit(cache=True, inline='always')
+def _side_coefficients(T, state, fam, m, m1, m2, a, dd, h, smooth, second_order, two_ok, A, B, q):
+    """Plain one-sided difference of axis-side ``q`` from the values of family
+    ``fam`` (0, 1; 2: the earlier of the two). Returns (known, two, T1, T2)."""
+    if fam == 2:
+        t1 = min(T[2 * m1] if state[2 * m1] == 2 else np.inf, T[2 * m1 + 1] if state[2 * m1 + 1] == 2 else np.inf)
+    else:
+        t1 = T[2 * m1 + fam] if state[2 * m1 + fam] == 2 else np.inf
+    if t1 == np.inf:
+        return False, False, 0.0, 0.0
+    two = False
+    t2 = 0.0
+    if second_order and two_ok:
+        if fam == 2:
+            t2 = min(T[2 * m2] if state[2 * m2] == 2 else np.inf, T[2 * m2 + 1] if state[2 * m2 + 1] == 2 else np.inf)
+        else:
+            t2 = T[2 * m2 + fam] if state[2 * m2 + fam] == 2 else np.inf
+        two = t2 <= t1
+    if two:
+        A[q] = 1.5 / h[a]
+        B[q] = (2.0 * t1 - 0.5 * t2) / h[a]
+    else:
+        A[q] = 1.0 / h[a]
+        B[q] = t1 / h[a]
+    return True, two, t1, t2
 
 
 @njit(cache=True)
 def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
-           second_order, smooth, seed_direct, xe, s1, targets, margin):
-    """Fast marching over the lattice; ``*_pad`` are the lattice cells' slowness,
-    factored flag and fast-region flag, padded by one cell (inf / 0) all round:
-    cell (I, J, K) sits at [I + 1, J + 1, K + 1] (see :func:`_padded_cells`).
+           second_order, smooth, seed_direct, xe, s1, targets, margin, dominance):
+    """Fast marching over the lattice with two wave families per point.
 
-    With ``targets`` (lattice point numbers), the march stops ``margin`` ns after
-    the last of them is accepted; later points are set to inf. Returns the times
-    and the time up to which they are final (inf: all of them)."""
+    Family 0 is the source's own wave in its smooth region (the factored form
+    of Fomel, Luo and Zhao 2009); family 1 every wave that crossed a sharp
+    contrast: the air wave, head waves, waves through a void (plain form).
+    Inside the source's region a stencil uses neighbours of one family only:
+    where the refracted air wave overtakes the direct wave a few metres from a
+    borehole source the two fronts cross at a kink, and stencils mixing them ran
+    up to 1.6 ns early. Where a stencil's governing cell lies outside the
+    region, family 1 takes each neighbour's earlier time: that is where the
+    source's wave crosses into another medium, and where a wave along the
+    interface feeds its head wave back into the source's medium. A point's
+    first arrival is the earlier of its two times.
+
+    A family's value more than ``dominance`` ns later than the other family's
+    at the same point is not marched on (along its own rays a family's time
+    grows at the full slowness, the other's at most as fast, so it stays later
+    downstream).
+
+    ``*_pad`` are the lattice cells' slowness, factored flag and fast-region
+    flag, padded by one cell (inf / 0) all round: cell (I, J, K) sits at
+    [I + 1, J + 1, K + 1] (see :func:`_padded_cells`). With ``targets`` (lattice
+    point numbers), the march stops ``margin`` ns after the last of them is
+    reached; later points are set to inf. Returns the first-arrival times, the
+    times per family and the time up to which they are final (inf: all).
+    """
     n_nodes = npx * npy * npz
-    T = np.full(n_nodes, np.inf)
-    state = np.zeros(n_nodes, dtype=np.uint8)  # 0 far, 1 trial, 2 accepted, 3 start
-    # 1 where the time belongs to the wave family of the source itself (T/T0
-    # smooth), 0 where it came through a sharp contrast (a head wave)
-    direct = np.zeros(n_nodes, dtype=np.uint8)
+    # entry 2 n + f: point n, family f
+    T = np.full(2 * n_nodes, np.inf)
+    # 0 far, 1 trial, 2 accepted, 3 start, 4 accepted but dominated (not used)
+    state = np.zeros(2 * n_nodes, dtype=np.uint8)
     cap = max(1024, n_nodes // 4)
     hk = np.empty(cap)
     hv = np.empty(cap, dtype=np.int64)
@@ -386,32 +452,34 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
     # start values are final: a difference stencil next to the source, where
     # the front is a point, only spoils them (measured: second-order plain
     # updates across the source ran 13 % early 1.6 steps from it)
-    # (state 3: a start value in the heap, not yet accepted but not updated)
     for q in range(seed_nodes.shape[0]):
-        n = seed_nodes[q]
-        if seed_times[q] < T[n]:
-            T[n] = seed_times[q]
-            direct[n] = seed_direct[q]
-            state[n] = 3
-            hk, hv, size = _heap_push(hk, hv, size, T[n], n)
+        v = 2 * seed_nodes[q] + (0 if seed_direct[q] == 1 else 1)
+        if seed_times[q] < T[v]:
+            T[v] = seed_times[q]
+            state[v] = 3
+            hk, hv, size = _heap_push(hk, hv, size, T[v], v)
 
     h = np.array([hx, hy, hz])
     strides = np.array([npy * npz, npz, 1], dtype=np.int64)
     dims = np.array([npx, npy, npz], dtype=np.int64)
-    # scratch, allocated once: per axis-side difference coefficients in the
-    # factored (f) and plain (p) forms, and the 8 cells around the point
-    # entries 6..8: an axis with no accepted neighbour, where the factored
-    # form keeps the exact term tau dT0/dx_a and takes d(tau)/dx_a = 0
+    # scratch, allocated once: per axis-side difference coefficients. Family 0
+    # in the factored form (Af, Bf; entries 6..8: an axis with no accepted
+    # neighbour, where the factored form keeps the exact term tau dT0/dx_a and
+    # takes d(tau)/dx_a = 0); family 1 (A1, B1) and the earlier of the two
+    # (Am, Bm) in the plain form; C1, Cm the same with the additive factor of
+    # the fast-medium wave (T = s1 |x - xe| + u, u differenced), used where the
+    # governing cell is in the fast region next to the source.
     Af = np.zeros(9)
     Bf = np.zeros(9)
-    Ap = np.empty(6)
-    Bp = np.empty(6)
-    # plain differences with the additive factor of the fast-medium wave
-    # (T = s1 |x - xe| + u, u differenced): used where the governing cell is
-    # in the fast region next to the source
-    Bc = np.empty(6)
-    kn = np.zeros(6, dtype=np.uint8)
-    kf = np.zeros(6, dtype=np.uint8)
+    A1 = np.empty(6)
+    B1 = np.empty(6)
+    C1 = np.empty(6)
+    Am = np.empty(6)
+    Bm = np.empty(6)
+    Cm = np.empty(6)
+    k0 = np.zeros(6, dtype=np.uint8)
+    k1 = np.zeros(6, dtype=np.uint8)
+    km = np.zeros(6, dtype=np.uint8)
     cs = np.empty(8)
     cf = np.zeros(8, dtype=np.uint8)
     ca = np.zeros(8, dtype=np.uint8)
@@ -428,35 +496,50 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
     t_stop = np.inf
 
     while size > 0:
-        t, n, size = _heap_pop(hk, hv, size)
-        if state[n] == 2 or t > T[n]:
+        t, v, size = _heap_pop(hk, hv, size)
+        if state[v] == 2 or state[v] == 4 or t > T[v]:
             continue  # stale heap entry (lazy deletion)
         if t > t_stop:
             break
-        state[n] = 2
+        n = v >> 1
         if remaining > 0 and is_target[n] == 1:
+            is_target[n] = 2  # reached: its first family to arrive is its first arrival
             remaining -= 1
             if remaining == 0:
                 t_stop = t + margin
+        other = v ^ 1
+        if state[other] == 2 and T[other] + dominance < t:
+            state[v] = 4  # dominated by the other family here: final, not marched on
+            continue
+        state[v] = 2
+        fam = v & 1
+        # what this value can change at a neighbour: its own family's
+        # candidates, and the earliest-of-both candidates when it is the
+        # earlier of the point's two times (the other is not in yet)
+        is_min = state[other] != 2 and state[other] != 4
         i0 = n // strides[0]
         j0 = (n // strides[1]) % npy
-        k0 = n % npz
+        kk0 = n % npz
         for ax in range(3):
             for d in (-1, 1):
                 ijk[0] = i0
                 ijk[1] = j0
-                ijk[2] = k0
+                ijk[2] = kk0
                 ijk[ax] += d
                 if ijk[ax] < 0 or ijk[ax] >= dims[ax]:
                     continue
                 m = n + d * strides[ax]
-                if state[m] >= 2:
+                # skip a neighbour this value cannot change
+                if state[2 * m + 1] >= 2 and (fam == 1 or state[2 * m] >= 2):
+                    continue
+                if fam == 0 and state[2 * m] >= 2 and not is_min:
                     continue
                 i, j, k = ijk[0], ijk[1], ijk[2]
                 # the 8 cells around the point (padded arrays: no bounds tests);
                 # the factored and additive terms are worked out only where a
-                # cell around the point can use them (results are unchanged)
+                # cell around the point can use them
                 any_f = False
+                any_out = False
                 any_a = False
                 for o in range(8):
                     pi = i + (o >> 2)
@@ -467,8 +550,12 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                     ca[o] = ca_pad[pi, pj, pk]
                     if cf[o] == 1:
                         any_f = True
+                    elif cs[o] < np.inf:
+                        any_out = True
                     if ca[o] == 1:
                         any_a = True
+                has_in = any_f
+                any_f = any_f and fam == 0 and state[2 * m] < 2
                 use_add = any_a and s1 > 0.0
                 x0 = i * hx - src[0]
                 x1 = j * hy - src[1]
@@ -499,66 +586,75 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                     e1 = j * hy - xe[1]
                     e2 = k * hz - xe[2]
                     re = math.sqrt(e0 * e0 + e1 * e1 + e2 * e2)
+                need1 = state[2 * m + 1] < 2
+                if not (any_f or (need1 and (fam == 1 or (any_out and is_min)))):
+                    continue
+                # (family 1 from its own values only under cells of the
+                # source's region; the earliest of both only under other cells)
+                do1 = need1 and fam == 1 and has_in
+                dom = need1 and any_out and is_min
                 n_known = 0
                 for a in range(3):
                     for sd in range(2):
                         q = 2 * a + sd
-                        kn[q] = 0
-                        kf[q] = 0
+                        k0[q] = 0
+                        k1[q] = 0
+                        km[q] = 0
                         dd = 2 * sd - 1
                         c1 = ijk[a] + dd
                         if c1 < 0 or c1 >= dims[a]:
                             continue
                         m1 = m + dd * strides[a]
-                        if state[m1] != 2:
+                        if state[2 * m1] != 2 and state[2 * m1 + 1] != 2:
                             continue
-                        kn[q] = 1
                         n_known += 1
-                        # second order (Sethian and Popovici 1999) when the point
-                        # two steps back is known, earlier, and all in smooth
-                        # slowness; first order across sharp contrasts
-                        two = False
-                        T2 = 0.0
                         c2 = c1 + dd
-                        m2 = m1
-                        if second_order and c2 >= 0 and c2 < dims[a]:
-                            m2 = m1 + dd * strides[a]
-                            if state[m2] == 2 and T[m2] <= T[m1] and smooth[m] == 1 and smooth[m1] == 1:
-                                two = True
-                                T2 = T[m2]
-                        kf[q] = direct[m1]
-                        if two and direct[m2] == 0:
-                            kf[q] = 0
-                        # plain form: the one-sided difference of T itself
-                        if two:
-                            Ap[q] = 1.5 / h[a]
-                            Bp[q] = (2.0 * T[m1] - 0.5 * T2) / h[a]
-                        else:
-                            Ap[q] = 1.0 / h[a]
-                            Bp[q] = T[m1] / h[a]
-                        Bc[q] = Bp[q]
-                        if use_add and re > 0.0:
-                            # T1 = s1 |x - xe|: differences of T - T1 plus the
-                            # exact derivative of T1 (the additive factor)
-                            w0 = e0 + (dd * hx if a == 0 else 0.0)
-                            w1 = e1 + (dd * hy if a == 1 else 0.0)
-                            w2 = e2 + (dd * hz if a == 2 else 0.0)
-                            t1n = s1 * math.sqrt(w0 * w0 + w1 * w1 + w2 * w2)
-                            ea = e0 if a == 0 else (e1 if a == 1 else e2)
-                            g1s = -dd * s1 * ea / re
-                            if two:
+                        m2 = m1 + dd * strides[a]
+                        # second order (Sethian and Popovici 1999) when the point
+                        # two steps back is known in the same set, earlier, and
+                        # all in smooth slowness; first order across sharp contrasts
+                        two_ok = c2 >= 0 and c2 < dims[a] and smooth[m] == 1 and smooth[m1] == 1
+                        if do1 or dom:
+                            two1 = False
+                            twom = False
+                            if do1:
+                                ok, two1, t11, t12 = _side_coefficients(T, state, 1, m, m1, m2, a, dd, h, smooth,
+                                                                        second_order, two_ok, A1, B1, q)
+                                k1[q] = ok
+                            if dom:
+                                okm, twom, tm1, tm2 = _side_coefficients(T, state, 2, m, m1, m2, a, dd, h, smooth,
+                                                                         second_order, two_ok, Am, Bm, q)
+                                km[q] = okm
+                            if use_add and re > 0.0:
+                                # T1 = s1 |x - xe|: differences of T - T1 plus the
+                                # exact derivative of T1 (the additive factor)
+                                w0 = e0 + (dd * hx if a == 0 else 0.0)
+                                w1 = e1 + (dd * hy if a == 1 else 0.0)
+                                w2 = e2 + (dd * hz if a == 2 else 0.0)
+                                t1n = s1 * math.sqrt(w0 * w0 + w1 * w1 + w2 * w2)
+                                ea = e0 if a == 0 else (e1 if a == 1 else e2)
+                                g1s = -dd * s1 * ea / re
                                 v0 = w0 + (dd * hx if a == 0 else 0.0)
                                 v1 = w1 + (dd * hy if a == 1 else 0.0)
                                 v2 = w2 + (dd * hz if a == 2 else 0.0)
                                 t1nn = s1 * math.sqrt(v0 * v0 + v1 * v1 + v2 * v2)
-                                comb = 1.5 * s1 * re - 2.0 * t1n + 0.5 * t1nn
+                                comb2 = (1.5 * s1 * re - 2.0 * t1n + 0.5 * t1nn - h[a] * g1s) / h[a]
+                                comb1 = (s1 * re - t1n - h[a] * g1s) / h[a]
+                                if k1[q] == 1:
+                                    C1[q] = B1[q] + (comb2 if two1 else comb1)
+                                if km[q] == 1:
+                                    Cm[q] = Bm[q] + (comb2 if twom else comb1)
                             else:
-                                comb = s1 * re - t1n
-                            Bc[q] = Bp[q] + (comb - h[a] * g1s) / h[a]
-                        if not any_f:
+                                C1[q] = B1[q]
+                                Cm[q] = Bm[q]
+                        if not any_f or state[2 * m1] != 2:
                             continue
-                        # factored form T = T0 tau (Fomel, Luo and Zhao 2009):
-                        # d(T0 tau) = tau dT0 (exact) + T0 d(tau) (differenced)
+                        # family 0, factored form T = T0 tau (Fomel, Luo and Zhao
+                        # 2009): d(T0 tau) = tau dT0 (exact) + T0 d(tau) (differenced)
+                        k0[q] = 1
+                        Tm1 = T[2 * m1]
+                        two = second_order and two_ok and state[2 * m2] == 2 and T[2 * m2] <= Tm1
+                        T2 = T[2 * m2] if two else 0.0
                         y0 = x0 + (dd * hx if a == 0 else 0.0)
                         y1 = x1 + (dd * hy if a == 1 else 0.0)
                         y2 = x2 + (dd * hz if a == 2 else 0.0)
@@ -573,10 +669,14 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                         if r1 == 0.0 or (two and r2 == 0.0):
                             # a neighbour is the source, where tau has no limit
                             # (2.6 below a surface source, 1 above): plain form
-                            Af[q] = Ap[q] * T0
-                            Bf[q] = Bp[q]
+                            if two:
+                                Af[q] = 1.5 / h[a] * T0
+                                Bf[q] = (2.0 * Tm1 - 0.5 * T2) / h[a]
+                            else:
+                                Af[q] = T0 / h[a]
+                                Bf[q] = Tm1 / h[a]
                             continue
-                        tau1 = T[m1] / (s0 * r1)
+                        tau1 = Tm1 / (s0 * r1)
                         if two:
                             tau2 = T2 / (s0 * r2)
                             Af[q] = ga + T0 * 1.5 / h[a]
@@ -589,7 +689,7 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                 tie = False
                 if any_f:
                     for a in range(3):
-                        if Af[6 + a] < np.inf and kn[2 * a] == 0 and kn[2 * a + 1] == 0:
+                        if Af[6 + a] < np.inf and k0[2 * a] == 0 and k0[2 * a + 1] == 0:
                             tie = True
                 s_mean = -1.0
                 if smooth[m] == 1:
@@ -600,100 +700,88 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                             s_mean += cs[o]
                             n_in += 1
                     s_mean /= n_in
-                best = np.inf
-                best_direct = 0
+                best0 = np.inf
+                best1 = np.inf
                 # 1D along an edge: the fastest of the 4 cells sharing it, 2D in
                 # a face: the faster of its 2 cells, 3D: the octant's own cell.
                 # This is the rule of Podvin and Lecomte (1991) for very
                 # contrasted models: a wave along an interface runs in the faster
-                # medium (the air wave along the ground surface). Each stencil
-                # takes the factored form when its governing cell belongs to the
-                # source's smooth region, the plain form otherwise.
+                # medium (the air wave along the ground surface).
                 for a in range(3):
                     for sd in range(2):
                         q = 2 * a + sd
-                        if kn[q] == 0:
+                        if k0[q] == 0 and k1[q] == 0 and km[q] == 0:
                             continue
-                        s, fac, fa = _fastest_cell(cs, cf, ca, a, sd, -1, 0, s_mean)
+                        s, fac, fa, s_in = _fastest_cell(cs, cf, ca, a, sd, -1, 0, s_mean)
                         if s == np.inf:
                             continue
-                        if fac == 1 and kf[q] == 1:
+                        if k0[q] == 1 and s_in < np.inf:
+                            # the source's wave, in the fastest cell of its own region
                             if tie:
-                                nu = _factored_stencil(use, kn, Af, q, -1)
-                                cand = T0 * _solve(Af, Bf, s, use, nu)
+                                nu = _factored_stencil(use, k0, Af, q, -1)
+                                cand = T0 * _solve(Af, Bf, s_in, use, nu)
                             else:
                                 # the common case, a root of a linear equation
-                                cand = T0 * (Bf[q] + s) / Af[q] if Af[q] > 0.0 else np.inf
-                            if cand < best:
-                                best = cand
-                                best_direct = 1
-                        else:
-                            cand = ((Bc[q] if fa == 1 else Bp[q]) + s) / Ap[q]
-                            if cand < best:
-                                best = cand
-                                best_direct = 0
+                                cand = T0 * (Bf[q] + s_in) / Af[q] if Af[q] > 0.0 else np.inf
+                            best0 = min(best0, cand)
+                        if fac == 0 and km[q] == 1:
+                            best1 = min(best1, ((Cm[q] if fa == 1 else Bm[q]) + s) / Am[q])
+                        elif fac == 1 and k1[q] == 1:
+                            best1 = min(best1, ((C1[q] if fa == 1 else B1[q]) + s) / A1[q])
                 for a in range(3):
                     for b in range(a + 1, 3):
                         for sa in range(2):
-                            if kn[2 * a + sa] == 0:
-                                continue
+                            qa = 2 * a + sa
                             for sb in range(2):
-                                if kn[2 * b + sb] == 0:
-                                    continue
-                                s, fac, fa = _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean)
+                                qb = 2 * b + sb
+                                s, fac, fa, s_in = _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean)
                                 if s == np.inf:
                                     continue
-                                if fac == 1 and kf[2 * a + sa] == 1 and kf[2 * b + sb] == 1:
+                                use[0] = qa
+                                use[1] = qb
+                                if k0[qa] == 1 and k0[qb] == 1 and s_in < np.inf:
+                                    nu = 2
                                     if tie:
-                                        nu = _factored_stencil(use, kn, Af, 2 * a + sa, 2 * b + sb)
-                                    else:
-                                        use[0] = 2 * a + sa
-                                        use[1] = 2 * b + sb
-                                        nu = 2
-                                    cand = T0 * _solve(Af, Bf, s, use, nu)
-                                    if cand < best:
-                                        best = cand
-                                        best_direct = 1
-                                else:
-                                    use[0] = 2 * a + sa
-                                    use[1] = 2 * b + sb
-                                    cand = _solve(Ap, Bc if fa == 1 else Bp, s, use, 2)
-                                    if cand < best:
-                                        best = cand
-                                        best_direct = 0
+                                        nu = _factored_stencil(use, k0, Af, qa, qb)
+                                    best0 = min(best0, T0 * _solve(Af, Bf, s_in, use, nu))
+                                    use[0] = qa
+                                    use[1] = qb
+                                if fac == 0 and km[qa] == 1 and km[qb] == 1:
+                                    best1 = min(best1, _solve(Am, Cm if fa == 1 else Bm, s, use, 2))
+                                elif fac == 1 and k1[qa] == 1 and k1[qb] == 1:
+                                    best1 = min(best1, _solve(A1, C1 if fa == 1 else B1, s, use, 2))
                 for o in range(8):
-                    ox = o >> 2
-                    oy = (o >> 1) & 1
-                    oz = o & 1
-                    if kn[ox] == 0 or kn[2 + oy] == 0 or kn[4 + oz] == 0:
-                        continue
                     if cs[o] == np.inf:
                         continue
+                    use[0] = o >> 2
+                    use[1] = 2 + ((o >> 1) & 1)
+                    use[2] = 4 + (o & 1)
                     s = cs[o] if s_mean < 0.0 else s_mean
-                    use[0] = ox
-                    use[1] = 2 + oy
-                    use[2] = 4 + oz
-                    if cf[o] == 1 and kf[use[0]] == 1 and kf[use[1]] == 1 and kf[use[2]] == 1:
-                        cand = T0 * _solve(Af, Bf, s, use, 3)
-                        if cand < best:
-                            best = cand
-                            best_direct = 1
-                    else:
-                        cand = _solve(Ap, Bc if ca[o] == 1 else Bp, s, use, 3)
-                        if cand < best:
-                            best = cand
-                            best_direct = 0
-                if best < T[m]:
-                    T[m] = best
-                    direct[m] = best_direct
-                    state[m] = 1
-                    hk, hv, size = _heap_push(hk, hv, size, best, m)
-    if t_stop < np.inf:
-        for n in range(n_nodes):
-            if state[n] != 2:
-                T[n] = np.inf
-    return T, t_stop
-
+                    if cf[o] == 1 and k0[use[0]] == 1 and k0[use[1]] == 1 and k0[use[2]] == 1:
+                        best0 = min(best0, T0 * _solve(Af, Bf, s, use, 3))
+                    if cf[o] == 0 and km[use[0]] == 1 and km[use[1]] == 1 and km[use[2]] == 1:
+                        best1 = min(best1, _solve(Am, Cm if ca[o] == 1 else Bm, s, use, 3))
+                    elif cf[o] == 1 and k1[use[0]] == 1 and k1[use[1]] == 1 and k1[use[2]] == 1:
+                        best1 = min(best1, _solve(A1, C1 if ca[o] == 1 else B1, s, use, 3))
+                v0_ = 2 * m
+                if best0 < T[v0_] and state[v0_] < 2:
+                    T[v0_] = best0
+                    state[v0_] = 1
+                    hk, hv, size = _heap_push(hk, hv, size, best0, v0_)
+                v1_ = 2 * m + 1
+                if best1 < T[v1_] and state[v1_] < 2:
+                    T[v1_] = best1
+                    state[v1_] = 1
+                    hk, hv, size = _heap_push(hk, hv, size, best1, v1_)
+    out = np.full(n_nodes, np.inf)
+    families = np.full((2, n_nodes), np.inf)
+    for n in range(n_nodes):
+        for f in range(2):
+            if state[2 * n + f] == 2 or state[2 * n + f] == 4:
+                families[f, n] = T[2 * n + f]
+                if T[2 * n + f] < out[n]:
+                    out[n] = T[2 * n + f]
+    return out, families, t_stop
 
 
 @njit(cache=True)
@@ -899,8 +987,8 @@ def _corner_targets(points, h, n_lat):
 
 
 def _lattice_times(slow, r, cell, src, options, local, targets_m=None):
-    """Times on the corner lattice of ``slow`` refined ``r`` times, source ``src``
-    (metres from the lattice origin). With ``local``, the start values near the
+    """Times (first arrival, and per wave family) on the corner lattice of ``slow``
+    refined ``r`` times, source ``src`` (metres from the lattice origin). With ``local``, the start values near the
     source come from a finer solve of a small box around it. With ``targets_m``
     (points, metres from the lattice origin) the march stops once the times
     around them, and the gradients a ray traced back from them needs, are final.
@@ -937,11 +1025,11 @@ def _lattice_times(slow, r, cell, src, options, local, targets_m=None):
     # whose time is below the target's. Four steps at the slowest cell's
     # slowness bound their times from above.
     margin = 4.0 * float(slow.max()) * float(np.max(h))
-    T, t_final = _march(_padded_cells(slow, r, np.inf), _padded_cells(factor_cells, r, 0),
+    T, families, t_final = _march(_padded_cells(slow, r, np.inf), _padded_cells(factor_cells, r, 0),
                         _padded_cells(fast_cells, r, 0), n_lat[0], n_lat[1], n_lat[2], h[0], h[1], h[2],
                         src, float(s0), nodes, times, bool(options.second_order), smooth, seed_direct,
-                        xe, s1, targets, margin)
-    return T.reshape(n_lat), t_final
+                        xe, s1, targets, margin, _DOMINANCE_STEPS * float(slow.max()) * float(np.max(h)))
+    return T.reshape(n_lat), families.reshape((2,) + n_lat), t_final
 
 
 def _local_seeds(slow, r, cell, src, u, n_lat, options, nodes, times):
@@ -961,7 +1049,7 @@ def _local_seeds(slow, r, cell, src, u, n_lat, options, nodes, times):
     lo = np.maximum(c_src - half, 0)
     hi = np.minimum(c_src + half + 1, np.asarray(slow.shape))
     crop = np.ascontiguousarray(slow[lo[0]:hi[0], lo[1]:hi[1], lo[2]:hi[2]])
-    fine, _ = _lattice_times(crop, r * k, cell, src - lo * cell, options, local=False)
+    fine, _, _ = _lattice_times(crop, r * k, cell, src - lo * cell, options, local=False)
     # the coarse lattice points of the ball that the box holds, in fine steps
     ijk = np.stack(np.unravel_index(nodes, n_lat), axis=1) - lo * r
     inside = np.all((ijk >= 0) & (ijk * k < np.asarray(fine.shape)), axis=1)
@@ -1045,12 +1133,13 @@ def travel_time_field(grid: Grid, slowness_ns_per_m, source_xyz_m, *,
         if targets.size:
             layers = _air_ceiling_layers(slow, np.append(targets[:, 2], p[2] - origin[2]), cell[2])
             slow = np.ascontiguousarray(slow[:, :, :layers])
-    T, final_until_ns = _lattice_times(slow, r, cell, p - origin, options,
-                                       local=options.source_refine > 1, targets_m=targets)
+    T, families, final_until_ns = _lattice_times(slow, r, cell, p - origin, options,
+                                                 local=options.source_refine > 1, targets_m=targets)
     return TimeField(
         origin_m=tuple(grid.origin_m),
         spacing_m=tuple(float(v) for v in h),
         times_ns=T,
         source_xyz_m=p.copy(),
         final_until_ns=float(final_until_ns),
+        family_times_ns=families,
     )

@@ -42,6 +42,13 @@ class TimeField:
     final_until_ns : float
         Times up to this value are final; later lattice points were not solved
         (inf) because only some receivers were wanted. inf: the whole lattice.
+    family_times_ns : ndarray, shape (n_families, px, py, pz), optional
+        The times of each wave family (inf where a family was not solved);
+        ``times_ns`` is their minimum. Where two fronts cross at a kink (the
+        refracted air wave overtaking the direct wave), interpolating the
+        minimum runs early (the chord under a concave kink: up to 1.2 ns at 1 m
+        spacing); each family is smooth, so they are interpolated one by one
+        and the earliest is taken.
     """
 
     origin_m: tuple
@@ -49,6 +56,7 @@ class TimeField:
     times_ns: np.ndarray
     source_xyz_m: np.ndarray
     final_until_ns: float = float("inf")
+    family_times_ns: np.ndarray | None = None
 
     @property
     def shape(self):
@@ -62,25 +70,40 @@ class TimeField:
         i0 = np.minimum(np.floor(u).astype(np.int64), np.maximum(upper - 1, 0))
         return i0, u - i0
 
+    def _distance_to_source(self):
+        axes = [self.origin_m[a] + np.arange(self.times_ns.shape[a]) * self.spacing_m[a] for a in range(3)]
+        return np.sqrt((axes[0][:, None, None] - self.source_xyz_m[0]) ** 2
+                       + (axes[1][None, :, None] - self.source_xyz_m[1]) ** 2
+                       + (axes[2][None, None, :] - self.source_xyz_m[2]) ** 2)
+
+    def _slowness_of(self, times, r):
+        tiny = 1e-9 * float(min(self.spacing_m))
+        with np.errstate(invalid="ignore"):
+            q = np.where(r > tiny, times / np.maximum(r, tiny), np.nan)
+        for index in zip(*np.nonzero(np.isnan(q) & (r <= tiny))):
+            window = tuple(slice(max(i - 1, 0), i + 2) for i in index)
+            near = q[window]
+            near = near[np.isfinite(near)]
+            q[index] = near.mean() if near.size else np.inf
+        return q
+
     @cached_property
     def apparent_slowness(self) -> np.ndarray:
         """``T / |x - x_s|`` at the lattice points, ns/m (at the source: its neighbours' mean)."""
-        axes = [self.origin_m[a] + np.arange(self.times_ns.shape[a]) * self.spacing_m[a] for a in range(3)]
-        r = np.sqrt((axes[0][:, None, None] - self.source_xyz_m[0]) ** 2
-                    + (axes[1][None, :, None] - self.source_xyz_m[1]) ** 2
-                    + (axes[2][None, None, :] - self.source_xyz_m[2]) ** 2)
-        tiny = 1e-9 * float(min(self.spacing_m))
-        q = np.where(r > tiny, self.times_ns / np.maximum(r, tiny), np.nan)
-        for index in zip(*np.nonzero(np.isnan(q))):
-            window = tuple(slice(max(i - 1, 0), i + 2) for i in index)
-            q[index] = np.nanmean(q[window])
-        return q
+        return self._slowness_of(self.times_ns, self._distance_to_source())
 
-    def interpolate(self, points_m) -> np.ndarray:
-        """Travel time at points (clamped to the lattice), shape (n,), ns."""
-        p = np.atleast_2d(np.asarray(points_m, dtype=float))
-        i0, f = self._cell_and_fraction(p)
-        q = self.apparent_slowness
+    @cached_property
+    def _family_slowness(self):
+        if self.family_times_ns is None:
+            return None
+        r = self._distance_to_source()
+        # where a family was not solved, its first arrival stands in for it: a
+        # surface node's cell has the air wave above and, below, only the rock's
+        # own family, which continues the same front
+        return [self._slowness_of(np.where(np.isfinite(times), times, self.times_ns), r)
+                for times in self.family_times_ns]
+
+    def _trilinear(self, q, i0, f):
         out = np.zeros(i0.shape[0])
         for dx in (0, 1):
             wx = f[:, 0] if dx else 1 - f[:, 0]
@@ -91,7 +114,22 @@ class TimeField:
                     ix = np.minimum(i0[:, 0] + dx, q.shape[0] - 1)
                     iy = np.minimum(i0[:, 1] + dy, q.shape[1] - 1)
                     iz = np.minimum(i0[:, 2] + dz, q.shape[2] - 1)
-                    out += wx * wy * wz * q[ix, iy, iz]
+                    with np.errstate(invalid="ignore"):
+                        out += np.where(wx * wy * wz > 0, wx * wy * wz * q[ix, iy, iz], 0.0)
+        return out
+
+    def interpolate(self, points_m) -> np.ndarray:
+        """Travel time at points (clamped to the lattice), shape (n,), ns."""
+        p = np.atleast_2d(np.asarray(points_m, dtype=float))
+        i0, f = self._cell_and_fraction(p)
+        out = self._trilinear(self.apparent_slowness, i0, f)
+        families = self._family_slowness
+        if families is not None:
+            best = np.full(out.shape, np.inf)
+            for q in families:
+                value = self._trilinear(q, i0, f)
+                best = np.minimum(best, np.where(np.isfinite(value), value, np.inf))
+            out = np.where(np.isfinite(best), best, out)
         lo = np.asarray(self.origin_m)
         hi = lo + (np.asarray(self.times_ns.shape) - 1) * np.asarray(self.spacing_m)
         clamped = np.clip(p, lo, hi)

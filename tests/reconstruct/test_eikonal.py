@@ -1,10 +1,8 @@
 """Checks of the first-arrival solver against outside references.
 
 Each check names its source. Targets from the task: median relative error
-<= 0.1 %, max <= 0.5 % at default options on 1 m cells. Where a target is not
-met yet, the target assertion is an ``xfail(strict=True)`` stating the
-measured figure, and a second assertion pins the present level so that it
-cannot get worse unnoticed.
+<= 0.1 %, max <= 0.5 % at default options on 1 m cells; the measured figures
+are noted beside each check.
 """
 
 from __future__ import annotations
@@ -40,8 +38,12 @@ def _gradient_time(p1, p2):
 
 @pytest.fixture(scope="module")
 def gradient_field():
-    # z = 0 is a cell centre: the source of the reference table sits inside a cell
-    grid = Grid((-20.5, -10.5, -20.5), (1, 1, 1), (180, 21, 62))
+    # z = 0 is a cell centre: the source of the reference table sits inside a cell.
+    # The box reaches z = 57.5 m: the analytic rays (circular arcs bulging upwards)
+    # to the sampled receivers rise to 53 m. With the top at 41.5 m, 55 of them left
+    # the box, whose first arrivals are then legitimately later than the formula
+    # for an unbounded medium (up to 1.5 %, which had been taken for a solver error).
+    grid = Grid((-20.5, -10.5, -20.5), (1, 1, 1), (180, 21, 78))
     z = grid.edges_m(2)
     # exact cell-average slowness of v = v0 + g z over each 1 m layer
     s_layer = np.log((V0 + G * z[1:]) / (V0 + G * z[:-1])) / G
@@ -73,15 +75,30 @@ def test_gradient_median(gradient_field):
     assert np.median(e) <= 0.001
 
 
-@pytest.mark.xfail(strict=True, reason="measured max 1.53 % (median 0.015 %), near the source")
-def test_gradient_max_target(gradient_field):
+def test_gradient_max(gradient_field):
     e = _gradient_errors(gradient_field)
-    assert e.max() <= 0.005
+    assert e.max() <= 0.005  # measured 0.13 %, 8 m from the source
 
 
-def test_gradient_max_level(gradient_field):
-    e = _gradient_errors(gradient_field)
-    assert e.max() <= 0.02
+def test_gradient_rays_follow_the_analytic_arcs(gradient_field):
+    # Slotnick (1959); Cerveny (2001), Seismic Ray Theory: in v = v0 + g z rays are
+    # circular arcs centred on z = -v0 / g. Rays traced on the solver's own field
+    # must stay within one model cell of them (the issue's tolerance).
+    from reconstruct.bent_rays import trace_rays
+
+    _, f = gradient_field
+    receivers = np.array([[30.0, 0.0, 0.0], [80.0, 0.0, 10.0], [140.0, 0.0, 0.0],
+                          [60.0, 0.0, 35.0], [100.0, 0.0, -15.0]])
+    polylines, reached = trace_rays(f, receivers)
+    assert reached.all()
+    z_centre = -V0 / G
+    for (xr, _, zr), line in zip(receivers, polylines):
+        x_centre = (xr**2 + (zr - z_centre) ** 2 - z_centre**2) / (2 * xr)
+        radius = np.hypot(x_centre, z_centre)
+        distance = np.hypot(line[:, 0] - x_centre, line[:, 2] - z_centre)
+        assert np.max(np.abs(distance - radius)) < 1.0
+        mid = line[len(line) // 2]
+        assert abs(np.hypot(mid[0] - x_centre, mid[2] - z_centre) - radius) < 1.0
 
 
 # ----------------------------------------------------------- 2. half-space
@@ -139,20 +156,14 @@ def test_half_space_surface_source(half_space):
     assert e.max() <= 0.005
 
 
-@pytest.mark.xfail(strict=True, reason="measured: borehole source 3 m deep, median 0.005 %, max "
-                   "2.3 % at 5-7 m offset where the head wave in the rock overtakes the direct wave "
-                   "(a 2D stencil mixing both families runs up to 1.1 ns early there)")
-def test_half_space_borehole_source_target(half_space):
+def test_half_space_borehole_source(half_space):
+    # measured: median 0.005 %, max 0.10 % (before the two wave families: max 2.3 %
+    # at 5-7 m, where stencils mixing the direct wave and the refracted air wave
+    # ran 1.1 ns early; before the additive air-wave factor: median 0.21 %)
     e = _half_space_errors(half_space, 3.0, [1e-6, 0.5, 1.0, 3.0, 8.0])
-    assert np.median(e) <= 0.001 and e.max() <= 0.005
-
-
-def test_half_space_borehole_source_level(half_space):
-    e = _half_space_errors(half_space, 3.0, [1e-6, 0.5, 1.0, 3.0, 8.0])
-    assert np.median(e) <= 0.001  # measured 0.005 % (0.21 % before the additive air-wave factor)
-    assert e.max() <= 0.025  # measured 2.30 %
+    assert np.median(e) <= 0.001
+    assert e.max() <= 0.005
     far = _half_space_errors_far(half_space, 3.0)
-    # 15-80 m: the target holds (measured median 0.005 %, max 0.15 %; 1.4 % before)
     assert np.median(far) <= 0.001
     assert far.max() <= 0.005
 

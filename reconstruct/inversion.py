@@ -26,6 +26,8 @@ import scipy.sparse as sp
 from scipy.constants import c as _C_M_PER_S
 from scipy.sparse.linalg import LinearOperator, lsqr
 
+from .robust import ROBUST_LOSSES, robust_scale, robust_time_zero, robust_weights
+
 __all__ = [
     "InversionOptions",
     "InversionResult",
@@ -42,6 +44,8 @@ TIME_ZERO_MODELS = ("clock", "delay", "none")
 #: Damping of the time-zero unknowns relative to their data weight: small, so
 #: that the offsets are set by the data, but enough to fix the gauge of "clock".
 _TIME_ZERO_DAMPING = 1e-3
+#: IRLS stops when no robust weight changes by more than this between reweightings.
+_IRLS_WEIGHT_CHANGE = 0.01
 
 
 @dataclass(frozen=True)
@@ -74,6 +78,14 @@ class InversionOptions:
     default_sigma_ns : float
         Pick uncertainty assumed when the pick table has no ``sigma_ns``; it then
         sets the weights only, and chi-square is not used to choose lambda.
+    robust : {"none", "huber", "tukey"}
+        Iteratively reweighted least squares against gross pick errors
+        (:mod:`reconstruct.robust`); "none" is plain least squares.
+    robust_iterations : int
+        Largest number of reweightings per IRLS pass.
+    rejection_weight : float
+        Picks whose final robust weight is below this are reported as rejected
+        and left out of the chi-square that chooses lambda.
     """
 
     velocity_min_m_per_ns: float = 0.03
@@ -90,6 +102,9 @@ class InversionOptions:
     tolerance: float = 1e-4
     search_tolerance: float = 1e-3
     default_sigma_ns: float = 1.0
+    robust: str = "none"
+    robust_iterations: int = 8
+    rejection_weight: float = 0.1
 
     def __post_init__(self):
         problems = []
@@ -119,6 +134,12 @@ class InversionOptions:
             problems.append("max_iterations must be >= 1 and tolerance > 0")
         if not self.default_sigma_ns > 0:
             problems.append("default_sigma_ns must be > 0")
+        if self.robust not in ROBUST_LOSSES:
+            problems.append(f"robust must be one of {', '.join(ROBUST_LOSSES)} (got {self.robust!r})")
+        if self.robust_iterations < 1:
+            problems.append(f"robust_iterations must be >= 1 (got {self.robust_iterations})")
+        if not 0 < self.rejection_weight < 1:
+            problems.append(f"rejection_weight must be between 0 and 1 (got {self.rejection_weight})")
         if problems:
             from .errors import InputError
 
@@ -149,6 +170,11 @@ class InversionResult:
     stop_reason: str = ""
     n_clipped_slow: int = 0
     n_clipped_fast: int = 0
+    robust_loss: str = "none"
+    robust_weight: np.ndarray | None = None  # final IRLS weight per pick, 0..1
+    rejected: np.ndarray | None = None  # bool per pick: robust weight below options.rejection_weight
+    robust_scale: float = 1.0  # residual scale (in sigmas) the robust weights were computed with
+    robust_reweightings: int = 0
 
     @property
     def velocity_m_per_ns(self) -> np.ndarray:
@@ -264,20 +290,43 @@ class _ScaledProblem:
             [kappa_damp * np.sqrt(volume) / scale[:n_slowness], np.zeros(self.n - n_slowness)]
         )
         self.fixed_damp = np.concatenate([np.zeros(n_slowness), np.full(self.n - n_slowness, _TIME_ZERO_DAMPING)])
-        self.b = np.asarray(b, dtype=float)
+        self.b0 = np.asarray(b, dtype=float)
+        self.set_row_weights(None)
+
+    def set_row_weights(self, omega, counted=None):
+        """Robust weights ``omega`` (None: all 1) of the data rows, and the rows
+        ``counted`` in the misfit that chooses lambda (None: all).
+
+        The rows are scaled by ``sqrt(omega)`` inside the operator, so the column
+        scaling, and with it the meaning of lambda, stays that of the plain problem.
+        """
+        m = self.A.shape[0]
+        self.row_sqrt_w = None if omega is None else np.sqrt(np.asarray(omega, dtype=float))
+        self.b = self.b0 if omega is None else self.row_sqrt_w * self.b0
+        self.counted = np.ones(m, dtype=bool) if counted is None else np.asarray(counted, dtype=bool)
+
+    def data_residual(self, y) -> np.ndarray:
+        """Unweighted-by-IRLS data residual ``A y - b`` in sigmas (observed minus
+        predicted, with the sign flipped)."""
+        return self.A @ y - self.b0
 
     def operator(self, lambda_smooth: float, lambda_damp: float) -> LinearOperator:
         m, n, ns = self.A.shape[0], self.n, self.n_slowness
         nd = self.D.shape[0]
         damp = lambda_damp * self.damp_diag + self.fixed_damp
 
+        sw = self.row_sqrt_w
+
         def matvec(y):
             y = np.ravel(y)
-            return np.concatenate([self.A @ y, lambda_smooth * (self.D @ y[:ns]), damp * y])
+            data = self.A @ y
+            if sw is not None:
+                data *= sw
+            return np.concatenate([data, lambda_smooth * (self.D @ y[:ns]), damp * y])
 
         def rmatvec(u):
             u = np.ravel(u)
-            out = self.AT @ u[:m]
+            out = self.AT @ (u[:m] if sw is None else sw * u[:m])
             out[:ns] += lambda_smooth * (self.DT @ u[m:m + nd])
             out += damp * u[m + nd:]
             return out
@@ -288,8 +337,9 @@ class _ScaledProblem:
         """Explicit stacked matrix and right-hand side (for checks on small problems)."""
         ns = self.n_slowness
         D_full = sp.hstack([self.D, sp.csr_matrix((self.D.shape[0], self.n - ns))])
+        A = self.A if self.row_sqrt_w is None else sp.diags(self.row_sqrt_w) @ self.A
         M = sp.vstack(
-            [self.A, lambda_smooth * D_full, sp.diags(lambda_damp * self.damp_diag + self.fixed_damp)]
+            [A, lambda_smooth * D_full, sp.diags(lambda_damp * self.damp_diag + self.fixed_damp)]
         ).tocsr()
         rhs = np.concatenate([self.b, np.zeros(self.D.shape[0] + self.n)])
         return M, rhs
@@ -309,7 +359,7 @@ class _ScaledProblem:
             y=y,
             stop_code=int(out[1]),
             iterations=int(out[2]),
-            misfit=float(np.linalg.norm(self.A @ y - self.b)),
+            misfit=float(np.linalg.norm(self.data_residual(y)[self.counted])),
             roughness=float(np.linalg.norm(self.D @ y[: self.n_slowness])),
             size=float(np.linalg.norm(self.damp_diag * y)),
         )
@@ -454,6 +504,38 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
     return float(np.exp(best[0])), best[2], abs(best[1]) < 0.1
 
 
+def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_picks):
+    """Iteratively reweighted least squares at a fixed lambda.
+
+    Residuals are standardised by the pick sigmas (``trust_sigma``: picks carry
+    sigmas, from the table or from reciprocity) or, without them, by their
+    robust scale (normalised median absolute residual). Stops when no weight
+    changes by more than ``_IRLS_WEIGHT_CHANGE`` (0.01), or after
+    ``options.robust_iterations`` reweightings. Returns
+    ``(solve, weights, scale, reweightings)``; the weights are those the
+    returned solve was computed with.
+    """
+    ratio = options.damping_ratio
+    omega = None
+    scale = 1.0
+    count = 0
+    for _ in range(options.robust_iterations):
+        u = -problem.data_residual(sol.y)  # observed minus predicted, in sigmas
+        scale = 1.0 if trust_sigma else robust_scale(u)
+        new = robust_weights(u / scale, loss)
+        if omega is not None and np.max(np.abs(new - omega)) < _IRLS_WEIGHT_CHANGE:
+            break
+        omega = new
+        problem.set_row_weights(omega, omega >= options.rejection_weight)
+        sol = problem.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
+        count += 1
+        _record(search, "fine", lam, sol, n_picks)
+        if progress:
+            progress(f"robust ({loss}) reweighting {count}: {int(np.sum(omega < options.rejection_weight))} "
+                     f"picks below weight {options.rejection_weight:g}, {sol.iterations} iterations")
+    return sol, omega, scale, count
+
+
 def invert_travel_times(
     operator,
     time_ns,
@@ -590,7 +672,12 @@ def invert_travel_times(
     # (one unknown per node) whose answer starts every solve. Without it LSQR
     # creeps towards large offsets, since a slowness change around a node
     # mimics part of a time-zero term.
-    tau_start = np.zeros(0) if options.time_zero == "none" else estimate_time_zero(C, weight, residual_ref)
+    if options.time_zero == "none":
+        tau_start = np.zeros(0)
+    elif options.robust == "none":
+        tau_start = estimate_time_zero(C, weight, residual_ref)
+    else:
+        tau_start = robust_time_zero(C, weight, residual_ref, loss="huber")[0]
 
     def start(n_cells_level):
         return np.concatenate([np.zeros(n_cells_level), tau_start])
@@ -600,6 +687,7 @@ def invert_travel_times(
     ratio = options.damping_ratio
     target = float(n_picks)
     search: list = []
+    slope = 1.0
     if options.smoothing is not None:
         lam = float(options.smoothing)
         sol = fine.solve(lam, ratio * lam, start(n_slowness) * fine.scale, options.max_iterations,
@@ -690,6 +778,34 @@ def invert_travel_times(
         if coarse is not None:
             note += f"; lambda searched on a coarse grid of {coarse.factor}^3-cell blocks, then on the model grid"
 
+    omega = None
+    scale_used = 1.0
+    n_reweightings = 0
+    if options.robust != "none":
+        # IRLS at the chosen lambda (Huber first: Tukey's loss is not convex and
+        # needs a good start), then, with the discrepancy principle, lambda is
+        # chosen again with chi^2 counted over the picks that keep their weight.
+        sol, omega, scale_used, n = _irls(fine, options, lam, sol, "huber", have_sigma, progress, search,
+                                         n_picks)
+        n_reweightings += n
+        if method == "discrepancy":
+            counted = omega >= options.rejection_weight
+            lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), float(counted.sum()), progress,
+                                                  "fine", search, n_picks, slope=slope)
+            sol, omega, scale_used, n = _irls(fine, options, lam, sol, options.robust, have_sigma, progress,
+                                             search, n_picks)
+            n_reweightings += n
+            counted = omega >= options.rejection_weight
+            note = (f"chi^2 = {sol.misfit**2:.5g} over the N = {int(counted.sum())} picks not rejected by the "
+                    f"robust weights ({n_picks - int(counted.sum())} rejected)"
+                    + ("" if reached else "; chi^2 = N not reached within the search range"))
+        elif options.robust == "tukey":
+            sol, omega, scale_used, n = _irls(fine, options, lam, sol, "tukey", have_sigma, progress, search,
+                                             n_picks)
+            n_reweightings += n
+        sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
+        _record(search, "fine", lam, sol, n_picks)
+
     x = sol.y / fine.scale
     slowness = s_ref.copy()
     slowness[ground_cols] += x[:n_slowness]
@@ -731,4 +847,9 @@ def invert_travel_times(
         stop_reason=_LSQR_REASONS.get(int(sol.stop_code), "unknown"),
         n_clipped_slow=n_slow,
         n_clipped_fast=n_fast,
+        robust_loss=options.robust,
+        robust_weight=omega,
+        rejected=None if omega is None else omega < options.rejection_weight,
+        robust_scale=float(scale_used),
+        robust_reweightings=n_reweightings,
     )

@@ -22,6 +22,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy.linalg
 import scipy.sparse as sp
 from scipy.constants import c as _C_M_PER_S
 from scipy.sparse.linalg import LinearOperator, lsqr
@@ -44,6 +45,8 @@ TIME_ZERO_MODELS = ("clock", "delay", "none")
 #: Damping of the time-zero unknowns relative to their data weight: small, so
 #: that the offsets are set by the data, but enough to fix the gauge of "clock".
 _TIME_ZERO_DAMPING = 1e-3
+#: Largest number of time-zero unknowns solved directly by estimate_time_zero.
+_DIRECT_TIME_ZERO_LIMIT = 4000
 #: IRLS stops when no robust weight changes by more than this between reweightings.
 _IRLS_WEIGHT_CHANGE = 0.01
 
@@ -208,8 +211,17 @@ def estimate_time_zero(C, weight, residual_ns) -> np.ndarray:
     if C.nnz == 0:
         return np.zeros(C.shape[1])
     WC = (sp.diags(weight) @ C).tocsr()
-    return lsqr(WC, weight * residual_ns, damp=1e-6, atol=1e-10, btol=1e-10,
-                iter_lim=20 * C.shape[1] + 100)[0]
+    rhs = weight * residual_ns
+    if C.shape[1] <= _DIRECT_TIME_ZERO_LIMIT:
+        # small: solve the damped normal equations directly (exact, and far
+        # quicker than hundreds of LSQR iterations); the damping, a 1e-9 part of
+        # the mean diagonal, only fixes the gauge (the minimum-norm solution)
+        normal = (WC.T @ WC).toarray()
+        diagonal = np.diag(normal)
+        damp = 1e-9 * (float(diagonal[diagonal > 0].mean()) if np.any(diagonal > 0) else 1.0)
+        normal[np.diag_indices_from(normal)] += damp
+        return scipy.linalg.solve(normal, WC.T @ rhs, assume_a="pos")
+    return lsqr(WC, rhs, damp=1e-6, atol=1e-10, btol=1e-10, iter_lim=20 * C.shape[1] + 100)[0]
 
 
 def time_zero_matrix(tx, rx, n_nodes: int, model: str = "clock") -> sp.csr_matrix:
@@ -504,7 +516,7 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
     return float(np.exp(best[0])), best[2], abs(best[1]) < 0.1
 
 
-def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_picks):
+def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_picks, exempt=None):
     """Iteratively reweighted least squares at a fixed lambda.
 
     Residuals are standardised by the pick sigmas (``trust_sigma``: picks carry
@@ -513,7 +525,7 @@ def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_pic
     changes by more than ``_IRLS_WEIGHT_CHANGE`` (0.01), or after
     ``options.robust_iterations`` reweightings. Returns
     ``(solve, weights, scale, reweightings)``; the weights are those the
-    returned solve was computed with.
+    returned solve was computed with. Picks marked ``exempt`` keep weight 1.
     """
     ratio = options.damping_ratio
     omega = None
@@ -523,6 +535,11 @@ def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_pic
         u = -problem.data_residual(sol.y)  # observed minus predicted, in sigmas
         scale = 1.0 if trust_sigma else robust_scale(u)
         new = robust_weights(u / scale, loss)
+        if exempt is not None:
+            new[exempt] = 1.0
+        if omega is None and np.all(new == 1.0):
+            omega = new  # nothing to reweight: the plain solution stands
+            break
         if omega is not None and np.max(np.abs(new - omega)) < _IRLS_WEIGHT_CHANGE:
             break
         omega = new
@@ -551,6 +568,7 @@ def invert_travel_times(
     options: InversionOptions = InversionOptions(),
     coarse=None,
     progress=None,
+    robust_exempt=None,
 ) -> InversionResult:
     """Invert travel times for ground slowness and node time-zeros.
 
@@ -580,6 +598,10 @@ def invert_travel_times(
         grid, and its model starts the fine solve.
     progress : callable, optional
         ``progress(message)`` after each solve.
+    robust_exempt : ndarray of bool, shape (n_picks,), optional
+        Picks that keep full weight in the robust reweighting (for example
+        picks confirmed by an agreeing reciprocal pick: a picking error would
+        not repeat in the other direction, a true travel-time anomaly does).
 
     Returns
     -------
@@ -629,6 +651,11 @@ def invert_travel_times(
         raise ValueError("no picks to invert")
     if np.any((tx < 0) | (tx >= n_nodes) | (rx < 0) | (rx >= n_nodes)):
         raise ValueError(f"tx and rx must be node numbers from 0 to {n_nodes - 1}")
+    exempt = None
+    if robust_exempt is not None:
+        exempt = np.asarray(robust_exempt, dtype=bool)
+        if exempt.shape != (n_picks,):
+            raise ValueError("robust_exempt must have one entry per pick")
     if sigma_ns is None:
         sigma = np.full(n_picks, options.default_sigma_ns)
         have_sigma = False
@@ -786,14 +813,16 @@ def invert_travel_times(
         # needs a good start), then, with the discrepancy principle, lambda is
         # chosen again with chi^2 counted over the picks that keep their weight.
         sol, omega, scale_used, n = _irls(fine, options, lam, sol, "huber", have_sigma, progress, search,
-                                         n_picks)
+                                         n_picks, exempt)
         n_reweightings += n
-        if method == "discrepancy":
+        if n == 0:
+            pass  # every weight is 1: the plain solution is the robust one
+        elif method == "discrepancy":
             counted = omega >= options.rejection_weight
             lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), float(counted.sum()), progress,
                                                   "fine", search, n_picks, slope=slope)
             sol, omega, scale_used, n = _irls(fine, options, lam, sol, options.robust, have_sigma, progress,
-                                             search, n_picks)
+                                             search, n_picks, exempt)
             n_reweightings += n
             counted = omega >= options.rejection_weight
             note = (f"chi^2 = {sol.misfit**2:.5g} over the N = {int(counted.sum())} picks not rejected by the "
@@ -801,10 +830,11 @@ def invert_travel_times(
                     + ("" if reached else "; chi^2 = N not reached within the search range"))
         elif options.robust == "tukey":
             sol, omega, scale_used, n = _irls(fine, options, lam, sol, "tukey", have_sigma, progress, search,
-                                             n_picks)
+                                             n_picks, exempt)
             n_reweightings += n
-        sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
-        _record(search, "fine", lam, sol, n_picks)
+        if n_reweightings:
+            sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
+            _record(search, "fine", lam, sol, n_picks)
 
     x = sol.y / fine.scale
     slowness = s_ref.copy()

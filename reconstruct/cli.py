@@ -68,10 +68,11 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
     g.add_argument("--snap-tolerance", type=float, default=None, metavar="M",
                    help="largest allowed shift in metres when a node is snapped onto the ground "
                         "(default: the larger of 2 m and two cell diagonals)")
-    g.add_argument("--robust", choices=("none", "huber", "tukey"), default="huber",
-                   help="reweighting against gross pick errors inside the LSQR loop: 'huber' (default), "
-                        "'tukey' (Huber first, then Tukey's biweight) or 'none' (plain least squares); "
-                        "picks ending with weight below 0.1 are listed in rejected_picks.csv")
+    g.add_argument("--robust", choices=("none", "huber", "tukey"), default=None,
+                   help="reweighting against gross pick errors inside the LSQR loop: 'huber', 'tukey' "
+                        "(Huber first, then Tukey's biweight) or 'none' (plain least squares); default "
+                        "'huber' with straight rays, 'none' with bent rays (their steps are judged by the "
+                        "plain misfit); picks ending with weight below 0.1 are listed in rejected_picks.csv")
     _add_qc_arguments(p)
     b = p.add_argument_group("bent rays")
     b.add_argument("--rays", choices=("straight", "bent"), default="straight",
@@ -111,7 +112,8 @@ def _options_from(args):
         velocity_min_m_per_ns=args.velocity_min, velocity_max_m_per_ns=args.velocity_max,
         horizontal_weight=args.horizontal_weight, vertical_weight=args.vertical_weight,
         smoothing=args.smoothing, damping_ratio=args.damping_ratio, time_zero=args.time_zero,
-        max_iterations=args.max_iterations, default_sigma_ns=args.default_sigma, robust=args.robust,
+        max_iterations=args.max_iterations, default_sigma_ns=args.default_sigma,
+        robust=args.robust or ("huber" if getattr(args, "rays", "straight") == "straight" else "none"),
     )
 
 

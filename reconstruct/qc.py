@@ -17,9 +17,14 @@ Clock model. Cheap nodes keep their own clocks; a pick from ``a`` to ``b`` reads
   site's rock velocity) add the part ``eta`` that differs between transmitting
   and receiving. These rows carry the uncertainty of the straight-path time
   through rock of unknown velocity, taken as 10 % of ``d / v``, so short
-  direct paths weigh most.
+  direct paths weigh most. Only picks whose raw time lies within a factor 1.25
+  of ``d / v`` are used (air waves and gross errors would bias the clocks).
+  Both ``tx`` and ``rx`` time-zeros therefore depend on the rock near the
+  node: a node inside a fast or slow zone shows a shift of its ``eta``.
 
-Both sets of rows go into one weighted least-squares fit
+Weak priors (clock 10 ns, half transmit/receive difference 2 ns, about 0)
+keep a node with few picks from soaking up their residuals. Both sets of
+rows go into one weighted least-squares fit
 (:func:`reconstruct.inversion.estimate_time_zero` over the matrices of
 :func:`reconstruct.inversion.time_zero_matrix`, "clock" for ``tau`` and
 "delay" for ``eta``), reweighted with Huber's weights against gross errors
@@ -64,7 +69,7 @@ Flags (a pick can carry several):
 Air-wave flags need the air-wave time to be shorter than the straight path
 through rock at the site's velocity by more than twice the tolerance (the air
 wave comes first and the two can be told apart), and the pick to lie within
-the tolerance ``max(3 sigma, 3 %)`` of the air-wave time and closer to it than
+the tolerance ``max(3 sigma, 2 %)`` of the air-wave time and closer to it than
 to the rock time. Nodes of kind ``face`` stand
 on a bench face, in contact with the air: their depth is taken as 0 and their
 surface point is the node itself. With straight rays the air-wave picks are
@@ -138,6 +143,9 @@ EXCLUSION_REASONS = {
 }
 _AIR_FLAGS = (FLAG_AIR_DIRECT, FLAG_AIR_REFRACTED)
 _MIN_RECIPROCAL_PAIRS = 10
+#: Prior standard deviations of a node's clock term and of half its transmit/receive difference, ns.
+_CLOCK_PRIOR_NS = 10.0
+_DELAY_PRIOR_NS = 2.0
 
 
 @dataclass(frozen=True)
@@ -168,7 +176,7 @@ class QCOptions:
     velocity_max_m_per_ns: float = 0.30
     band_sigmas: float = 3.0
     reciprocal_sigmas: float = 4.0
-    air_tolerance_fraction: float = 0.03
+    air_tolerance_fraction: float = 0.02
     velocity_uncertainty_fraction: float = 0.10
     default_sigma_ns: float = 1.0
     max_implausible_fraction: float = 0.01
@@ -325,12 +333,20 @@ def _fit_clocks(tx, rx, time_ns, travel_ns, sigma, partner, n_nodes, velocity_fr
     rec_C = sp.hstack([C_clock[first], sp.csr_matrix((first.size, n_nodes))])
     rec_r = 0.5 * (time_ns[first] - time_ns[second])
     rec_w = 2.0 / np.sqrt(sigma[first] ** 2 + sigma[second] ** 2)
-    # single picks: t - d / v = tau_b - tau_a + eta_a + eta_b
-    pick_C = sp.hstack([C_clock, C_delay])
-    pick_r = time_ns - travel_ns
-    pick_w = 1.0 / np.sqrt(sigma**2 + (velocity_fraction * travel_ns) ** 2)
-    C = sp.vstack([rec_C, pick_C]).tocsr()
-    tau_eta, _ = robust_time_zero(C, np.r_[rec_w, pick_w], np.r_[rec_r, pick_r], loss="huber")
+    # single picks: t - d / v = tau_b - tau_a + eta_a + eta_b, only those whose raw
+    # apparent velocity is within a factor 1.25 of the rock's (not air waves or gross errors)
+    rockish = (time_ns > travel_ns / 1.25) & (time_ns < travel_ns * 1.25)
+    pick_C = sp.hstack([C_clock, C_delay])[rockish]
+    pick_r = (time_ns - travel_ns)[rockish]
+    pick_w = 1.0 / np.sqrt(sigma[rockish] ** 2 + (velocity_fraction * travel_ns[rockish]) ** 2)
+    # priors: tau and eta about 0 within a few ns, so that a node with few picks
+    # does not soak up their residuals (they matter only where data are scarce)
+    prior_C = sp.identity(2 * n_nodes, format="csr")
+    prior_w = np.r_[np.full(n_nodes, 1.0 / _CLOCK_PRIOR_NS), np.full(n_nodes, 1.0 / _DELAY_PRIOR_NS)]
+    C = sp.vstack([rec_C, pick_C, prior_C]).tocsr()
+    weight = np.r_[rec_w, pick_w, prior_w]
+    residual = np.r_[rec_r, pick_r, np.zeros(2 * n_nodes)]
+    tau_eta, _ = robust_time_zero(C, weight, residual, loss="huber")
     tau, eta = tau_eta[:n_nodes].copy(), tau_eta[n_nodes:].copy()
     used = np.zeros(n_nodes, dtype=bool)
     used[tx] = True
@@ -363,6 +379,9 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     -------
     PickChecks
     """
+    if len(picks) == 0:
+        raise InputError(f"{picks.source}: no usable picks left to invert or check; every row was excluded "
+                         "on reading (run reconstruct check to see why)")
     n_nodes = len(nodes)
     xyz = np.asarray(xyz_m, dtype=float)
     tx, rx = np.asarray(picks.tx), np.asarray(picks.rx)

@@ -94,6 +94,14 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
                         "observed and predicted times (ns)")
 
 
+def _add_input_arguments(p: argparse.ArgumentParser):
+    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--nodes", required=True, help="node table (CSV: node_id,x_m,y_m,z_m[,kind,borehole])")
+    p.add_argument("--picks", required=True,
+                   help="pick table (CSV: tx,rx,time_ns[,sigma_ns,amplitude,quality]); times in ns")
+    p.add_argument("--out", required=True, help="output folder (created if missing)")
+
+
 def _add_qc_arguments(p: argparse.ArgumentParser):
     q = p.add_argument_group("pick checks")
     q.add_argument("--keep-flagged", default="", metavar="FLAG[,FLAG]",
@@ -277,11 +285,7 @@ def build_parser() -> argparse.ArgumentParser:
                     "summary.json, manifest.json and, with --write-rays, rays.vtp into OUT.",
         epilog=_EPILOG_UNITS,
     )
-    p.add_argument("--site", required=True, help="site description (YAML)")
-    p.add_argument("--nodes", required=True, help="node table (CSV: node_id,x_m,y_m,z_m[,kind,borehole])")
-    p.add_argument("--picks", required=True,
-                   help="pick table (CSV: tx,rx,time_ns[,sigma_ns,amplitude,quality]); times in ns")
-    p.add_argument("--out", required=True, help="output folder (created if missing)")
+    _add_input_arguments(p)
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     p.add_argument("--accept-flags", action="store_true",
                    help="invert even when the pick checks find the data unusable (flagged picks are still "
@@ -296,10 +300,7 @@ def build_parser() -> argparse.ArgumentParser:
                     "refracted air waves. Writes qc.csv, node_clocks.csv, qc.json, qc.html and "
                     "manifest.json into OUT. The pick table is never changed.",
         epilog=_EPILOG_UNITS)
-    p.add_argument("--site", required=True, help="site description (YAML)")
-    p.add_argument("--nodes", required=True, help="node table (CSV)")
-    p.add_argument("--picks", required=True, help="pick table (CSV)")
-    p.add_argument("--out", required=True, help="output folder (created if missing)")
+    _add_input_arguments(p)
     p.add_argument("--rays", choices=("straight", "bent"), default="straight",
                    help="the forward model the picks are meant for: with 'straight' (default) air-wave "
                         "picks are marked as left out, with 'bent' they are kept")

@@ -623,6 +623,16 @@ def invert_travel_times(
     against log regularisation norm) at the largest curvature (Hansen, 1992).
     The slowness is then clipped into the velocity band.
 
+    With ``options.robust`` set, iteratively reweighted least squares follows
+    at the chosen lambda: the data rows are scaled by ``sqrt(w_i)``, with
+    ``w_i`` Huber's or Tukey's weight of the residual in sigmas (Tukey after a
+    Huber pass), each solve warm-started, until no weight changes by more than
+    0.01; with the discrepancy principle lambda is found again with chi^2
+    counted over the picks whose weight is at least
+    ``options.rejection_weight``, and the weights are updated once more.
+    The column scaling and the regularisation normalisation stay those of the
+    unweighted problem, so lambda keeps its meaning.
+
     References
     ----------
     .. [1] Paige, C. C. and Saunders, M. A. (1982), LSQR: an algorithm for sparse
@@ -633,6 +643,11 @@ def invert_travel_times(
     .. [3] Davis, J. L. and Annan, A. P. (1989), Ground-penetrating radar for
        high-resolution mapping of soil and rock stratigraphy, Geophysical
        Prospecting 37(5), 531-551.
+    .. [4] Huber, P. J. (1964), Robust estimation of a location parameter, Annals
+       of Mathematical Statistics 35(1), 73-101.
+    .. [5] Holland, P. W. and Welsch, R. E. (1977), Robust regression using
+       iteratively reweighted least-squares, Communications in Statistics -
+       Theory and Methods 6(9), 813-827.
     """
     G = sp.csr_matrix(operator)
     t = np.asarray(time_ns, dtype=float)

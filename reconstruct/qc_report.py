@@ -8,13 +8,12 @@ page by :mod:`reconstruct.html_page`, which also puts the cautions at its top.
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 
 from .html_page import escape, figure_png, html_document, png_img_html, table_html
 from .inversion import AIR_VELOCITY_M_PER_NS
-from .outputs import build_manifest, utc_now_iso, write_csv_atomic, write_json_atomic, write_text_atomic
+from .outputs import build_manifest, make_output_folder, utc_now_iso, write_csv_atomic, write_json_atomic, write_text_atomic
 from .qc import (
     FLAG_AIR_DIRECT,
     FLAG_AIR_REFRACTED,
@@ -280,14 +279,7 @@ def write_qc(picks: Picks, nodes: Nodes, checks: PickChecks, problems, out_dir, 
              keep_flagged=()) -> dict:
     """Write ``qc.csv``, ``node_clocks.csv``, ``qc.json``, ``qc.html`` and, last,
     ``manifest.json`` into ``out_dir``; returns the summary."""
-    out = Path(out_dir)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as error:
-        from .errors import InputError
-
-        raise InputError(f"{out}: cannot create the output folder ({error.strerror}); "
-                         "choose a folder you can write to") from None
+    out = make_output_folder(out_dir)
     excluding = excluded_flags(rays, keep_flagged)
     summary = qc_summary(picks, nodes, checks, problems, rays=rays, keep_flagged=keep_flagged)
     written = [

@@ -7,7 +7,6 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 
@@ -15,6 +14,7 @@ from .grid import Grid, check_grid_fits_memory, ground_mask
 from .inversion import AIR_VELOCITY_M_PER_NS, InversionOptions, InversionResult, invert_travel_times
 from .outputs import (
     build_manifest,
+    make_output_folder,
     utc_now_iso,
     write_cell_arrays_vti,
     write_csv_atomic,
@@ -235,14 +235,7 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
     ``extra_summary`` merged in) and, last, ``manifest.json``. Each is written
     atomically.
     """
-    out = Path(out_dir)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as error:
-        from .errors import InputError
-
-        raise InputError(f"{out}: cannot create the output folder ({error.strerror}); "
-                         "choose a folder you can write to") from None
+    out = make_output_folder(out_dir)
     r = run.result
     grid = run.grid
     slowness = r.slowness_ns_per_m.reshape(grid.shape)

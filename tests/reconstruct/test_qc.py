@@ -33,7 +33,7 @@ import scipy.stats
 
 from plan.simulate import simulate_picks
 from plan.truth import parse_truth
-from reconstruct.grid import Grid, ground_mask
+from reconstruct.grid import Grid
 from reconstruct.inversion import InversionOptions, invert_travel_times
 from reconstruct.qc import (
     FLAG_AIR_DIRECT,

@@ -47,8 +47,6 @@ TIME_ZERO_MODELS = ("clock", "delay", "none")
 _TIME_ZERO_DAMPING = 1e-3
 #: Largest number of time-zero unknowns solved directly by estimate_time_zero.
 _DIRECT_TIME_ZERO_LIMIT = 4000
-#: IRLS stops when no robust weight changes by more than this between reweightings.
-_IRLS_WEIGHT_CHANGE = 0.01
 
 
 @dataclass(frozen=True)
@@ -86,6 +84,8 @@ class InversionOptions:
         (:mod:`reconstruct.robust`); "none" is plain least squares.
     robust_iterations : int
         Largest number of reweightings per IRLS pass.
+    robust_tolerance : float
+        IRLS stops when fewer than 1 % of the robust weights change by more than this.
     rejection_weight : float
         Picks whose final robust weight is below this are reported as rejected
         and left out of the chi-square that chooses lambda.
@@ -107,6 +107,7 @@ class InversionOptions:
     default_sigma_ns: float = 1.0
     robust: str = "none"
     robust_iterations: int = 8
+    robust_tolerance: float = 0.02
     rejection_weight: float = 0.1
 
     def __post_init__(self):
@@ -139,6 +140,8 @@ class InversionOptions:
             problems.append("default_sigma_ns must be > 0")
         if self.robust not in ROBUST_LOSSES:
             problems.append(f"robust must be one of {', '.join(ROBUST_LOSSES)} (got {self.robust!r})")
+        if not 0 < self.robust_tolerance < 1:
+            problems.append(f"robust_tolerance must be between 0 and 1 (got {self.robust_tolerance})")
         if self.robust_iterations < 1:
             problems.append(f"robust_iterations must be >= 1 (got {self.robust_iterations})")
         if not 0 < self.rejection_weight < 1:
@@ -516,14 +519,17 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
     return float(np.exp(best[0])), best[2], abs(best[1]) < 0.1
 
 
-def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_picks, exempt=None):
+def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_picks, exempt=None,
+          max_reweightings=None):
     """Iteratively reweighted least squares at a fixed lambda.
 
     Residuals are standardised by the pick sigmas (``trust_sigma``: picks carry
     sigmas, from the table or from reciprocity) or, without them, by their
-    robust scale (normalised median absolute residual). Stops when no weight
-    changes by more than ``_IRLS_WEIGHT_CHANGE`` (0.01), or after
-    ``options.robust_iterations`` reweightings. Returns
+    robust scale (normalised median absolute residual). Stops when fewer than
+    1 % of the weights change by more than ``options.robust_tolerance``, or after
+    ``max_reweightings`` (default ``options.robust_iterations``) reweightings.
+    The solves stop at ``options.search_tolerance``; the caller polishes the
+    last one. Returns
     ``(solve, weights, scale, reweightings)``; the weights are those the
     returned solve was computed with. Picks marked ``exempt`` keep weight 1.
     """
@@ -531,7 +537,7 @@ def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_pic
     omega = None
     scale = 1.0
     count = 0
-    for _ in range(options.robust_iterations):
+    for _ in range(options.robust_iterations if max_reweightings is None else max_reweightings):
         u = -problem.data_residual(sol.y)  # observed minus predicted, in sigmas
         scale = 1.0 if trust_sigma else robust_scale(u)
         new = robust_weights(u / scale, loss)
@@ -540,11 +546,13 @@ def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_pic
         if omega is None and np.all(new == 1.0):
             omega = new  # nothing to reweight: the plain solution stands
             break
-        if omega is not None and np.max(np.abs(new - omega)) < _IRLS_WEIGHT_CHANGE:
+        # converged when fewer than 1 % of the weights still move by more than the tolerance
+        if omega is not None and np.percentile(np.abs(new - omega), 99) < options.robust_tolerance:
             break
         omega = new
         problem.set_row_weights(omega, omega >= options.rejection_weight)
-        sol = problem.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
+        sol = problem.solve(lam, ratio * lam, sol.y, options.max_iterations,
+                            min(options.search_tolerance, 10 * options.tolerance))
         count += 1
         _record(search, "fine", lam, sol, n_picks)
         if progress:
@@ -626,8 +634,8 @@ def invert_travel_times(
     With ``options.robust`` set, iteratively reweighted least squares follows
     at the chosen lambda: the data rows are scaled by ``sqrt(w_i)``, with
     ``w_i`` Huber's or Tukey's weight of the residual in sigmas (Tukey after a
-    Huber pass), each solve warm-started, until no weight changes by more than
-    0.01; with the discrepancy principle lambda is found again with chi^2
+    Huber pass), each solve warm-started, until fewer than 1 % of the weights
+    change by more than ``options.robust_tolerance``; with the discrepancy principle lambda is found again with chi^2
     counted over the picks whose weight is at least
     ``options.rejection_weight``, and the weights are updated once more.
     The column scaling and the regularisation normalisation stay those of the
@@ -837,7 +845,8 @@ def invert_travel_times(
             lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), float(counted.sum()), progress,
                                                   "fine", search, n_picks, slope=slope)
             sol, omega, scale_used, n = _irls(fine, options, lam, sol, options.robust, have_sigma, progress,
-                                             search, n_picks, exempt)
+                                             search, n_picks, exempt,
+                                             max_reweightings=max(3, options.robust_iterations // 2))
             n_reweightings += n
             counted = omega >= options.rejection_weight
             note = (f"chi^2 = {sol.misfit**2:.5g} over the N = {int(counted.sum())} picks not rejected by the "

@@ -235,7 +235,7 @@ def _dense_problem(seed=0, n_cells=(3, 1, 3), n_rays=90):
 def test_huber_solution_matches_scipy_least_squares():
     grid, ground, G, t, sigma, tx, rx, D, _ = _dense_problem()
     options = InversionOptions(smoothing=1e-7, damping_ratio=0.0, time_zero="none", robust="huber",
-                               robust_iterations=200, tolerance=1e-12, max_iterations=5000)
+                               robust_iterations=200, robust_tolerance=1e-6, tolerance=1e-12, max_iterations=5000)
     reference = np.full(grid.n_cells, 1 / 0.115)
     result = invert_travel_times(G, t, tx, rx, 2, ground.ravel(), reference, D, sigma_ns=sigma,
                                  options=options)
@@ -254,7 +254,7 @@ def test_huber_solution_matches_scipy_least_squares():
 def test_tukey_gives_gross_outliers_zero_weight_like_lstsq_without_them():
     grid, ground, G, t, sigma, tx, rx, D, bad = _dense_problem(seed=3)
     options = InversionOptions(smoothing=1e-7, damping_ratio=0.0, time_zero="none", robust="tukey",
-                               robust_iterations=200, tolerance=1e-12, max_iterations=5000)
+                               robust_iterations=200, robust_tolerance=1e-6, tolerance=1e-12, max_iterations=5000)
     reference = np.full(grid.n_cells, 1 / 0.115)
     result = invert_travel_times(G, t, tx, rx, 2, ground.ravel(), reference, D, sigma_ns=sigma,
                                  options=options)

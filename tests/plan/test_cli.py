@@ -241,7 +241,7 @@ def test_simulate_outliers_out_lists_the_injected_outliers(files, tmp_path):
     files["truth"].write_text(TRUTH_YAML.replace("seed: 3}", "seed: 3, outlier_fraction: 0.05}"),
                               encoding="utf-8")
     out, listed = tmp_path / "picks.csv", tmp_path / "outliers.csv"
-    code, stdout, stderr = _simulate(files, out, "--quiet", "--outliers-out", listed)
+    code, stdout, stderr = _simulate(files, out, "--quiet", "--rays", "straight", "--outliers-out", listed)
     assert code == 0, stderr
     with open(listed, newline="", encoding="utf-8") as f:
         rows = list(csv.DictReader(f))

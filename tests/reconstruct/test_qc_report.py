@@ -194,3 +194,19 @@ def test_malformed_pick_tables_give_file_and_line(tmp_path, edit, fragments):
     code, _, stderr = _run(["qc", "--site", site, "--nodes", nodes, "--picks", picks, "--out", tmp_path / "o"])
     assert code == 2 and "Traceback" not in stderr
     assert str(picks) in stderr and all(f in stderr for f in fragments), stderr
+
+
+def test_invert_without_sigma_column_weights_by_the_reciprocity_noise(tmp_path):
+    site, nodes, picks, _ = _inputs(tmp_path / "in")
+    lines = picks.read_text(encoding="utf-8").splitlines()
+    picks.write_text("\n".join(",".join(line.split(",")[:3]) for line in lines) + "\n", encoding="utf-8")
+    out = tmp_path / "out"
+    code, _, stderr = _run(["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out, "--quiet"])
+    assert code == 0, stderr
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["qc"]["sigma_source"] == "reciprocity"
+    assert summary["qc"]["pick_noise_from_reciprocity_ns"] == pytest.approx(0.3, rel=0.25)
+    # with sigmas, lambda is chosen by the discrepancy principle (chi^2 = N)
+    assert summary["lambda"]["method"] == "discrepancy"
+    sigmas = {r["sigma_ns"] for r in _read_csv(out / "residuals.csv")}
+    assert sigmas == {f"{summary['qc']['pick_noise_from_reciprocity_ns']:.4f}"}

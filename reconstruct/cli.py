@@ -238,6 +238,10 @@ def _cmd_qc(args) -> int:
     noise = "" if checks.noise_sigma_ns is None else f"; pick noise from reciprocity {checks.noise_sigma_ns:.3f} ns"
     print(f"reciprocal pairs: {checks.n_reciprocal_pairs} ({checks.reciprocity['mismatched_pairs']} mismatched)"
           f"{noise}; sigma from {checks.sigma_source}")
+    fast = summary["picks"]["faster_than_air_lines"]
+    if fast:
+        print(f"faster than air (impossible): {len(fast)} picks, lines {', '.join(map(str, fast[:20]))}"
+              + (", ..." if len(fast) > 20 else ""))
     print(f"left out of a {args.rays}-ray inversion: {summary['picks']['excluded_by_flags']} picks")
     print("verdict: " + ("usable" if not problems else "NOT usable as it stands: " + " | ".join(problems)))
     print(f"output: {Path(args.out)}")

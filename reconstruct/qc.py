@@ -438,8 +438,9 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     # velocity band (with a tolerance of band_sigmas pick sigmas)
     tol = options.band_sigmas * sigma
     v_max = min(options.velocity_max_m_per_ns, c)
-    too_fast = corrected < distance / v_max - tol
-    too_slow = corrected > distance / options.velocity_min_m_per_ns + tol
+    apart = distance > 1e-6  # picks between nodes at one position are left to the inversion's own rule
+    too_fast = apart & (corrected < distance / v_max - tol)
+    too_slow = apart & (corrected > distance / options.velocity_min_m_per_ns + tol)
     for k in np.flatnonzero(too_fast):
         flags[k].append(FLAG_FASTER_THAN_AIR)
     for k in np.flatnonzero(too_slow):
@@ -452,7 +453,7 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     both_surface = at_surface[tx] & at_surface[rx]
     air = np.where(both_surface, direct, refracted)
     air_tol = np.maximum(tol, options.air_tolerance_fraction * np.nan_to_num(air))
-    air_first = np.isfinite(air) & (air < rock_time)
+    air_first = apart & np.isfinite(air) & (air < rock_time)
     # only where the air wave is clearly earlier than the path through rock can the two be told apart
     separable = air_first & (rock_time - np.nan_to_num(air) > 2.0 * air_tol)
     gap_air = np.abs(corrected - np.nan_to_num(air))

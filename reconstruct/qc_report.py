@@ -99,6 +99,7 @@ def qc_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems, *, rays
             "excluded_by_flags": int(flagged_out.sum()),
             "flags_that_exclude": list(excluding),
             "kept": int(len(picks) - flagged_out.sum()),
+            "faster_than_air_lines": [int(k) for k in picks.lines[checks.has(FLAG_FASTER_THAN_AIR)]],
         },
         "sigma": {
             "source": checks.sigma_source,

@@ -137,6 +137,8 @@ def test_qc_writes_every_output_and_flags_lines(tmp_path):
     assert set(manifest["outputs"]) == {"manifest.json", "node_clocks.csv", "qc.csv", "qc.html", "qc.json"}
     assert {k for k in manifest["inputs"]} == {"site", "nodes", "picks"}
     assert "flagged: " in stdout and "verdict: usable" in stdout
+    assert 5 in summary["picks"]["faster_than_air_lines"]
+    assert "faster than air (impossible)" in stdout and "lines 5" in stdout
 
 
 def test_invert_refuses_unusable_picks_then_accepts_with_the_flag(tmp_path):

@@ -47,27 +47,22 @@ def survey(ground_m: float):
     return xyz, tx, rx
 
 
-def main(argv=None):
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--scale", type=float, default=1.0,
-                        help="shrink the grid for a quick trial (cells per axis times SCALE)")
-    args = parser.parse_args(argv)
-    keep_freed_memory_for_reuse()
+def build_problem(scale: float = 1.0):
+    """The benchmark survey: grid, ground, nodes, picks and the straight-ray operator.
+
+    Returns a dict with ``grid``, ``ground``, ``xyz``, ``tx``, ``rx``, ``G``,
+    ``time_ns``, ``sigma_ns`` and ``t_operator`` (seconds to build ``G``).
+    Synthetic truth: limestone with a fast and a slow block, clock offsets,
+    0.5 ns noise (seed 1).
+    """
     ground_m = 65.0
-    shape = tuple(max(4, int(round(n * args.scale))) for n in (200, 60, 70))
+    shape = tuple(max(4, int(round(n * scale))) for n in (200, 60, 70))
     grid = Grid((0.0, 0.0, 0.0), (200 / shape[0], 60 / shape[1], 70 / shape[2]), shape)
     ground = ground_mask(grid, lambda x, y: np.full_like(x, ground_m))
     xyz, tx, rx = survey(ground_m)
-    print(f"grid {shape} = {grid.n_cells:,} cells ({int(ground.sum()):,} ground), "
-          f"{len(xyz)} nodes, {tx.size:,} picks")
-
     t0 = time.perf_counter()
     G = straight_ray_matrix(grid, xyz[tx], xyz[rx])
     t_operator = time.perf_counter() - t0
-    print(f"operator: {t_operator:.2f} s, {G.nnz:,} non-zeros ({G.nnz / tx.size:.0f} per ray), "
-          f"{(G.data.nbytes + G.indices.nbytes + G.indptr.nbytes) / 2**20:.0f} MiB")
-
-    # synthetic truth: limestone with a fast and a slow block, clock offsets, 0.5 ns noise
     rng = np.random.default_rng(1)
     centres = grid.cell_centres_m()
     velocity = np.where(ground, 0.115, AIR_VELOCITY_M_PER_NS)
@@ -77,22 +72,49 @@ def main(argv=None):
     velocity[slow & ground] = 0.08
     offsets = rng.normal(0, 1.5, len(xyz))
     time_ns = G @ (1 / velocity).ravel() + offsets[rx] - offsets[tx] + rng.normal(0, 0.5, tx.size)
-    sigma = np.full(tx.size, 0.5)
+    return dict(grid=grid, ground=ground, xyz=xyz, tx=tx, rx=rx, G=G, time_ns=time_ns,
+                sigma_ns=np.full(tx.size, 0.5), t_operator=t_operator)
 
+
+def reference_seconds(G, time_ns) -> float:
+    """The reference workload: 100 plain LSQR iterations on the bare operator."""
     t0 = time.perf_counter()
     lsqr(G, time_ns, iter_lim=100, atol=0, btol=0, conlim=0)
-    t_reference = time.perf_counter() - t0
-    print(f"reference: 100 plain LSQR iterations on the bare operator: {t_reference:.2f} s")
+    return time.perf_counter() - t0
 
-    t0 = time.perf_counter()
+
+def run_inversion(problem, options=InversionOptions(), progress=None):
+    """The full inversion of the benchmark problem (lambda search included)."""
+    grid, ground = problem["grid"], problem["ground"]
     ground_flat = ground.ravel()
     reference = np.where(ground_flat, 1 / 0.115, 1 / AIR_VELOCITY_M_PER_NS)
     D = first_difference_operator(grid, ground)
     factor = choose_coarsening_factor(int(ground.sum()))
     coarse = coarse_level(grid, ground, factor) if factor > 1 else None
-    result = invert_travel_times(G, time_ns, tx, rx, len(xyz), ground_flat, reference, D, cell_m=grid.cell_m,
-                                 sigma_ns=sigma, options=InversionOptions(), coarse=coarse,
-                                 progress=lambda m: print("   ", m, flush=True))
+    return invert_travel_times(problem["G"], problem["time_ns"], problem["tx"], problem["rx"], len(problem["xyz"]),
+                               ground_flat, reference, D, cell_m=grid.cell_m, sigma_ns=problem["sigma_ns"],
+                               options=options, coarse=coarse, progress=progress)
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--scale", type=float, default=1.0,
+                        help="shrink the grid for a quick trial (cells per axis times SCALE)")
+    args = parser.parse_args(argv)
+    keep_freed_memory_for_reuse()
+    problem = build_problem(args.scale)
+    grid, ground, G, tx = problem["grid"], problem["ground"], problem["G"], problem["tx"]
+    print(f"grid {grid.shape} = {grid.n_cells:,} cells ({int(ground.sum()):,} ground), "
+          f"{len(problem['xyz'])} nodes, {tx.size:,} picks")
+    t_operator = problem["t_operator"]
+    print(f"operator: {t_operator:.2f} s, {G.nnz:,} non-zeros ({G.nnz / tx.size:.0f} per ray), "
+          f"{(G.data.nbytes + G.indices.nbytes + G.indptr.nbytes) / 2**20:.0f} MiB")
+
+    t_reference = reference_seconds(G, problem["time_ns"])
+    print(f"reference: 100 plain LSQR iterations on the bare operator: {t_reference:.2f} s")
+
+    t0 = time.perf_counter()
+    result = run_inversion(problem, progress=lambda m: print("   ", m, flush=True))
     t_inversion = time.perf_counter() - t0
     fine_iterations = sum(s["iterations"] for s in result.lambda_search if s["level"] == "fine")
     coarse_iterations = sum(s["iterations"] for s in result.lambda_search if s["level"] != "fine")

@@ -81,12 +81,17 @@ def _cmd_simulate(args) -> int:
         ([ids[a], ids[b], f"{t:.3f}", f"{s:.3f}"]
          for a, b, t, s in zip(survey.tx, survey.rx, survey.time_ns, survey.sigma_ns)),
     )
+    if args.outliers_out:
+        bad = np.flatnonzero(survey.outlier)
+        write_csv_atomic(args.outliers_out, ["tx", "rx", "error_ns"],
+                         ([ids[survey.tx[k]], ids[survey.rx[k]], f"{survey.outlier_error_ns[k]:.3f}"] for k in bad))
     if args.clock_out:
         write_csv_atomic(args.clock_out, ["node_id", "clock_offset_ns"],
                          ([ids[k], f"{survey.clock_offset_ns[k]:.4f}"] for k in range(len(ids))))
     print(f"{survey.tx.size} synthetic picks written to {Path(args.out)} "
           f"(noise {truth.noise_sigma_ns:g} ns, clock offsets sd {truth.clock_offset_sigma_ns:g} ns, "
-          f"times {np.min(survey.time_ns):.1f} to {np.max(survey.time_ns):.1f} ns)")
+          + (f"{int(survey.outlier.sum())} gross outliers, " if survey.outlier.any() else "")
+          + f"times {np.min(survey.time_ns):.1f} to {np.max(survey.time_ns):.1f} ns)")
     return 0
 
 
@@ -114,6 +119,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--truth", required=True, help="truth model (YAML, see plan/truth.py)")
     p.add_argument("--out", required=True, help="pick table to write (CSV)")
     p.add_argument("--clock-out", help="also write the true clock offset per node (CSV), ns")
+    p.add_argument("--outliers-out", help="also write the picks made gross outliers (CSV: tx,rx,error_ns)")
     p.add_argument("--one-way", action="store_true", help="one pick per pair instead of both directions")
     p.add_argument("--max-distance", type=float, default=None, metavar="M",
                    help="leave out pairs further apart than M metres")

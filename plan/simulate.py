@@ -3,7 +3,17 @@
 The times are straight-ray times through the truth model voxelised on a grid
 ``refine`` times finer than the model grid (so that inverting them is not the
 exact inverse of the forward model), plus node clock offsets
-``tau_rx - tau_tx`` and Gaussian pick noise.
+``tau_rx - tau_tx``, Gaussian pick noise and, when the truth model asks for
+them, gross outliers.
+
+Gross outliers stand for cycle skips and picks made on noise: a seeded share
+``outlier_fraction`` of the picks (chosen at random, exactly
+``round(fraction * n_picks)`` of them) gets an error of random sign and a size
+drawn uniformly between 0.5 and 1.5 times ``outlier_size_ns``. An early error
+that would bring a time to 2 ns or less is made late instead, so every
+simulated time stays positive. The outliers are drawn from their own random
+stream (seeded by ``seed``), so switching them on does not change the clock
+offsets or the noise of the other picks.
 """
 
 from __future__ import annotations
@@ -20,7 +30,7 @@ from reconstruct.tables import Nodes
 
 from .truth import TruthModel, truth_velocity
 
-__all__ = ["SimulatedSurvey", "refined_grid", "all_pairs", "simulate_picks"]
+__all__ = ["SimulatedSurvey", "refined_grid", "all_pairs", "simulate_picks", "gross_errors"]
 
 
 @dataclass(frozen=True)
@@ -32,6 +42,14 @@ class SimulatedSurvey:
     true_travel_time_ns: np.ndarray
     clock_offset_ns: np.ndarray  # per node, mean zero
     node_xyz_m: np.ndarray
+    outlier_error_ns: np.ndarray | None = None  # per pick: the gross error added (0 for good picks)
+
+    @property
+    def outlier(self) -> np.ndarray:
+        """True for picks made gross outliers."""
+        if self.outlier_error_ns is None:
+            return np.zeros(self.tx.size, dtype=bool)
+        return self.outlier_error_ns != 0
 
 
 def refined_grid(grid: Grid, refine: int) -> Grid:
@@ -99,5 +117,26 @@ def simulate_picks(
     offsets -= offsets.mean()
     noise = rng.normal(0.0, truth.noise_sigma_ns, tx.size) if truth.noise_sigma_ns > 0 else np.zeros(tx.size)
     time_ns = travel + offsets[rx] - offsets[tx] + noise
+    error = gross_errors(time_ns, truth.outlier_fraction, truth.outlier_size_ns, seed=truth.seed)
+    time_ns = time_ns + error
     sigma = np.full(tx.size, max(truth.noise_sigma_ns, 0.01))
-    return SimulatedSurvey(tx, rx, time_ns, sigma, travel, offsets, xyz)
+    return SimulatedSurvey(tx, rx, time_ns, sigma, travel, offsets, xyz, error)
+
+
+def gross_errors(time_ns, fraction: float, size_ns: float, *, seed: int) -> np.ndarray:
+    """Errors that turn a seeded share of picks into gross outliers (see module notes).
+
+    Returns an array like ``time_ns``: 0 for good picks, the added error (ns) for outliers.
+    """
+    time_ns = np.asarray(time_ns, dtype=float)
+    error = np.zeros_like(time_ns)
+    n_out = int(round(fraction * time_ns.size))
+    if n_out == 0:
+        return error
+    rng = np.random.default_rng([seed, 0x0517])  # a stream of its own
+    which = rng.choice(time_ns.size, size=n_out, replace=False)
+    size = rng.uniform(0.5, 1.5, n_out) * size_ns
+    sign = rng.choice([-1.0, 1.0], n_out)
+    sign[time_ns[which] - size <= 2.0] = 1.0
+    error[which] = sign * size
+    return error

@@ -15,6 +15,8 @@ file (``yaml.safe_load`` only; unknown keys rejected; every problem listed)::
       sigma_ns: 0.5                       # Gaussian pick noise, ns
       clock_offset_sigma_ns: 1.5          # spread of node clock offsets, ns
       seed: 7
+      outlier_fraction: 0.02              # share of picks made gross outliers (default 0)
+      outlier_size_ns: 20                 # typical size of an outlier's error, ns (default 20)
     refine: 2                             # simulation cells per model cell along each axis
 
 Fill velocities (Davis and Annan, 1989, table of typical properties): air
@@ -71,6 +73,8 @@ class TruthModel:
     seed: int
     refine: int
     source: str = "truth"
+    outlier_fraction: float = 0.0
+    outlier_size_ns: float = 20.0
 
 
 def _number(value, path, problems, *, positive=False, minimum=None):
@@ -163,9 +167,16 @@ def parse_truth(data, source: str = "truth") -> TruthModel:
     if not isinstance(noise, dict):
         problems.append("noise must be a mapping")
         noise = {}
-    _unknown(noise, ["sigma_ns", "clock_offset_sigma_ns", "seed"], "noise.", problems)
+    _unknown(noise, ["sigma_ns", "clock_offset_sigma_ns", "seed", "outlier_fraction", "outlier_size_ns"],
+             "noise.", problems)
     sigma = _number(noise.get("sigma_ns", 0.5), "noise.sigma_ns", problems, minimum=0.0)
     clock = _number(noise.get("clock_offset_sigma_ns", 0.0), "noise.clock_offset_sigma_ns", problems, minimum=0.0)
+    outlier_fraction = _number(noise.get("outlier_fraction", 0.0), "noise.outlier_fraction", problems,
+                               minimum=0.0)
+    if outlier_fraction is not None and outlier_fraction > 0.5:
+        problems.append(f"noise.outlier_fraction must be at most 0.5 (got {outlier_fraction}); "
+                        "it is the share of picks turned into gross outliers, e.g. 0.02")
+    outlier_size = _number(noise.get("outlier_size_ns", 20.0), "noise.outlier_size_ns", problems, positive=True)
     seed = noise.get("seed", 0)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         problems.append(f"noise.seed must be a whole number >= 0 (got {seed!r})")
@@ -174,7 +185,8 @@ def parse_truth(data, source: str = "truth") -> TruthModel:
         problems.append(f"refine must be a whole number from 1 to 8 (got {refine!r})")
     if problems:
         raise InputError(problems, source=source)
-    return TruthModel(background, tuple(bodies), sigma, clock, int(seed), int(refine), source)
+    return TruthModel(background, tuple(bodies), sigma, clock, int(seed), int(refine), source,
+                      outlier_fraction=outlier_fraction, outlier_size_ns=outlier_size)
 
 
 def load_truth(path) -> TruthModel:

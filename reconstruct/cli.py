@@ -68,6 +68,12 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
     g.add_argument("--snap-tolerance", type=float, default=None, metavar="M",
                    help="largest allowed shift in metres when a node is snapped onto the ground "
                         "(default: the larger of 2 m and two cell diagonals)")
+    g.add_argument("--robust", choices=("none", "huber", "tukey"), default=None,
+                   help="reweighting against gross pick errors inside the LSQR loop: 'huber', 'tukey' "
+                        "(Huber first, then Tukey's biweight) or 'none' (plain least squares); default "
+                        "'huber' with straight rays, 'none' with bent rays (their steps are judged by the "
+                        "plain misfit); picks ending with weight below 0.1 are listed in rejected_picks.csv")
+    _add_qc_arguments(p)
     b = p.add_argument_group("bent rays")
     b.add_argument("--rays", choices=("straight", "bent"), default="straight",
                    help="forward model: 'straight' rays, or 'bent' rays traced through eikonal "
@@ -88,6 +94,25 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
                         "observed and predicted times (ns)")
 
 
+def _add_input_arguments(p: argparse.ArgumentParser):
+    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--nodes", required=True, help="node table (CSV: node_id,x_m,y_m,z_m[,kind,borehole])")
+    p.add_argument("--picks", required=True,
+                   help="pick table (CSV: tx,rx,time_ns[,sigma_ns,amplitude,quality]); times in ns")
+    p.add_argument("--out", required=True, help="output folder (created if missing)")
+
+
+def _add_qc_arguments(p: argparse.ArgumentParser):
+    q = p.add_argument_group("pick checks")
+    q.add_argument("--keep-flagged", default="", metavar="FLAG[,FLAG]",
+                   help="keep picks with these flags in the inversion instead of leaving them out "
+                        "(faster_than_air, slower_than_band, air_direct, air_refracted)")
+
+
+def _keep_flagged(args) -> tuple:
+    return tuple(f.strip() for f in args.keep_flagged.split(",") if f.strip())
+
+
 def _options_from(args):
     from .inversion import InversionOptions
 
@@ -96,6 +121,7 @@ def _options_from(args):
         horizontal_weight=args.horizontal_weight, vertical_weight=args.vertical_weight,
         smoothing=args.smoothing, damping_ratio=args.damping_ratio, time_zero=args.time_zero,
         max_iterations=args.max_iterations, default_sigma_ns=args.default_sigma,
+        robust=args.robust or ("huber" if getattr(args, "rays", "straight") == "straight" else "none"),
     )
 
 
@@ -119,6 +145,7 @@ def _cmd_invert(args) -> int:
     nodes = read_nodes(args.nodes)
     picks = read_picks(args.picks, nodes)
     say(f"read {len(nodes)} nodes and {picks.n_rows} pick rows ({len(picks.excluded)} excluded on reading)")
+    picks, exempt, qc_summary = _checked_picks(args, site, nodes, picks, say)
     if args.rays == "bent":
         from .bent_tomography import BentOptions, bent_ray_tomography
         from .parallel import executor_from_options
@@ -132,11 +159,11 @@ def _cmd_invert(args) -> int:
         if args.write_rays:
             raise InputError("--write-rays needs --rays bent (straight rays are the node-to-node lines)")
         run = straight_ray_tomography(site, nodes, picks, options, snap_tolerance_m=args.snap_tolerance,
-                                      progress=say)
+                                      progress=say, robust_exempt=exempt)
     parameters = {k: v for k, v in vars(args).items() if k not in ("func", "quiet")}
     summary = write_tomography(
         run, args.out, inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
-        parameters=parameters, started=started, command="reconstruct invert",
+        parameters=parameters, started=started, command="reconstruct invert", extra_summary={"qc": qc_summary},
     )
     m, lam, v = summary["misfit"], summary["lambda"], summary["velocity_m_per_ns"]
     chi = "" if m["chi2"] is None else f", chi^2/N {m['chi2_per_pick']:.3f}"
@@ -150,6 +177,73 @@ def _cmd_invert(args) -> int:
     print(f"lambda: {lam['smoothing']:.4g} by {lam['method']} ({lam['note']})")
     print(f"ground velocity: {v['ground_min']:.4f} to {v['ground_max']:.4f} m/ns, median "
           f"{v['ground_median']:.4f}; {summary['nodes']['snapped']} nodes snapped to the ground")
+    if "robust" in summary:
+        rb = summary["robust"]
+        print(f"robust weights ({rb['loss']}): {rb['rejected']} picks rejected (see rejected_picks.csv)")
+    print(f"output: {Path(args.out)}")
+    return 0
+
+
+def _checked_picks(args, site, nodes, picks, say):
+    """Run the pick checks; refuse unusable data unless --accept-flags; return
+    the picks to invert (a new selection; the table is untouched), the mask of
+    those confirmed by an agreeing reciprocal pick (full weight in the robust
+    reweighting) and a summary."""
+    from .qc import check_site_picks, kept_by_flags, picks_for_inversion, reciprocal_confirmed, usability_problems
+
+    keep = _keep_flagged(args)
+    placement, checks = check_site_picks(site, nodes, picks, snap_tolerance_m=args.snap_tolerance)
+    problems = usability_problems(picks, checks)
+    if problems and not args.accept_flags:
+        reasons = "; ".join(p[len(picks.source) + 2:] if p.startswith(picks.source) else p for p in problems)
+        raise InputError(f"{picks.source}: picks not usable as they stand: {reasons}. Run 'reconstruct qc' for "
+                         "every flagged pick, or add --accept-flags to invert anyway")
+    chosen = picks_for_inversion(picks, nodes, checks, rays=args.rays, keep_flagged=keep)
+    counts = checks.counts()
+    say("pick checks: " + ", ".join(f"{n} {f}" for f, n in counts.items() if n) if any(counts.values())
+        else "pick checks: no pick flagged")
+    summary = {"flag_counts": counts, "left_out": len(chosen.excluded) - len(picks.excluded),
+               "sigma_source": checks.sigma_source, "pick_noise_from_reciprocity_ns": checks.noise_sigma_ns,
+               "reciprocal_pairs": checks.n_reciprocal_pairs, "problems": problems,
+               "accepted_despite_problems": bool(problems), "kept_flags": list(keep)}
+    exempt = reciprocal_confirmed(checks)[kept_by_flags(checks, rays=args.rays, keep_flagged=keep)]
+    return chosen, exempt, summary
+
+
+def _cmd_qc(args) -> int:
+    from .outputs import utc_now_iso
+    from .qc import check_site_picks, picks_for_inversion, usability_problems
+    from .qc_report import write_qc
+    from .site import load_site
+    from .tables import read_nodes, read_picks
+
+    started = utc_now_iso()
+    _check_output_folder(args.out)
+    site = load_site(args.site)
+    nodes = read_nodes(args.nodes)
+    picks = read_picks(args.picks, nodes)
+    keep = _keep_flagged(args)
+    placement, checks = check_site_picks(site, nodes, picks, snap_tolerance_m=args.snap_tolerance)
+    picks_for_inversion(picks, nodes, checks, rays=args.rays, keep_flagged=keep)  # checks the flag names
+    problems = usability_problems(picks, checks)
+    parameters = {k: v for k, v in vars(args).items() if k not in ("func",)}
+    summary = write_qc(picks, nodes, checks, problems, args.out, xyz_m=placement.xyz_m, site_name=site.name,
+                       inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
+                       parameters=parameters, started=started, command="reconstruct qc", rays=args.rays,
+                       keep_flagged=keep)
+    counts = summary["picks"]["flag_counts"]
+    print(f"site: {site.name}")
+    print(f"picks checked: {len(picks)} ({len(picks.excluded)} excluded on reading); flagged: "
+          + (", ".join(f"{n} {f}" for f, n in counts.items() if n) or "none"))
+    noise = "" if checks.noise_sigma_ns is None else f"; pick noise from reciprocity {checks.noise_sigma_ns:.3f} ns"
+    print(f"reciprocal pairs: {checks.n_reciprocal_pairs} ({checks.reciprocity['mismatched_pairs']} mismatched)"
+          f"{noise}; sigma from {checks.sigma_source}")
+    fast = summary["picks"]["faster_than_air_lines"]
+    if fast:
+        print(f"faster than air (impossible): {len(fast)} picks, lines {', '.join(map(str, fast[:20]))}"
+              + (", ..." if len(fast) > 20 else ""))
+    print(f"left out of a {args.rays}-ray inversion: {summary['picks']['excluded_by_flags']} picks")
+    print("verdict: " + ("usable" if not problems else "NOT usable as it stands: " + " | ".join(problems)))
     print(f"output: {Path(args.out)}")
     return 0
 
@@ -195,14 +289,29 @@ def build_parser() -> argparse.ArgumentParser:
                     "summary.json, manifest.json and, with --write-rays, rays.vtp into OUT.",
         epilog=_EPILOG_UNITS,
     )
-    p.add_argument("--site", required=True, help="site description (YAML)")
-    p.add_argument("--nodes", required=True, help="node table (CSV: node_id,x_m,y_m,z_m[,kind,borehole])")
-    p.add_argument("--picks", required=True,
-                   help="pick table (CSV: tx,rx,time_ns[,sigma_ns,amplitude,quality]); times in ns")
-    p.add_argument("--out", required=True, help="output folder (created if missing)")
+    _add_input_arguments(p)
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    p.add_argument("--accept-flags", action="store_true",
+                   help="invert even when the pick checks find the data unusable (flagged picks are still "
+                        "left out as listed in excluded_picks.csv)")
     _add_inversion_arguments(p)
     p.set_defaults(func=_cmd_invert)
+
+    p = sub.add_parser(
+        "qc", help="check picks: reciprocity, node clocks, velocity band, air waves; writes a report",
+        description="Check every pick before inverting: reciprocal pairs, node clock (time-zero) estimates "
+                    "as transmitter and receiver, apparent velocity against 0.03-0.30 m/ns, direct and "
+                    "refracted air waves. Writes qc.csv, node_clocks.csv, qc.json, qc.html and "
+                    "manifest.json into OUT. The pick table is never changed.",
+        epilog=_EPILOG_UNITS)
+    _add_input_arguments(p)
+    p.add_argument("--rays", choices=("straight", "bent"), default="straight",
+                   help="the forward model the picks are meant for: with 'straight' (default) air-wave "
+                        "picks are marked as left out, with 'bent' they are kept")
+    p.add_argument("--snap-tolerance", type=float, default=None, metavar="M",
+                   help="largest allowed snap onto the ground, metres")
+    _add_qc_arguments(p)
+    p.set_defaults(func=_cmd_qc)
 
     p = sub.add_parser("check", help="validate a site description and, optionally, node and pick tables",
                        description="Load and validate the inputs without inverting; list every problem.",

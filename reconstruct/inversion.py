@@ -22,9 +22,12 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy.linalg
 import scipy.sparse as sp
 from scipy.constants import c as _C_M_PER_S
 from scipy.sparse.linalg import LinearOperator, lsqr
+
+from .robust import ROBUST_LOSSES, robust_scale, robust_time_zero, robust_weights
 
 __all__ = [
     "InversionOptions",
@@ -42,6 +45,8 @@ TIME_ZERO_MODELS = ("clock", "delay", "none")
 #: Damping of the time-zero unknowns relative to their data weight: small, so
 #: that the offsets are set by the data, but enough to fix the gauge of "clock".
 _TIME_ZERO_DAMPING = 1e-3
+#: Largest number of time-zero unknowns solved directly by estimate_time_zero.
+_DIRECT_TIME_ZERO_LIMIT = 4000
 
 
 @dataclass(frozen=True)
@@ -74,6 +79,16 @@ class InversionOptions:
     default_sigma_ns : float
         Pick uncertainty assumed when the pick table has no ``sigma_ns``; it then
         sets the weights only, and chi-square is not used to choose lambda.
+    robust : {"none", "huber", "tukey"}
+        Iteratively reweighted least squares against gross pick errors
+        (:mod:`reconstruct.robust`); "none" is plain least squares.
+    robust_iterations : int
+        Largest number of reweightings per IRLS pass.
+    robust_tolerance : float
+        IRLS stops when fewer than 1 % of the robust weights change by more than this.
+    rejection_weight : float
+        Picks whose final robust weight is below this are reported as rejected
+        and left out of the chi-square that chooses lambda.
     """
 
     velocity_min_m_per_ns: float = 0.03
@@ -90,6 +105,10 @@ class InversionOptions:
     tolerance: float = 1e-4
     search_tolerance: float = 1e-3
     default_sigma_ns: float = 1.0
+    robust: str = "none"
+    robust_iterations: int = 8
+    robust_tolerance: float = 0.02
+    rejection_weight: float = 0.1
 
     def __post_init__(self):
         problems = []
@@ -119,6 +138,14 @@ class InversionOptions:
             problems.append("max_iterations must be >= 1 and tolerance > 0")
         if not self.default_sigma_ns > 0:
             problems.append("default_sigma_ns must be > 0")
+        if self.robust not in ROBUST_LOSSES:
+            problems.append(f"robust must be one of {', '.join(ROBUST_LOSSES)} (got {self.robust!r})")
+        if not 0 < self.robust_tolerance < 1:
+            problems.append(f"robust_tolerance must be between 0 and 1 (got {self.robust_tolerance})")
+        if self.robust_iterations < 1:
+            problems.append(f"robust_iterations must be >= 1 (got {self.robust_iterations})")
+        if not 0 < self.rejection_weight < 1:
+            problems.append(f"rejection_weight must be between 0 and 1 (got {self.rejection_weight})")
         if problems:
             from .errors import InputError
 
@@ -149,6 +176,11 @@ class InversionResult:
     stop_reason: str = ""
     n_clipped_slow: int = 0
     n_clipped_fast: int = 0
+    robust_loss: str = "none"
+    robust_weight: np.ndarray | None = None  # final IRLS weight per pick, 0..1
+    rejected: np.ndarray | None = None  # bool per pick: robust weight below options.rejection_weight
+    robust_scale: float = 1.0  # residual scale (in sigmas) the robust weights were computed with
+    robust_reweightings: int = 0
 
     @property
     def velocity_m_per_ns(self) -> np.ndarray:
@@ -182,8 +214,17 @@ def estimate_time_zero(C, weight, residual_ns) -> np.ndarray:
     if C.nnz == 0:
         return np.zeros(C.shape[1])
     WC = (sp.diags(weight) @ C).tocsr()
-    return lsqr(WC, weight * residual_ns, damp=1e-6, atol=1e-10, btol=1e-10,
-                iter_lim=20 * C.shape[1] + 100)[0]
+    rhs = weight * residual_ns
+    if C.shape[1] <= _DIRECT_TIME_ZERO_LIMIT:
+        # small: solve the damped normal equations directly (exact, and far
+        # quicker than hundreds of LSQR iterations); the damping, a 1e-9 part of
+        # the mean diagonal, only fixes the gauge (the minimum-norm solution)
+        normal = (WC.T @ WC).toarray()
+        diagonal = np.diag(normal)
+        damp = 1e-9 * (float(diagonal[diagonal > 0].mean()) if np.any(diagonal > 0) else 1.0)
+        normal[np.diag_indices_from(normal)] += damp
+        return scipy.linalg.solve(normal, WC.T @ rhs, assume_a="pos")
+    return lsqr(WC, rhs, damp=1e-6, atol=1e-10, btol=1e-10, iter_lim=20 * C.shape[1] + 100)[0]
 
 
 def time_zero_matrix(tx, rx, n_nodes: int, model: str = "clock") -> sp.csr_matrix:
@@ -264,20 +305,43 @@ class _ScaledProblem:
             [kappa_damp * np.sqrt(volume) / scale[:n_slowness], np.zeros(self.n - n_slowness)]
         )
         self.fixed_damp = np.concatenate([np.zeros(n_slowness), np.full(self.n - n_slowness, _TIME_ZERO_DAMPING)])
-        self.b = np.asarray(b, dtype=float)
+        self.b0 = np.asarray(b, dtype=float)
+        self.set_row_weights(None)
+
+    def set_row_weights(self, omega, counted=None):
+        """Robust weights ``omega`` (None: all 1) of the data rows, and the rows
+        ``counted`` in the misfit that chooses lambda (None: all).
+
+        The rows are scaled by ``sqrt(omega)`` inside the operator, so the column
+        scaling, and with it the meaning of lambda, stays that of the plain problem.
+        """
+        m = self.A.shape[0]
+        self.row_sqrt_w = None if omega is None else np.sqrt(np.asarray(omega, dtype=float))
+        self.b = self.b0 if omega is None else self.row_sqrt_w * self.b0
+        self.counted = np.ones(m, dtype=bool) if counted is None else np.asarray(counted, dtype=bool)
+
+    def data_residual(self, y) -> np.ndarray:
+        """Unweighted-by-IRLS data residual ``A y - b`` in sigmas (observed minus
+        predicted, with the sign flipped)."""
+        return self.A @ y - self.b0
 
     def operator(self, lambda_smooth: float, lambda_damp: float) -> LinearOperator:
         m, n, ns = self.A.shape[0], self.n, self.n_slowness
         nd = self.D.shape[0]
         damp = lambda_damp * self.damp_diag + self.fixed_damp
 
+        sw = self.row_sqrt_w
+
         def matvec(y):
             y = np.ravel(y)
-            return np.concatenate([self.A @ y, lambda_smooth * (self.D @ y[:ns]), damp * y])
+            data = self.A @ y
+            if sw is not None:
+                data *= sw
+            return np.concatenate([data, lambda_smooth * (self.D @ y[:ns]), damp * y])
 
         def rmatvec(u):
             u = np.ravel(u)
-            out = self.AT @ u[:m]
+            out = self.AT @ (u[:m] if sw is None else sw * u[:m])
             out[:ns] += lambda_smooth * (self.DT @ u[m:m + nd])
             out += damp * u[m + nd:]
             return out
@@ -288,8 +352,9 @@ class _ScaledProblem:
         """Explicit stacked matrix and right-hand side (for checks on small problems)."""
         ns = self.n_slowness
         D_full = sp.hstack([self.D, sp.csr_matrix((self.D.shape[0], self.n - ns))])
+        A = self.A if self.row_sqrt_w is None else sp.diags(self.row_sqrt_w) @ self.A
         M = sp.vstack(
-            [self.A, lambda_smooth * D_full, sp.diags(lambda_damp * self.damp_diag + self.fixed_damp)]
+            [A, lambda_smooth * D_full, sp.diags(lambda_damp * self.damp_diag + self.fixed_damp)]
         ).tocsr()
         rhs = np.concatenate([self.b, np.zeros(self.D.shape[0] + self.n)])
         return M, rhs
@@ -309,7 +374,7 @@ class _ScaledProblem:
             y=y,
             stop_code=int(out[1]),
             iterations=int(out[2]),
-            misfit=float(np.linalg.norm(self.A @ y - self.b)),
+            misfit=float(np.linalg.norm(self.data_residual(y)[self.counted])),
             roughness=float(np.linalg.norm(self.D @ y[: self.n_slowness])),
             size=float(np.linalg.norm(self.damp_diag * y)),
         )
@@ -454,6 +519,48 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
     return float(np.exp(best[0])), best[2], abs(best[1]) < 0.1
 
 
+def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_picks, exempt=None,
+          max_reweightings=None):
+    """Iteratively reweighted least squares at a fixed lambda.
+
+    Residuals are standardised by the pick sigmas (``trust_sigma``: picks carry
+    sigmas, from the table or from reciprocity) or, without them, by their
+    robust scale (normalised median absolute residual). Stops when fewer than
+    1 % of the weights change by more than ``options.robust_tolerance``, or after
+    ``max_reweightings`` (default ``options.robust_iterations``) reweightings.
+    The solves stop at ``options.search_tolerance``; the caller polishes the
+    last one. Returns
+    ``(solve, weights, scale, reweightings)``; the weights are those the
+    returned solve was computed with. Picks marked ``exempt`` keep weight 1.
+    """
+    ratio = options.damping_ratio
+    omega = None
+    scale = 1.0
+    count = 0
+    for _ in range(options.robust_iterations if max_reweightings is None else max_reweightings):
+        u = -problem.data_residual(sol.y)  # observed minus predicted, in sigmas
+        scale = 1.0 if trust_sigma else robust_scale(u)
+        new = robust_weights(u / scale, loss)
+        if exempt is not None:
+            new[exempt] = 1.0
+        if omega is None and np.all(new == 1.0):
+            omega = new  # nothing to reweight: the plain solution stands
+            break
+        # converged when fewer than 1 % of the weights still move by more than the tolerance
+        if omega is not None and np.percentile(np.abs(new - omega), 99) < options.robust_tolerance:
+            break
+        omega = new
+        problem.set_row_weights(omega, omega >= options.rejection_weight)
+        sol = problem.solve(lam, ratio * lam, sol.y, options.max_iterations,
+                            min(options.search_tolerance, 10 * options.tolerance))
+        count += 1
+        _record(search, "fine", lam, sol, n_picks)
+        if progress:
+            progress(f"robust ({loss}) reweighting {count}: {int(np.sum(omega < options.rejection_weight))} "
+                     f"picks below weight {options.rejection_weight:g}, {sol.iterations} iterations")
+    return sol, omega, scale, count
+
+
 def invert_travel_times(
     operator,
     time_ns,
@@ -469,6 +576,7 @@ def invert_travel_times(
     options: InversionOptions = InversionOptions(),
     coarse=None,
     progress=None,
+    robust_exempt=None,
 ) -> InversionResult:
     """Invert travel times for ground slowness and node time-zeros.
 
@@ -498,6 +606,10 @@ def invert_travel_times(
         grid, and its model starts the fine solve.
     progress : callable, optional
         ``progress(message)`` after each solve.
+    robust_exempt : ndarray of bool, shape (n_picks,), optional
+        Picks that keep full weight in the robust reweighting (for example
+        picks confirmed by an agreeing reciprocal pick: a picking error would
+        not repeat in the other direction, a true travel-time anomaly does).
 
     Returns
     -------
@@ -519,6 +631,16 @@ def invert_travel_times(
     against log regularisation norm) at the largest curvature (Hansen, 1992).
     The slowness is then clipped into the velocity band.
 
+    With ``options.robust`` set, iteratively reweighted least squares follows
+    at the chosen lambda: the data rows are scaled by ``sqrt(w_i)``, with
+    ``w_i`` Huber's or Tukey's weight of the residual in sigmas (Tukey after a
+    Huber pass), each solve warm-started, until fewer than 1 % of the weights
+    change by more than ``options.robust_tolerance``; with the discrepancy principle lambda is found again with chi^2
+    counted over the picks whose weight is at least
+    ``options.rejection_weight``, and the weights are updated once more.
+    The column scaling and the regularisation normalisation stay those of the
+    unweighted problem, so lambda keeps its meaning.
+
     References
     ----------
     .. [1] Paige, C. C. and Saunders, M. A. (1982), LSQR: an algorithm for sparse
@@ -529,6 +651,11 @@ def invert_travel_times(
     .. [3] Davis, J. L. and Annan, A. P. (1989), Ground-penetrating radar for
        high-resolution mapping of soil and rock stratigraphy, Geophysical
        Prospecting 37(5), 531-551.
+    .. [4] Huber, P. J. (1964), Robust estimation of a location parameter, Annals
+       of Mathematical Statistics 35(1), 73-101.
+    .. [5] Holland, P. W. and Welsch, R. E. (1977), Robust regression using
+       iteratively reweighted least-squares, Communications in Statistics -
+       Theory and Methods 6(9), 813-827.
     """
     G = sp.csr_matrix(operator)
     t = np.asarray(time_ns, dtype=float)
@@ -547,6 +674,11 @@ def invert_travel_times(
         raise ValueError("no picks to invert")
     if np.any((tx < 0) | (tx >= n_nodes) | (rx < 0) | (rx >= n_nodes)):
         raise ValueError(f"tx and rx must be node numbers from 0 to {n_nodes - 1}")
+    exempt = None
+    if robust_exempt is not None:
+        exempt = np.asarray(robust_exempt, dtype=bool)
+        if exempt.shape != (n_picks,):
+            raise ValueError("robust_exempt must have one entry per pick")
     if sigma_ns is None:
         sigma = np.full(n_picks, options.default_sigma_ns)
         have_sigma = False
@@ -590,7 +722,12 @@ def invert_travel_times(
     # (one unknown per node) whose answer starts every solve. Without it LSQR
     # creeps towards large offsets, since a slowness change around a node
     # mimics part of a time-zero term.
-    tau_start = np.zeros(0) if options.time_zero == "none" else estimate_time_zero(C, weight, residual_ref)
+    if options.time_zero == "none":
+        tau_start = np.zeros(0)
+    elif options.robust == "none":
+        tau_start = estimate_time_zero(C, weight, residual_ref)
+    else:
+        tau_start = robust_time_zero(C, weight, residual_ref, loss="huber")[0]
 
     def start(n_cells_level):
         return np.concatenate([np.zeros(n_cells_level), tau_start])
@@ -600,6 +737,7 @@ def invert_travel_times(
     ratio = options.damping_ratio
     target = float(n_picks)
     search: list = []
+    slope = 1.0
     if options.smoothing is not None:
         lam = float(options.smoothing)
         sol = fine.solve(lam, ratio * lam, start(n_slowness) * fine.scale, options.max_iterations,
@@ -690,6 +828,38 @@ def invert_travel_times(
         if coarse is not None:
             note += f"; lambda searched on a coarse grid of {coarse.factor}^3-cell blocks, then on the model grid"
 
+    omega = None
+    scale_used = 1.0
+    n_reweightings = 0
+    if options.robust != "none":
+        # IRLS at the chosen lambda (Huber first: Tukey's loss is not convex and
+        # needs a good start), then, with the discrepancy principle, lambda is
+        # chosen again with chi^2 counted over the picks that keep their weight.
+        sol, omega, scale_used, n = _irls(fine, options, lam, sol, "huber", have_sigma, progress, search,
+                                         n_picks, exempt)
+        n_reweightings += n
+        if n == 0:
+            pass  # every weight is 1: the plain solution is the robust one
+        elif method == "discrepancy":
+            counted = omega >= options.rejection_weight
+            lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), float(counted.sum()), progress,
+                                                  "fine", search, n_picks, slope=slope)
+            sol, omega, scale_used, n = _irls(fine, options, lam, sol, options.robust, have_sigma, progress,
+                                             search, n_picks, exempt,
+                                             max_reweightings=max(3, options.robust_iterations // 2))
+            n_reweightings += n
+            counted = omega >= options.rejection_weight
+            note = (f"chi^2 = {sol.misfit**2:.5g} over the N = {int(counted.sum())} picks not rejected by the "
+                    f"robust weights ({n_picks - int(counted.sum())} rejected)"
+                    + ("" if reached else "; chi^2 = N not reached within the search range"))
+        elif options.robust == "tukey":
+            sol, omega, scale_used, n = _irls(fine, options, lam, sol, "tukey", have_sigma, progress, search,
+                                             n_picks, exempt)
+            n_reweightings += n
+        if n_reweightings:
+            sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
+            _record(search, "fine", lam, sol, n_picks)
+
     x = sol.y / fine.scale
     slowness = s_ref.copy()
     slowness[ground_cols] += x[:n_slowness]
@@ -731,4 +901,9 @@ def invert_travel_times(
         stop_reason=_LSQR_REASONS.get(int(sol.stop_code), "unknown"),
         n_clipped_slow=n_slow,
         n_clipped_fast=n_fast,
+        robust_loss=options.robust,
+        robust_weight=omega,
+        rejected=None if omega is None else omega < options.rejection_weight,
+        robust_scale=float(scale_used),
+        robust_reweightings=n_reweightings,
     )

@@ -34,6 +34,7 @@ __all__ = [
     "package_versions",
     "build_manifest",
     "utc_now_iso",
+    "make_output_folder",
 ]
 
 
@@ -62,6 +63,19 @@ def atomic_path(path, suffix: str | None = None):
         except FileNotFoundError:
             pass
         raise
+
+
+def make_output_folder(out_dir) -> Path:
+    """Create the output folder (and its parents) if missing; a clear InputError if that fails."""
+    out = Path(out_dir)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        from .errors import InputError
+
+        raise InputError(f"{out}: cannot create the output folder ({error.strerror}); "
+                         "choose a folder you can write to") from None
+    return out
 
 
 def write_text_atomic(path, text: str) -> Path:

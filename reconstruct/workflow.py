@@ -7,7 +7,6 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 
@@ -15,6 +14,7 @@ from .grid import Grid, check_grid_fits_memory, ground_mask
 from .inversion import AIR_VELOCITY_M_PER_NS, InversionOptions, InversionResult, invert_travel_times
 from .outputs import (
     build_manifest,
+    make_output_folder,
     utc_now_iso,
     write_cell_arrays_vti,
     write_csv_atomic,
@@ -87,6 +87,7 @@ def straight_ray_tomography(
     snap_tolerance_m: float | None = None,
     memory_limit_bytes: int | None = None,
     progress=None,
+    robust_exempt=None,
 ) -> TomographyRun:
     """Straight-ray travel-time tomography of a site.
 
@@ -98,6 +99,9 @@ def straight_ray_tomography(
         See :func:`reconstruct.placement.place_nodes`.
     progress : callable, optional
         ``progress(message)`` for long steps.
+    robust_exempt : ndarray of bool, shape (len(picks),), optional
+        Picks that keep full weight in a robust inversion
+        (see :func:`reconstruct.inversion.invert_travel_times`).
     """
     grid, ground = model_grid(site, memory_limit_bytes=memory_limit_bytes)
     _say(progress, f"grid {grid.shape[0]} x {grid.shape[1]} x {grid.shape[2]} cells of "
@@ -141,6 +145,7 @@ def straight_ray_tomography(
     result = invert_travel_times(
         G, picks.time_ns[used], picks.tx[used], picks.rx[used], len(nodes), ground_flat, reference, D,
         cell_m=grid.cell_m, sigma_ns=sigma, options=options, coarse=coarse, progress=progress,
+        robust_exempt=None if robust_exempt is None else np.asarray(robust_exempt, dtype=bool)[used],
     )
     ray_length, ray_count = ray_coverage(G, grid)
     return TomographyRun(
@@ -220,22 +225,17 @@ def _summary(run: TomographyRun) -> dict:
     }
 
 
-def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: dict, started: str, command: str) -> dict:
+def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: dict, started: str, command: str,
+                     extra_summary: dict | None = None) -> dict:
     """Write the output folder of a run; returns the summary dictionary.
 
     Files: ``velocity.vti``, ``residuals.csv``, ``time_zero.csv``,
-    ``nodes_used.csv``, ``excluded_picks.csv``, ``rays.vtp`` (when the run kept
-    its rays), ``summary.json`` and, last, ``manifest.json``. Each is written
+    ``nodes_used.csv``, ``excluded_picks.csv``, ``rejected_picks.csv`` (robust
+    runs), ``rays.vtp`` (when the run kept its rays), ``summary.json`` (with
+    ``extra_summary`` merged in) and, last, ``manifest.json``. Each is written
     atomically.
     """
-    out = Path(out_dir)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as error:
-        from .errors import InputError
-
-        raise InputError(f"{out}: cannot create the output folder ({error.strerror}); "
-                         "choose a folder you can write to") from None
+    out = make_output_folder(out_dir)
     r = run.result
     grid = run.grid
     slowness = r.slowness_ns_per_m.reshape(grid.shape)
@@ -253,16 +253,31 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
     xyz = run.placement.xyz_m
     dist = np.linalg.norm(xyz[picks.rx[u]] - xyz[picks.tx[u]], axis=1)
     sigma = picks.sigma_ns[u] if picks.sigma_ns is not None else np.full(u.size, np.nan)
+    robust = r.robust_weight is not None
     written.append(write_csv_atomic(
         out / "residuals.csv",
-        ["line", "tx", "rx", "distance_m", "observed_ns", "predicted_ns", "residual_ns", "sigma_ns"],
+        ["line", "tx", "rx", "distance_m", "observed_ns", "predicted_ns", "residual_ns", "sigma_ns"]
+        + (["robust_weight"] if robust else []),
         (
             [int(picks.lines[k]), ids[picks.tx[k]], ids[picks.rx[k]], f"{dist[i]:.3f}",
              f"{picks.time_ns[k]:.4f}", f"{r.predicted_ns[i]:.4f}", f"{r.residual_ns[i]:.4f}",
              "" if not np.isfinite(sigma[i]) else f"{sigma[i]:.4f}"]
+            + ([f"{r.robust_weight[i]:.4f}"] if robust else [])
             for i, k in enumerate(u)
         ),
     ))
+    if robust:
+        written.append(write_csv_atomic(
+            out / "rejected_picks.csv",
+            ["line", "tx", "rx", "observed_ns", "residual_ns", "sigma_ns", "robust_weight", "reason"],
+            ([int(picks.lines[k]), ids[picks.tx[k]], ids[picks.rx[k]], f"{picks.time_ns[k]:.4f}",
+              f"{r.residual_ns[i]:.4f}", "" if not np.isfinite(sigma[i]) else f"{sigma[i]:.4f}",
+              f"{r.robust_weight[i]:.4f}",
+              f"robust {r.robust_loss} weight {r.robust_weight[i]:.3g} below {run.options.rejection_weight:g}: "
+              f"residual {r.residual_ns[i]:.2f} ns" + (f" = {abs(r.residual_ns[i]) / sigma[i]:.1f} sigma"
+                                                      if np.isfinite(sigma[i]) else "")]
+             for i, k in enumerate(u) if r.rejected[i]),
+        ))
     n_tx = np.bincount(picks.tx[u], minlength=len(ids))
     n_rx = np.bincount(picks.rx[u], minlength=len(ids))
     written.append(write_csv_atomic(
@@ -288,6 +303,14 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
             rx_ids=[ids[picks.rx[k]] for k in u], observed_ns=picks.time_ns[u], predicted_ns=r.predicted_ns,
             lines=picks.lines[u]))
     summary = _summary(run)
+    if robust:
+        summary["robust"] = {
+            "loss": r.robust_loss, "rejected": int(r.rejected.sum()),
+            "rejection_weight": run.options.rejection_weight, "scale_sigmas": r.robust_scale,
+            "reweightings": r.robust_reweightings,
+            "put_back": "rerun with --robust none to give every pick its full weight",
+        }
+    summary.update(extra_summary or {})
     written.append(write_json_atomic(out / "summary.json", summary))
     manifest = build_manifest(
         command=command, inputs=inputs, parameters=parameters,

@@ -235,3 +235,16 @@ def test_simulate_help_mentions_units(capsys):
 def test_no_subcommand_prints_help_and_exits_2(capsys):
     assert main([]) == 2
     assert "usage: plan" in capsys.readouterr().out
+
+
+def test_simulate_outliers_out_lists_the_injected_outliers(files, tmp_path):
+    files["truth"].write_text(TRUTH_YAML.replace("seed: 3}", "seed: 3, outlier_fraction: 0.05}"),
+                              encoding="utf-8")
+    out, listed = tmp_path / "picks.csv", tmp_path / "outliers.csv"
+    code, stdout, stderr = _simulate(files, out, "--quiet", "--rays", "straight", "--outliers-out", listed)
+    assert code == 0, stderr
+    with open(listed, newline="", encoding="utf-8") as f:
+        rows = list(csv.DictReader(f))
+    assert len(rows) == round(0.05 * N_NODES * (N_NODES - 1))
+    assert all(10.0 <= abs(float(r["error_ns"])) <= 30.0 for r in rows)
+    assert f"{len(rows)} gross outliers" in stdout

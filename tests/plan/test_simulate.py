@@ -199,3 +199,33 @@ def test_bent_simulation_finds_the_air_wave_between_surface_nodes():
     survey = simulate_picks(_site(), nodes, _quiet(refine=1), rays="bent", executor=Executor(kind="serial"))
     distance = np.linalg.norm(np.asarray(xyz)[survey.rx] - np.asarray(xyz)[survey.tx], axis=1)
     np.testing.assert_allclose(survey.time_ns, distance / C_M_PER_NS, rtol=5e-3)
+
+
+# ------------------------------------------------------------ gross outliers
+
+def test_gross_errors_share_size_sign_and_seed():
+    from plan.simulate import gross_errors
+
+    times = np.random.default_rng(0).uniform(3.0, 300.0, 5000)
+    error = gross_errors(times, 0.02, 20.0, seed=9)
+    bad = error != 0
+    assert bad.sum() == 100  # round(0.02 * 5000), exactly
+    assert np.all((np.abs(error[bad]) >= 10.0) & (np.abs(error[bad]) <= 30.0))
+    assert np.all(times + error > 2.0)  # never at or before time-zero
+    assert 0.3 < np.mean(error[bad] < 0) < 0.7  # both signs
+    np.testing.assert_array_equal(error, gross_errors(times, 0.02, 20.0, seed=9))
+    assert not np.array_equal(error, gross_errors(times, 0.02, 20.0, seed=10))
+    assert not gross_errors(times, 0.0, 20.0, seed=9).any()
+
+
+def test_outliers_leave_the_other_picks_unchanged():
+    site = _site()
+    nodes = _nodes([[4, 5, 2], [4, 5, 8], [4, 5, 14], [16, 5, 2], [16, 5, 8], [16, 5, 14]])
+    noise = {"sigma_ns": 0.3, "clock_offset_sigma_ns": 1.0, "seed": 5}
+    clean = simulate_picks(site, nodes, parse_truth({"noise": noise, "refine": 1}), rays="straight")
+    dirty = simulate_picks(site, nodes, parse_truth({"noise": {**noise, "outlier_fraction": 0.1}, "refine": 1}),
+                           rays="straight")
+    assert dirty.outlier.sum() == 3  # round(0.1 * 30)
+    np.testing.assert_array_equal(dirty.time_ns[~dirty.outlier], clean.time_ns[~dirty.outlier])
+    np.testing.assert_allclose(dirty.time_ns - clean.time_ns, dirty.outlier_error_ns, atol=1e-12)
+    assert not clean.outlier.any()

@@ -297,3 +297,12 @@ def test_later_bodies_win_and_background_defaults_to_rock():
     assert v[5, 4, 3] == 0.06  # centre (5.5, 4.5, 3.5): inside both, the later (clay) wins
     assert v[3, 2, 1] == 0.033  # centre (3.5, 2.5, 1.5): only in the water box
     assert v[0, 0, 0] == 0.12  # rock velocity of the site
+
+
+def test_outlier_settings_are_read_and_checked():
+    truth = parse_truth({"noise": {"outlier_fraction": 0.02, "outlier_size_ns": 15}})
+    assert (truth.outlier_fraction, truth.outlier_size_ns) == (0.02, 15.0)
+    assert (parse_truth({}).outlier_fraction, parse_truth({}).outlier_size_ns) == (0.0, 20.0)
+    problems = _problems({"noise": {"outlier_fraction": 0.7, "outlier_size_ns": -1}})
+    assert any("noise.outlier_fraction must be at most 0.5" in p for p in problems)
+    assert any("noise.outlier_size_ns must be > 0" in p for p in problems)

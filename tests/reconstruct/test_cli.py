@@ -35,7 +35,7 @@ C_M_PER_NS = scipy.constants.c * 1e-9  # SI definition of c, 299 792 458 m/s
 
 GROUND_M = 18.0
 SHAPE = (20, 10, 20)
-OUTPUTS = ("velocity.vti", "residuals.csv", "time_zero.csv", "nodes_used.csv",
+OUTPUTS = ("velocity.vti", "residuals.csv", "rejected_picks.csv", "time_zero.csv", "nodes_used.csv",
            "excluded_picks.csv", "summary.json", "manifest.json")
 
 SITE_YAML = """\

@@ -188,13 +188,13 @@ def _cmd_voids(args) -> int:
     say = _progress_printer(args.quiet)
     if args.max_pictures < 0:
         raise InputError(f"--max-pictures must be >= 0 (got {args.max_pictures})")
-    void_options = VoidOptions(sigmas=args.sigmas)
+    void_options = VoidOptions(sigmas=args.sigmas, false_alarm=args.false_alarm)
     hazard_options = HazardOptions(specific_gravity=args.specific_gravity, dip_deg=args.dip,
                                    rock_mass_q=args.rock_mass_q)
     data = load_inversion_folder(args.folder, args.site)
     say(f"cube {data.grid.shape[0]} x {data.grid.shape[1]} x {data.grid.shape[2]} cells, site {data.site_path}")
     analysis, hazard = screen_folder(data, void_options, hazard_options)
-    parameters = {"sigmas": args.sigmas, "site": str(data.site_path), "pictures": not args.no_pictures,
+    parameters = {"sigmas": args.sigmas, "false_alarm": args.false_alarm, "site": str(data.site_path), "pictures": not args.no_pictures,
                   "max_pictures": args.max_pictures,
                   "hazard": {"specific_gravity": args.specific_gravity, "dip_deg": args.dip,
                              "rock_mass_q": args.rock_mass_q}}
@@ -204,7 +204,7 @@ def _cmd_voids(args) -> int:
     counts = content["counts"]
     print(f"site: {content['site']}")
     print(f"voids: {counts['voids']}, unresolved indications: {counts['unresolved_indications']} "
-          f"(threshold {args.sigmas:g} robust sigmas; see voids.json)")
+          f"(threshold {content['method']['sigmas']:.2f} robust sigmas; see voids.json)")
     for entry in content["hazard"]["ranked"][:5]:
         print(f"  {entry['rank']}. body {entry['id']} ({entry['status']}, confidence {entry['confidence']}): "
               f"{entry['reasons']}")
@@ -272,8 +272,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("folder", metavar="FOLDER", help="output folder of 'reconstruct invert'")
     p.add_argument("--site", default=None,
                    help="site description (YAML); default: the file recorded in FOLDER/manifest.json")
-    p.add_argument("--sigmas", type=float, default=3.0, metavar="K",
-                   help="detection threshold in robust standard deviations of the anomaly (default 3)")
+    p.add_argument("--sigmas", type=float, default=None, metavar="K",
+                   help="detection threshold in robust standard deviations of the anomaly (default: "
+                        "derived from --false-alarm and the number of resolution cells in the cube)")
+    p.add_argument("--false-alarm", type=float, default=0.05, metavar="P",
+                   help="chance that a cube of pure noise yields any body (default 0.05); sets the "
+                        "threshold unless --sigmas is given")
     p.add_argument("--specific-gravity", type=float, default=2.7, metavar="G",
                    help="specific gravity of the rock over the voids, t/m^3 (default 2.7)")
     p.add_argument("--dip", type=float, default=0.0, metavar="DEG",

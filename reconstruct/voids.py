@@ -17,7 +17,9 @@ Method
    of the anomaly over the cells crossed by rays (1.4826 times the median
    absolute deviation, the Gaussian-consistent scale); ``rms_ns / w`` is the
    slowness contrast whose delay across a body as wide as the resolution
-   ``w`` equals the RMS misfit of the picks; ``k`` is ``VoidOptions.sigmas``.
+   ``w`` equals the RMS misfit of the picks; ``k`` is chosen so that a cube
+   of pure noise of the same smoothness yields any body with a chance of
+   5 % (random-field theory, :func:`detection_sigmas`), or given by the user.
 4. **Resolution** ``w`` at each depth: the width of the first Fresnel zone
    (twice :func:`reconstruct.resolution.fresnel_half_width_m`) for the
    wavelength at the background velocity of the slab and the median
@@ -72,6 +74,9 @@ __all__ = [
     "VoidAnalysis",
     "depth_below_ground_m",
     "robust_background",
+    "smoothness_fwhm_cells",
+    "search_volume_resels",
+    "detection_sigmas",
     "find_voids",
     "VOID_TABLE_COLUMNS",
     "void_table_rows",
@@ -94,27 +99,131 @@ class VoidOptions:
 
     Parameters
     ----------
-    sigmas : float
-        Detection threshold in robust standard deviations of the anomaly
-        (default 3: fewer than 0.3 % of Gaussian noise cells exceed it;
-        common practice, no published source for the choice of 3).
+    sigmas : float or None
+        Detection threshold in robust standard deviations of the anomaly.
+        None (the default) derives it from ``false_alarm`` and the size of
+        the cube: see :func:`detection_sigmas`.
+    false_alarm : float
+        Chance, for a cube of pure noise, that any body at all is detected
+        (default 0.05, the conventional 5 % significance level).
     min_cells_for_resolution : float
         Smallest resolvable width in cells, whatever the Fresnel zone
         (default 2: one cell cannot show an edge; common practice, no
         published source).
     """
 
-    sigmas: float = 3.0
+    sigmas: float | None = None
+    false_alarm: float = 0.05
     min_cells_for_resolution: float = 2.0
 
     def __post_init__(self):
         problems = []
         for name in ("sigmas", "min_cells_for_resolution"):
             value = getattr(self, name)
+            if name == "sigmas" and value is None:
+                continue
             if not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
                 problems.append(f"{name} must be a number > 0 (got {value!r})")
+        fa = self.false_alarm
+        if not isinstance(fa, (int, float)) or not (0.0 < fa < 1.0):
+            problems.append(f"false_alarm must be between 0 and 1, exclusive (got {fa!r})")
         if problems:
             raise InputError(problems)
+
+
+def smoothness_fwhm_cells(anomaly, mask) -> np.ndarray:
+    """Smoothness of the anomaly field along x, y, z: FWHM in cells.
+
+    For a stationary Gaussian field whose autocorrelation is Gaussian, the
+    correlation of face neighbours is ``rho = 1 - var(D) / (2 var(a))`` with
+    ``D`` the difference between neighbours, and the FWHM of the equivalent
+    smoothing kernel is ``sqrt(-2 ln 2 / ln rho)``. Variances are taken
+    robustly (1.4826 MAD, squared) over pairs of cells both in ``mask`` so
+    that a void does not inflate them. Never less than one cell.
+
+    References
+    ----------
+    Forman, S. D., Cohen, J. D., Fitzgerald, M., Eddy, W. F., Mintun, M. A.,
+        & Noll, D. C. (1995). Improved assessment of significant activation
+        in functional magnetic resonance imaging (fMRI): use of a
+        cluster-size threshold. Magnetic Resonance in Medicine, 33(5), 636-647.
+    """
+    a = np.asarray(anomaly, dtype=float)
+    mask = np.asarray(mask, dtype=bool)
+    values = a[mask]
+    scale = MAD_TO_SIGMA * np.median(np.abs(values - np.median(values))) if values.size else 0.0
+    fwhm = np.ones(3)
+    if scale <= 0:
+        return fwhm
+    for axis in range(3):
+        lo = [slice(None)] * 3
+        hi = [slice(None)] * 3
+        lo[axis], hi[axis] = slice(0, -1), slice(1, None)
+        both = mask[tuple(lo)] & mask[tuple(hi)]
+        if both.sum() < 10:
+            continue
+        diff = (a[tuple(hi)] - a[tuple(lo)])[both]
+        diff_scale = MAD_TO_SIGMA * np.median(np.abs(diff - np.median(diff)))
+        rho = 1.0 - diff_scale**2 / (2.0 * scale**2)
+        if rho > 0.0:
+            fwhm[axis] = max(1.0, math.sqrt(-2.0 * math.log(2.0) / math.log(min(rho, 1.0 - 1e-12))))
+    return fwhm
+
+
+def search_volume_resels(mask, fwhm_cells) -> tuple:
+    """Resel counts ``(R0, R1, R2, R3)`` of the region ``mask`` for a field of smoothness ``fwhm_cells``.
+
+    ``R3`` is the volume of the region over the product of the FWHMs; ``R1``
+    and ``R2`` are those of its bounding box (edge lengths, face areas), the
+    box formulas of Worsley et al. (1996); ``R0 = 1``.
+    """
+    mask = np.asarray(mask, dtype=bool)
+    fwhm = np.asarray(fwhm_cells, dtype=float)
+    if not mask.any():
+        return (1.0, 0.0, 0.0, 0.0)
+    sides = np.array([np.ptp(np.nonzero(mask.any(axis=tuple(b for b in range(3) if b != a)))[0]) + 1
+                      for a in range(3)], dtype=float) / fwhm
+    r1 = float(sides.sum())
+    r2 = float(sides[0] * sides[1] + sides[1] * sides[2] + sides[0] * sides[2])
+    r3 = float(mask.sum() / fwhm.prod())
+    return (1.0, r1, r2, r3)
+
+
+def detection_sigmas(resels, false_alarm: float) -> float:
+    """Threshold in standard deviations at which pure noise yields any body with chance ``false_alarm``.
+
+    The expected Euler characteristic of the excursion set of a smooth
+    Gaussian field above ``u`` approximates the chance that any cluster
+    exceeds ``u``; for resel counts ``R0..R3`` it is
+    ``sum_d R_d rho_d(u)`` with
+
+    * ``rho_0 = 1 - Phi(u)``
+    * ``rho_1 = (4 ln 2)^(1/2) exp(-u^2/2) / (2 pi)``
+    * ``rho_2 = (4 ln 2) u exp(-u^2/2) / (2 pi)^(3/2)``
+    * ``rho_3 = (4 ln 2)^(3/2) (u^2 - 1) exp(-u^2/2) / (2 pi)^2``
+
+    Fast and slow bodies are both searched, so ``u`` solves
+    ``2 E[chi](u) = false_alarm``.
+
+    References
+    ----------
+    Worsley, K. J., Marrett, S., Neelin, P., Vandal, A. C., Friston, K. J., &
+        Evans, A. C. (1996). A unified statistical approach for determining
+        significant signals in images of cerebral activation. Human Brain
+        Mapping, 4(1), 58-73.
+    """
+    from scipy.optimize import brentq
+    from scipy.stats import norm
+
+    r0, r1, r2, r3 = (float(r) for r in resels)
+    c = 4.0 * math.log(2.0)
+
+    def expected_clusters(u):
+        e = math.exp(-u * u / 2.0)
+        return (r0 * norm.sf(u) + r1 * math.sqrt(c) * e / (2 * math.pi)
+                + r2 * c * u * e / (2 * math.pi) ** 1.5 + r3 * c**1.5 * (u * u - 1) * e / (2 * math.pi) ** 2)
+
+    return float(brentq(lambda u: 2.0 * expected_clusters(u) - false_alarm, 1.0, 40.0))
 
 
 @dataclass(frozen=True)
@@ -406,9 +515,13 @@ def find_voids(
                                                np.full(slab_bg.shape, float(path_length_m)))
     resolution = np.maximum(fresnel_width, floor_m)
     sigma_time = rms_ns / resolution
-    slab_threshold = options.sigmas * np.maximum(sigma_model, sigma_time)
-    depth = depth_below_ground_m(grid, surface_m)
-    slab = np.minimum(_slab_index(grid, depth), len(slab_bg) - 1)
+    slab_of_cell = np.minimum(_slab_index(grid, depth_below_ground_m(grid, surface_m)), len(slab_bg) - 1)
+    searched = covered if covered.any() else ground
+    fwhm = smoothness_fwhm_cells(np.nan_to_num(anomaly), searched)
+    resels = search_volume_resels(searched, fwhm)
+    sigmas = options.sigmas if options.sigmas is not None else detection_sigmas(resels, options.false_alarm)
+    slab_threshold = sigmas * np.maximum(sigma_model, sigma_time)
+    slab = slab_of_cell
     threshold = slab_threshold[slab]
 
     structure = ndimage.generate_binary_structure(3, 3)
@@ -487,7 +600,12 @@ def find_voids(
         for k in range(len(slab_bg))
     ]
     parameters = {
-        "sigmas": options.sigmas, "min_cells_for_resolution": options.min_cells_for_resolution,
+        "sigmas": sigmas, "sigmas_rule": ("given" if options.sigmas is not None else
+                                          "expected Euler characteristic of a smooth Gaussian field "
+                                          "(Worsley et al. 1996): 2 E[chi](u) = false_alarm"),
+        "false_alarm": options.false_alarm, "smoothness_fwhm_m": (fwhm * np.asarray(grid.cell_m)).tolist(),
+        "resels": list(resels),
+        "min_cells_for_resolution": options.min_cells_for_resolution,
         "sigma_model_ns_per_m": sigma_model, "rms_ns": float(rms_ns),
         "path_length_m": float(path_length_m), "frequency_mhz": float(frequency_mhz),
         "connectivity": "faces, edges and corners (26 neighbours)",

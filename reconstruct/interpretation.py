@@ -18,7 +18,9 @@ folder:
                                works) and plan and section slices per void
 ============================  ==================================================
 
-and appends the run to ``manifest.json``. Inputs are never modified.
+and appends the run to ``manifest.json``. Inputs are never modified; pictures
+of an earlier run that this run did not draw again are removed, so that no
+picture outlives its body.
 
 Finding the site
 ----------------
@@ -32,6 +34,7 @@ from __future__ import annotations
 import csv
 import json
 import math
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -216,6 +219,15 @@ def _csv_value(value):
     return value
 
 
+def _remove_stale_pictures(folder: Path, keep) -> None:
+    """Remove pictures an earlier run wrote that this run did not, so none outlives its body."""
+    if not folder.is_dir():
+        return
+    for path in folder.glob("*.png"):
+        if path not in keep and re.fullmatch(r"view_3d\.png|void_\d+_slices\.png", path.name):
+            path.unlink()
+
+
 def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: bool = True,
                        max_pictures: int = 20, parameters: dict, started: str, progress=None) -> dict:
     """Write the void outputs into the inversion folder; returns the content of ``voids.json``."""
@@ -260,23 +272,23 @@ def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: boo
                                        works=data.site.planned_works, title=data.site.name)
             written.append(path)
             picture_list.append({"file": "pictures/view_3d.png", "body_id": None,
-                                 "caption": "Oblique view from the south-east: ground surface (grey), "
-                                            "bodies, nodes and planned works"})
+                                 "caption": "Oblique view from above: ground surface (grey), bodies "
+                                            "(orange fast, blue slow), nodes (black), planned works "
+                                            "(purple)"})
         voids_only = [b for b in analysis.bodies if b.status == STATUS_VOID]
         for body in voids_only[:max_pictures]:
             say(f"slices through body {body.id}")
-            plan_png, section_png = render.slice_pictures(
-                data.grid, data.velocity_m_per_ns, data.ground, data.ray_count, analysis.labels,
-                data.surface_m, body)
-            for kind, png in (("plan", plan_png), ("section", section_png)):
-                path = out / "pictures" / f"void_{body.id}_{kind}.png"
-                render.write_png_atomic(path, png)
-                written.append(path)
-                picture_list.append({"file": f"pictures/void_{body.id}_{kind}.png", "body_id": body.id,
-                                     "caption": f"Body {body.id}, {kind}: velocity (cividis), body outline "
-                                                "(vermilion), cells without rays shaded grey"})
+            png = render.slice_pictures(data.grid, data.velocity_m_per_ns, data.ground, data.ray_count,
+                                        analysis.labels, data.surface_m, body)
+            name = f"pictures/void_{body.id}_slices.png"
+            written.append(render.write_png_atomic(out / name, png))
+            picture_list.append({"file": name, "body_id": body.id,
+                                 "caption": f"Body {body.id}: plan (top) and east-west section (bottom) "
+                                            "through its centroid; velocity (cividis), body outline "
+                                            "(vermilion), cells without rays shaded grey"})
         if len(voids_only) > max_pictures:
             rendering += f"; slices drawn for the first {max_pictures} of {len(voids_only)} voids"
+    _remove_stale_pictures(out / "pictures", {out / p["file"] for p in picture_list})
 
     ground_k = petro["relative_permittivity"][data.ground]
     theta = petro["water_content_topp"][data.ground]

@@ -242,12 +242,10 @@ def _scale_bar_length(extent_m: float) -> float:
     return float(power)
 
 
-def _slice_figure(values, covered, outline, extent, xlabel, ylabel, title, v_range, ground_line=None):
-    from matplotlib.figure import Figure
+def _draw_slice(figure, axes, values, covered, outline, extent, labels, v_range, ground_line=None):
     from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
-    figure = Figure(figsize=(7.0, 4.6))
-    axes = figure.add_subplot(1, 1, 1)
+    xlabel, ylabel, title = labels
     shown = np.ma.masked_invalid(values.T)
     image = axes.imshow(shown, origin="lower", extent=extent, cmap="cividis", vmin=v_range[0],
                         vmax=v_range[1], interpolation="nearest", aspect="equal")
@@ -258,10 +256,8 @@ def _slice_figure(values, covered, outline, extent, xlabel, ylabel, title, v_ran
         ny, nx = outline.T.shape
         xs = np.linspace(extent[0], extent[1], nx + 1)
         ys = np.linspace(extent[2], extent[3], ny + 1)
-        centres_x = 0.5 * (xs[:-1] + xs[1:])
-        centres_y = 0.5 * (ys[:-1] + ys[1:])
-        axes.contour(centres_x, centres_y, outline.T.astype(float), levels=[0.5], colors="#D55E00",
-                     linewidths=1.8)
+        axes.contour(0.5 * (xs[:-1] + xs[1:]), 0.5 * (ys[:-1] + ys[1:]), outline.T.astype(float),
+                     levels=[0.5], colors="#D55E00", linewidths=1.8)
     if ground_line is not None:
         axes.plot(*ground_line, color="black", linewidth=1.2)
     bar = _scale_bar_length(extent[1] - extent[0])
@@ -270,21 +266,19 @@ def _slice_figure(values, covered, outline, extent, xlabel, ylabel, title, v_ran
     axes.set_xlabel(xlabel)
     axes.set_ylabel(ylabel)
     axes.set_title(title, fontsize=10)
-    colorbar = figure.colorbar(image, ax=axes, shrink=0.85)
-    colorbar.set_label("velocity (m/ns)")
-    return figure
+    figure.colorbar(image, ax=axes, shrink=0.85).set_label("velocity (m/ns)")
 
 
-def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body):
+def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body) -> bytes:
     """PNG bytes of a plan slice and an east-west section through a body's centroid.
 
-    Velocity in ``cividis``; the body's outline in vermilion; cells crossed
-    by no ray shaded grey; air left blank; a scale bar in metres.
-
-    Returns
-    -------
-    (plan_png, section_png) : tuple of bytes
+    One picture, plan above section. Velocity in ``cividis``; the body's
+    outline in vermilion; cells crossed by no ray shaded grey; air left
+    blank; the ground surface as a black line on the section; a scale bar in
+    metres on each.
     """
+    from matplotlib.figure import Figure
+
     from .html_page import figure_png
 
     velocity = np.where(ground, np.asarray(velocity_m_per_ns, dtype=float), np.nan)
@@ -294,17 +288,18 @@ def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, sur
     v_range = (float(ground_v.min()), float(ground_v.max())) if ground_v.size else (0.0, 0.3)
     edges = [grid.edges_m(a) for a in range(3)]
     inside = labels == body.id
-    plan = _slice_figure(
-        velocity[:, :, iz], covered[:, :, iz], inside[:, :, iz],
-        (edges[0][0], edges[0][-1], edges[1][0], edges[1][-1]), "x east (m)", "y north (m)",
-        f"Body {body.id}: plan at z = {grid.centres_m(2)[iz]:.1f} m", v_range)
-    section = _slice_figure(
-        velocity[:, iy, :], covered[:, iy, :], inside[:, iy, :],
-        (edges[0][0], edges[0][-1], edges[2][0], edges[2][-1]), "x east (m)", "z elevation (m)",
-        f"Body {body.id}: section along x at y = {grid.centres_m(1)[iy]:.1f} m", v_range,
-        ground_line=(grid.centres_m(0), np.asarray(surface_m)[:, iy]))
-    return figure_png(plan), figure_png(section)
-
+    figure = Figure(figsize=(7.5, 7.5), layout="constrained")
+    plan_axes, section_axes = figure.subplots(2, 1)
+    _draw_slice(figure, plan_axes, velocity[:, :, iz], covered[:, :, iz], inside[:, :, iz],
+                (edges[0][0], edges[0][-1], edges[1][0], edges[1][-1]),
+                ("x east (m)", "y north (m)", f"Body {body.id}: plan at z = {grid.centres_m(2)[iz]:.1f} m"),
+                v_range)
+    _draw_slice(figure, section_axes, velocity[:, iy, :], covered[:, iy, :], inside[:, iy, :],
+                (edges[0][0], edges[0][-1], edges[2][0], edges[2][-1]),
+                ("x east (m)", "z elevation (m)",
+                 f"Body {body.id}: section along x at y = {grid.centres_m(1)[iy]:.1f} m"),
+                v_range, ground_line=(grid.centres_m(0), np.asarray(surface_m)[:, iy]))
+    return figure_png(figure)
 
 def save_mesh(path, mesh):
     """Write a mesh as VTK XML poly data (``.vtp``), binary, atomically. Returns the path."""

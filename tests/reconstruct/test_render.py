@@ -95,5 +95,5 @@ def test_without_a_backend_meshes_are_written_and_the_user_is_told(make_inversio
     assert "no off-screen OpenGL backend" in content["rendering"] and "libegl1" in content["rendering"]
     assert (folder / "voids.vtp").is_file() and not (folder / "pictures" / "view_3d.png").exists()
     # slices need no OpenGL and are still drawn
-    assert (folder / "pictures" / "void_1_plan.png").is_file()
+    assert (folder / "pictures" / "void_1_slices.png").is_file()
     assert "no off-screen OpenGL backend" in capsys.readouterr().out

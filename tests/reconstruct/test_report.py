@@ -42,7 +42,7 @@ def test_report_is_self_contained_escaped_and_cautious(make_inversion_folder, ca
     for source in parser.sources:
         assert base64.b64decode(source.split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n"
     pictures = json.loads((folder / "voids.json").read_text(encoding="utf-8"))["pictures"]
-    assert len(parser.sources) == len(pictures) >= 2  # plan and section of the void at least
+    assert len(parser.sources) == len(pictures) >= 2  # the 3D view and the slices of the void
     # cautions first, before any table
     first_table = page.index("<table")
     for caution in CAUTIONS:

@@ -56,7 +56,8 @@ from .petrophysics import SOIL_FIT_CAUTION, petrophysics_arrays
 from .site import Site, load_site
 from .voids import STATUS_VOID, VOID_TABLE_COLUMNS, VoidOptions, find_voids, void_table_rows
 
-__all__ = ["InversionFolder", "load_inversion_folder", "screen_folder", "write_void_outputs"]
+__all__ = ["InversionFolder", "load_inversion_folder", "screen_folder", "write_void_outputs",
+           "read_json_object"]
 
 _CUBE_ARRAYS = ("velocity_m_per_ns", "ray_length_m", "ray_count", "ground")
 
@@ -81,7 +82,8 @@ class InversionFolder:
     notes: tuple
 
 
-def _read_json(path: Path, hint: str) -> dict:
+def read_json_object(path: Path, hint: str) -> dict:
+    """A JSON object from a file of an output folder; ``hint`` tells the user how to fix a problem."""
     try:
         data = json.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
@@ -162,9 +164,9 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
     if not folder.is_dir():
         raise InputError(f"{folder}: not a folder; give the output folder of 'reconstruct invert'")
     hint = "give the output folder of 'reconstruct invert'"
-    summary = _read_json(folder / "summary.json", hint)
+    summary = read_json_object(folder / "summary.json", hint)
     manifest_path = folder / "manifest.json"
-    manifest = _read_json(manifest_path, hint) if manifest_path.is_file() else None
+    manifest = read_json_object(manifest_path, hint) if manifest_path.is_file() else None
     notes = []
     if site_path is None:
         site_file = _find_site(folder, manifest)

@@ -17,6 +17,7 @@ from pathlib import Path
 
 from .errors import InputError
 from .html_page import escape, html_document, png_img_html, table_html
+from .interpretation import read_json_object
 from .outputs import extend_manifest, utc_now_iso, write_text_atomic
 
 __all__ = ["build_report_html", "write_report"]
@@ -37,18 +38,6 @@ _HAZARD_COLUMNS = (
     ("thickness_m", "roof rock (m)"), ("span_m", "span across (m)"), ("scaled_span_m", "scaled span (m)"),
     ("critical_span_m", "critical span (m)"), ("reasons", "plain-language reasons"),
 )
-
-
-def _load(path: Path, hint: str) -> dict:
-    try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(f"{path}: file not found; {hint}") from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as error:
-        raise InputError(f"{path}: cannot be read as JSON ({error}); {hint}") from None
-    if not isinstance(data, dict):
-        raise InputError(f"{path}: expected a JSON object; {hint}")
-    return data
 
 
 def _value(row: dict, key: str):
@@ -108,9 +97,9 @@ def build_report_html(folder) -> str:
     folder = Path(folder)
     if not folder.is_dir():
         raise InputError(f"{folder}: not a folder; give the output folder of 'reconstruct invert'")
-    summary = _load(folder / "summary.json", "give the output folder of 'reconstruct invert'")
-    voids = _load(folder / "voids.json", f"run 'reconstruct voids {folder}' first")
-    manifest = _load(folder / "manifest.json", "give the output folder of 'reconstruct invert'")
+    summary = read_json_object(folder / "summary.json", "give the output folder of 'reconstruct invert'")
+    voids = read_json_object(folder / "voids.json", f"run 'reconstruct voids {folder}' first")
+    manifest = read_json_object(folder / "manifest.json", "give the output folder of 'reconstruct invert'")
     counts = voids.get("counts", {})
     parts = [
         f"<p><b>Site:</b> {escape(voids.get('site', summary.get('site', '-')))}<br>"

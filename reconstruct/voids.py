@@ -414,10 +414,11 @@ def _work_relations(grid: Grid, cells_ijk, tops, works_points):
         if d < standoff:
             nearest, standoff = name, d
         col = np.floor((points[:, :2] - np.asarray(grid.origin_m[:2])) / cell[:2]).astype(int)
-        for (cx, cy), z in zip(col.tolist(), points[:, 2].tolist()):
-            top = tops.get((cx, cy))
-            if top is not None and z - top < below:
-                below_name, below = name, z - top
+        over = np.array([tops.get(key, np.nan) for key in map(tuple, col.tolist())], dtype=float)
+        if np.isfinite(over).any():
+            rock = float(np.nanmin(points[:, 2] - over))
+            if rock < below:
+                below_name, below = name, rock
     return nearest, standoff, below_name, below
 
 

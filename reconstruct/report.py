@@ -23,12 +23,11 @@ from .outputs import extend_manifest, utc_now_iso, write_text_atomic
 __all__ = ["build_report_html", "write_report"]
 
 _VOID_COLUMNS = (
-    ("id", "id"), ("status", "status"), ("fill", "fill"), ("volume_m3", "volume (m^3)"),
+    ("id", "id"), ("fill", "fill"), ("volume_m3", "volume (m^3)"),
     ("centroid_x_m", "x (m)"), ("centroid_y_m", "y (m)"), ("centroid_z_m", "z (m)"),
-    ("roof_elevation_m", "roof elevation (m)"), ("roof_depth_m", "roof depth (m)"),
-    ("roof_to_ground_m", "rock to ground (m)"), ("roof_below_work_m", "rock to planned work above (m)"),
-    ("nearest_work", "nearest planned work"), ("standoff_to_work_m", "stand-off (m)"),
-    ("largest_span_m", "largest span (m)"), ("mean_velocity_m_per_ns", "mean v (m/ns)"),
+    ("roof_depth_m", "roof depth (m)"), ("roof_to_ground_m", "rock to ground (m)"),
+    ("roof_below_work_m", "rock to work above (m)"), ("nearest_work", "nearest planned work"),
+    ("standoff_to_work_m", "stand-off (m)"), ("largest_span_m", "largest span (m)"),
     ("extreme_velocity_m_per_ns", "extreme v (m/ns)"), ("ray_covered_fraction", "cells with rays"),
     ("confidence", "confidence"), ("confidence_reason", "why"),
 )
@@ -45,6 +44,13 @@ def _value(row: dict, key: str):
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "-"
     return value
+
+
+def _text(value) -> str:
+    """A value for a text cell: numbers with four significant digits."""
+    if isinstance(value, float):
+        return f"{value:.4g}"
+    return str(value)
 
 
 def _rows(records, columns):
@@ -64,10 +70,10 @@ def _quality_section(summary: dict, voids: dict) -> str:
         ["picks excluded", _value(picks, "excluded")],
         ["RMS misfit (ns)", _value(misfit, "rms_ns")],
         ["chi-square per pick (near 1 when sigmas are right)", "-" if chi is None else chi],
-        ["smoothing lambda and how it was chosen", f"{_value(lam, 'smoothing')} ({_value(lam, 'method')})"],
+        ["smoothing lambda and how it was chosen", f"{_text(_value(lam, 'smoothing'))} ({_value(lam, 'method')})"],
         ["ground cells crossed by rays", _value(coverage, "fraction_of_ground_with_rays")],
         ["ground velocity min / median / max (m/ns)",
-         " / ".join(str(_value(velocity, k)) for k in ("ground_min", "ground_median", "ground_max"))],
+         " / ".join(_text(_value(velocity, k)) for k in ("ground_min", "ground_median", "ground_max"))],
         ["cells clipped at the velocity band", f"{_value(velocity, 'cells_clipped_at_min')} slow, "
                                                f"{_value(velocity, 'cells_clipped_at_max')} fast"],
         ["detection threshold rule", _value(method, "threshold_rule")],
@@ -104,21 +110,27 @@ def build_report_html(folder) -> str:
     parts = [
         f"<p><b>Site:</b> {escape(voids.get('site', summary.get('site', '-')))}<br>"
         f"<b>Folder:</b> {escape(folder)}<br><b>Written:</b> {escape(utc_now_iso())}</p>",
-        "<h2>Further cautions for this report</h2><ul>"
-        + "".join(f"<li>{escape(text)}</li>" for text in voids.get("cautions", [])[-2:]) + "</ul>",
         f"<h2>Summary</h2><p>{int(counts.get('voids', 0))} void(s) and "
         f"{int(counts.get('unresolved_indications', 0))} unresolved indication(s) (bodies smaller than the "
         "resolution at their depth). A void here is a body of cells whose velocity departs from the "
         "background by more than the threshold; it is a place to drill, not a proven cavity.</p>",
     ]
     hazard = voids.get("hazard", {})
+    ranked = hazard.get("ranked", [])
+    labels = [label for _, label in _HAZARD_COLUMNS]
     parts.append("<h2>Screening: which to check first</h2>"
                  f"<p>{escape(hazard.get('note', ''))}</p>"
-                 + table_html([label for _, label in _HAZARD_COLUMNS],
-                              _rows(hazard.get("ranked", []), _HAZARD_COLUMNS), float_format=".3g"))
-    parts.append("<h2>Void table</h2><p>Full table with bounding boxes and more columns: voids.csv.</p>"
+                 + table_html(labels, _rows([r for r in ranked if r.get("status") == "void"], _HAZARD_COLUMNS),
+                              float_format=".3g", caption="Voids")
+                 + "<p>Unresolved indications: smaller than the resolution at their depth, so their size "
+                   "and contrast are not known; those near planned works still deserve a probe hole.</p>"
+                 + table_html(labels, _rows([r for r in ranked if r.get("status") != "void"], _HAZARD_COLUMNS),
+                              float_format=".3g", caption="Unresolved indications"))
+    parts.append("<h2>Void table</h2><p>Voids only; every body, with bounding boxes and more columns, "
+                 "is in voids.csv.</p>"
                  + table_html([label for _, label in _VOID_COLUMNS],
-                              _rows(voids.get("bodies", []), _VOID_COLUMNS), float_format=".3g"))
+                              _rows([b for b in voids.get("bodies", []) if b.get("status") == "void"],
+                                    _VOID_COLUMNS), float_format=".3g"))
     pictures = []
     for picture in voids.get("pictures", []):
         path = folder / str(picture.get("file", ""))

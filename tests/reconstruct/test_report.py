@@ -49,7 +49,7 @@ def test_report_is_self_contained_escaped_and_cautious(make_inversion_folder, ca
         assert 0 < page.index(caution.split(";")[0].replace("'", "&#x27;")) < first_table
     assert "probe drilling" in page[:first_table] and "not a design" in page[:first_table]
     assert "Void table" in page and "Data quality and resolution" in page and "Manifest" in page
-    assert re.search(r"<td>1</td><td class=\"text\">void</td>", page)
+    assert re.search(r"<td>1</td><td class=\"text\">air-filled \(fast\)</td>", page)  # void table row
     manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
     assert [r["command"] for r in manifest["later_runs"]] == ["reconstruct voids", "reconstruct report"]
 

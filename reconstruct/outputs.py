@@ -16,6 +16,7 @@ import os
 import platform
 import secrets
 import sys
+import warnings
 from contextlib import contextmanager
 from datetime import datetime, timezone
 from importlib import metadata
@@ -178,19 +179,32 @@ def read_cell_arrays_vti(path, names):
     if not path.is_file():
         raise InputError(f"{path}: file not found; run 'reconstruct invert' to write it, "
                          "or give the folder that holds it")
+    from vtkmodules.vtkCommonCore import vtkObject
+
+    # a damaged file makes VTK log pages of errors and return an empty image;
+    # silence them here: the checks below give the user one clear line
+    shown = vtkObject.GetGlobalWarningDisplay()
+    vtkObject.GlobalWarningDisplayOff()
     try:
-        image = pyvista.read(str(path))
+        with pyvista.vtk_verbosity("off"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            image = pyvista.read(str(path))
     except Exception as error:  # VTK raises assorted types for damaged files
         raise InputError(f"{path}: cannot be read as VTK image data ({error}); "
                          "write it again with 'reconstruct invert'") from None
+    finally:
+        vtkObject.SetGlobalWarningDisplay(shown)
     if not isinstance(image, pyvista.ImageData):
         raise InputError(f"{path}: holds {type(image).__name__}, not VTK image data; "
                          "give the velocity.vti written by 'reconstruct invert'")
     shape = tuple(int(n) - 1 for n in image.dimensions)
+    if min(shape) < 1:
+        raise InputError(f"{path}: damaged or not VTK image data (no cells could be read); "
+                         "write it again with 'reconstruct invert'")
     missing = [n for n in names if n not in image.cell_data]
-    if missing or min(shape) < 1:
-        raise InputError(f"{path}: cell array(s) {', '.join(missing) or '(none: no cells)'} missing; "
-                         "this is not a cube written by 'reconstruct invert', write it again")
+    if missing:
+        raise InputError(f"{path}: cell array(s) {', '.join(missing)} missing; this is not a cube "
+                         "written by 'reconstruct invert', write it again")
     grid = Grid(tuple(image.origin), tuple(image.spacing), shape)
     arrays = {n: np.asarray(image.cell_data[n]).reshape(shape, order="F").copy() for n in names}
     return grid, arrays

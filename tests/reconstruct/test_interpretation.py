@@ -95,22 +95,26 @@ def test_site_found_relative_to_the_folder_and_refused_when_changed(make_inversi
     assert data.notes and "differs from the one recorded" in data.notes[0]
 
 
-def test_user_errors_are_one_clear_line(make_inversion_folder, tmp_path, capsys):
+def test_user_errors_are_one_clear_line(make_inversion_folder, tmp_path, capfd):
     folder, site = make_inversion_folder()
     assert main(["voids", str(tmp_path / "nowhere")]) == 2
-    assert "not a folder" in capsys.readouterr().err
+    assert "not a folder" in capfd.readouterr().err
     (folder / "summary.json").write_text("{ not json", encoding="utf-8")
     assert main(["voids", str(folder)]) == 2
-    err = capsys.readouterr().err
+    err = capfd.readouterr().err
     assert "summary.json: cannot be read as JSON" in err and "Traceback" not in err
     other = tmp_path / "other.yaml"
     other.write_text(site.read_text(encoding="utf-8").replace("size_m: [30, 20, 25]", "size_m: [30, 20, 24]"),
                      encoding="utf-8")
     (folder / "summary.json").write_text(json.dumps({"misfit": {"rms_ns": 0.5}}), encoding="utf-8")
     assert main(["voids", str(folder), "--site", str(other)]) == 2
-    assert "differs from the cube" in capsys.readouterr().err
+    assert "differs from the cube" in capfd.readouterr().err
     assert main(["voids", str(folder), "--sigmas", "-2"]) == 2
-    assert "sigmas must be a number > 0" in capsys.readouterr().err
+    assert "sigmas must be a number > 0" in capfd.readouterr().err
+    (folder / "velocity.vti").write_bytes((folder / "velocity.vti").read_bytes()[:300])  # cut short
+    assert main(["voids", str(folder)]) == 2
+    err = capfd.readouterr().err
+    assert "velocity.vti: damaged or not VTK image data" in err and "ERR" not in err
     (folder / "velocity.vti").unlink()
     assert main(["voids", str(folder)]) == 2
-    assert "velocity.vti: file not found" in capsys.readouterr().err
+    assert "velocity.vti: file not found" in capfd.readouterr().err

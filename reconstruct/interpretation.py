@@ -22,6 +22,16 @@ and appends the run to ``manifest.json``. Inputs are never modified; pictures
 of an earlier run that this run did not draw again are removed, so that no
 picture outlives its body.
 
+Bad input
+---------
+Every problem below raises :class:`~reconstruct.errors.InputError` naming
+the file and the fix (the README lists the same decisions): FOLDER missing;
+``velocity.vti``, ``summary.json`` or ``residuals.csv`` missing, damaged or
+lacking a needed array or key; ground cells with NaN, infinite or
+non-positive velocity; the site not found, changed since the inversion, or
+with a grid other than the cube's. A ``--site`` that differs from the file
+recorded in the manifest is used and noted in ``voids.json``.
+
 Finding the site
 ----------------
 ``--site`` wins. Otherwise the path recorded under ``inputs.site`` in

@@ -191,6 +191,10 @@ def _cmd_voids(args) -> int:
     void_options = VoidOptions(sigmas=args.sigmas, false_alarm=args.false_alarm)
     hazard_options = HazardOptions(specific_gravity=args.specific_gravity, dip_deg=args.dip,
                                    rock_mass_q=args.rock_mass_q)
+    if not args.no_pictures:
+        from .render import start_offscreen_probe
+
+        start_offscreen_probe()  # runs while the cube is read and searched
     data = load_inversion_folder(args.folder, args.site)
     say(f"cube {data.grid.shape[0]} x {data.grid.shape[1]} x {data.grid.shape[2]} cells, site {data.site_path}")
     analysis, hazard = screen_folder(data, void_options, hazard_options)

@@ -42,6 +42,7 @@ __all__ = [
     "FAST_COLOUR",
     "SLOW_COLOUR",
     "probe_offscreen_backend",
+    "start_offscreen_probe",
     "void_surfaces",
     "ground_surface",
     "render_oblique_view",
@@ -68,6 +69,36 @@ print("ok")
 _BACKENDS = ("vtkEGLRenderWindow", "vtkOSOpenGLRenderWindow", "vtkXOpenGLRenderWindow")
 
 
+_started_probes: dict = {}
+
+
+def _candidate_backends() -> list:
+    preset = os.environ.get("VTK_DEFAULT_OPENGL_WINDOW")
+    candidates = ([preset] if preset else []) + [b for b in _BACKENDS if b != preset]
+    if not os.environ.get("DISPLAY"):
+        candidates = [b for b in candidates if b != "vtkXOpenGLRenderWindow" or b == preset]
+    return candidates
+
+
+def _launch_probe(backend: str):
+    env = dict(os.environ, VTK_DEFAULT_OPENGL_WINDOW=backend)
+    return subprocess.Popen([sys.executable, "-c", _PROBE], env=env, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, stdin=subprocess.DEVNULL, text=True)
+
+
+def start_offscreen_probe() -> None:
+    """Start probing the first candidate backend in the background; returns at once.
+
+    Lets the probe (a few seconds, mostly waiting for the OpenGL driver) run
+    while the caller computes; :func:`probe_offscreen_backend` collects it.
+    """
+    if probe_offscreen_backend.cache_info().currsize:
+        return
+    candidates = _candidate_backends()
+    if candidates and candidates[0] not in _started_probes:
+        _started_probes[candidates[0]] = _launch_probe(candidates[0])
+
+
 @functools.lru_cache(maxsize=1)
 def probe_offscreen_backend(timeout_s: float = 120.0):
     """Find an OpenGL backend that renders off-screen here, testing each in a subprocess.
@@ -80,23 +111,20 @@ def probe_offscreen_backend(timeout_s: float = 120.0):
     message : str
         What was found, for the user.
     """
-    preset = os.environ.get("VTK_DEFAULT_OPENGL_WINDOW")
-    candidates = ([preset] if preset else []) + [b for b in _BACKENDS if b != preset]
-    if not os.environ.get("DISPLAY"):
-        candidates = [b for b in candidates if b != "vtkXOpenGLRenderWindow" or b == preset]
     failures = []
-    for backend in candidates:
-        env = dict(os.environ, VTK_DEFAULT_OPENGL_WINDOW=backend)
+    for backend in _candidate_backends():
+        process = _started_probes.pop(backend, None) or _launch_probe(backend)
         try:
-            done = subprocess.run([sys.executable, "-c", _PROBE], env=env, capture_output=True,
-                                  text=True, timeout=timeout_s)
+            stdout, _ = process.communicate(timeout=timeout_s)
         except subprocess.TimeoutExpired:
+            process.kill()
+            process.communicate()
             failures.append(f"{backend}: no answer within {timeout_s:.0f} s")
             continue
-        if done.returncode == 0 and done.stdout.strip().endswith("ok"):
+        if process.returncode == 0 and stdout.strip().endswith("ok"):
             os.environ["VTK_DEFAULT_OPENGL_WINDOW"] = backend
             return backend, f"off-screen rendering through {backend}"
-        failures.append(f"{backend}: exit code {done.returncode}")
+        failures.append(f"{backend}: exit code {process.returncode}")
     return None, (
         "no off-screen OpenGL backend works on this machine (" + "; ".join(failures) + "); "
         "the meshes are written but the 3D picture is not. On Debian or Ubuntu install "

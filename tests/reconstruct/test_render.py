@@ -86,6 +86,7 @@ def test_offscreen_picture_has_the_stated_size_and_several_colours(tmp_path):
 def test_without_a_backend_meshes_are_written_and_the_user_is_told(make_inversion_folder, monkeypatch, capsys):
     folder, _ = make_inversion_folder()
     monkeypatch.setattr(render, "_PROBE", "import sys; sys.exit(7)")  # as a crashing VTK would
+    monkeypatch.setattr(render, "_started_probes", {})
     render.probe_offscreen_backend.cache_clear()
     try:
         assert main(["voids", str(folder), "--quiet"]) == 0

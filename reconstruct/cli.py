@@ -278,7 +278,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="site description (YAML); default: the file recorded in FOLDER/manifest.json")
     p.add_argument("--sigmas", type=float, default=None, metavar="K",
                    help="detection threshold in robust standard deviations of the anomaly (default: "
-                        "derived from --false-alarm and the number of resolution cells in the cube)")
+                        "derived from --false-alarm and the smoothness and size of the cube)")
     p.add_argument("--false-alarm", type=float, default=0.05, metavar="P",
                    help="chance that a cube of pure noise yields any body (default 0.05); sets the "
                         "threshold unless --sigmas is given")

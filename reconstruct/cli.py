@@ -272,6 +272,57 @@ def _cmd_check(args) -> int:
     return 0
 
 
+def _cmd_voids(args) -> int:
+    from .hazard import HazardOptions
+    from .interpretation import load_inversion_folder, screen_folder, write_void_outputs
+    from .outputs import utc_now_iso
+    from .voids import VoidOptions
+
+    started = utc_now_iso()
+    say = _progress_printer(args.quiet)
+    if args.max_pictures < 0:
+        raise InputError(f"--max-pictures must be >= 0 (got {args.max_pictures})")
+    void_options = VoidOptions(sigmas=args.sigmas, false_alarm=args.false_alarm)
+    hazard_options = HazardOptions(specific_gravity=args.specific_gravity, dip_deg=args.dip,
+                                   rock_mass_q=args.rock_mass_q)
+    if not args.no_pictures:
+        from .render import start_offscreen_probe
+
+        start_offscreen_probe()  # runs while the cube is read and searched
+    data = load_inversion_folder(args.folder, args.site)
+    say(f"cube {data.grid.shape[0]} x {data.grid.shape[1]} x {data.grid.shape[2]} cells, site {data.site_path}")
+    analysis, hazard = screen_folder(data, void_options, hazard_options)
+    parameters = {"sigmas": args.sigmas, "false_alarm": args.false_alarm, "site": str(data.site_path), "pictures": not args.no_pictures,
+                  "max_pictures": args.max_pictures,
+                  "hazard": {"specific_gravity": args.specific_gravity, "dip_deg": args.dip,
+                             "rock_mass_q": args.rock_mass_q}}
+    content = write_void_outputs(data, analysis, hazard, pictures=not args.no_pictures,
+                                 max_pictures=args.max_pictures, parameters=parameters, started=started,
+                                 progress=say)
+    counts = content["counts"]
+    print(f"site: {content['site']}")
+    print(f"voids: {counts['voids']}, unresolved indications: {counts['unresolved_indications']} "
+          f"(threshold {content['method']['sigmas']:.2f} robust sigmas; see voids.json)")
+    for entry in content["hazard"]["ranked"][:5]:
+        print(f"  {entry['rank']}. body {entry['id']} ({entry['status']}, confidence {entry['confidence']}): "
+              f"{entry['reasons']}")
+    print(f"pictures: {content['rendering']}")
+    print(f"output: {Path(args.folder)} (voids.csv, voids.json, hazard.csv, interpretation.vti, voids.vtp, "
+          "ground.vtp, pictures/)")
+    print("screening aid, not a design: confirm by probe drilling; a null result does not prove no void")
+    return 0
+
+
+def _cmd_report(args) -> int:
+    from .outputs import utc_now_iso
+    from .report import write_report
+
+    started = utc_now_iso()
+    path = write_report(args.folder, started=started)
+    print(f"report: {path}")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="reconstruct",
@@ -322,6 +373,43 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--snap-tolerance", type=float, default=None, metavar="M",
                    help="largest allowed snap onto the ground, metres")
     p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser(
+        "voids", help="find void bodies in an inversion folder, screen them, write meshes and pictures",
+        description="Find void bodies in the velocity cube of an inversion folder (robust background per "
+                    "depth slab, threshold from the misfit and the resolution), rank them by roof "
+                    "thickness, span and stand-off from planned works, and write voids.csv, voids.json, "
+                    "hazard.csv, interpretation.vti, voids.vtp, ground.vtp and pictures/ into FOLDER. "
+                    "A screening aid, not a design.",
+        epilog=_EPILOG_UNITS)
+    p.add_argument("folder", metavar="FOLDER", help="output folder of 'reconstruct invert'")
+    p.add_argument("--site", default=None,
+                   help="site description (YAML); default: the file recorded in FOLDER/manifest.json")
+    p.add_argument("--sigmas", type=float, default=None, metavar="K",
+                   help="detection threshold in robust standard deviations of the anomaly (default: "
+                        "derived from --false-alarm and the smoothness and size of the cube)")
+    p.add_argument("--false-alarm", type=float, default=0.05, metavar="P",
+                   help="chance that a cube of pure noise yields any body (default 0.05); sets the "
+                        "threshold unless --sigmas is given")
+    p.add_argument("--specific-gravity", type=float, default=2.7, metavar="G",
+                   help="specific gravity of the rock over the voids, t/m^3 (default 2.7)")
+    p.add_argument("--dip", type=float, default=0.0, metavar="DEG",
+                   help="dip of the void walls for the scaled span, degrees (default 0, the cautious value)")
+    p.add_argument("--rock-mass-q", type=float, default=None, metavar="Q",
+                   help="rock mass quality Q of the crown; when given, the critical span is compared")
+    p.add_argument("--no-pictures", action="store_true", help="write tables and meshes but no PNG pictures")
+    p.add_argument("--max-pictures", type=int, default=20, metavar="N",
+                   help="draw plan and section slices for at most N voids (default 20)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    p.set_defaults(func=_cmd_voids)
+
+    p = sub.add_parser(
+        "report", help="write report.html: cautions, void table, screening, pictures, data quality",
+        description="Write one self-contained HTML report (pictures embedded, no network) into FOLDER "
+                    "from the outputs of 'reconstruct invert' and 'reconstruct voids'.",
+        epilog=_EPILOG_UNITS)
+    p.add_argument("folder", metavar="FOLDER", help="output folder of 'reconstruct invert' and 'reconstruct voids'")
+    p.set_defaults(func=_cmd_report)
     return parser
 
 

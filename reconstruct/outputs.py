@@ -16,6 +16,7 @@ import os
 import platform
 import secrets
 import sys
+import warnings
 from contextlib import contextmanager
 from datetime import datetime, timezone
 from importlib import metadata
@@ -29,10 +30,12 @@ __all__ = [
     "write_json_atomic",
     "write_csv_atomic",
     "write_cell_arrays_vti",
+    "read_cell_arrays_vti",
     "write_rays_vtp",
     "sha256_of_file",
     "package_versions",
     "build_manifest",
+    "extend_manifest",
     "utc_now_iso",
     "make_output_folder",
 ]
@@ -161,6 +164,66 @@ def write_cell_arrays_vti(path, grid, cell_arrays: dict) -> Path:
     return Path(path)
 
 
+def read_cell_arrays_vti(path, names):
+    """Read cell arrays written by :func:`write_cell_arrays_vti`.
+
+    Parameters
+    ----------
+    path : path-like
+        A ``.vti`` file.
+    names : sequence of str
+        Cell arrays to return.
+
+    Returns
+    -------
+    grid : reconstruct.grid.Grid
+    arrays : dict of str -> ndarray of shape grid.shape, indexed [ix, iy, iz]
+
+    Raises
+    ------
+    InputError
+        The file is missing or unreadable, or lacks one of the arrays.
+    """
+    import pyvista  # imported here only: the numerical core never needs it
+
+    from .errors import InputError
+    from .grid import Grid
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"{path}: file not found; run 'reconstruct invert' to write it, "
+                         "or give the folder that holds it")
+    from vtkmodules.vtkCommonCore import vtkObject
+
+    # a damaged file makes VTK log pages of errors and return an empty image;
+    # silence them here: the checks below give the user one clear line
+    shown = vtkObject.GetGlobalWarningDisplay()
+    vtkObject.GlobalWarningDisplayOff()
+    try:
+        with pyvista.vtk_verbosity("off"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            image = pyvista.read(str(path))
+    except Exception as error:  # VTK raises assorted types for damaged files
+        raise InputError(f"{path}: cannot be read as VTK image data ({error}); "
+                         "write it again with 'reconstruct invert'") from None
+    finally:
+        vtkObject.SetGlobalWarningDisplay(shown)
+    if not isinstance(image, pyvista.ImageData):
+        raise InputError(f"{path}: holds {type(image).__name__}, not VTK image data; "
+                         "give the velocity.vti written by 'reconstruct invert'")
+    shape = tuple(int(n) - 1 for n in image.dimensions)
+    if min(shape) < 1:
+        raise InputError(f"{path}: damaged or not VTK image data (no cells could be read); "
+                         "write it again with 'reconstruct invert'")
+    missing = [n for n in names if n not in image.cell_data]
+    if missing:
+        raise InputError(f"{path}: cell array(s) {', '.join(missing)} missing; this is not a cube "
+                         "written by 'reconstruct invert', write it again")
+    grid = Grid(tuple(image.origin), tuple(image.spacing), shape)
+    arrays = {n: np.asarray(image.cell_data[n]).reshape(shape, order="F").copy() for n in names}
+    return grid, arrays
+
+
 def _string_array(name, values):
     """A VTK string array (UTF-8), built directly: pyvista's own conversion
     refuses non-ASCII text, and node ids may be any UTF-8 text."""
@@ -279,3 +342,31 @@ def build_manifest(*, command, inputs: dict, parameters: dict, outputs, started:
         "versions": package_versions(),
         "outputs": sorted(str(o) for o in outputs),
     }
+
+
+def extend_manifest(folder, *, command, inputs: dict, parameters: dict, outputs, started: str) -> Path:
+    """Record a later run on an existing output folder in its ``manifest.json``.
+
+    The manifest of the run that made the folder is kept as it is; this run
+    is appended to its ``later_runs`` list (inputs with SHA-256, parameters,
+    versions, times, outputs) and its outputs are added to ``outputs``. A
+    folder without a readable manifest gets a new one for this run alone.
+    Written atomically.
+    """
+    folder = Path(folder)
+    path = folder / "manifest.json"
+    entry = build_manifest(command=command, inputs=inputs, parameters=parameters, outputs=outputs,
+                           started=started, finished=utc_now_iso())
+    try:
+        manifest = json.loads(path.read_text(encoding="utf-8"))
+        if not isinstance(manifest, dict):
+            raise ValueError("not an object")
+    except (OSError, ValueError):
+        manifest = dict(entry, outputs=sorted(set(entry["outputs"]) | {"manifest.json"}))
+        write_json_atomic(path, manifest)
+        return path
+    runs = [run for run in manifest.get("later_runs", []) if isinstance(run, dict)]
+    manifest["later_runs"] = runs + [entry]
+    manifest["outputs"] = sorted(set(manifest.get("outputs", [])) | set(entry["outputs"]))
+    write_json_atomic(path, manifest)
+    return path

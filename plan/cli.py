@@ -61,6 +61,10 @@ def _cmd_simulate(args) -> int:
         if not args.quiet:
             print(f"[{time.perf_counter() - start:7.1f} s] {message}", file=sys.stderr, flush=True)
 
+    if not (np.isfinite(args.fade_sigma) and args.fade_sigma >= 0):
+        raise InputError(f"--fade-sigma must be a number >= 0 in dB (got {args.fade_sigma:g})")
+    if args.fade_sigma and not args.link_budget:
+        raise InputError("--fade-sigma needs --link-budget; add it or drop --fade-sigma")
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
     truth = load_truth(args.truth)
@@ -75,15 +79,11 @@ def _cmd_simulate(args) -> int:
         from .link_budget import antenna_axes, link_budget_for_site, pair_links
         from .simulate import drop_missed_picks
 
-        if not (np.isfinite(args.fade_sigma) and args.fade_sigma >= 0):
-            raise InputError(f"--fade-sigma must be a number >= 0 in dB (got {args.fade_sigma:g})")
         links = pair_links(site, link_budget_for_site(site), nodes.xyz_m, antenna_axes(site, nodes),
                            survey.tx, survey.rx)
         survey, missed = drop_missed_picks(survey, links.margin_db, fade_sigma_db=args.fade_sigma,
                                            seed=truth.seed)
         missed_note = f"; {int(missed.sum())} picks missed below the link budget"
-    elif args.fade_sigma:
-        raise InputError("--fade-sigma needs --link-budget; add it or drop --fade-sigma")
     if survey.tx.size == 0:
         raise InputError(
             f"no transmitter-receiver pair to simulate ({len(nodes)} nodes"

@@ -11,7 +11,7 @@ import time
 from pathlib import Path
 
 from reconstruct import __version__
-from reconstruct.cli import run_command
+from reconstruct.cli import _progress_printer, run_command
 from reconstruct.errors import InputError
 
 __all__ = ["main"]
@@ -106,16 +106,6 @@ def _cmd_simulate(args) -> int:
 
 # --------------------------------------------------------------------------
 # survey design: layout, pairs, mesh, schedule
-
-
-def _progress(quiet: bool):
-    start = time.perf_counter()
-
-    def say(message):
-        if not quiet:
-            print(f"[{time.perf_counter() - start:7.1f} s] {message}", file=sys.stderr, flush=True)
-
-    return say
 
 
 def _write_manifest(out: Path, command: str, inputs: dict, args, written, started: str) -> None:
@@ -253,7 +243,7 @@ def _start(args):
 
 def _cmd_layout(args) -> int:
     started, site, out = _start(args)
-    written, _ = _run_layout(site, args, out, _progress(args.quiet))
+    written, _ = _run_layout(site, args, out, _progress_printer(args.quiet))
     _write_manifest(out, "plan layout", {"site": args.site}, args, written, started)
     print(f"output: {out}")
     return 0
@@ -263,7 +253,7 @@ def _cmd_pairs(args) -> int:
     from reconstruct.tables import read_nodes
 
     started, site, out = _start(args)
-    _, written = _run_pairs(site, read_nodes(args.nodes), args, out, _progress(args.quiet))
+    _, written = _run_pairs(site, read_nodes(args.nodes), args, out, _progress_printer(args.quiet))
     _write_manifest(out, "plan pairs", {"site": args.site, "nodes": args.nodes}, args, written, started)
     print(f"output: {out}")
     return 0
@@ -284,7 +274,7 @@ def _cmd_schedule(args) -> int:
 
     started, site, out = _start(args)
     nodes = read_nodes(args.nodes)
-    pairs, _ = _run_pairs(site, nodes, args, out, _progress(args.quiet), write=False)
+    pairs, _ = _run_pairs(site, nodes, args, out, _progress_printer(args.quiet), write=False)
     mesh = _run_mesh(site, nodes, args, out, write=False)[0] if site.radio.gateway_m is not None else None
     written = _run_schedule(site, pairs, mesh, args, out)
     _write_manifest(out, "plan schedule", {"site": args.site, "nodes": args.nodes}, args, written, started)
@@ -296,7 +286,7 @@ def _cmd_design(args) -> int:
     from reconstruct.tables import read_nodes
 
     started, site, out = _start(args)
-    say = _progress(args.quiet)
+    say = _progress_printer(args.quiet)
     written, nodes_path = _run_layout(site, args, out, say)
     nodes = read_nodes(nodes_path)
     pairs, more = _run_pairs(site, nodes, args, out, say)
@@ -375,70 +365,47 @@ def _add_schedule_arguments(p):
                    help="minutes to lower and recover a hole string (default 20)")
 
 
+def _design_parser(sub, name, *, help, description, func, nodes=True, quiet=True, groups=()):
+    p = sub.add_parser(name, help=help, description=description, epilog=_UNITS)
+    p.add_argument("site", help="site description (YAML)")
+    if nodes:
+        p.add_argument("--nodes", required=True, help="node table (CSV)")
+    p.add_argument("--out", required=True, help="output folder (created if missing)")
+    if quiet:
+        p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    for add in groups:
+        add(p)
+    p.set_defaults(func=func)
+
+
 def _add_design_parsers(sub):
-    out_help = "output folder (created if missing)"
-    p = sub.add_parser(
-        "layout", help="node layout within a budget: surface grid, bench faces, hole strings",
+    _design_parser(
+        sub, "layout", help="node layout within a budget: surface grid, bench faces, hole strings",
         description="Choose node positions from the site description within a node budget: a regular or "
                     "staggered surface grid, lines along bench faces and strings in boreholes and blast "
                     "holes, outside exclusion zones. Writes nodes.csv, candidates.csv and manifest.json.",
-        epilog=_UNITS)
-    p.add_argument("site", help="site description (YAML)")
-    p.add_argument("--out", required=True, help=out_help)
-    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
-    _add_layout_arguments(p)
-    p.set_defaults(func=_cmd_layout)
-
-    p = sub.add_parser(
-        "pairs", help="link budget of every node pair and the graph of heard pairs",
+        func=_cmd_layout, nodes=False, groups=(_add_layout_arguments,))
+    _design_parser(
+        sub, "pairs", help="link budget of every node pair and the graph of heard pairs",
         description="Compute the link budget (dB) of every pair of a node table and the graph of the "
                     "pairs heard. Writes pairs.csv, pairs.graphml, pairs_summary.json and manifest.json.",
-        epilog=_UNITS)
-    p.add_argument("site", help="site description (YAML)")
-    p.add_argument("--nodes", required=True, help="node table (CSV)")
-    p.add_argument("--out", required=True, help=out_help)
-    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
-    _add_pairs_arguments(p)
-    p.set_defaults(func=_cmd_pairs)
-
-    p = sub.add_parser(
-        "mesh", help="radio mesh to the gateway: hops, articulation points, relays",
+        func=_cmd_pairs, groups=(_add_pairs_arguments,))
+    _design_parser(
+        sub, "mesh", help="radio mesh to the gateway: hops, articulation points, relays",
         description="Build the radio mesh of a node table (hole strings cabled to their collar) and check "
                     "that every node reaches the gateway. Writes mesh.graphml, mesh_summary.json and "
                     "manifest.json.",
-        epilog=_UNITS)
-    p.add_argument("site", help="site description (YAML)")
-    p.add_argument("--nodes", required=True, help="node table (CSV)")
-    p.add_argument("--out", required=True, help=out_help)
-    _add_mesh_arguments(p)
-    p.set_defaults(func=_cmd_mesh)
-
-    p = sub.add_parser(
-        "schedule", help="shot schedule: transmitter slots, listeners, time on site",
+        func=_cmd_mesh, quiet=False, groups=(_add_mesh_arguments,))
+    _design_parser(
+        sub, "schedule", help="shot schedule: transmitter slots, listeners, time on site",
         description="Plan which node transmits in which slot and who listens, and estimate the time on "
                     "site. Writes schedule.csv, schedule_summary.json and manifest.json.",
-        epilog=_UNITS)
-    p.add_argument("site", help="site description (YAML)")
-    p.add_argument("--nodes", required=True, help="node table (CSV)")
-    p.add_argument("--out", required=True, help=out_help)
-    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
-    _add_pairs_arguments(p)
-    _add_mesh_arguments(p)
-    _add_schedule_arguments(p)
-    p.set_defaults(func=_cmd_schedule)
-
-    p = sub.add_parser(
-        "design", help="layout, pairs, mesh and schedule in one run",
+        func=_cmd_schedule, groups=(_add_pairs_arguments, _add_mesh_arguments, _add_schedule_arguments))
+    _design_parser(
+        sub, "design", help="layout, pairs, mesh and schedule in one run",
         description="Run layout, pairs, mesh (when the site gives a gateway) and schedule into one folder.",
-        epilog=_UNITS)
-    p.add_argument("site", help="site description (YAML)")
-    p.add_argument("--out", required=True, help=out_help)
-    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
-    _add_layout_arguments(p)
-    _add_pairs_arguments(p)
-    _add_mesh_arguments(p)
-    _add_schedule_arguments(p)
-    p.set_defaults(func=_cmd_design)
+        func=_cmd_design, nodes=False,
+        groups=(_add_layout_arguments, _add_pairs_arguments, _add_mesh_arguments, _add_schedule_arguments))
 
 
 def build_parser() -> argparse.ArgumentParser:

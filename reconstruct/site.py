@@ -839,6 +839,12 @@ class _Checker:
             return None
         return pts
 
+    def optional_section(self, value, path: str, allowed) -> dict | None:
+        """An optional section: None when it is left out or empty."""
+        if value is _MISSING or value is None:
+            return None
+        return self.section(value, path, allowed)
+
     def items(self, value, path):
         """An optional list; None (all items commented out) counts as empty."""
         if value is _MISSING or value is None:
@@ -881,9 +887,7 @@ def _parse(data, problems: list[str], source: str, base_dir: Path) -> Site | Non
 
 
 def _parse_frame(value, chk: _Checker) -> Frame:
-    if value is _MISSING or value is None:
-        return Frame()
-    sec = chk.section(value, "frame", _FRAME_KEYS)
+    sec = chk.optional_section(value, "frame", _FRAME_KEYS)
     if sec is None:
         return Frame()
     epsg = sec.get("epsg")
@@ -1235,9 +1239,7 @@ def _parse_zones(value, chk: _Checker) -> list[ExclusionZone]:
 
 
 def _parse_radar(value, chk: _Checker) -> RadarSystem:
-    if value is _MISSING or value is None:
-        return RadarSystem()
-    sec = chk.section(value, "radar", _RADAR_KEYS)
+    sec = chk.optional_section(value, "radar", _RADAR_KEYS)
     if sec is None:
         return RadarSystem()
     performance = chk.number(sec.get("system_performance_db", DEFAULT_SYSTEM_PERFORMANCE_DB),
@@ -1251,9 +1253,7 @@ def _parse_radar(value, chk: _Checker) -> RadarSystem:
 
 
 def _parse_radio(value, chk: _Checker) -> RadioNetwork:
-    if value is _MISSING or value is None:
-        return RadioNetwork()
-    sec = chk.section(value, "radio", _RADIO_KEYS)
+    sec = chk.optional_section(value, "radio", _RADIO_KEYS)
     if sec is None:
         return RadioNetwork()
     range_m = chk.number(sec.get("range_m", DEFAULT_RADIO_RANGE_M), "radio.range_m", lo=0.0,

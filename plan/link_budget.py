@@ -40,7 +40,9 @@ and the pair is *heard* when ``M >= 0``. The terms:
     times the loss per crossing: ``site.radar.air_ground_loss_db`` or, when
     not given, the power transmission loss at normal incidence from air into
     rock, ``-10 log10(4 n / (1 + n)^2)`` with ``n = sqrt(K)`` (Fresnel
-    equations).
+    equations). Nodes count as in the ground, so the line from a node on a
+    lower bench up through the air into the face of the next bench crosses
+    twice.
 
 Pairs whose straight line leaves the ground, and pairs for which the wave
 refracted along the ground surface through the air (the air wave) arrives

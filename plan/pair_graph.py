@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import networkx as nx
 import numpy as np
 
+from reconstruct.errors import InputError
 from reconstruct.grid import ground_mask
 from reconstruct.outputs import atomic_path, write_csv_atomic
 from reconstruct.placement import place_nodes
@@ -30,8 +31,11 @@ from .link_budget import (
     rule_of_thumb_range_m,
 )
 
-__all__ = ["PairGraph", "check_nodes_in_site", "build_pair_graph", "pair_graph_summary", "write_pairs_csv",
+__all__ = ["MAX_NODES", "PairGraph", "check_nodes_in_site", "build_pair_graph", "pair_graph_summary", "write_pairs_csv",
            "write_graphml", "PAIRS_CSV_HEADER"]
+
+#: Largest node table the pair graph takes (about 4.5 million pairs, a few GB of link tables).
+MAX_NODES = 3000
 
 #: Columns of ``pairs.csv``.
 PAIRS_CSV_HEADER = ("node_a", "node_b", "length_m", "margin_db", "heard", "spreading_db", "attenuation_db",
@@ -77,6 +81,12 @@ def build_pair_graph(site: Site, nodes: Nodes, budget: LinkBudget, *, progress=N
     InputError
         Nodes outside the model box, borehole ids unknown to the site.
     """
+    if len(nodes) > MAX_NODES:
+        raise InputError(f"{nodes.source}: {len(nodes)} nodes give {len(nodes) * (len(nodes) - 1) // 2:,} pairs, "
+                         f"more than the pair table holds ({MAX_NODES} nodes at most); plan the survey in "
+                         "parts of fewer nodes")
+    if len(nodes) < 2:
+        raise InputError(f"{nodes.source}: {len(nodes)} node; pairs need at least two nodes")
     check_nodes_in_site(site, nodes)
     axes = antenna_axes(site, nodes)
     a, b = np.triu_indices(len(nodes), 1)

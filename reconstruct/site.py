@@ -32,6 +32,14 @@ Exactly one of three descriptions:
     rows in any order, ``#`` comment lines allowed, extra columns ignored),
     interpolated bilinearly with :class:`scipy.interpolate.RegularGridInterpolator`.
 
+Radar and radio (read by the planner)
+-------------------------------------
+``radar`` holds the system performance in dB (default
+:data:`DEFAULT_SYSTEM_PERFORMANCE_DB`) and, optionally, the loss per crossing
+of the air-ground boundary; ``radio`` the range of the node radios (default
+:data:`DEFAULT_RADIO_RANGE_M`) and the gateway position. Both sections are
+optional; ``boreholes[i].kind`` tells boreholes from blast holes.
+
 Velocity and permittivity
 -------------------------
 For a low-loss medium the radar velocity is ``v = c / sqrt(K)`` with ``K`` the

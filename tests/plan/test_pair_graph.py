@@ -93,3 +93,13 @@ def test_nodes_outside_the_box_and_unknown_holes_are_refused(site, tmp_path):
     text = str(info.value)
     assert "line 2: node 'A1' names borehole 'BH7', which is not in the site description" in text
     assert "line 4: node 'H' is of kind borehole but its borehole column is blank" in text
+
+
+def test_too_few_or_too_many_nodes_are_refused(site, tmp_path, monkeypatch):
+    import plan.pair_graph
+
+    with pytest.raises(InputError, match="1 node; pairs need at least two nodes"):
+        build_pair_graph(site, _nodes(tmp_path, ROWS[:1]), link_budget_for_site(site))
+    monkeypatch.setattr(plan.pair_graph, "MAX_NODES", 5)
+    with pytest.raises(InputError, match=r"7 nodes give 21 pairs, more than the pair table holds \(5 nodes at most\)"):
+        build_pair_graph(site, _nodes(tmp_path, ROWS), link_budget_for_site(site))

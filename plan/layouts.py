@@ -66,6 +66,18 @@ _MAX_BUDGET = 20_000
 _SPACING_STEPS = 96
 
 
+# the command-line option of each field, for messages
+_OPTION_OF = {"budget": "--budget", "pattern": "--pattern", "surface_spacing_m": "--surface-spacing",
+              "face_spacing_m": "--face-spacing", "hole_spacing_m": "--hole-spacing", "hole_share": "--hole-share",
+              "face_share": "--face-share", "jitter_m": "--jitter", "seed": "--seed", "setback_m": "--setback",
+              "min_face_height_m": "--min-face-height", "min_hole_depth_m": "--min-hole-depth",
+              "candidate_factor": "--candidates"}
+
+
+def _label(name: str) -> str:
+    return f"{name} ({_OPTION_OF[name]})"
+
+
 @dataclass(frozen=True)
 class LayoutOptions:
     """How to build a layout. Lengths in metres.
@@ -114,29 +126,29 @@ class LayoutOptions:
         problems = []
         if isinstance(self.budget, bool) or not isinstance(self.budget, (int, np.integer)) \
                 or not 2 <= self.budget <= _MAX_BUDGET:
-            problems.append(f"budget must be a whole number from 2 to {_MAX_BUDGET} (got {self.budget!r}); "
+            problems.append(f"{_label('budget')} must be a whole number from 2 to {_MAX_BUDGET} (got {self.budget!r}); "
                             "give the number of nodes available")
         if self.pattern not in _PATTERNS:
             problems.append(f"pattern must be one of {', '.join(_PATTERNS)} (got {self.pattern!r})")
         for name in ("surface_spacing_m", "face_spacing_m", "hole_spacing_m"):
             value = getattr(self, name)
             if value is not None and not (math.isfinite(value) and value > 0):
-                problems.append(f"{name} must be a number > 0 in metres (got {value!r}); "
+                problems.append(f"{_label(name)} must be a number > 0 in metres (got {value!r}); "
                                 "leave it out to fit the spacing to the budget")
         for name in ("hole_share", "face_share"):
             value = getattr(self, name)
             if not (math.isfinite(value) and 0 <= value <= 1):
-                problems.append(f"{name} must be between 0 and 1 (got {value!r})")
+                problems.append(f"{_label(name)} must be between 0 and 1 (got {value!r})")
         if math.isfinite(self.hole_share) and math.isfinite(self.face_share) \
                 and self.hole_share + self.face_share > 1 + 1e-12:
             problems.append(f"hole_share + face_share must be at most 1 (got {self.hole_share:g} + "
-                            f"{self.face_share:g}); lower one of them")
+                            f"{self.face_share:g}); lower --hole-share or --face-share")
         for name in ("jitter_m", "setback_m", "min_face_height_m", "min_hole_depth_m"):
             value = getattr(self, name)
             if not (math.isfinite(value) and value >= 0):
-                problems.append(f"{name} must be a number >= 0 in metres (got {value!r})")
+                problems.append(f"{_label(name)} must be a number >= 0 in metres (got {value!r})")
         if not (math.isfinite(self.candidate_factor) and self.candidate_factor >= 1):
-            problems.append(f"candidate_factor must be >= 1 (got {self.candidate_factor!r})")
+            problems.append(f"{_label('candidate_factor')} must be >= 1 (got {self.candidate_factor!r})")
         if problems:
             raise InputError(problems)
 

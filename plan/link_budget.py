@@ -286,6 +286,9 @@ def link_budget_for_site(site: Site, *, system_performance_db: float | None = No
 
     ``system_performance_db`` overrides ``site.radar.system_performance_db``.
     """
+    if system_performance_db is not None and not (math.isfinite(system_performance_db) and system_performance_db > 0):
+        raise InputError(f"--system-performance must be a number > 0 in dB (got {system_performance_db!r}); "
+                         "leave it out to use radar.system_performance_db of the site")
     rock = site.rock
     loss = site.radar.air_ground_loss_db
     return LinkBudget(

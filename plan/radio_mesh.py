@@ -99,7 +99,8 @@ def build_radio_mesh(site: Site, nodes: Nodes, *, range_m: float | None = None, 
     """
     range_m = float(site.radio.range_m if range_m is None else range_m)
     if not (math.isfinite(range_m) and range_m > 0):
-        raise InputError(f"radio range must be a number > 0 in metres (got {range_m!r})")
+        raise InputError(f"--radio-range must be a number > 0 in metres (got {range_m!r}); leave it out to "
+                         "use radio.range_m of the site")
     gateway_xyz = site.radio.gateway_m if gateway_m is None else tuple(gateway_m)
     if gateway_xyz is None:
         raise InputError(f"{site.source_path or 'site'}: radio.gateway_m is missing; add the gateway position "

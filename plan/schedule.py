@@ -50,6 +50,18 @@ _TRANSMITTERS = ("all", "cover")
 _SAMPLING = ("sequential", "real_time")
 
 
+# the command-line option of each field, for messages
+_OPTION_OF = {"stacks": "--stacks", "pulse_repetition_khz": "--prf", "record_length_ns": "--record-length",
+              "sample_interval_ns": "--sample-interval", "command_overhead_s": "--command-overhead",
+              "data_rate_kbps": "--data-rate", "deploy_minutes_per_node": "--deploy-node",
+              "deploy_minutes_per_string": "--deploy-string"}
+
+
+def _label(name: str) -> str:
+    option = _OPTION_OF.get(name)
+    return f"{name} ({option})" if option else name
+
+
 @dataclass(frozen=True)
 class ScheduleOptions:
     """Acquisition and radio settings of the schedule.
@@ -95,19 +107,19 @@ class ScheduleOptions:
         for name in ("stacks", "bytes_per_sample"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < 1:
-                problems.append(f"{name} must be a whole number >= 1 (got {value!r})")
+                problems.append(f"{_label(name)} must be a whole number >= 1 (got {value!r})")
         for name in ("pulse_repetition_khz", "data_rate_kbps"):
             value = getattr(self, name)
             if not (math.isfinite(value) and value > 0):
-                problems.append(f"{name} must be a number > 0 (got {value!r})")
+                problems.append(f"{_label(name)} must be a number > 0 (got {value!r})")
         for name in ("record_length_ns", "sample_interval_ns"):
             value = getattr(self, name)
             if value is not None and not (math.isfinite(value) and value > 0):
-                problems.append(f"{name} must be a number > 0 in ns (got {value!r}); leave it out for the default")
+                problems.append(f"{_label(name)} must be a number > 0 in ns (got {value!r}); leave it out for the default")
         for name in ("command_overhead_s", "deploy_minutes_per_node", "deploy_minutes_per_string"):
             value = getattr(self, name)
             if not (math.isfinite(value) and value >= 0):
-                problems.append(f"{name} must be a number >= 0 (got {value!r})")
+                problems.append(f"{_label(name)} must be a number >= 0 (got {value!r})")
         if self.sampling not in _SAMPLING:
             problems.append(f"sampling must be one of {', '.join(_SAMPLING)} (got {self.sampling!r})")
         if self.transmitters not in _TRANSMITTERS:

@@ -304,7 +304,7 @@ def test_layout_mesh_and_schedule_commands(files, tmp_path):
 
 
 @pytest.mark.parametrize("argv_tail, fragments", [
-    (["--budget", "1"], ["budget must be a whole number from 2 to 20000 (got 1)"]),
+    (["--budget", "1"], ["budget (--budget) must be a whole number from 2 to 20000 (got 1)"]),
     (["--budget", "10", "--hole-share", "0.9", "--face-share", "0.5"], ["hole_share + face_share must be at most 1"]),
 ])
 def test_layout_bad_options_are_user_errors(files, tmp_path, argv_tail, fragments):
@@ -316,3 +316,13 @@ def test_pairs_unknown_hole_is_a_user_error(files, tmp_path):
     files["nodes"].write_text(_node_text().replace(",BH2\n", ",BH9\n", 1), encoding="utf-8")
     code, out, err = _run(["pairs", files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x"])
     _assert_user_error(code, out, err, "names borehole 'BH9', which is not in the site description")
+
+
+@pytest.mark.parametrize("command, option, value, fragment", [
+    ("pairs", "--system-performance", "nan", "--system-performance must be a number > 0 in dB (got nan)"),
+    ("mesh", "--radio-range", "-5", "--radio-range must be a number > 0 in metres (got -5.0)"),
+])
+def test_bad_overrides_are_user_errors(files, tmp_path, command, option, value, fragment):
+    files["site"].write_text(SITE_YAML + "radio: {gateway_m: [0, 5, 19]}\n", encoding="utf-8")
+    code, out, err = _run([command, files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x", option, value])
+    _assert_user_error(code, out, err, fragment)

@@ -140,11 +140,11 @@ def test_fixed_spacings_beyond_the_budget_are_refused(site):
 
 
 @pytest.mark.parametrize("changes, expected", [
-    ({"budget": 1}, "budget must be a whole number from 2 to 20000 (got 1)"),
+    ({"budget": 1}, "budget (--budget) must be a whole number from 2 to 20000 (got 1)"),
     ({"pattern": "hex"}, "pattern must be one of regular, staggered (got 'hex')"),
     ({"hole_share": 0.9, "face_share": 0.3}, "hole_share + face_share must be at most 1"),
-    ({"surface_spacing_m": float("nan")}, "surface_spacing_m must be a number > 0 in metres"),
-    ({"jitter_m": -1.0}, "jitter_m must be a number >= 0 in metres (got -1.0)"),
+    ({"surface_spacing_m": float("nan")}, "surface_spacing_m (--surface-spacing) must be a number > 0 in metres"),
+    ({"jitter_m": -1.0}, "jitter_m (--jitter) must be a number >= 0 in metres (got -1.0)"),
 ])
 def test_bad_options_name_the_field(changes, expected):
     with pytest.raises(InputError) as info:

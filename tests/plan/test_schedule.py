@@ -85,5 +85,5 @@ def test_csv_and_errors(tmp_path):
     empty.add_nodes_from("AB")
     with pytest.raises(InputError, match="no pair of nodes hears each other"):
         plan_schedule(empty, velocity_m_per_ns=0.12, frequency_mhz=100)
-    with pytest.raises(InputError, match=r"stacks must be a whole number >= 1 \(got 0\)"):
+    with pytest.raises(InputError, match=r"stacks \(--stacks\) must be a whole number >= 1 \(got 0\)"):
         ScheduleOptions(stacks=0)

@@ -363,7 +363,7 @@ def antenna_axes(site: Site, nodes: Nodes) -> np.ndarray:
     return axes
 
 
-def straight_line_air_path(ground_elevation_m, a_xyz_m, b_xyz_m, *, step_m: float):
+def straight_line_air_path(ground_elevation_m, a_xyz_m, b_xyz_m, *, step_m: float, progress=None):
     """Length in air and number of air-ground crossings of straight lines.
 
     Parameters
@@ -374,6 +374,8 @@ def straight_line_air_path(ground_elevation_m, a_xyz_m, b_xyz_m, *, step_m: floa
         Line ends in metres.
     step_m : float
         Sampling step along the lines (> 0), metres.
+    progress : callable, optional
+        ``progress(done, total)`` after each batch of lines.
 
     Returns
     -------
@@ -416,6 +418,8 @@ def straight_line_air_path(ground_elevation_m, a_xyz_m, b_xyz_m, *, step_m: floa
         change[1:] = (in_air[1:] != in_air[:-1]) & (pair[1:] == pair[:-1])
         crossings[start:stop] = np.bincount(pair - start, weights=change, minlength=stop - start).astype(np.int64)
         start = stop
+        if progress:
+            progress(start, len(a))
     return np.minimum(air_length, length), crossings
 
 
@@ -480,7 +484,8 @@ class PairLinks:
         return (self.air_length_m > 0) | self.air_wave_first
 
 
-def pair_links(site: Site, budget: LinkBudget, xyz_m, axes, a, b, *, step_m: float | None = None) -> PairLinks:
+def pair_links(site: Site, budget: LinkBudget, xyz_m, axes, a, b, *, step_m: float | None = None,
+               progress=None) -> PairLinks:
     """Link budget of every pair ``(a[i], b[i])`` of nodes at ``xyz_m``.
 
     Parameters
@@ -496,6 +501,8 @@ def pair_links(site: Site, budget: LinkBudget, xyz_m, axes, a, b, *, step_m: flo
         Node indices of the pairs.
     step_m : float, optional
         Sampling step of the air check; default half the smallest cell size.
+    progress : callable, optional
+        ``progress(done, total)`` as the air check goes through the pairs.
     """
     xyz = np.asarray(xyz_m, dtype=float)
     a, b = np.asarray(a, dtype=np.int64), np.asarray(b, dtype=np.int64)
@@ -504,7 +511,8 @@ def pair_links(site: Site, budget: LinkBudget, xyz_m, axes, a, b, *, step_m: flo
     pa, pb = xyz[a], xyz[b]
     d = pb - pa
     length = np.linalg.norm(d, axis=1)
-    air_length, crossings = straight_line_air_path(site.ground.elevation_m, pa, pb, step_m=step_m)
+    air_length, crossings = straight_line_air_path(site.ground.elevation_m, pa, pb, step_m=step_m,
+                                                   progress=progress)
     spreading = spreading_loss_db(length, budget.wavelength_m)
     attenuation = budget.attenuation_db_per_m * (length - air_length)
     axes = np.asarray(axes, dtype=float)

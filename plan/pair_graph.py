@@ -92,7 +92,9 @@ def build_pair_graph(site: Site, nodes: Nodes, budget: LinkBudget, *, progress=N
     a, b = np.triu_indices(len(nodes), 1)
     if progress:
         progress(f"link budget of {a.size:,} pairs of {len(nodes)} nodes")
-    links = pair_links(site, budget, nodes.xyz_m, axes, a, b)
+    links = pair_links(site, budget, nodes.xyz_m, axes, a, b,
+                       progress=(lambda done, total: progress(f"air check: {done:,}/{total:,} pairs"))
+                       if progress else None)
     graph = nx.Graph()
     for k, node_id in enumerate(nodes.ids):
         x, y, z = (float(v) for v in nodes.xyz_m[k])

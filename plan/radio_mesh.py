@@ -18,6 +18,14 @@ From the graph (networkx):
   on the straight line between its nearest station and the nearest connected
   station (``ceil(d / range) - 1`` relays, on the ground surface), avoiding
   exclusion zones where one of the few closest pairs allows it.
+
+References
+----------
+Hopcroft, J. and Tarjan, R. (1973). Algorithm 447: efficient algorithms for
+    graph manipulation. Communications of the ACM, 16(6), 372-378 (the
+    articulation points, as computed by :func:`networkx.articulation_points`).
+Dijkstra, E. W. (1959). A note on two problems in connexion with graphs.
+    Numerische Mathematik, 1, 269-271 (hops to the gateway).
 """
 
 from __future__ import annotations

@@ -30,7 +30,7 @@ from reconstruct.tables import Nodes
 
 from .truth import TruthModel, truth_velocity
 
-__all__ = ["SimulatedSurvey", "refined_grid", "all_pairs", "simulate_picks", "gross_errors"]
+__all__ = ["SimulatedSurvey", "refined_grid", "all_pairs", "simulate_picks", "gross_errors", "drop_missed_picks"]
 
 
 @dataclass(frozen=True)
@@ -140,3 +140,36 @@ def gross_errors(time_ns, fraction: float, size_ns: float, *, seed: int) -> np.n
     sign[time_ns[which] - size <= 2.0] = 1.0
     error[which] = sign * size
     return error
+
+
+def drop_missed_picks(survey: SimulatedSurvey, margin_db, *, fade_sigma_db: float = 0.0, seed: int = 0):
+    """Leave out the picks whose link margin falls below 0 dB (not heard).
+
+    Parameters
+    ----------
+    survey : SimulatedSurvey
+    margin_db : array, shape (n_picks,)
+        Link-budget margin of each pick's pair (:mod:`plan.link_budget`).
+    fade_sigma_db : float
+        Standard deviation of a Gaussian fade in dB added to every margin
+        (seeded; 0 keeps the budget's verdict as it is).
+    seed : int
+
+    Returns
+    -------
+    survey : SimulatedSurvey
+        The picks still heard (node arrays unchanged).
+    missed : numpy.ndarray of bool, shape (n_picks,)
+        True for the picks left out.
+    """
+    margin = np.asarray(margin_db, dtype=float)
+    if margin.shape != survey.tx.shape:
+        raise ValueError(f"margin_db has shape {margin.shape}, expected {survey.tx.shape}")
+    if fade_sigma_db > 0:
+        margin = margin + np.random.default_rng(seed).normal(0.0, fade_sigma_db, margin.size)
+    missed = margin < 0.0
+    keep = ~missed
+    error = None if survey.outlier_error_ns is None else survey.outlier_error_ns[keep]
+    return SimulatedSurvey(survey.tx[keep], survey.rx[keep], survey.time_ns[keep], survey.sigma_ns[keep],
+                           survey.true_travel_time_ns[keep], survey.clock_offset_ns, survey.node_xyz_m,
+                           error), missed

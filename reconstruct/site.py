@@ -32,6 +32,14 @@ Exactly one of three descriptions:
     rows in any order, ``#`` comment lines allowed, extra columns ignored),
     interpolated bilinearly with :class:`scipy.interpolate.RegularGridInterpolator`.
 
+Radar and radio (read by the planner)
+-------------------------------------
+``radar`` holds the system performance in dB (default
+:data:`DEFAULT_SYSTEM_PERFORMANCE_DB`) and, optionally, the loss per crossing
+of the air-ground boundary; ``radio`` the range of the node radios (default
+:data:`DEFAULT_RADIO_RANGE_M`) and the gateway position. Both sections are
+optional; ``boreholes[i].kind`` tells boreholes from blast holes.
+
 Velocity and permittivity
 -------------------------
 For a low-loss medium the radar velocity is ``v = c / sqrt(K)`` with ``K`` the
@@ -61,6 +69,9 @@ __all__ = [
     "VELOCITY_BAND_M_PER_NS",
     "PERMITTIVITY_TOLERANCE",
     "PLANNED_WORK_KINDS",
+    "HOLE_KINDS",
+    "DEFAULT_SYSTEM_PERFORMANCE_DB",
+    "DEFAULT_RADIO_RANGE_M",
     "Frame",
     "ModelBox",
     "Bench",
@@ -69,6 +80,8 @@ __all__ = [
     "Borehole",
     "PlannedWork",
     "ExclusionZone",
+    "RadarSystem",
+    "RadioNetwork",
     "Site",
     "load_site",
     "parse_site",
@@ -89,10 +102,21 @@ PERMITTIVITY_TOLERANCE = 0.10
 #: Allowed values of ``planned_works[i].kind``.
 PLANNED_WORK_KINDS = ("haul_road", "bench", "blast_pattern")
 
+#: Allowed values of ``boreholes[i].kind`` (both hold node strings alike).
+HOLE_KINDS = ("borehole", "blast_hole")
+
+#: Default of ``radar.system_performance_db``: the largest loss in dB between
+#: transmitter and receiver at which a first arrival can still be picked
+#: (antenna gains included). A modest figure for small, low-cost nodes.
+DEFAULT_SYSTEM_PERFORMANCE_DB = 100.0
+
+#: Default of ``radio.range_m``: radio range between node radios, metres.
+DEFAULT_RADIO_RANGE_M = 100.0
+
 _MISSING = object()
 
 _TOP_KEYS = ("name", "frame", "model", "ground", "rock", "boreholes",
-             "planned_works", "exclusion_zones")
+             "planned_works", "exclusion_zones", "radar", "radio")
 _FRAME_KEYS = ("epsg", "description")
 _MODEL_KEYS = ("origin_m", "size_m", "cell_m")
 _GROUND_KINDS = ("flat_elevation_m", "benches", "height_grid_csv")
@@ -100,7 +124,10 @@ _GROUND_KEYS = _GROUND_KINDS + ("surround_elevation_m",)
 _BENCH_KEYS = ("name", "floor_m", "polygon_m")
 _ROCK_KEYS = ("velocity_m_per_ns", "relative_permittivity",
               "conductivity_ms_per_m", "antenna_frequency_mhz")
-_BOREHOLE_KEYS = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m")
+_BOREHOLE_KEYS = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m", "kind")
+_BOREHOLE_REQUIRED = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m")
+_RADAR_KEYS = ("system_performance_db", "air_ground_loss_db")
+_RADIO_KEYS = ("range_m", "gateway_m")
 _WORK_KEYS = ("name", "kind", "polyline_m", "polygon_m")
 _ZONE_KEYS = ("name", "polygon_m", "reason")
 
@@ -111,6 +138,8 @@ _SECTION_OF = {
     **{k: "rock" for k in _ROCK_KEYS},
     **{k: "frame" for k in _FRAME_KEYS},
     **{k: "boreholes[i]" for k in _BOREHOLE_KEYS},
+    **{k: "radar" for k in _RADAR_KEYS},
+    **{k: "radio" for k in _RADIO_KEYS},
 }
 
 # What to add when a required key is missing.
@@ -411,6 +440,8 @@ class Borehole:
         Angle below horizontal in degrees; 90 is vertical down.
     length_m : float
         Length along the hole in metres.
+    kind : {'borehole', 'blast_hole'}
+        What the hole is; both can hold a string of nodes.
     """
 
     id: str
@@ -418,6 +449,7 @@ class Borehole:
     azimuth_deg: float
     dip_deg: float
     length_m: float
+    kind: str = "borehole"
 
     def direction(self) -> np.ndarray:
         """Unit vector pointing down the hole, shape (3,).
@@ -489,6 +521,44 @@ class ExclusionZone:
 
 
 @dataclass(frozen=True)
+class RadarSystem:
+    """Radar settings used by the link budget of the planner.
+
+    Parameters
+    ----------
+    system_performance_db : float
+        Largest loss in dB between transmitter and receiver at which a first
+        arrival can still be picked, antenna gains included (> 0).
+    air_ground_loss_db : float or None
+        Loss in dB for each crossing of the air-ground boundary by the
+        straight line between two nodes (>= 0). None: computed from the
+        rock's permittivity as the power transmission loss at normal
+        incidence (see ``plan.link_budget``).
+    """
+
+    system_performance_db: float = DEFAULT_SYSTEM_PERFORMANCE_DB
+    air_ground_loss_db: float | None = None
+
+
+@dataclass(frozen=True)
+class RadioNetwork:
+    """The radio network that commands the nodes.
+
+    Parameters
+    ----------
+    range_m : float
+        Distance in metres over which two node radios (or a node and the
+        gateway) reach each other (> 0).
+    gateway_m : tuple of 3 float or None
+        Position (x, y, z) in metres of the radio gateway; None when not
+        given (the radio mesh then cannot be planned).
+    """
+
+    range_m: float = DEFAULT_RADIO_RANGE_M
+    gateway_m: tuple[float, float, float] | None = None
+
+
+@dataclass(frozen=True)
 class Site:
     """A whole site description; see :func:`load_site`."""
 
@@ -501,6 +571,8 @@ class Site:
     planned_works: tuple[PlannedWork, ...] = ()
     exclusion_zones: tuple[ExclusionZone, ...] = ()
     source_path: str | None = None
+    radar: RadarSystem = RadarSystem()
+    radio: RadioNetwork = RadioNetwork()
 
     def grid(self) -> Grid:
         """The voxel grid of the model box."""
@@ -775,6 +847,12 @@ class _Checker:
             return None
         return pts
 
+    def optional_section(self, value, path: str, allowed) -> dict | None:
+        """An optional section: None when it is left out or empty."""
+        if value is _MISSING or value is None:
+            return None
+        return self.section(value, path, allowed)
+
     def items(self, value, path):
         """An optional list; None (all items commented out) counts as empty."""
         if value is _MISSING or value is None:
@@ -802,6 +880,8 @@ def _parse(data, problems: list[str], source: str, base_dir: Path) -> Site | Non
     boreholes = _parse_boreholes(top.get("boreholes", _MISSING), chk)
     works = _parse_works(top.get("planned_works", _MISSING), chk)
     zones = _parse_zones(top.get("exclusion_zones", _MISSING), chk)
+    radar = _parse_radar(top.get("radar", _MISSING), chk)
+    radio = _parse_radio(top.get("radio", _MISSING), chk)
     if model is not None:
         grid = _check_model_memory(model, chk, source)
         if grid is not None and ground is not None:
@@ -811,13 +891,11 @@ def _parse(data, problems: list[str], source: str, base_dir: Path) -> Site | Non
         return None
     return Site(name=name, frame=frame, model=model, ground=ground, rock=rock,
                 boreholes=tuple(hole for _, hole in boreholes), planned_works=tuple(works),
-                exclusion_zones=tuple(zones))
+                exclusion_zones=tuple(zones), radar=radar, radio=radio)
 
 
 def _parse_frame(value, chk: _Checker) -> Frame:
-    if value is _MISSING or value is None:
-        return Frame()
-    sec = chk.section(value, "frame", _FRAME_KEYS)
+    sec = chk.optional_section(value, "frame", _FRAME_KEYS)
     if sec is None:
         return Frame()
     epsg = sec.get("epsg")
@@ -1090,7 +1168,7 @@ def _parse_boreholes(value, chk: _Checker) -> list[tuple[int, Borehole]]:
     holes, first_index = [], {}
     for i, item in enumerate(chk.items(value, "boreholes")):
         path = f"boreholes[{i}]"
-        sec = chk.section(item, path, _BOREHOLE_KEYS, _BOREHOLE_KEYS)
+        sec = chk.section(item, path, _BOREHOLE_KEYS, _BOREHOLE_REQUIRED)
         if sec is None:
             continue
         hid = chk.text(sec.get("id", _MISSING), f"{path}.id")
@@ -1107,8 +1185,14 @@ def _parse_boreholes(value, chk: _Checker) -> list[tuple[int, Borehole]]:
                          unit="degrees", fix="measure below horizontal, 90 is vertical down")
         length = chk.number(sec.get("length_m", _MISSING), f"{path}.length_m", lo=0.0,
                             lo_open=True, unit="m")
-        if None not in (hid, collar, az, dip, length):
-            holes.append((i, Borehole(hid, collar, az, dip, length)))
+        kind = sec.get("kind", "borehole")
+        if kind not in HOLE_KINDS:
+            close = difflib.get_close_matches(str(kind), HOLE_KINDS, n=1, cutoff=0.6)
+            chk.add(f"{path}.kind {_describe(kind)} is not one of {', '.join(HOLE_KINDS)}"
+                    + (f"; did you mean '{close[0]}'?" if close else "; leave it out for a borehole"))
+            kind = None
+        if None not in (hid, collar, az, dip, length, kind):
+            holes.append((i, Borehole(hid, collar, az, dip, length, kind)))
     return holes
 
 
@@ -1160,6 +1244,31 @@ def _parse_zones(value, chk: _Checker) -> list[ExclusionZone]:
         if None not in (name, poly):
             zones.append(ExclusionZone(name, poly, reason))
     return zones
+
+
+def _parse_radar(value, chk: _Checker) -> RadarSystem:
+    sec = chk.optional_section(value, "radar", _RADAR_KEYS)
+    if sec is None:
+        return RadarSystem()
+    performance = chk.number(sec.get("system_performance_db", DEFAULT_SYSTEM_PERFORMANCE_DB),
+                             "radar.system_performance_db", lo=0.0, lo_open=True, unit="dB",
+                             fix="take it from the radar's data sheet or a calibration shot; "
+                                 "small nodes reach about 80 to 120 dB")
+    loss = sec.get("air_ground_loss_db", _MISSING)
+    loss = None if loss is _MISSING else chk.number(loss, "radar.air_ground_loss_db", lo=0.0,
+                                                    unit="dB", fix="leave it out to have it computed")
+    return RadarSystem(performance if performance is not None else DEFAULT_SYSTEM_PERFORMANCE_DB, loss)
+
+
+def _parse_radio(value, chk: _Checker) -> RadioNetwork:
+    sec = chk.optional_section(value, "radio", _RADIO_KEYS)
+    if sec is None:
+        return RadioNetwork()
+    range_m = chk.number(sec.get("range_m", DEFAULT_RADIO_RANGE_M), "radio.range_m", lo=0.0,
+                         lo_open=True, unit="m", fix="give the distance two node radios reach")
+    gateway = sec.get("gateway_m", _MISSING)
+    gateway = None if gateway is _MISSING else chk.vector(gateway, "radio.gateway_m")
+    return RadioNetwork(range_m if range_m is not None else DEFAULT_RADIO_RANGE_M, gateway)
 
 
 # --------------------------------------------------------------------------

@@ -9,6 +9,7 @@ from __future__ import annotations
 import contextlib
 import csv
 import io
+import json
 import math
 
 import numpy as np
@@ -248,3 +249,93 @@ def test_simulate_outliers_out_lists_the_injected_outliers(files, tmp_path):
     assert len(rows) == round(0.05 * N_NODES * (N_NODES - 1))
     assert all(10.0 <= abs(float(r["error_ns"])) <= 30.0 for r in rows)
     assert f"{len(rows)} gross outliers" in stdout
+
+
+# -------------------------------------------------------------- survey design
+
+DESIGN_FILES = ("nodes.csv", "candidates.csv", "pairs.csv", "pairs.graphml", "pairs_summary.json",
+                "mesh.graphml", "mesh_summary.json", "schedule.csv", "schedule_summary.json", "manifest.json")
+
+
+def test_simulate_leaves_out_pairs_below_the_link_budget(files, tmp_path):
+    # nodes in one vertical hole lie on each other's dipole axis, the pattern null (common
+    # practice, no published source): with 7 nodes per hole, 2 x 7 x 6 ordered pairs are missed;
+    # every other pair in this 20 m box is far inside the 100 dB default budget
+    out = tmp_path / "picks.csv"
+    code, stdout, stderr = _simulate(files, out, "--rays", "straight", "--executor", "serial", "--quiet",
+                                     "--link-budget")
+    assert code == 0, stderr
+    picks = read_picks(out, read_nodes(files["nodes"]))
+    assert len(picks) == N_NODES * (N_NODES - 1) - 2 * 7 * 6
+    assert "84 picks missed below the link budget" in stdout
+    code, stdout, stderr = _simulate(files, out, "--fade-sigma", "3")
+    _assert_user_error(code, stdout, stderr, "--fade-sigma needs --link-budget")
+
+
+def test_design_writes_every_file_and_a_manifest(files, tmp_path):
+    files["site"].write_text(SITE_YAML + "radio: {range_m: 15, gateway_m: [0, 5, 19]}\n", encoding="utf-8")
+    before = files["site"].read_bytes()
+    out = tmp_path / "design"
+    code, stdout, stderr = _run(["design", files["site"], "--budget", "30", "--out", out, "--quiet"])
+    assert code == 0, stderr
+    assert sorted(p.name for p in out.iterdir()) == sorted(DESIGN_FILES)
+    nodes = read_nodes(out / "nodes.csv")
+    assert 2 <= len(nodes) <= 30
+    manifest = json.loads((out / "manifest.json").read_text())
+    assert manifest["command"] == "plan design" and manifest["parameters"]["budget"] == 30
+    assert sorted(manifest["outputs"]) == sorted(DESIGN_FILES)
+    assert manifest["inputs"]["site"]["sha256"]
+    pairs = json.loads((out / "pairs_summary.json").read_text())
+    assert pairs["stations"] == len(nodes)
+    mesh = json.loads((out / "mesh_summary.json").read_text())
+    assert mesh["stations"]["node"] == len(nodes)
+    schedule = json.loads((out / "schedule_summary.json").read_text())
+    assert schedule["slots"] + len(schedule["silent_nodes"]) == len(nodes)
+    assert "layout:" in stdout and "pairs:" in stdout and "radio mesh:" in stdout and "schedule:" in stdout
+    assert "rule of thumb 12.0 to 18.0 m" in stdout  # 10 and 15 wavelengths of 1.2 m
+    assert files["site"].read_bytes() == before
+    assert [p.name for p in out.iterdir() if "partial" in p.name] == []
+    # a later command in the same folder keeps the earlier manifest inside its own
+    code, stdout, stderr = _run(["pairs", files["site"], "--nodes", out / "nodes.csv", "--out", out, "--quiet"])
+    assert code == 0, stderr
+    manifest = json.loads((out / "manifest.json").read_text())
+    assert manifest["command"] == "plan pairs" and manifest["earlier_runs"][0]["command"] == "plan design"
+
+
+def test_layout_mesh_and_schedule_commands(files, tmp_path):
+    out = tmp_path / "plan"
+    code, stdout, stderr = _run(["layout", files["site"], "--budget", "12", "--pattern", "regular", "--out", out])
+    assert code == 0, stderr
+    assert sorted(p.name for p in out.iterdir()) == ["candidates.csv", "manifest.json", "nodes.csv"]
+    code, stdout, stderr = _run(["schedule", files["site"], "--nodes", files["nodes"], "--out", out,
+                                 "--transmitters", "cover", "--quiet"])
+    assert code == 0, stderr
+    assert (out / "schedule.csv").is_file() and "schedule:" in stdout
+    # no gateway in this site: the mesh needs one
+    code, stdout, stderr = _run(["mesh", files["site"], "--nodes", files["nodes"], "--out", out])
+    _assert_user_error(code, stdout, stderr, "radio.gateway_m is missing")
+
+
+@pytest.mark.parametrize("argv_tail, fragments", [
+    (["--budget", "1"], ["budget (--budget) must be a whole number from 2 to 20000 (got 1)"]),
+    (["--budget", "10", "--hole-share", "0.9", "--face-share", "0.5"], ["hole_share + face_share must be at most 1"]),
+])
+def test_layout_bad_options_are_user_errors(files, tmp_path, argv_tail, fragments):
+    code, out, err = _run(["layout", files["site"], "--out", tmp_path / "x", *argv_tail])
+    _assert_user_error(code, out, err, *fragments)
+
+
+def test_pairs_unknown_hole_is_a_user_error(files, tmp_path):
+    files["nodes"].write_text(_node_text().replace(",BH2\n", ",BH9\n", 1), encoding="utf-8")
+    code, out, err = _run(["pairs", files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x"])
+    _assert_user_error(code, out, err, "names borehole 'BH9', which is not in the site description")
+
+
+@pytest.mark.parametrize("command, option, value, fragment", [
+    ("pairs", "--system-performance", "nan", "--system-performance must be a number > 0 in dB (got nan)"),
+    ("mesh", "--radio-range", "-5", "--radio-range must be a number > 0 in metres (got -5.0)"),
+])
+def test_bad_overrides_are_user_errors(files, tmp_path, command, option, value, fragment):
+    files["site"].write_text(SITE_YAML + "radio: {gateway_m: [0, 5, 19]}\n", encoding="utf-8")
+    code, out, err = _run([command, files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x", option, value])
+    _assert_user_error(code, out, err, fragment)

@@ -229,3 +229,18 @@ def test_outliers_leave_the_other_picks_unchanged():
     np.testing.assert_array_equal(dirty.time_ns[~dirty.outlier], clean.time_ns[~dirty.outlier])
     np.testing.assert_allclose(dirty.time_ns - clean.time_ns, dirty.outlier_error_ns, atol=1e-12)
     assert not clean.outlier.any()
+
+
+def test_missed_picks_are_those_below_the_link_budget_and_fades_are_seeded():
+    from plan.simulate import drop_missed_picks
+
+    survey = simulate_picks(_site(), _rock_nodes(6), _quiet(), rays="straight")
+    margin = np.linspace(-5.0, 5.0, survey.tx.size)
+    kept, missed = drop_missed_picks(survey, margin)
+    np.testing.assert_array_equal(missed, margin < 0)
+    np.testing.assert_array_equal(kept.time_ns, survey.time_ns[margin >= 0])
+    np.testing.assert_array_equal(kept.tx, survey.tx[margin >= 0])
+    one = drop_missed_picks(survey, margin, fade_sigma_db=3.0, seed=2)[1]
+    two = drop_missed_picks(survey, margin, fade_sigma_db=3.0, seed=2)[1]
+    np.testing.assert_array_equal(one, two)
+    assert (one != missed).any()  # a 3 dB fade turns some verdicts near 0 dB

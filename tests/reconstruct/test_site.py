@@ -66,7 +66,10 @@ def test_reference_file_loads_with_every_section():
     # hand geometry of the file's polygons: upper bench, sump inside the lower bench
     z = site.ground.elevation_m([10.0, 90.0, 70.0], [10.0, 25.0, 25.0])
     assert z.tolist() == [110, 94, 100]
-    assert [b.id for b in site.boreholes] == ["BH1", "BH2", "BH3"]
+    assert [b.id for b in site.boreholes] == ["BH1", "BH2", "BH3", "B17"]
+    assert [b.kind for b in site.boreholes] == ["borehole"] * 3 + ["blast_hole"]
+    assert site.radar.system_performance_db == 100 and site.radar.air_ground_loss_db == 1.0
+    assert site.radio.range_m == 100 and site.radio.gateway_m == (0.0, 30.0, 112.0)
     assert {w.geometry for w in site.planned_works} == {"polyline", "polygon"}
     assert site.exclusion_zones[0].contains(60.0, 52.0)
     assert site.source_path == str(REFERENCE)
@@ -328,9 +331,25 @@ def test_duplicate_borehole_ids(tmp_path):
                          "polyline_m": [[0, 0, 0], [1, 1, 1]]}]},
      "planned_works[0].kind 'haul road' is not one of haul_road, bench, blast_pattern; "
      "did you mean 'haul_road'?"),
+    ({"boreholes": [{**_hole("B1"), "kind": "blasthole"}]},
+     "boreholes[0].kind text 'blasthole' is not one of borehole, blast_hole; did you mean 'blast_hole'?"),
+    ({"radar": {"system_performance_db": -3}},
+     "radar.system_performance_db must be greater than 0 dB (got -3)"),
+    ({"radar": {"air_ground_loss": 2}},
+     "radar.air_ground_loss is not a known key; did you mean 'air_ground_loss_db'?"),
+    ({"radio": {"range_m": 0}}, "radio.range_m must be greater than 0 m (got 0)"),
+    ({"radio": {"gateway_m": [1, 2]}}, "radio.gateway_m must be a list of 3 numbers [x, y, z] in m"),
+    ({"range_m": 50}, "range_m is not a known key; it belongs under radio"),
 ])
 def test_other_bad_values(tmp_path, changes, expected):
     assert expected in _message(tmp_path, _site(**changes))
+
+
+def test_radar_and_radio_defaults_when_left_out(tmp_path):
+    site = load_site(_write(tmp_path, _site()))
+    assert site.radar.system_performance_db == 100.0 and site.radar.air_ground_loss_db is None
+    assert site.radio.range_m == 100.0 and site.radio.gateway_m is None
+    assert [h.kind for h in load_site(_write(tmp_path, _site(boreholes=[_hole("B1")]))).boreholes] == ["borehole"]
 
 
 def test_duplicate_yaml_key_is_reported_with_its_line(tmp_path):

@@ -1,8 +1,11 @@
 """voidcube.plan: survey design on top of ``reconstruct``.
 
-So far: describing a site's model and simulating a survey from a truth model.
+So far: describing a site's model, simulating a survey from a truth model, coverage and
+layout optimisation (``plan.recovery`` holds the recovery tests; it loads the eikonal solver).
 """
 
+from .coverage import Coverage, CoverageStandard, compute_coverage
+from .optimise import OptimiseOptions, optimise_layout
 from .simulate import SimulatedSurvey, all_pairs, refined_grid, simulate_picks
 from .truth import Body, TruthModel, load_truth, parse_truth, truth_velocity
 
@@ -16,4 +19,9 @@ __all__ = [
     "load_truth",
     "parse_truth",
     "truth_velocity",
+    "Coverage",
+    "CoverageStandard",
+    "compute_coverage",
+    "OptimiseOptions",
+    "optimise_layout",
 ]

@@ -448,8 +448,11 @@ def run_recovery_tests(
             unseen = [v for v in rows if "largest_time_change_ns" in v and not v["seen_in_data"]]
             kind = "fast" if FILL_VELOCITY_M_PER_NS[fill] > rock_v else "slow"
             if ok:
+                missed = sorted(v["diameter_m"] for v in rows if v["diameter_m"] > ok[0] and not v["resolved"])
                 statements.append(f"{fill}-filled ({kind}) voids at {depth:g} m depth: the smallest resolved "
-                                  f"by this layout is {ok[0]:g} m across.")
+                                  f"by this layout is {ok[0]:g} m across"
+                                  + (f"; larger ones were not all resolved ({', '.join(f'{m:g}' for m in missed)} m "
+                                     "not): resolution is not a size threshold, check the table." if missed else "."))
             else:
                 statements.append(f"{fill}-filled ({kind}) voids at {depth:g} m depth: none of the sizes "
                                   f"tested ({', '.join(f'{s:g}' for s in sizes)} m) is resolved by this layout.")

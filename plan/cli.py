@@ -109,6 +109,70 @@ def _cmd_simulate(args) -> int:
     return 0
 
 
+def _say_printer(quiet: bool):
+    start = time.perf_counter()
+
+    def say(message):
+        if not quiet:
+            print(f"[{time.perf_counter() - start:7.1f} s] {message}", file=sys.stderr, flush=True)
+
+    return say
+
+
+def _float_list(text: str):
+    try:
+        values = tuple(float(v) for v in text.split(",") if v.strip())
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected numbers separated by commas, e.g. 2,4,8 (got {text!r})") from None
+    if not values:
+        raise argparse.ArgumentTypeError("give at least one number")
+    return values
+
+
+def _add_standard_arguments(p: argparse.ArgumentParser):
+    g = p.add_argument_group("coverage standard and target volume")
+    g.add_argument("--min-rays", type=int, default=5, metavar="N",
+                   help="rays that must cross a target cell (default 5)")
+    g.add_argument("--min-angular", type=float, default=0.3, metavar="A",
+                   help="lowest angular coverage of a target cell, 0..1 (default 0.3)")
+    g.add_argument("--max-resolution", type=float, default=None, metavar="M",
+                   help="widest acceptable resolution floor (first Fresnel zone width), metres (default: not used)")
+    g.add_argument("--depth-of-interest", type=float, default=30.0, metavar="M",
+                   help="depth below the ground or the planned work down to which the target reaches (default 30 m)")
+    g.add_argument("--works-buffer", type=float, default=5.0, metavar="M",
+                   help="plan-view margin around planned works, and half-width of haul roads (default 5 m)")
+    g.add_argument("--max-distance", type=float, default=None, metavar="M",
+                   help="pairs further apart are not recorded (link range), metres (default: every pair)")
+
+
+def _standard_from(args):
+    from .coverage import CoverageStandard
+
+    return CoverageStandard(min_rays=args.min_rays, min_angular_coverage=args.min_angular,
+                            max_resolution_m=args.max_resolution, depth_of_interest_m=args.depth_of_interest,
+                            works_buffer_m=args.works_buffer, max_distance_m=args.max_distance)
+
+
+def _placed(site, nodes):
+    from reconstruct.placement import place_nodes
+    from reconstruct.workflow import model_grid
+
+    grid, ground = model_grid(site)
+    return place_nodes(nodes, grid, ground).xyz_m
+
+
+def _output_folder(out) -> Path:
+    path = Path(out)
+    if path.exists() and not path.is_dir():
+        raise InputError(f"--out {out}: this is an existing file, not a folder; give a folder path")
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        raise InputError(f"{out}: cannot create the output folder ({error.strerror}); "
+                         "choose a folder you can write to") from None
+    return path
+
+
 # --------------------------------------------------------------------------
 # survey design: layout, pairs, mesh, schedule
 
@@ -308,6 +372,81 @@ def _cmd_design(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------- coverage, recovery, optimisation, report
+
+
+def _cmd_coverage(args) -> int:
+    from reconstruct.outputs import utc_now_iso, write_cell_arrays_vti, write_json_atomic
+    from reconstruct.site import load_site
+    from reconstruct.tables import read_nodes
+
+    from .coverage import compute_coverage, coverage_cell_arrays
+
+    started = utc_now_iso()
+    out = _output_folder(args.out)
+    say = _say_printer(args.quiet)
+    standard = _standard_from(args)
+    site = load_site(args.site)
+    nodes = read_nodes(args.nodes)
+    coverage = compute_coverage(site, _placed(site, nodes), standard, progress=say)
+    written = [write_cell_arrays_vti(out / "coverage.vti", coverage.grid, coverage_cell_arrays(coverage)),
+               write_json_atomic(out / "coverage_summary.json", coverage.summary())]
+    _write_manifest(out, "plan coverage", {"site": args.site, "nodes": args.nodes}, args, written, started)
+    _print_coverage(coverage, out)
+    return 0
+
+
+def _print_coverage(coverage, out):
+    tv = coverage.summary()["target_volume"]
+    print(f"layout: {coverage.n_nodes} nodes, {coverage.n_rays:,} rays")
+    print(f"target volume: {tv['cells']:,} cells ({tv['description']})")
+    print(f"covered to the standard: {100 * tv['covered_fraction']:.1f} % (score {tv['score']:.3f}); "
+          f"{tv['cells_without_rays']:,} target cells without rays")
+    floor = tv["resolution_floor_m"]["median"]
+    if floor is not None:
+        print(f"resolution floor (first Fresnel zone width): median {floor:.2f} m in the target volume")
+    print(f"output: {out}")
+
+
+def _cmd_recover(args) -> int:
+    from reconstruct.outputs import utc_now_iso, write_csv_atomic, write_json_atomic
+    from reconstruct.parallel import executor_from_options
+    from reconstruct.site import load_site
+    from reconstruct.tables import read_nodes
+
+    from .recovery import RecoveryOptions, run_recovery_tests
+
+    started = utc_now_iso()
+    out = _output_folder(args.out)
+    say = _say_printer(args.quiet)
+    standard = _standard_from(args)
+    options = RecoveryOptions(void_sizes_m=args.void_sizes or (), depths_m=args.depths or (),
+                              fills=tuple(args.fills.split(",")), noise_sigma_ns=args.noise,
+                              max_cells=args.max_cells, checker_size_m=args.checker_size, seed=args.seed)
+    site = load_site(args.site)
+    nodes = read_nodes(args.nodes)
+    executor = executor_from_options(args.executor, args.workers, None)
+    result = run_recovery_tests(site, nodes, standard, options, executor=executor, progress=say)
+    columns = ["fill", "velocity_m_per_ns", "depth_m", "diameter_m", "largest_time_change_ns",
+               "pairs_changed_beyond_2_sigma", "seen_in_data", "recovered_change_m_per_ns",
+               "true_cell_change_m_per_ns", "background_spread_m_per_ns", "strongest_anomaly_distance_m",
+               "resolved", "note"]
+    written = [
+        write_json_atomic(out / "recovery_summary.json", result.summary()),
+        write_csv_atomic(out / "recovery.csv", columns,
+                         ([("" if v.get(c) is None else v.get(c)) for c in columns] for v in result.voids)),
+    ]
+    _write_manifest(out, "plan recover", {"site": args.site, "nodes": args.nodes}, args, written, started)
+    c = result.checkerboard
+    corr = "n/a" if c["correlation"] is None else f"{c['correlation']:.3f}"
+    print(f"recovery grid: cells of {result.grid.cell_m[0]:g} m; {result.n_pairs:,} pairs")
+    print(f"checkerboard ({c['cube_m']:g} m cubes): correlation {corr}")
+    for statement in result.statements:
+        print(statement)
+    print(f"output: {out}")
+    return 0
+
+
 def _add_layout_arguments(p):
     g = p.add_argument_group("layout")
     g.add_argument("--budget", type=int, required=True, metavar="N", help="largest number of nodes")
@@ -411,6 +550,111 @@ def _add_design_parsers(sub):
         description="Run layout, pairs, mesh (when the site gives a gateway) and schedule into one folder.",
         func=_cmd_design, nodes=False,
         groups=(_add_layout_arguments, _add_pairs_arguments, _add_mesh_arguments, _add_schedule_arguments))
+def _cmd_optimise(args) -> int:
+    import numpy as np
+
+    from reconstruct.outputs import utc_now_iso, write_csv_atomic, write_json_atomic
+    from reconstruct.site import load_site
+    from reconstruct.tables import read_nodes
+
+    from .coverage import compute_coverage
+    from .optimise import OptimiseOptions, optimise_layout
+
+    started = utc_now_iso()
+    out = _output_folder(args.out)
+    say = _say_printer(args.quiet)
+    standard = _standard_from(args)
+    site = load_site(args.site)
+    candidates = read_nodes(args.candidates)
+    start_nodes = read_nodes(args.nodes)
+    cand_xyz, start_xyz = _placed(site, candidates), _placed(site, start_nodes)
+    # the pool: the start layout, then every candidate not already at a start position
+    pool_xyz, pool_rows = [*start_xyz], [(start_nodes, k) for k in range(len(start_nodes))]
+    taken = {tuple(np.round(p, 6)) for p in start_xyz}
+    for k, p in enumerate(cand_xyz):
+        if tuple(np.round(p, 6)) not in taken:
+            taken.add(tuple(np.round(p, 6)))
+            pool_xyz.append(p)
+            pool_rows.append((candidates, k))
+    budget = args.budget if args.budget is not None else len(start_nodes)
+    options = OptimiseOptions(budget=budget, max_swaps=args.max_swaps, max_target_samples=args.max_samples,
+                              time_limit_s=args.time_limit)
+    result = optimise_layout(site, np.asarray(pool_xyz), np.arange(len(start_nodes)), standard, options,
+                             progress=say)
+    used_ids, rows = set(), []
+    for index in result.selected:
+        table, k = pool_rows[index]
+        node_id = table.ids[k]
+        while node_id in used_ids:
+            node_id += "-c"
+        used_ids.add(node_id)
+        x, y, z = table.xyz_m[k]
+        rows.append([node_id, f"{x:.3f}", f"{y:.3f}", f"{z:.3f}", table.kinds[k] or "", table.boreholes[k] or ""])
+    say("coverage of the start and optimised layouts on the model grid")
+    full_start = compute_coverage(site, start_xyz, standard)
+    full_end = compute_coverage(site, np.asarray(pool_xyz)[result.selected], standard)
+    summary = {
+        "budget": budget, "start_nodes": len(start_nodes), "candidates": len(candidates),
+        "pool_positions": len(pool_xyz), "optimised_nodes": int(result.selected.size),
+        "score_start": result.start_score, "score_optimised": result.score, "gain": result.gain,
+        "score_note": (f"coverage score on every {result.sample_step}. target cell along each axis "
+                       f"({result.n_samples:,} cells); resolution condition left out of the search"),
+        "model_grid": {
+            "score_start": full_start.score, "score_optimised": full_end.score,
+            "covered_fraction_start": full_start.covered_fraction,
+            "covered_fraction_optimised": full_end.covered_fraction,
+        },
+        "swaps": sum(1 for h in result.history if h["action"] == "swap"),
+        "adds": sum(1 for h in result.history if h["action"] == "add"),
+        "stop_reason": result.stop_reason, "seconds": result.seconds,
+        "candidate_pairs": result.n_candidate_pairs, "standard": standard.as_dict(),
+    }
+    written = [
+        write_csv_atomic(out / "nodes_optimised.csv", ["node_id", "x_m", "y_m", "z_m", "kind", "borehole"], rows),
+        write_json_atomic(out / "optimise_summary.json", summary),
+    ]
+    _write_manifest(out, "plan optimise", {"site": args.site, "candidates": args.candidates, "nodes": args.nodes},
+                    args, written, started)
+    print(f"score: start layout {result.start_score:.4f}, optimised {result.score:.4f} "
+          f"(gain {result.gain:+.4f}; {summary['swaps']} swaps, {summary['adds']} adds; {result.stop_reason})")
+    print(f"on the model grid: covered {100 * full_start.covered_fraction:.1f} % -> "
+          f"{100 * full_end.covered_fraction:.1f} % of the target volume")
+    print(f"output: {out}")
+    return 0
+
+
+def _cmd_report(args) -> int:
+    from reconstruct.outputs import utc_now_iso, write_cell_arrays_vti, write_json_atomic, write_text_atomic
+    from reconstruct.site import load_site
+    from reconstruct.tables import read_nodes
+
+    from .coverage import compute_coverage, coverage_cell_arrays
+    from .plan_report import plan_report_html
+
+    started = utc_now_iso()
+    folder = Path(args.dir)
+    if not folder.is_dir():
+        raise InputError(f"{args.dir}: no such plan folder; give the folder the plan commands wrote into")
+    nodes_path = args.nodes or folder / "nodes.csv"
+    if not Path(nodes_path).is_file():
+        raise InputError(f"{nodes_path}: no node table; give --nodes NODES.csv or put nodes.csv in {args.dir}")
+    say = _say_printer(args.quiet)
+    standard = _standard_from(args)
+    site = load_site(args.site)
+    nodes = read_nodes(nodes_path)
+    xyz = _placed(site, nodes)
+    coverage = compute_coverage(site, xyz, standard, progress=say)
+    say("writing coverage.vti and the report")
+    page, used = plan_report_html(site, coverage, nodes.ids, xyz, nodes.kinds, folder)
+    written = [write_cell_arrays_vti(folder / "coverage.vti", coverage.grid, coverage_cell_arrays(coverage)),
+               write_json_atomic(folder / "coverage_summary.json", coverage.summary()),
+               write_text_atomic(folder / "plan_report.html", page)]
+    inputs = {"site": args.site, "nodes": str(nodes_path)}
+    inputs.update({name: str(folder / name) for name in used})
+    _write_manifest(folder, "plan report", inputs, args, written, started)
+    _print_coverage(coverage, folder)
+    print(f"report: {folder / 'plan_report.html'}" + (f" (also shows {', '.join(used)})" if used else ""))
+    return 0
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -457,6 +701,86 @@ def build_parser() -> argparse.ArgumentParser:
                         "(seeded by the truth model's seed; default 0)")
     p.set_defaults(func=_cmd_simulate)
     _add_design_parsers(sub)
+
+    p = sub.add_parser(
+        "coverage", help="ray coverage, angular coverage and resolution floor of a layout",
+        description="Ray count and length, angular coverage (direction tensor) and resolution floor (first "
+                    "Fresnel zone) per cell for every pair of a node table, with straight rays, and the share "
+                    "of the target volume (under the planned works) covered to a stated standard. Writes "
+                    "coverage.vti, coverage_summary.json and manifest.json into OUT.",
+        epilog=_UNITS)
+    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--nodes", required=True, help="node table (CSV) of the layout")
+    p.add_argument("--out", required=True, help="plan folder (created if missing)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    _add_standard_arguments(p)
+    p.set_defaults(func=_cmd_coverage)
+
+    p = sub.add_parser(
+        "recover", help="checkerboard and void recovery tests of a layout with the real inversion",
+        description="Invert synthetic data of a checkerboard and of voids (air, water or clay) of chosen "
+                    "sizes at chosen depths under the planned works, on a coarser copy of the model grid; "
+                    "report the smallest void resolved at each depth and the voids no first arrival can "
+                    "show. Writes recovery_summary.json, recovery.csv and manifest.json into OUT.",
+        epilog=_UNITS)
+    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--nodes", required=True, help="node table (CSV) of the layout")
+    p.add_argument("--out", required=True, help="plan folder (created if missing)")
+    p.add_argument("--void-sizes", type=_float_list, default=None, metavar="D1,D2,...",
+                   help="void diameters, metres (default 1.5, 3 and 5 recovery cells)")
+    p.add_argument("--depths", type=_float_list, default=None, metavar="Z1,Z2,...",
+                   help="depths of the void centres below the ground, metres (default 1/4, 1/2, 3/4 of the "
+                        "depth of interest)")
+    p.add_argument("--fills", default="air,clay", metavar="F1,F2",
+                   help="void fills from air, water, clay (default air,clay: one fast, one slow)")
+    p.add_argument("--noise", type=float, default=0.5, metavar="NS", help="pick noise, ns (default 0.5)")
+    p.add_argument("--max-cells", type=int, default=12000, metavar="N",
+                   help="largest number of ground cells of the recovery grid (default 12000)")
+    p.add_argument("--checker-size", type=float, default=None, metavar="M",
+                   help="checkerboard cube edge, metres (default 4 recovery cells)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the noise (default 0)")
+    p.add_argument("--executor", choices=("serial", "processes"), default="processes",
+                   help="where the travel-time fields are computed (default: a local process pool)")
+    p.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="number of worker processes (default: all cores)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    _add_standard_arguments(p)
+    p.set_defaults(func=_cmd_recover)
+
+    p = sub.add_parser(
+        "optimise", help="raise the coverage score by greedy adds and swaps among candidate positions",
+        description="Start from a layout (normally the regular grid), add candidates up to the budget and "
+                    "swap nodes for candidates while the coverage score of the target volume rises. Never "
+                    "returns a lower score than the start. Writes nodes_optimised.csv, "
+                    "optimise_summary.json and manifest.json into OUT.",
+        epilog=_UNITS)
+    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--candidates", required=True, help="candidate positions (CSV, node table format)")
+    p.add_argument("--nodes", required=True, help="start layout (CSV, node table format)")
+    p.add_argument("--out", required=True, help="plan folder (created if missing)")
+    p.add_argument("--budget", type=int, default=None, metavar="N",
+                   help="largest number of nodes (default: as many as the start layout)")
+    p.add_argument("--max-swaps", type=int, default=400, metavar="N", help="swap limit (default 400)")
+    p.add_argument("--time-limit", type=float, default=None, metavar="S",
+                   help="stop swapping after S seconds (default: no limit)")
+    p.add_argument("--max-samples", type=int, default=20000, metavar="N",
+                   help="largest number of target cells the score is evaluated on (default 20000)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    _add_standard_arguments(p)
+    p.set_defaults(func=_cmd_optimise)
+
+    p = sub.add_parser(
+        "report", help="coverage.vti and an HTML plan report for a plan folder",
+        description="Compute the coverage of the layout in DIR (DIR/nodes.csv or --nodes) and write "
+                    "coverage.vti, coverage_summary.json and plan_report.html into DIR, with plan-view maps, "
+                    "coverage slices, and the other planning results found in DIR.",
+        epilog=_UNITS)
+    p.add_argument("dir", help="plan folder")
+    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--nodes", default=None, help="node table (CSV); default DIR/nodes.csv")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    _add_standard_arguments(p)
+    p.set_defaults(func=_cmd_report)
     return parser
 
 

@@ -279,6 +279,21 @@ def _crosshole_void_ratio():
     return t / straight
 
 
+def test_axis_through_an_air_filled_cube():
+    # Fermat's principle (Cerveny 2001, Seismic Ray Theory, sec. 3.1): between two
+    # points on the axis of an air-filled cube in rock the straight line is the
+    # first-arrival path (any detour lengthens the rock part), so
+    # t = (L - a) / v + a / c. Measured 0.31 % early (the wave entering a closed
+    # void over its whole face; see the module notes); the 0.5 % holds.
+    grid = Grid((0, 0, 0), (1, 1, 1), (40, 20, 20))
+    s = np.full(grid.shape, 1 / 0.12)
+    s[16:24, 6:14, 6:14] = 1 / 0.2998
+    src, rx = np.array([2.5, 10.0, 10.0]), np.array([37.5, 10.0, 10.0])
+    t = travel_time_field(grid, s, src).interpolate(rx)[0]
+    exact = (35.0 - 8.0) / 0.12 + 8.0 / 0.2998
+    assert abs(t / exact - 1) <= 0.005
+
+
 def test_crosshole_void_never_later_than_straight_ray_target():
     # Fermat's principle (Cerveny, V. (2001), Seismic Ray Theory, CUP, sec. 3.1):
     # the first arrival is no later than the time along any path, the straight

@@ -66,8 +66,10 @@ Measured (1 m cells, default options, this machine, 2 cores, shared)
 * 200 x 60 x 70 cells with ground, air and a void, whole box: 1.5-2.7 s CPU
   per field against 0.5-0.8 s for scikit-fmm (order 2, one-cell source) in
   the same run, ratio 2.3-3.5 on a loaded machine (the one-family solver
-  before the wave families: 1.9-2.5). Memory: 6.6 MiB of times per field and
-  about 40 MiB while solving (two families, heap, flags).
+  before the wave families: 1.9-2.5); 2.71 in benchmarks/bench_eikonal.py on
+  a quiet machine. Memory grows linearly with the lattice points n: 24n bytes
+  kept per field (first arrivals and two families: 20 MiB here) and about 58n
+  while solving (48 MiB); a process holds one field at a time.
 * Homogeneous: exact to 1e-12 at lattice points and, with TimeField's
   apparent-slowness interpolation, between them (crosshole pairs 2-16 m).
 * Surface source over a flat ground, receivers 5-80 m on and under the

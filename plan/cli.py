@@ -6,8 +6,6 @@ Thin layer: parse, call the library, write files, print a summary.
 from __future__ import annotations
 
 import argparse
-import sys
-import time
 from pathlib import Path
 
 from reconstruct import __version__
@@ -55,12 +53,7 @@ def _cmd_simulate(args) -> int:
     from .simulate import simulate_picks
     from .truth import load_truth
 
-    start = time.perf_counter()
-
-    def say(message):
-        if not args.quiet:
-            print(f"[{time.perf_counter() - start:7.1f} s] {message}", file=sys.stderr, flush=True)
-
+    say = _progress_printer(args.quiet)
     if not (np.isfinite(args.fade_sigma) and args.fade_sigma >= 0):
         raise InputError(f"--fade-sigma must be a number >= 0 in dB (got {args.fade_sigma:g})")
     if args.fade_sigma and not args.link_budget:
@@ -109,16 +102,6 @@ def _cmd_simulate(args) -> int:
     return 0
 
 
-def _say_printer(quiet: bool):
-    start = time.perf_counter()
-
-    def say(message):
-        if not quiet:
-            print(f"[{time.perf_counter() - start:7.1f} s] {message}", file=sys.stderr, flush=True)
-
-    return say
-
-
 def _float_list(text: str):
     try:
         values = tuple(float(v) for v in text.split(",") if v.strip())
@@ -162,15 +145,12 @@ def _placed(site, nodes):
 
 
 def _output_folder(out) -> Path:
-    path = Path(out)
-    if path.exists() and not path.is_dir():
-        raise InputError(f"--out {out}: this is an existing file, not a folder; give a folder path")
-    try:
-        path.mkdir(parents=True, exist_ok=True)
-    except OSError as error:
-        raise InputError(f"{out}: cannot create the output folder ({error.strerror}); "
-                         "choose a folder you can write to") from None
-    return path
+    """The output folder, created if missing; a clear error if it is a file or cannot be made."""
+    from reconstruct.cli import _check_output_folder
+    from reconstruct.outputs import make_output_folder
+
+    _check_output_folder(out)
+    return make_output_folder(out)
 
 
 # --------------------------------------------------------------------------
@@ -384,7 +364,7 @@ def _cmd_coverage(args) -> int:
 
     started = utc_now_iso()
     out = _output_folder(args.out)
-    say = _say_printer(args.quiet)
+    say = _progress_printer(args.quiet)
     standard = _standard_from(args)
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
@@ -418,7 +398,7 @@ def _cmd_recover(args) -> int:
 
     started = utc_now_iso()
     out = _output_folder(args.out)
-    say = _say_printer(args.quiet)
+    say = _progress_printer(args.quiet)
     standard = _standard_from(args)
     options = RecoveryOptions(void_sizes_m=args.void_sizes or (), depths_m=args.depths or (),
                               fills=tuple(args.fills.split(",")), noise_sigma_ns=args.noise,
@@ -562,7 +542,7 @@ def _cmd_optimise(args) -> int:
 
     started = utc_now_iso()
     out = _output_folder(args.out)
-    say = _say_printer(args.quiet)
+    say = _progress_printer(args.quiet)
     standard = _standard_from(args)
     site = load_site(args.site)
     candidates = read_nodes(args.candidates)
@@ -638,7 +618,7 @@ def _cmd_report(args) -> int:
     nodes_path = args.nodes or folder / "nodes.csv"
     if not Path(nodes_path).is_file():
         raise InputError(f"{nodes_path}: no node table; give --nodes NODES.csv or put nodes.csv in {args.dir}")
-    say = _say_printer(args.quiet)
+    say = _progress_printer(args.quiet)
     standard = _standard_from(args)
     site = load_site(args.site)
     nodes = read_nodes(nodes_path)

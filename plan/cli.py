@@ -368,10 +368,18 @@ def _cmd_coverage(args) -> int:
     standard = _standard_from(args)
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
-    coverage = compute_coverage(site, _placed(site, nodes), standard, progress=say)
+    pairs = None
+    inputs = {"site": args.site, "nodes": args.nodes}
+    if args.pairs:
+        from .pair_graph import read_heard_pairs
+
+        pairs = read_heard_pairs(args.pairs, nodes.ids)
+        inputs["pairs"] = args.pairs
+        say(f"coverage of the {pairs[0].size:,} pairs heard by the link budget ({args.pairs})")
+    coverage = compute_coverage(site, _placed(site, nodes), standard, pairs=pairs, progress=say)
     written = [write_cell_arrays_vti(out / "coverage.vti", coverage.grid, coverage_cell_arrays(coverage)),
                write_json_atomic(out / "coverage_summary.json", coverage.summary())]
-    _write_manifest(out, "plan coverage", {"site": args.site, "nodes": args.nodes}, args, written, started)
+    _write_manifest(out, "plan coverage", inputs, args, written, started)
     _print_coverage(coverage, out)
     return 0
 
@@ -623,7 +631,13 @@ def _cmd_report(args) -> int:
     site = load_site(args.site)
     nodes = read_nodes(nodes_path)
     xyz = _placed(site, nodes)
-    coverage = compute_coverage(site, xyz, standard, progress=say)
+    pairs = None
+    if (folder / "pairs.csv").is_file():
+        from .pair_graph import read_heard_pairs
+
+        pairs = read_heard_pairs(folder / "pairs.csv", nodes.ids)
+        say(f"coverage of the {pairs[0].size:,} pairs heard by the link budget (pairs.csv)")
+    coverage = compute_coverage(site, xyz, standard, pairs=pairs, progress=say)
     say("writing coverage.vti and the report")
     page, used = plan_report_html(site, coverage, nodes.ids, xyz, nodes.kinds, folder)
     written = [write_cell_arrays_vti(folder / "coverage.vti", coverage.grid, coverage_cell_arrays(coverage)),
@@ -691,6 +705,9 @@ def build_parser() -> argparse.ArgumentParser:
         epilog=_UNITS)
     p.add_argument("--site", required=True, help="site description (YAML)")
     p.add_argument("--nodes", required=True, help="node table (CSV) of the layout")
+    p.add_argument("--pairs", default=None,
+                   help="pairs.csv of 'plan pairs': only the pairs heard by the link budget count "
+                        "(default: every pair within --max-distance)")
     p.add_argument("--out", required=True, help="plan folder (created if missing)")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     _add_standard_arguments(p)

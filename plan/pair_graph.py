@@ -179,6 +179,52 @@ def write_pairs_csv(path, pairs: PairGraph):
         for i in range(links.a.size)))
 
 
+def read_heard_pairs(path, ids):
+    """The heard pairs of a ``pairs.csv`` (written by :func:`write_pairs_csv`) as node indices.
+
+    Parameters
+    ----------
+    path : path of the CSV file
+    ids : sequence of str
+        Node ids in the order of the node table the indices refer to.
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        The two nodes of every pair with ``heard`` = 1.
+
+    Raises
+    ------
+    InputError
+        Naming the file and line: a missing column, an unknown node id, a
+        ``heard`` value other than 0 or 1.
+    """
+    import csv
+
+    index = {node_id: k for k, node_id in enumerate(ids)}
+    a, b = [], []
+    try:
+        with open(path, newline="", encoding="utf-8") as handle:
+            reader = csv.DictReader(handle)
+            missing = [c for c in ("node_a", "node_b", "heard") if c not in (reader.fieldnames or [])]
+            if missing:
+                raise InputError(f"{path}: missing column(s) {', '.join(missing)}; "
+                                 "give the pairs.csv written by 'plan pairs'")
+            for line, row in enumerate(reader, start=2):
+                if row["heard"] not in ("0", "1"):
+                    raise InputError(f"{path}, line {line}: heard must be 0 or 1 (got {row['heard']!r})")
+                unknown = [row[c] for c in ("node_a", "node_b") if row[c] not in index]
+                if unknown:
+                    raise InputError(f"{path}, line {line}: node {unknown[0]!r} is not in the node table; "
+                                     "use the node table the pairs were made for")
+                if row["heard"] == "1":
+                    a.append(index[row["node_a"]])
+                    b.append(index[row["node_b"]])
+    except OSError as error:
+        raise InputError(f"{path}: cannot read the pair table ({error.strerror})") from None
+    return np.asarray(a, dtype=np.int64), np.asarray(b, dtype=np.int64)
+
+
 def write_graphml(path, graph: nx.Graph):
     """Write a networkx graph as GraphML, atomically."""
     with atomic_path(path) as tmp:

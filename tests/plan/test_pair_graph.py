@@ -103,3 +103,19 @@ def test_too_few_or_too_many_nodes_are_refused(site, tmp_path, monkeypatch):
     monkeypatch.setattr(plan.pair_graph, "MAX_NODES", 5)
     with pytest.raises(InputError, match=r"7 nodes give 21 pairs, more than the pair table holds \(5 nodes at most\)"):
         build_pair_graph(site, _nodes(tmp_path, ROWS), link_budget_for_site(site))
+
+
+def test_read_heard_pairs_round_trip_and_errors(tmp_path):
+    from plan.pair_graph import read_heard_pairs
+
+    ids = ["A", "B", "C"]
+    path = tmp_path / "pairs.csv"
+    path.write_text("node_a,node_b,heard\nA,B,1\nA,C,0\nB,C,1\n", encoding="utf-8")
+    a, b = read_heard_pairs(path, ids)
+    assert a.tolist() == [0, 1] and b.tolist() == [1, 2]
+    path.write_text("node_a,node_b,heard\nA,Z,1\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"pairs.csv, line 2: node 'Z' is not in the node table"):
+        read_heard_pairs(path, ids)
+    path.write_text("node_a,node_b\nA,B\n", encoding="utf-8")
+    with pytest.raises(InputError, match="missing column"):
+        read_heard_pairs(path, ids)

@@ -392,15 +392,15 @@ def _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean):
 
 
 @njit(cache=True, inline='always')
-def _side_coefficients(T, state, fam, m, m1, m2, a, dd, h, smooth, second_order, two_ok, A, B, q):
+def _side_coefficients(T, state, fam, m1, m2, a, h, second_order, two_ok, A, B, q):
     """Plain one-sided difference of axis-side ``q`` from the values of family
-    ``fam`` (0, 1; 2: the earlier of the two). Returns (known, two, T1, T2)."""
+    ``fam`` (0, 1; 2: the earlier of the two). Returns (known, second order used)."""
     if fam == 2:
         t1 = min(T[2 * m1] if state[2 * m1] == 2 else np.inf, T[2 * m1 + 1] if state[2 * m1 + 1] == 2 else np.inf)
     else:
         t1 = T[2 * m1 + fam] if state[2 * m1 + fam] == 2 else np.inf
     if t1 == np.inf:
-        return False, False, 0.0, 0.0
+        return False, False
     two = False
     t2 = 0.0
     if second_order and two_ok:
@@ -415,7 +415,7 @@ def _side_coefficients(T, state, fam, m, m1, m2, a, dd, h, smooth, second_order,
     else:
         A[q] = 1.0 / h[a]
         B[q] = t1 / h[a]
-    return True, two, t1, t2
+    return True, two
 
 
 @njit(cache=True)
@@ -627,12 +627,12 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                             two1 = False
                             twom = False
                             if do1:
-                                ok, two1, t11, t12 = _side_coefficients(T, state, 1, m, m1, m2, a, dd, h, smooth,
-                                                                        second_order, two_ok, A1, B1, q)
+                                ok, two1 = _side_coefficients(T, state, 1, m1, m2, a, h, second_order, two_ok,
+                                                              A1, B1, q)
                                 k1[q] = ok
                             if dom:
-                                okm, twom, tm1, tm2 = _side_coefficients(T, state, 2, m, m1, m2, a, dd, h, smooth,
-                                                                         second_order, two_ok, Am, Bm, q)
+                                okm, twom = _side_coefficients(T, state, 2, m1, m2, a, h, second_order, two_ok,
+                                                               Am, Bm, q)
                                 km[q] = okm
                                 # a 1D update takes the additive factor only from a wave
                                 # already in the fast medium (family 1 earliest there), not

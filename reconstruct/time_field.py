@@ -70,7 +70,10 @@ class TimeField:
         i0 = np.minimum(np.floor(u).astype(np.int64), np.maximum(upper - 1, 0))
         return i0, u - i0
 
+    @cached_property
     def _distance_to_source(self):
+        """Distance of every lattice point to the source, metres (shared by the
+        first-arrival and the family interpolation)."""
         axes = [self.origin_m[a] + np.arange(self.times_ns.shape[a]) * self.spacing_m[a] for a in range(3)]
         return np.sqrt((axes[0][:, None, None] - self.source_xyz_m[0]) ** 2
                        + (axes[1][None, :, None] - self.source_xyz_m[1]) ** 2
@@ -90,13 +93,13 @@ class TimeField:
     @cached_property
     def apparent_slowness(self) -> np.ndarray:
         """``T / |x - x_s|`` at the lattice points, ns/m (at the source: its neighbours' mean)."""
-        return self._slowness_of(self.times_ns, self._distance_to_source())
+        return self._slowness_of(self.times_ns, self._distance_to_source)
 
     @cached_property
     def _family_slowness(self):
         if self.family_times_ns is None:
             return None
-        r = self._distance_to_source()
+        r = self._distance_to_source
         # where a family was not solved, its first arrival stands in for it: a
         # surface node's cell has the air wave above and, below, only the rock's
         # own family, which continues the same front
@@ -122,14 +125,12 @@ class TimeField:
         """Travel time at points (clamped to the lattice), shape (n,), ns."""
         p = np.atleast_2d(np.asarray(points_m, dtype=float))
         i0, f = self._cell_and_fraction(p)
-        out = self._trilinear(self.apparent_slowness, i0, f)
-        families = self._family_slowness
-        if families is not None:
-            best = np.full(out.shape, np.inf)
-            for q in families:
-                value = self._trilinear(q, i0, f)
-                best = np.minimum(best, np.where(np.isfinite(value), value, np.inf))
-            out = np.where(np.isfinite(best), best, out)
+        out = np.full(i0.shape[0], np.inf)
+        for q in self._family_slowness or ():
+            out = np.minimum(out, self._trilinear(q, i0, f))
+        missing = ~np.isfinite(out)
+        if missing.any():  # no families, or none solved around these points
+            out[missing] = self._trilinear(self.apparent_slowness, i0[missing], f[missing])
         lo = np.asarray(self.origin_m)
         hi = lo + (np.asarray(self.times_ns.shape) - 1) * np.asarray(self.spacing_m)
         clamped = np.clip(p, lo, hi)

@@ -281,13 +281,12 @@ def _run_schedule(site, pairs, mesh, args, out: Path):
 
 
 def _start(args):
-    from reconstruct.cli import _check_output_folder
     from reconstruct.outputs import utc_now_iso
     from reconstruct.site import load_site
 
     started = utc_now_iso()
-    _check_output_folder(args.out)
-    return started, load_site(args.site), Path(args.out)
+    site = load_site(args.site)
+    return started, site, _output_folder(args.out)
 
 
 def _cmd_layout(args) -> int:
@@ -355,6 +354,15 @@ def _cmd_design(args) -> int:
 # ---------------------------------------------------------------- coverage, recovery, optimisation, report
 
 
+def _heard_pairs(path, nodes, say):
+    """The pairs of ``path`` (a pairs.csv of 'plan pairs') that the link budget hears."""
+    from .pair_graph import read_heard_pairs
+
+    pairs = read_heard_pairs(path, nodes.ids)
+    say(f"coverage of the {pairs[0].size:,} pairs heard by the link budget ({path})")
+    return pairs
+
+
 def _cmd_coverage(args) -> int:
     from reconstruct.outputs import utc_now_iso, write_cell_arrays_vti, write_json_atomic
     from reconstruct.site import load_site
@@ -368,14 +376,11 @@ def _cmd_coverage(args) -> int:
     standard = _standard_from(args)
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
-    pairs = None
     inputs = {"site": args.site, "nodes": args.nodes}
+    pairs = None
     if args.pairs:
-        from .pair_graph import read_heard_pairs
-
-        pairs = read_heard_pairs(args.pairs, nodes.ids)
+        pairs = _heard_pairs(args.pairs, nodes, say)
         inputs["pairs"] = args.pairs
-        say(f"coverage of the {pairs[0].size:,} pairs heard by the link budget ({args.pairs})")
     coverage = compute_coverage(site, _placed(site, nodes), standard, pairs=pairs, progress=say)
     written = [write_cell_arrays_vti(out / "coverage.vti", coverage.grid, coverage_cell_arrays(coverage)),
                write_json_atomic(out / "coverage_summary.json", coverage.summary())]
@@ -631,12 +636,7 @@ def _cmd_report(args) -> int:
     site = load_site(args.site)
     nodes = read_nodes(nodes_path)
     xyz = _placed(site, nodes)
-    pairs = None
-    if (folder / "pairs.csv").is_file():
-        from .pair_graph import read_heard_pairs
-
-        pairs = read_heard_pairs(folder / "pairs.csv", nodes.ids)
-        say(f"coverage of the {pairs[0].size:,} pairs heard by the link budget (pairs.csv)")
+    pairs = _heard_pairs(folder / "pairs.csv", nodes, say) if (folder / "pairs.csv").is_file() else None
     coverage = compute_coverage(site, xyz, standard, pairs=pairs, progress=say)
     say("writing coverage.vti and the report")
     page, used = plan_report_html(site, coverage, nodes.ids, xyz, nodes.kinds, folder)

@@ -34,6 +34,9 @@ def _box_site():
 
 @pytest.mark.parametrize("seed", [0, 1, 2, 3])
 def test_never_returns_a_lower_score_than_its_start(seed):
+    # a greedy search that accepts only improving steps cannot end below its start
+    # (common practice, no published source); the scores are checked against
+    # compute_coverage in the next test
     site = _box_site()
     rng = np.random.default_rng(seed)
     pool = np.column_stack([rng.uniform(0.2, 23.8, 40), rng.uniform(0.2, 15.8, 40), rng.uniform(0.5, 11.9, 40)])

@@ -156,7 +156,9 @@ def test_background_is_the_rock_and_uncovered_bodies_get_low_confidence():
 
 def test_detection_threshold_reduces_to_the_normal_table():
     # with only the zero-dimensional term the expected Euler characteristic is the
-    # normal tail: two-sided 5 % is the textbook 1.960
+    # normal tail: two-sided 5 % is the textbook 1.960 (scipy.stats.norm.isf(0.025) =
+    # 1.959964; Worsley et al. (1996), "A unified statistical approach for determining
+    # significant signals in images of cerebral activation", Hum. Brain Mapp. 4)
     assert detection_sigmas((1.0, 0.0, 0.0, 0.0), 0.05) == pytest.approx(1.95996, abs=1e-4)
     # a larger search volume needs a higher threshold for the same false-alarm chance
     assert detection_sigmas((1.0, 10.0, 100.0, 1000.0), 0.05) > detection_sigmas((1.0, 1.0, 1.0, 10.0), 0.05)

@@ -63,13 +63,20 @@ Design
 
 Measured (1 m cells, default options, this machine, 2 cores, shared)
 -------------------------------------------------------------------
-* 200 x 60 x 70 cells with ground, air and a void, whole box: 1.5-2.7 s CPU
-  per field against 0.5-0.8 s for scikit-fmm (order 2, one-cell source) in
-  the same run, ratio 2.3-3.5 on a loaded machine (the one-family solver
-  before the wave families: 1.9-2.5); 2.71 in benchmarks/bench_eikonal.py on
-  a quiet machine. Memory grows linearly with the lattice points n: 24n bytes
-  kept per field (first arrivals and two families: 20 MiB here) and about 58n
-  while solving (48 MiB); a process holds one field at a time.
+* 200 x 60 x 70 cells with ground, air and a void, whole box: 0.54 s per
+  field against 0.34 s for scikit-fmm (order 2, one-cell source) in the same
+  run, ratio 1.6 (benchmarks/bench_eikonal.py, machine shared with other
+  work). Three changes took it from a ratio of about 2.7-3.0 without changing
+  any time by more than 1e-12 relative: the marching loop is compiled without
+  numba's reference counting (the array arguments of the inlined helpers cost
+  an atomic increment and decrement per call: a third of the run); a binary
+  heap with decrease-key instead of lazy deletion (three pops per point
+  before, two of them stale); and points whose eight cells are alike skip
+  the per-stencil search for the fastest cell and try only the upwind sides.
+  Memory grows linearly with the lattice points n: 24n bytes kept per field
+  (first arrivals and two families: 20 MiB here) and about 58n at the peak
+  while solving (measured from the resident set: 57 bytes per point); a
+  process holds one field at a time.
 * Homogeneous: exact to 1e-12 at lattice points and, with TimeField's
   apparent-slowness interpolation, between them (crosshole pairs 2-16 m).
 * Surface source over a flat ground, receivers 5-80 m on and under the
@@ -257,30 +264,24 @@ def _factor_region(slow, seed_cells, ratio):
 
 
 @njit(cache=True, inline='always')
-def _heap_push(hk, hv, size, key, val):
-    if size >= hk.shape[0]:
-        nk = np.empty(hk.shape[0] * 2)
-        nv = np.empty(hk.shape[0] * 2, dtype=np.int64)
-        nk[: hk.shape[0]] = hk
-        nv[: hk.shape[0]] = hv
-        hk, hv = nk, nv
-    pos = size
-    hk[pos] = key
-    hv[pos] = val
+def _heap_sift_up(hk, hv, hpos, pos, key, val):
+    """Move ``(key, val)`` up from slot ``pos`` of the binary heap to its place."""
     while pos > 0:
         parent = (pos - 1) >> 1
         if hk[parent] <= key:
             break
         hk[pos] = hk[parent]
         hv[pos] = hv[parent]
+        hpos[hv[pos]] = pos
         pos = parent
     hk[pos] = key
     hv[pos] = val
-    return hk, hv, size + 1
+    hpos[val] = pos
 
 
 @njit(cache=True, inline='always')
-def _heap_pop(hk, hv, size):
+def _heap_pop(hk, hv, hpos, size):
+    """Remove the smallest key of the heap; returns it, its value and the new size."""
     key = hk[0]
     val = hv[0]
     size -= 1
@@ -298,15 +299,20 @@ def _heap_pop(hk, hv, size):
                 break
             hk[pos] = hk[c]
             hv[pos] = hv[c]
+            hpos[hv[pos]] = pos
             pos = c
         hk[pos] = lk
         hv[pos] = lv
+        hpos[lv] = pos
     return key, val, size
 
 
 @njit(cache=True, inline='always')
-def _solve(A, B, s, use, m):
-    """Largest root tau of sum over used axes (A tau - B)^2 = s^2, or inf.
+def _solve(A, B, C, add, s, use, m):
+    """Largest root tau of sum over used axes (A tau - B)^2 = s^2, or inf
+    (``C`` instead of ``B`` when ``add``: the additive-factor coefficients;
+    passing both avoids choosing an array in the hot loop, which costs
+    reference counting).
 
     The root is kept only when every used difference is upwind (A tau - B >= 0):
     otherwise the stencil does not describe a front arriving from those
@@ -318,15 +324,17 @@ def _solve(A, B, s, use, m):
     for q in range(m):
         u = use[q]
         a += A[u] * A[u]
-        b += A[u] * B[u]
-        c += B[u] * B[u]
+        bu = C[u] if add else B[u]
+        b += A[u] * bu
+        c += bu * bu
     disc = b * b - a * c
     if disc < 0.0 or a <= 0.0:
         return np.inf
     tau = (b + math.sqrt(disc)) / a
     for q in range(m):
         u = use[q]
-        if A[u] * tau - B[u] < -1e-12 * (abs(B[u]) + s):
+        bu = C[u] if add else B[u]
+        if A[u] * tau - bu < -1e-12 * (abs(bu) + s):
             return np.inf
     return tau
 
@@ -392,6 +400,54 @@ def _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean):
 
 
 @njit(cache=True, inline='always')
+def _multi_axis_min(K, A, B, C, add, s, use, keep, nk):
+    """Smallest valid root over the 2D and 3D stencils of one coefficient set.
+
+    For a point whose eight cells are all alike (one slowness ``s``), the
+    candidates of all 12 face and 8 octant stencils reduce to those built from
+    non-dominated sides: a side with a larger or equal ``A`` and a smaller or
+    equal ``B`` than the other side of its axis gives, in every stencil, a
+    quadratic term at least as large at any time, so the stencil with it has a
+    valid root no later (the upwind choice of the Godunov form of the eikonal,
+    Sethian and Popovici 1999). The result equals the full enumeration.
+    """
+    for a in range(3):
+        q0 = 2 * a
+        q1 = q0 + 1
+        b0 = C[q0] if add else B[q0]
+        b1 = C[q1] if add else B[q1]
+        nk[a] = 0
+        if K[q0] == 1:
+            keep[a, nk[a]] = q0
+            nk[a] += 1
+        if K[q1] == 1:
+            keep[a, nk[a]] = q1
+            nk[a] += 1
+        if nk[a] == 2 and A[q0] > 0.0 and A[q1] > 0.0:
+            if A[q0] >= A[q1] and b0 <= b1:
+                nk[a] = 1
+            elif A[q1] >= A[q0] and b1 <= b0:
+                keep[a, 0] = q1
+                nk[a] = 1
+    best = np.inf
+    for a in range(3):
+        for b in range(a + 1, 3):
+            for ia in range(nk[a]):
+                for ib in range(nk[b]):
+                    use[0] = keep[a, ia]
+                    use[1] = keep[b, ib]
+                    best = min(best, _solve(A, B, C, add, s, use, 2))
+    for i0 in range(nk[0]):
+        for i1 in range(nk[1]):
+            for i2 in range(nk[2]):
+                use[0] = keep[0, i0]
+                use[1] = keep[1, i1]
+                use[2] = keep[2, i2]
+                best = min(best, _solve(A, B, C, add, s, use, 3))
+    return best
+
+
+@njit(cache=True, inline='always')
 def _side_coefficients(T, state, fam, m1, m2, a, h, second_order, two_ok, A, B, q):
     """Plain one-sided difference of axis-side ``q`` from the values of family
     ``fam`` (0, 1; 2: the earlier of the two). Returns (known, second order used)."""
@@ -418,43 +474,19 @@ def _side_coefficients(T, state, fam, m1, m2, a, h, second_order, two_ok, A, B, 
     return True, two
 
 
-@njit(cache=True)
-def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
-           second_order, smooth, seed_direct, xe, s1, targets, margin, dominance):
-    """Fast marching over the lattice with two wave families per point.
+@njit(cache=True, _nrt=False)
+def _march_loop(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
+                second_order, smooth, seed_direct, xe, s1, targets, margin, dominance, T, state, hk, hv, hpos,
+                h, strides, dims, Af, Bf, A1, B1, C1, Am, Bm, Cm, k0, k1, km, mf, cs, cf, ca, use, keep, nk,
+                ijk, g, uni, is_target):
+    """The marching loop of :func:`_march` over arrays it allocated.
 
-    Family 0 is the source's own wave in its smooth region (the factored form
-    of Fomel, Luo and Zhao 2009); family 1 every wave that crossed a sharp
-    contrast: the air wave, head waves, waves through a void (plain form).
-    Inside the source's region a stencil uses neighbours of one family only:
-    where the refracted air wave overtakes the direct wave a few metres from a
-    borehole source the two fronts cross at a kink, and stencils mixing them ran
-    up to 1.6 ns early. Where a stencil's governing cell lies outside the
-    region, family 1 takes each neighbour's earlier time: that is where the
-    source's wave crosses into another medium, and where a wave along the
-    interface feeds its head wave back into the source's medium. A point's
-    first arrival is the earlier of its two times.
-
-    A family's value more than ``dominance`` ns later than the other family's
-    at the same point is not marched on (along its own rays a family's time
-    grows at the full slowness, the other's at most as fast, so it stays later
-    downstream).
-
-    ``*_pad`` are the lattice cells' slowness, factored flag and fast-region
-    flag, padded by one cell (inf / 0) all round: cell (I, J, K) sits at
-    [I + 1, J + 1, K + 1] (see :func:`_padded_cells`). With ``targets`` (lattice
-    point numbers), the march stops ``margin`` ns after the last of them is
-    reached; later points are set to inf. Returns the first-arrival times, the
-    times per family and the time up to which they are final (inf: all).
+    Compiled without numba's reference counting (``_nrt=False``: nothing is
+    allocated here): the array arguments of the inlined helpers otherwise
+    cost an atomic increment and decrement per call, measured as a third of
+    the march. Returns the time up to which the field is final.
     """
     n_nodes = npx * npy * npz
-    # entry 2 n + f: point n, family f
-    T = np.full(2 * n_nodes, np.inf)
-    # 0 far, 1 trial, 2 accepted, 3 start, 4 accepted but dominated (not used)
-    state = np.zeros(2 * n_nodes, dtype=np.uint8)
-    cap = max(1024, n_nodes // 4)
-    hk = np.empty(cap)
-    hv = np.empty(cap, dtype=np.int64)
     size = 0
     # start values are final: a difference stencil next to the source, where
     # the front is a point, only spoils them (measured: second-order plain
@@ -463,39 +495,13 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
         v = 2 * seed_nodes[q] + (0 if seed_direct[q] == 1 else 1)
         if seed_times[q] < T[v]:
             T[v] = seed_times[q]
-            state[v] = 3
-            hk, hv, size = _heap_push(hk, hv, size, T[v], v)
+            if state[v] == 3:
+                _heap_sift_up(hk, hv, hpos, hpos[v], T[v], v)
+            else:
+                state[v] = 3
+                _heap_sift_up(hk, hv, hpos, size, T[v], v)
+                size += 1
 
-    h = np.array([hx, hy, hz])
-    strides = np.array([npy * npz, npz, 1], dtype=np.int64)
-    dims = np.array([npx, npy, npz], dtype=np.int64)
-    # scratch, allocated once: per axis-side difference coefficients. Family 0
-    # in the factored form (Af, Bf; entries 6..8: an axis with no accepted
-    # neighbour, where the factored form keeps the exact term tau dT0/dx_a and
-    # takes d(tau)/dx_a = 0); family 1 (A1, B1) and the earlier of the two
-    # (Am, Bm) in the plain form; C1, Cm the same with the additive factor of
-    # the fast-medium wave (T = s1 |x - xe| + u, u differenced), used where the
-    # governing cell is in the fast region next to the source.
-    Af = np.zeros(9)
-    Bf = np.zeros(9)
-    A1 = np.empty(6)
-    B1 = np.empty(6)
-    C1 = np.empty(6)
-    Am = np.empty(6)
-    Bm = np.empty(6)
-    Cm = np.empty(6)
-    k0 = np.zeros(6, dtype=np.uint8)
-    k1 = np.zeros(6, dtype=np.uint8)
-    km = np.zeros(6, dtype=np.uint8)
-    mf = np.zeros(6, dtype=np.uint8)
-    cs = np.empty(8)
-    cf = np.zeros(8, dtype=np.uint8)
-    ca = np.zeros(8, dtype=np.uint8)
-    use = np.empty(3, dtype=np.int64)
-    ijk = np.empty(3, dtype=np.int64)
-    g = np.empty(3)
-
-    is_target = np.zeros(n_nodes if targets.shape[0] > 0 else 0, dtype=np.uint8)
     remaining = 0
     for q in range(targets.shape[0]):
         if is_target[targets[q]] == 0:
@@ -504,9 +510,7 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
     t_stop = np.inf
 
     while size > 0:
-        t, v, size = _heap_pop(hk, hv, size)
-        if state[v] == 2 or state[v] == 4 or t > T[v]:
-            continue  # stale heap entry (lazy deletion)
+        t, v, size = _heap_pop(hk, hv, hpos, size)
         if t > t_stop:
             break
         n = v >> 1
@@ -549,19 +553,31 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                 any_f = False
                 any_out = False
                 any_a = False
-                for o in range(8):
-                    pi = i + (o >> 2)
-                    pj = j + ((o >> 1) & 1)
-                    pk = k + (o & 1)
-                    cs[o] = cs_pad[pi, pj, pk]
-                    cf[o] = cf_pad[pi, pj, pk]
-                    ca[o] = ca_pad[pi, pj, pk]
-                    if cf[o] == 1:
-                        any_f = True
-                    elif cs[o] < np.inf:
-                        any_out = True
-                    if ca[o] == 1:
-                        any_a = True
+                if uni[m] == 1:
+                    c_s = cs_pad[i, j, k]
+                    c_f = cf_pad[i, j, k]
+                    c_a = ca_pad[i, j, k]
+                    for o in range(8):
+                        cs[o] = c_s
+                        cf[o] = c_f
+                        ca[o] = c_a
+                    any_f = c_f == 1
+                    any_out = c_f == 0
+                    any_a = c_a == 1
+                else:
+                    for o in range(8):
+                        pi = i + (o >> 2)
+                        pj = j + ((o >> 1) & 1)
+                        pk = k + (o & 1)
+                        cs[o] = cs_pad[pi, pj, pk]
+                        cf[o] = cf_pad[pi, pj, pk]
+                        ca[o] = ca_pad[pi, pj, pk]
+                        if cf[o] == 1:
+                            any_f = True
+                        elif cs[o] < np.inf:
+                            any_out = True
+                        if ca[o] == 1:
+                            any_a = True
                 has_in = any_f
                 any_f = any_f and fam == 0 and state[2 * m] < 2
                 use_add = any_a and s1 > 0.0
@@ -707,7 +723,9 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                         if Af[6 + a] < np.inf and k0[2 * a] == 0 and k0[2 * a + 1] == 0:
                             tie = True
                 s_mean = -1.0
-                if smooth[m] == 1:
+                if uni[m] == 1:
+                    s_mean = cs[0]
+                elif smooth[m] == 1:
                     s_mean = 0.0
                     n_in = 0
                     for o in range(8):
@@ -717,79 +735,209 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                     s_mean /= n_in
                 best0 = np.inf
                 best1 = np.inf
-                # 1D along an edge: the fastest of the 4 cells sharing it, 2D in
-                # a face: the faster of its 2 cells, 3D: the octant's own cell.
-                # This is the rule of Podvin and Lecomte (1991) for very
-                # contrasted models: a wave along an interface runs in the faster
-                # medium (the air wave along the ground surface).
-                for a in range(3):
-                    for sd in range(2):
-                        q = 2 * a + sd
-                        if k0[q] == 0 and k1[q] == 0 and km[q] == 0:
-                            continue
-                        s, fac, fa, s_in = _fastest_cell(cs, cf, ca, a, sd, -1, 0, s_mean)
-                        if s == np.inf:
-                            continue
-                        if k0[q] == 1 and s_in < np.inf:
-                            # the source's wave, in the fastest cell of its own region
-                            if tie:
-                                nu = _factored_stencil(use, k0, Af, q, -1)
-                                cand = T0 * _solve(Af, Bf, s_in, use, nu)
-                            else:
-                                # the common case, a root of a linear equation
-                                cand = T0 * (Bf[q] + s_in) / Af[q] if Af[q] > 0.0 else np.inf
-                            best0 = min(best0, cand)
-                        if fac == 0 and km[q] == 1:
-                            best1 = min(best1, ((Cm[q] if fa == 1 and mf[q] == 1 else Bm[q]) + s) / Am[q])
-                        elif fac == 1 and k1[q] == 1:
-                            best1 = min(best1, ((C1[q] if fa == 1 else B1[q]) + s) / A1[q])
-                for a in range(3):
-                    for b in range(a + 1, 3):
-                        for sa in range(2):
-                            qa = 2 * a + sa
-                            for sb in range(2):
-                                qb = 2 * b + sb
-                                s, fac, fa, s_in = _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean)
-                                if s == np.inf:
-                                    continue
-                                use[0] = qa
-                                use[1] = qb
-                                if k0[qa] == 1 and k0[qb] == 1 and s_in < np.inf:
-                                    nu = 2
-                                    if tie:
-                                        nu = _factored_stencil(use, k0, Af, qa, qb)
-                                    best0 = min(best0, T0 * _solve(Af, Bf, s_in, use, nu))
+                if uni[m] == 1 and not tie:
+                    # all eight cells alike: every stencil has the same cell, and
+                    # the face and octant stencils reduce to the upwind sides
+                    s = cs[0]
+                    if cf[0] == 1:
+                        for q in range(6):
+                            if k0[q] == 1 and Af[q] > 0.0:
+                                best0 = min(best0, T0 * (Bf[q] + s) / Af[q])
+                            if k1[q] == 1:
+                                best1 = min(best1, ((C1[q] if ca[0] == 1 else B1[q]) + s) / A1[q])
+                        if any_f:
+                            best0 = min(best0, T0 * _multi_axis_min(k0, Af, Bf, Bf, False, s, use, keep, nk))
+                        best1 = min(best1, _multi_axis_min(k1, A1, B1, C1, ca[0] == 1, s, use, keep, nk))
+                    else:
+                        for q in range(6):
+                            if km[q] == 1:
+                                best1 = min(best1, ((Cm[q] if ca[0] == 1 and mf[q] == 1 else Bm[q]) + s) / Am[q])
+                        best1 = min(best1, _multi_axis_min(km, Am, Bm, Cm, ca[0] == 1, s, use, keep, nk))
+                    n_known = -1  # done: skip the general stencils below
+                if n_known > 0:
+                    # 1D along an edge: the fastest of the 4 cells sharing it, 2D in
+                    # a face: the faster of its 2 cells, 3D: the octant's own cell.
+                    # This is the rule of Podvin and Lecomte (1991) for very
+                    # contrasted models: a wave along an interface runs in the faster
+                    # medium (the air wave along the ground surface).
+                    for a in range(3):
+                        for sd in range(2):
+                            q = 2 * a + sd
+                            if k0[q] == 0 and k1[q] == 0 and km[q] == 0:
+                                continue
+                            s, fac, fa, s_in = _fastest_cell(cs, cf, ca, a, sd, -1, 0, s_mean)
+                            if s == np.inf:
+                                continue
+                            if k0[q] == 1 and s_in < np.inf:
+                                # the source's wave, in the fastest cell of its own region
+                                if tie:
+                                    nu = _factored_stencil(use, k0, Af, q, -1)
+                                    cand = T0 * _solve(Af, Bf, Bf, False, s_in, use, nu)
+                                else:
+                                    # the common case, a root of a linear equation
+                                    cand = T0 * (Bf[q] + s_in) / Af[q] if Af[q] > 0.0 else np.inf
+                                best0 = min(best0, cand)
+                            if fac == 0 and km[q] == 1:
+                                best1 = min(best1, ((Cm[q] if fa == 1 and mf[q] == 1 else Bm[q]) + s) / Am[q])
+                            elif fac == 1 and k1[q] == 1:
+                                best1 = min(best1, ((C1[q] if fa == 1 else B1[q]) + s) / A1[q])
+                    for a in range(3):
+                        for b in range(a + 1, 3):
+                            for sa in range(2):
+                                qa = 2 * a + sa
+                                for sb in range(2):
+                                    qb = 2 * b + sb
+                                    s, fac, fa, s_in = _fastest_cell(cs, cf, ca, a, sa, b, sb, s_mean)
+                                    if s == np.inf:
+                                        continue
                                     use[0] = qa
                                     use[1] = qb
-                                if fac == 0 and km[qa] == 1 and km[qb] == 1:
-                                    add = fa == 1
-                                    best1 = min(best1, _solve(Am, Cm if add else Bm, s, use, 2))
-                                elif fac == 1 and k1[qa] == 1 and k1[qb] == 1:
-                                    best1 = min(best1, _solve(A1, C1 if fa == 1 else B1, s, use, 2))
-                for o in range(8):
-                    if cs[o] == np.inf:
-                        continue
-                    use[0] = o >> 2
-                    use[1] = 2 + ((o >> 1) & 1)
-                    use[2] = 4 + (o & 1)
-                    s = cs[o] if s_mean < 0.0 else s_mean
-                    if cf[o] == 1 and k0[use[0]] == 1 and k0[use[1]] == 1 and k0[use[2]] == 1:
-                        best0 = min(best0, T0 * _solve(Af, Bf, s, use, 3))
-                    if cf[o] == 0 and km[use[0]] == 1 and km[use[1]] == 1 and km[use[2]] == 1:
-                        add = ca[o] == 1
-                        best1 = min(best1, _solve(Am, Cm if add else Bm, s, use, 3))
-                    elif cf[o] == 1 and k1[use[0]] == 1 and k1[use[1]] == 1 and k1[use[2]] == 1:
-                        best1 = min(best1, _solve(A1, C1 if ca[o] == 1 else B1, s, use, 3))
+                                    if k0[qa] == 1 and k0[qb] == 1 and s_in < np.inf:
+                                        nu = 2
+                                        if tie:
+                                            nu = _factored_stencil(use, k0, Af, qa, qb)
+                                        best0 = min(best0, T0 * _solve(Af, Bf, Bf, False, s_in, use, nu))
+                                        use[0] = qa
+                                        use[1] = qb
+                                    if fac == 0 and km[qa] == 1 and km[qb] == 1:
+                                        add = fa == 1
+                                        best1 = min(best1, _solve(Am, Bm, Cm, add, s, use, 2))
+                                    elif fac == 1 and k1[qa] == 1 and k1[qb] == 1:
+                                        best1 = min(best1, _solve(A1, B1, C1, fa == 1, s, use, 2))
+                    for o in range(8):
+                        if cs[o] == np.inf:
+                            continue
+                        use[0] = o >> 2
+                        use[1] = 2 + ((o >> 1) & 1)
+                        use[2] = 4 + (o & 1)
+                        s = cs[o] if s_mean < 0.0 else s_mean
+                        if cf[o] == 1 and k0[use[0]] == 1 and k0[use[1]] == 1 and k0[use[2]] == 1:
+                            best0 = min(best0, T0 * _solve(Af, Bf, Bf, False, s, use, 3))
+                        if cf[o] == 0 and km[use[0]] == 1 and km[use[1]] == 1 and km[use[2]] == 1:
+                            add = ca[o] == 1
+                            best1 = min(best1, _solve(Am, Bm, Cm, add, s, use, 3))
+                        elif cf[o] == 1 and k1[use[0]] == 1 and k1[use[1]] == 1 and k1[use[2]] == 1:
+                            best1 = min(best1, _solve(A1, B1, C1, ca[o] == 1, s, use, 3))
                 v0_ = 2 * m
                 if best0 < T[v0_] and state[v0_] < 2:
                     T[v0_] = best0
-                    state[v0_] = 1
-                    hk, hv, size = _heap_push(hk, hv, size, best0, v0_)
+                    if state[v0_] == 1:
+                        _heap_sift_up(hk, hv, hpos, hpos[v0_], best0, v0_)
+                    else:
+                        state[v0_] = 1
+                        _heap_sift_up(hk, hv, hpos, size, best0, v0_)
+                        size += 1
                 v1_ = 2 * m + 1
                 if best1 < T[v1_] and state[v1_] < 2:
                     T[v1_] = best1
-                    state[v1_] = 1
-                    hk, hv, size = _heap_push(hk, hv, size, best1, v1_)
+                    if state[v1_] == 1:
+                        _heap_sift_up(hk, hv, hpos, hpos[v1_], best1, v1_)
+                    else:
+                        state[v1_] = 1
+                        _heap_sift_up(hk, hv, hpos, size, best1, v1_)
+                        size += 1
+    return t_stop
+
+
+@njit(cache=True)
+def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
+           second_order, smooth, seed_direct, xe, s1, targets, margin, dominance):
+    """Fast marching over the lattice with two wave families per point.
+
+    Family 0 is the source's own wave in its smooth region (the factored form
+    of Fomel, Luo and Zhao 2009); family 1 every wave that crossed a sharp
+    contrast: the air wave, head waves, waves through a void (plain form).
+    Inside the source's region a stencil uses neighbours of one family only:
+    where the refracted air wave overtakes the direct wave a few metres from a
+    borehole source the two fronts cross at a kink, and stencils mixing them ran
+    up to 1.6 ns early. Where a stencil's governing cell lies outside the
+    region, family 1 takes each neighbour's earlier time: that is where the
+    source's wave crosses into another medium, and where a wave along the
+    interface feeds its head wave back into the source's medium. A point's
+    first arrival is the earlier of its two times.
+
+    A family's value more than ``dominance`` ns later than the other family's
+    at the same point is not marched on (along its own rays a family's time
+    grows at the full slowness, the other's at most as fast, so it stays later
+    downstream).
+
+    ``*_pad`` are the lattice cells' slowness, factored flag and fast-region
+    flag, padded by one cell (inf / 0) all round: cell (I, J, K) sits at
+    [I + 1, J + 1, K + 1] (see :func:`_padded_cells`). With ``targets`` (lattice
+    point numbers), the march stops ``margin`` ns after the last of them is
+    reached; later points are set to inf. Returns the first-arrival times, the
+    times per family and the time up to which they are final (inf: all).
+    """
+    n_nodes = npx * npy * npz
+    # entry 2 n + f: point n, family f
+    T = np.full(2 * n_nodes, np.inf)
+    # 0 far, 1 trial, 2 accepted, 3 start, 4 accepted but dominated (not used)
+    state = np.zeros(2 * n_nodes, dtype=np.uint8)
+    # binary heap with decrease-key: at most one entry per value, so it never
+    # grows; np.empty leaves the pages untouched beyond the largest front
+    hk = np.empty(2 * n_nodes)
+    hv = np.empty(2 * n_nodes, dtype=np.int64)
+    hpos = np.empty(2 * n_nodes, dtype=np.int32)
+    size = 0
+    h = np.array([hx, hy, hz])
+    strides = np.array([npy * npz, npz, 1], dtype=np.int64)
+    dims = np.array([npx, npy, npz], dtype=np.int64)
+    # scratch, allocated once: per axis-side difference coefficients. Family 0
+    # in the factored form (Af, Bf; entries 6..8: an axis with no accepted
+    # neighbour, where the factored form keeps the exact term tau dT0/dx_a and
+    # takes d(tau)/dx_a = 0); family 1 (A1, B1) and the earlier of the two
+    # (Am, Bm) in the plain form; C1, Cm the same with the additive factor of
+    # the fast-medium wave (T = s1 |x - xe| + u, u differenced), used where the
+    # governing cell is in the fast region next to the source.
+    Af = np.zeros(9)
+    Bf = np.zeros(9)
+    A1 = np.empty(6)
+    B1 = np.empty(6)
+    C1 = np.empty(6)
+    Am = np.empty(6)
+    Bm = np.empty(6)
+    Cm = np.empty(6)
+    k0 = np.zeros(6, dtype=np.uint8)
+    k1 = np.zeros(6, dtype=np.uint8)
+    km = np.zeros(6, dtype=np.uint8)
+    mf = np.zeros(6, dtype=np.uint8)
+    cs = np.empty(8)
+    cf = np.zeros(8, dtype=np.uint8)
+    ca = np.zeros(8, dtype=np.uint8)
+    use = np.empty(3, dtype=np.int64)
+    keep = np.empty((3, 2), dtype=np.int64)
+    nk = np.zeros(3, dtype=np.int64)
+    ijk = np.empty(3, dtype=np.int64)
+    g = np.empty(3)
+
+    # lattice points whose eight cells are alike in slowness and flags (and
+    # inside the box): their stencils all share one cell
+    uni = np.zeros(n_nodes, dtype=np.uint8)
+    for i in range(npx):
+        for j in range(npy):
+            for k in range(npz):
+                c_s = cs_pad[i, j, k]
+                if c_s == np.inf:
+                    continue
+                c_f = cf_pad[i, j, k]
+                c_a = ca_pad[i, j, k]
+                same = True
+                for o in range(1, 8):
+                    pi = i + (o >> 2)
+                    pj = j + ((o >> 1) & 1)
+                    pk = k + (o & 1)
+                    if cs_pad[pi, pj, pk] != c_s or cf_pad[pi, pj, pk] != c_f or ca_pad[pi, pj, pk] != c_a:
+                        same = False
+                        break
+                if same:
+                    uni[(i * npy + j) * npz + k] = 1
+
+    is_target = np.zeros(n_nodes if targets.shape[0] > 0 else 0, dtype=np.uint8)
+
+    t_stop = _march_loop(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
+                         second_order, smooth, seed_direct, xe, s1, targets, margin, dominance, T, state, hk,
+                         hv, hpos, h, strides, dims, Af, Bf, A1, B1, C1, Am, Bm, Cm, k0, k1, km, mf, cs, cf,
+                         ca, use, keep, nk, ijk, g, uni, is_target)
     out = np.full(n_nodes, np.inf)
     families = np.full((2, n_nodes), np.inf)
     for n in range(n_nodes):

@@ -85,9 +85,20 @@ def test_homogeneous_times_are_distance_over_velocity():
 
 def test_homogeneous_bent_rays_are_straight():
     # geometry: the first arrival in a homogeneous medium runs along the straight line
-    grid, xyz, a, b, fwd, distance = _homogeneous_forward()
+    grid, xyz, a, b, _, distance = _homogeneous_forward()
+    fwd = bent_ray_forward(grid, np.full(grid.shape, 1 / ROCK), xyz, a, b, executor=Executor(kind="serial"),
+                           keep_rays=True)
+    for k, line in enumerate(fwd.polylines):
+        start, end = xyz[a[k]], xyz[b[k]]
+        axis = (end - start) / distance[k]
+        offset = (line - start) - np.outer((line - start) @ axis, axis)
+        assert np.linalg.norm(offset, axis=1).max() < 0.05, f"pair {k}: ray leaves the straight line"
+    # per-cell lengths: a ray running exactly in a cell face (the horizontal pairs,
+    # nodes on lattice planes) may be booked to either side of the face, where the
+    # two cells are alike; elsewhere the cells crossed must match Siddon's
     straight = straight_ray_matrix(grid, xyz[a], xyz[b])
-    assert abs(fwd.operator - straight).max() < 0.2
+    in_face = xyz[a, 2] == xyz[b, 2]
+    assert abs(fwd.operator[~in_face] - straight[~in_face]).max() < 0.2
     np.testing.assert_allclose(np.asarray(fwd.operator.sum(axis=1)).ravel(), distance, rtol=2e-3)
 
 

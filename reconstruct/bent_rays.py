@@ -31,57 +31,71 @@ __all__ = ["trace_rays", "polyline_matrix", "ray_time_ns"]
 
 
 @njit(cache=True)
-def _node_gradient(times, spacing, i, j, k):
-    """Central-difference gradient at lattice point (i, j, k); one-sided at edges."""
-    shape = times.shape
-    g = np.empty(3)
-    idx = (i, j, k)
-    for a in range(3):
-        lo = idx[a] - 1 if idx[a] > 0 else idx[a]
-        hi = idx[a] + 1 if idx[a] < shape[a] - 1 else idx[a]
-        if hi == lo:
-            g[a] = 0.0
-            continue
-        if a == 0:
-            g[a] = (times[hi, j, k] - times[lo, j, k]) / ((hi - lo) * spacing[0])
-        elif a == 1:
-            g[a] = (times[i, hi, k] - times[i, lo, k]) / ((hi - lo) * spacing[1])
-        else:
-            g[a] = (times[i, j, hi] - times[i, j, lo]) / ((hi - lo) * spacing[2])
-    return g
+def _node_gradient_axis(times, spacing, i, j, k, a):
+    """Central difference along axis ``a`` at lattice point (i, j, k); one-sided at edges."""
+    n = times.shape[a]
+    c = i if a == 0 else (j if a == 1 else k)
+    lo = c - 1 if c > 0 else c
+    hi = c + 1 if c < n - 1 else c
+    if hi == lo:
+        return 0.0
+    if a == 0:
+        return (times[hi, j, k] - times[lo, j, k]) / ((hi - lo) * spacing[0])
+    if a == 1:
+        return (times[i, hi, k] - times[i, lo, k]) / ((hi - lo) * spacing[1])
+    return (times[i, j, hi] - times[i, j, lo]) / ((hi - lo) * spacing[2])
 
 
 @njit(cache=True)
-def _gradient(times, origin, spacing, p):
+def _gradient(times, origin, spacing, px, py, pz):
     """Trilinear interpolation of central-difference gradients at point p.
 
     Smoother than the gradient of the trilinear interpolant itself, which
-    jumps at every lattice face and bends rays near sources.
+    jumps at every lattice face and bends rays near sources. Scalars in and
+    out: the per-step small arrays of an earlier version cost most of the
+    tracing time in allocation.
     """
     nx, ny, nz = times.shape
-    limits = (nx, ny, nz)
-    f = np.empty(3)
-    i0 = np.empty(3, np.int64)
+    i0 = 0
+    j0 = 0
+    k0 = 0
+    fx = 0.0
+    fy = 0.0
+    fz = 0.0
     for a in range(3):
-        ua = (p[a] - origin[a]) / spacing[a]
-        hi = limits[a] - 1
+        pa = px if a == 0 else (py if a == 1 else pz)
+        ua = (pa - origin[a]) / spacing[a]
+        hi = times.shape[a] - 1
         ua = min(max(ua, 0.0), float(hi))
         ia = min(int(np.floor(ua)), max(hi - 1, 0))
-        i0[a] = ia
-        f[a] = ua - ia
-    g = np.zeros(3)
+        if a == 0:
+            i0 = ia
+            fx = ua - ia
+        elif a == 1:
+            j0 = ia
+            fy = ua - ia
+        else:
+            k0 = ia
+            fz = ua - ia
+    gx = 0.0
+    gy = 0.0
+    gz = 0.0
     for dx in range(2):
-        wx = f[0] if dx else 1.0 - f[0]
+        wx = fx if dx else 1.0 - fx
         for dy in range(2):
-            wy = f[1] if dy else 1.0 - f[1]
+            wy = fy if dy else 1.0 - fy
             for dz in range(2):
-                wz = f[2] if dz else 1.0 - f[2]
+                wz = fz if dz else 1.0 - fz
                 w = wx * wy * wz
                 if w == 0.0:
                     continue
-                g += w * _node_gradient(times, spacing, min(i0[0] + dx, nx - 1),
-                                        min(i0[1] + dy, ny - 1), min(i0[2] + dz, nz - 1))
-    return g
+                i = min(i0 + dx, nx - 1)
+                j = min(j0 + dy, ny - 1)
+                k = min(k0 + dz, nz - 1)
+                gx += w * _node_gradient_axis(times, spacing, i, j, k, 0)
+                gy += w * _node_gradient_axis(times, spacing, i, j, k, 1)
+                gz += w * _node_gradient_axis(times, spacing, i, j, k, 2)
+    return gx, gy, gz
 
 
 @njit(cache=True)
@@ -91,20 +105,30 @@ def _trace(times, origin, spacing, source, start, step, end_radius, max_steps, o
     Returns (number of points, reached): reached is False when the step limit
     ran out or the gradient vanished; the caller then falls back to a straight ray.
     """
-    p = start.copy()
-    out[0] = p
+    px = start[0]
+    py = start[1]
+    pz = start[2]
+    out[0, 0] = px
+    out[0, 1] = py
+    out[0, 2] = pz
     n = 1
     for _ in range(max_steps):
-        d_src = np.sqrt(np.sum((source - p) ** 2))
+        d_src = np.sqrt((source[0] - px) ** 2 + (source[1] - py) ** 2 + (source[2] - pz) ** 2)
         if d_src <= end_radius:
-            out[n] = source
+            out[n, 0] = source[0]
+            out[n, 1] = source[1]
+            out[n, 2] = source[2]
             return n + 1, True
-        g = _gradient(times, origin, spacing, p)
-        norm = np.sqrt(np.sum(g * g))
+        gx, gy, gz = _gradient(times, origin, spacing, px, py, pz)
+        norm = np.sqrt(gx * gx + gy * gy + gz * gz)
         if norm == 0.0 or not np.isfinite(norm):
             return n, False
-        p = p - step * g / norm
-        out[n] = p
+        px = px - step * gx / norm
+        py = py - step * gy / norm
+        pz = pz - step * gz / norm
+        out[n, 0] = px
+        out[n, 1] = py
+        out[n, 2] = pz
         n += 1
     return n, False
 
@@ -160,7 +184,7 @@ def _trace_all(times, origin, spacing, source, receivers, step, end_radius, max_
     """Trace every receiver in one compiled loop; ray i fills out[offsets[i]:]."""
     for i in range(receivers.shape[0]):
         view = out[offsets[i]:offsets[i + 1]]
-        n, ok = _trace(times, origin, spacing, source, receivers[i].copy(), step, end_radius, max_steps[i], view)
+        n, ok = _trace(times, origin, spacing, source, receivers[i], step, end_radius, max_steps[i], view)
         counts[i] = n
         reached[i] = ok
 

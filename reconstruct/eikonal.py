@@ -195,21 +195,20 @@ def _cell_slowness(slow, r, I, J, K):
 
 
 @njit(cache=True)
-def _smooth_flags(slow, r, npx, npy, npz, ratio):
-    """1 where the cells around a lattice point differ by at most ``ratio``."""
+def _smooth_flags(cs_pad, npx, npy, npz, ratio):
+    """1 where the cells around a lattice point differ by at most ``ratio``
+    (``cs_pad``: lattice cells' slowness padded by inf, see :func:`_padded_cells`)."""
     out = np.zeros(npx * npy * npz, dtype=np.uint8)
     for i in range(npx):
         for j in range(npy):
             for k in range(npz):
                 lo = np.inf
                 hi = 0.0
-                for di in range(2):
-                    for dj in range(2):
-                        for dk in range(2):
-                            s = _cell_slowness(slow, r, i - 1 + di, j - 1 + dj, k - 1 + dk)
-                            if s < np.inf:
-                                lo = min(lo, s)
-                                hi = max(hi, s)
+                for o in range(8):
+                    s = cs_pad[i + (o >> 2), j + ((o >> 1) & 1), k + (o & 1)]
+                    if s < np.inf:
+                        lo = min(lo, s)
+                        hi = max(hi, s)
                 if hi <= ratio * lo:
                     out[(i * npy + j) * npz + k] = 1
     return out
@@ -1175,7 +1174,8 @@ def _lattice_times(slow, r, cell, src, options, local, targets_m=None):
         # a start value beaten by the finer solve came by a head wave
         seed_direct = (better >= times * (1 - _HEAD_WAVE_MARGIN)).astype(np.uint8)
         times = better
-    smooth = _smooth_flags(slow, r, n_lat[0], n_lat[1], n_lat[2], float(options.smooth_contrast))
+    cs_pad = _padded_cells(slow, r, np.inf)
+    smooth = _smooth_flags(cs_pad, n_lat[0], n_lat[1], n_lat[2], float(options.smooth_contrast))
     if options.factored:
         factor_cells = _factor_region(slow, s0_cells, float(options.smooth_contrast))
     else:
@@ -1190,7 +1190,7 @@ def _lattice_times(slow, r, cell, src, options, local, targets_m=None):
     # whose time is below the target's. Four steps at the slowest cell's
     # slowness bound their times from above.
     margin = 4.0 * float(slow.max()) * float(np.max(h))
-    T, families, t_final = _march(_padded_cells(slow, r, np.inf), _padded_cells(factor_cells, r, 0),
+    T, families, t_final = _march(cs_pad, _padded_cells(factor_cells, r, 0),
                         _padded_cells(fast_cells, r, 0), n_lat[0], n_lat[1], n_lat[2], h[0], h[1], h[2],
                         src, float(s0), nodes, times, bool(options.second_order), smooth, seed_direct,
                         xe, s1, targets, margin, _DOMINANCE_STEPS * float(slow.max()) * float(np.max(h)))

@@ -75,9 +75,10 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
                         "plain misfit); picks ending with weight below 0.1 are listed in rejected_picks.csv")
     _add_qc_arguments(p)
     b = p.add_argument_group("bent rays")
-    b.add_argument("--rays", choices=("straight", "bent"), default="straight",
-                   help="forward model: 'straight' rays, or 'bent' rays traced through eikonal "
-                        "travel-time fields (air included), iterated from the straight-ray model")
+    b.add_argument("--rays", choices=("straight", "bent"), default="bent",
+                   help="forward model: 'bent' rays (default) traced through eikonal travel-time "
+                        "fields (air included), iterated from the straight-ray model, or 'straight' "
+                        "rays only (faster; air waves cannot be explained)")
     b.add_argument("--iterations", type=int, default=4, metavar="N",
                    help="bent-ray iterations after the straight-ray start (default 4); stops earlier "
                         "when the misfit improves by less than 2 %%")
@@ -356,9 +357,10 @@ def build_parser() -> argparse.ArgumentParser:
                     "manifest.json into OUT. The pick table is never changed.",
         epilog=_EPILOG_UNITS)
     _add_input_arguments(p)
-    p.add_argument("--rays", choices=("straight", "bent"), default="straight",
-                   help="the forward model the picks are meant for: with 'straight' (default) air-wave "
-                        "picks are marked as left out, with 'bent' they are kept")
+    p.add_argument("--rays", choices=("straight", "bent"), default="bent",
+                   help="the forward model the picks are meant for: with 'bent' (default, as "
+                        "`reconstruct invert`) air-wave picks are kept, with 'straight' they are "
+                        "marked as left out")
     p.add_argument("--snap-tolerance", type=float, default=None, metavar="M",
                    help="largest allowed snap onto the ground, metres")
     _add_qc_arguments(p)

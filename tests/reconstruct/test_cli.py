@@ -115,7 +115,10 @@ def _run(argv):
 
 
 def _invert_args(site, nodes, picks, out, *extra):
-    return ["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out, *extra]
+    """Arguments of a straight-ray inversion (the picks here are simulated with
+    straight rays) unless ``extra`` names the forward model."""
+    rays = () if "--rays" in extra else ("--rays", "straight")
+    return ["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out, *rays, *extra]
 
 
 def _assert_user_error(code, stdout, stderr, *fragments):
@@ -519,8 +522,9 @@ def test_check_picks_without_nodes_is_refused(inputs):
 def test_bent_rays_through_the_command_line_write_iterations_and_rays(inputs, tmp_path):
     site, nodes, picks = inputs
     out = tmp_path / "bent"
-    code, stdout, stderr = _run(_invert_args(site, nodes, picks, out, "--rays", "bent", "--iterations", "1",
-                                             "--executor", "serial", "--smoothing", "1", "--write-rays"))
+    # no --rays: bent rays are the default
+    code, stdout, stderr = _run(["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out,
+                                 "--iterations", "1", "--executor", "serial", "--smoothing", "1", "--write-rays"])
     assert code == 0, stderr
     summary = json.loads((out / "summary.json").read_text())
     assert summary["rays"] == "bent"
@@ -537,7 +541,7 @@ def test_bent_rays_through_the_command_line_write_iterations_and_rays(inputs, tm
 
 def test_write_rays_needs_bent_rays(inputs, tmp_path):
     site, nodes, picks = inputs
-    code, out, err = _run(_invert_args(site, nodes, picks, tmp_path / "o", "--write-rays"))
+    code, out, err = _run(_invert_args(site, nodes, picks, tmp_path / "o", "--rays", "straight", "--write-rays"))
     _assert_user_error(code, out, err, "--write-rays needs --rays bent")
 
 

@@ -145,7 +145,8 @@ def test_invert_refuses_unusable_picks_then_accepts_with_the_flag(tmp_path):
     site, nodes, picks, xyz = _inputs(tmp_path / "in")
     planted = list(range(10, 40, 3))  # 10 of 552 picks: about 2 %
     _plant_faster_than_air(picks, xyz, planted)
-    args = ["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--smoothing", "0.01", "--quiet"]
+    args = ["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--smoothing", "0.01", "--quiet",
+            "--rays", "straight"]
     code, stdout, stderr = _run(args + ["--out", tmp_path / "refused"])
     assert code == 2
     errors = [line for line in stderr.splitlines() if line.startswith("error:")]
@@ -203,7 +204,8 @@ def test_invert_without_sigma_column_weights_by_the_reciprocity_noise(tmp_path):
     lines = picks.read_text(encoding="utf-8").splitlines()
     picks.write_text("\n".join(",".join(line.split(",")[:3]) for line in lines) + "\n", encoding="utf-8")
     out = tmp_path / "out"
-    code, _, stderr = _run(["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out, "--quiet"])
+    code, _, stderr = _run(["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out, "--quiet",
+                            "--rays", "straight"])
     assert code == 0, stderr
     summary = json.loads((out / "summary.json").read_text())
     assert summary["qc"]["sigma_source"] == "reciprocity"

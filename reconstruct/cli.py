@@ -446,3 +446,9 @@ def run_command(parser: argparse.ArgumentParser, argv, *, memory_hint: str) -> i
 def main(argv=None) -> int:
     return run_command(build_parser(), argv,
                        memory_hint="use larger cells (model.cell_m) or a smaller model box")
+
+
+if __name__ == "__main__":
+    import sys
+
+    sys.exit(main())

@@ -100,19 +100,19 @@ def main(argv=None):
         diff = np.max(np.abs(fwd.time_ns - first.time_ns))
         print(f"{engine}: largest time difference to the first engine {diff:.2e} ns")
 
-    # the rest of a bent-ray iteration: the regularised solve (lambda search
-    # included) with the traced rays, one pick per pair with 0.5 ns noise
+    # the rest of a bent-ray iteration: the regularised solve with the traced
+    # rays (lambda search included), one pick per pair with 0.5 ns noise
     noise = np.random.default_rng(1).normal(0.0, 0.5, a.size)
     problem = dict(grid=grid, ground=ground, G=first.operator, time_ns=first.time_ns + noise, tx=a, rx=b,
                    xyz=xyz, sigma_ns=np.full(a.size, 0.5))
     t0 = time.perf_counter()
-    run_inversion(problem)
+    step = run_inversion(problem)
     solve = time.perf_counter() - t0
-    print(f"regularised solve with the bent rays (lambda search included): {solve:.1f} s")
+    print(f"regularised solve with the bent rays (lambda search included): {solve:.1f} s "
+          f"(lambda {step.lambda_smooth:.3g}, chi^2/N {step.chi2 / a.size:.3f})")
     for engine in results:
-        if engine in elapsed_by_engine:
-            print(f"one full bent-ray iteration, {engine}: {elapsed_by_engine[engine] + solve:.1f} s "
-                  f"(target 60 s on 2 cores)")
+        print(f"one full bent-ray iteration (fields, rays and solve), {engine}: "
+              f"{elapsed_by_engine[engine] + solve:.1f} s (target 60 s on 2 cores)")
     print(f"peak memory of this process: {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20:.2f} GiB "
           "(each worker holds the model once and one field at a time)")
 

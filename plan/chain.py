@@ -25,7 +25,7 @@ comparison).
 No inverse crime
 ----------------
 The picks are simulated on the model grid refined ``refine`` times (the
-truth model's ``refine``, 2 for the demo: 0.75 m cells under 1.5 m model
+truth model's ``refine``, 2 for the demo: 1 m cells under 2 m model
 cells), so the truth bodies' edges do not follow the inversion's cells and
 the travel times come from a finer eikonal lattice than the inversion uses.
 

@@ -9,7 +9,7 @@ soil and rock stratigraphy, Geophysical Prospecting 37(5), 531-551.
 
 Reduced size: the demo site with 2.5 m model cells instead of 2 m (picks
 simulated on 1.25 m cells, the truth model's refine of 2) and no pictures;
-layout, noise and iterations as in the demo. About 75 s on 2 cores with a
+layout, noise and iterations as in the demo. About 90 s on 2 cores with a
 warm numba cache.
 """
 

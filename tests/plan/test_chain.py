@@ -17,6 +17,7 @@ on a busy one (compiling the kernels adds about 30 s).
 from __future__ import annotations
 
 import hashlib
+import json
 from pathlib import Path
 
 import numpy as np
@@ -81,8 +82,6 @@ def test_reduced_chain_writes_the_output_layout_and_leaves_inputs_alone(reduced_
                  "model/rays.vtp", "model/voids.csv", "model/voids.vtp", "model/report.html", "manifest.json"):
         assert (out / name).is_file() and (out / name).stat().st_size > 0, name
     assert result.report_path == out / "model" / "report.html"
-    import json
-
     manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
     assert [s["stage"] for s in manifest["stages"]] == list(STAGES)
     assert set(manifest["inputs"]) == {"site", "truth"}

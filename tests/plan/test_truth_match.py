@@ -97,4 +97,5 @@ def test_bad_arguments_are_refused():
     with pytest.raises(ValueError, match="tolerance_m"):
         match_truth_bodies([AIR], [], background_velocity_m_per_ns=ROCK, tolerance_m=-1.0)
     with pytest.raises(ValueError, match="expected_resolved"):
-        match_truth_bodies([AIR], [], background_velocity_m_per_ns=ROCK, tolerance_m=1.0, expected_resolved=[True, False])
+        match_truth_bodies([AIR], [], background_velocity_m_per_ns=ROCK, tolerance_m=1.0,
+                           expected_resolved=[True, False])

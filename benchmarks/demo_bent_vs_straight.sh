@@ -9,7 +9,7 @@
 set -euo pipefail
 out="${1:-demo_bent_check}"
 mkdir -p "$out"
-voidcube demo demo_site --out "$out/chain" --quiet | sed -n '2,5p'
+voidcube demo demo_site --out "$out/chain" --quiet | sed -n '4,7p'
 common=(--site demo_site/site.yaml --nodes "$out/chain/plan/nodes.csv" --picks "$out/chain/picks.csv")
 echo "straight rays:"
 reconstruct invert "${common[@]}" --out "$out/straight" --rays straight --accept-flags --quiet \

@@ -57,7 +57,7 @@ import numpy as np
 from reconstruct import __version__
 from reconstruct.errors import InputError
 
-__all__ = ["ChainSettings", "ChainResult", "STAGES", "run_demo", "main"]
+__all__ = ["ChainSettings", "ChainResult", "STAGES", "run_demo", "closing_lines", "main"]
 
 #: The stages in order, as printed and recorded in the manifest.
 STAGES = ("plan layout", "plan report", "simulate picks", "QC", "bent-ray inversion", "voids", "report")
@@ -421,15 +421,21 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
                        matches=tuple(matches), stage_seconds=dict(stages.seconds))
 
 
+def closing_lines(result: ChainResult, truth_path, seconds: float) -> list[str]:
+    """What the command prints at the end: time and manifest, the caution, the
+    report's path, then one line per truth body (the comparison with the truth)."""
+    return [f"finished in {seconds:.0f} s; manifest: {result.manifest_path}",
+            "an interpretation aid, not a guarantee: confirm voids by probe drilling",
+            f"report: {result.report_path}",
+            f"voids found against the truth model ({truth_path}):",
+            *(f"  {match.line()}" for match in result.matches)]
+
+
 def _cmd_demo(args) -> int:
     start = time.perf_counter()
     result = run_demo(args.folder, args.out, quiet=args.quiet)
-    print(f"report: {result.report_path}")
-    print(f"voids found against the truth model ({Path(args.folder) / 'truth.yaml'}):")
-    for match in result.matches:
-        print(f"  {match.line()}")
-    print(f"finished in {time.perf_counter() - start:.0f} s; manifest: {result.manifest_path}")
-    print("an interpretation aid, not a guarantee: confirm voids by probe drilling")
+    for line in closing_lines(result, Path(args.folder) / "truth.yaml", time.perf_counter() - start):
+        print(line)
     return 0
 
 

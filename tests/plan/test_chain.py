@@ -24,7 +24,7 @@ import numpy as np
 import pytest
 import yaml
 
-from plan.chain import STAGES, ChainSettings, main, run_demo
+from plan.chain import STAGES, ChainSettings, closing_lines, main, run_demo
 from plan.truth import load_truth
 from reconstruct.voids import FILL_AIR
 
@@ -89,6 +89,16 @@ def test_reduced_chain_writes_the_output_layout_and_leaves_inputs_alone(reduced_
     assert len(manifest["truth_comparison"]) == 3
     assert _digest(folder) == before  # inputs never modified
     assert not list(out.rglob("*.tmp*"))  # atomic writes leave no temporary file
+
+
+@pytest.mark.slow
+def test_command_ends_with_the_report_path_and_one_line_per_truth_body(reduced_run):
+    folder, _, result = reduced_run
+    lines = closing_lines(result, folder / "truth.yaml", 12.0)
+    assert lines[-4] == f"voids found against the truth model ({folder / 'truth.yaml'}):"
+    assert lines[-5] == f"report: {result.out / 'model' / 'report.html'}"
+    assert [line.strip() for line in lines[-3:]] == [m.line() for m in result.matches]
+    assert lines[-1].strip().startswith("small cavity (below resolution): ")
 
 
 def test_missing_truth_file_exits_2_naming_it(tmp_path, capsys):

@@ -1,8 +1,10 @@
 """Synthetic first-arrival picks from a truth model (for the demo and recovery tests).
 
-The times are straight-ray times through the truth model voxelised on a grid
+The times are first arrivals through the truth model voxelised on a grid
 ``refine`` times finer than the model grid (so that inverting them is not the
-exact inverse of the forward model), plus node clock offsets
+exact inverse of the forward model): eikonal travel-time fields with the air
+included (``rays="bent"``, default), or straight-ray times (``rays="straight"``,
+for tests of the straight-ray inversion); plus node clock offsets
 ``tau_rx - tau_tx``, Gaussian pick noise and, when the truth model asks for
 them, gross outliers.
 
@@ -104,9 +106,13 @@ def simulate_picks(
         from reconstruct.bent_tomography import first_arrival_times, unique_pairs
         from reconstruct.parallel import Executor
 
+        from reconstruct.eikonal import EikonalOptions
+
         pair_a, pair_b, pick_pair = unique_pairs(tx, rx)
+        # every fast body (voids, the air) gets its own factor: Fermat's
+        # principle holds however the truth bodies lie (see EikonalOptions)
         pair_times = first_arrival_times(
-            fine, 1.0 / velocity, xyz, pair_a, pair_b,
+            fine, 1.0 / velocity, xyz, pair_a, pair_b, eikonal_options=EikonalOptions(fast_bodies="all"),
             executor=executor if executor is not None else Executor(kind="processes"),
             progress=(lambda d, n: progress(f"fields {d}/{n}")) if progress else None)
         travel = pair_times[pick_pair]

@@ -1205,23 +1205,23 @@ def _fast_region(slow, cell, src, s0, ratio, every_body=False):
     fast = slow * ratio < s0
     if not fast.any():
         return np.zeros((1, 3)), np.zeros(1), labels
-    bodies, n_bodies = ndimage.label(fast)
     idx = np.argwhere(fast)
-    body_of = bodies[tuple(idx.T)]
     lo = idx * cell
     # nearest point of each fast cell to the source
     near = np.clip(src, lo, lo + cell)
     d2 = np.sum((near - src) ** 2, axis=1)
-    nearest = np.full(n_bodies + 1, np.inf)
-    np.minimum.at(nearest, body_of, d2)
-    first = int(np.argmin(nearest[1:])) + 1
     if not every_body:
-        order = [first]
+        groups = [np.arange(d2.size)]  # the nearest fast cell of all (no labelling needed)
     else:
+        bodies, n_bodies = ndimage.label(fast)
+        body_of = bodies[tuple(idx.T)]
+        nearest = np.full(n_bodies + 1, np.inf)
+        np.minimum.at(nearest, body_of, d2)
+        first = int(np.argmin(nearest[1:])) + 1
         order = _bodies_with_factors(slow, fast, ratio, bodies, n_bodies, body_of, nearest, first)
+        groups = [np.flatnonzero(body_of == body) for body in order]
     xes, s1s = [], []
-    for body in order:
-        mine = np.flatnonzero(body_of == body)
+    for mine in groups:
         best = mine[d2[mine] <= d2[mine].min() * (1 + 1e-9) + 1e-18]
         q = best[np.argmin(slow[tuple(idx[best].T)])]
         c = idx[q]

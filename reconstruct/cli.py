@@ -162,6 +162,8 @@ def _cmd_invert(args) -> int:
         run = straight_ray_tomography(site, nodes, picks, options, snap_tolerance_m=args.snap_tolerance,
                                       progress=say, robust_exempt=exempt)
     parameters = {k: v for k, v in vars(args).items() if k not in ("func", "quiet")}
+    if args.rays == "bent":
+        parameters["executor"] = executor.kind  # as used: --scheduler implies dask
     summary = write_tomography(
         run, args.out, inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
         parameters=parameters, started=started, command="reconstruct invert", extra_summary={"qc": qc_summary},

@@ -545,6 +545,22 @@ def test_write_rays_needs_bent_rays(inputs, tmp_path):
     _assert_user_error(code, out, err, "--write-rays needs --rays bent")
 
 
+@pytest.mark.slow
+def test_a_run_on_a_dask_scheduler_records_the_dask_executor(inputs, tmp_path):
+    # the manifest names the engine that computed the fields (dask.distributed's
+    # LocalCluster stands for a user's cluster)
+    from distributed import LocalCluster
+
+    site, nodes, picks = inputs
+    out = tmp_path / "dask"
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0") as cluster:
+        code, _, stderr = _run(_invert_args(site, nodes, picks, out, "--rays", "bent", "--iterations", "1",
+                                            "--smoothing", "1", "--quiet", "--scheduler", cluster.scheduler_address))
+    assert code == 0, stderr
+    manifest = json.loads((out / "manifest.json").read_text())
+    assert manifest["parameters"]["executor"] == "dask"
+
+
 def test_a_malformed_scheduler_address_is_refused(inputs, tmp_path):
     site, nodes, picks = inputs
     code, out, err = _run(_invert_args(site, nodes, picks, tmp_path / "o", "--rays", "bent",

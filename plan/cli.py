@@ -664,7 +664,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=_cmd_describe)
 
     p = sub.add_parser(
-        "simulate", help="synthetic picks from a truth model (first arrivals through bent or straight rays, clock offsets, noise)",
+        "simulate",
+        help="synthetic picks from a truth model (first arrivals through bent or straight rays, clock offsets, noise)",
         description="Simulate first-arrival picks for every transmitter-receiver pair of a node table "
                     "through a truth model (background rock with air-, water- or clay-filled bodies), "
                     "on a grid finer than the model grid, adding node clock offsets and Gaussian "

@@ -947,7 +947,6 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
     hk = np.empty(2 * n_nodes)
     hv = np.empty(2 * n_nodes, dtype=np.int64)
     hpos = np.empty(2 * n_nodes, dtype=np.int32)
-    size = 0
     h = np.array([hx, hy, hz])
     strides = np.array([npy * npz, npz, 1], dtype=np.int64)
     dims = np.array([npx, npy, npz], dtype=np.int64)
@@ -1226,7 +1225,7 @@ def _fast_region(slow, cell, src, s0, ratio, bodies_rule="nearest"):
         order = [first, largest]
         if bodies_rule == "all":
             order += _sharp_bodies(slow, fast, ratio, bodies, n_bodies, nearest)
-        groups = [np.flatnonzero(body_of == body) for body in dict.fromkeys(order[:_MAX_FAST_BODIES])]
+        groups = [np.flatnonzero(body_of == body) for body in list(dict.fromkeys(order))[:_MAX_FAST_BODIES]]
     xes, s1s = [], []
     for mine in groups:
         best = mine[d2[mine] <= d2[mine].min() * (1 + 1e-9) + 1e-18]

@@ -244,54 +244,6 @@ def _smooth_flags(cs_pad, npx, npy, npz, ratio):
 
 
 @njit(cache=True)
-def _factor_region(slow, seed_cells, ratio):
-    """Model cells where the factored form is used (1) or not (0).
-
-    The cells reached from the source cells without crossing a jump in
-    slowness larger than ``ratio`` (a flood fill over face neighbours). There T / (s0 * distance) is smooth and
-    the factored update removes the source singularity; across a sharp jump
-    (a surface source seen from below the ground, where T/T0 has a kink along
-    the critical angle) the factored differences were measured to run up to
-    several per cent early, the plain ones are not.
-    """
-    nx, ny, nz = slow.shape
-    inside = np.zeros((nx, ny, nz), dtype=np.uint8)
-    stack = np.empty(nx * ny * nz + seed_cells.shape[0], dtype=np.int64)
-    top = 0
-    for q in range(seed_cells.shape[0]):
-        c = seed_cells[q]
-        ci = c // (ny * nz)
-        cj = (c // nz) % ny
-        ck = c % nz
-        if inside[ci, cj, ck] == 0:
-            inside[ci, cj, ck] = 1
-            stack[top] = c
-            top += 1
-    while top > 0:
-        top -= 1
-        c = stack[top]
-        ci = c // (ny * nz)
-        cj = (c // nz) % ny
-        ck = c % nz
-        sc = slow[ci, cj, ck]
-        for ax in range(3):
-            for d in (-1, 1):
-                ni = ci + (d if ax == 0 else 0)
-                nj = cj + (d if ax == 1 else 0)
-                nk = ck + (d if ax == 2 else 0)
-                if ni < 0 or nj < 0 or nk < 0 or ni >= nx or nj >= ny or nk >= nz:
-                    continue
-                if inside[ni, nj, nk] == 1:
-                    continue
-                sn = slow[ni, nj, nk]
-                if sn <= ratio * sc and sc <= ratio * sn:
-                    inside[ni, nj, nk] = 1
-                    stack[top] = (ni * ny + nj) * nz + nk
-                    top += 1
-    return inside
-
-
-@njit(cache=True)
 def _label_region(slow, seed, ratio, labels, value):
     """Give ``value`` to the unlabelled cells reached from cell number ``seed``
     over face neighbours without a jump in slowness larger than ``ratio``."""
@@ -327,6 +279,23 @@ def _label_region(slow, seed, ratio, labels, value):
                     labels[ni, nj, nk] = value
                     stack[top] = (ni * ny + nj) * nz + nk
                     top += 1
+
+
+@njit(cache=True)
+def _factor_region(slow, seed_cells, ratio):
+    """Model cells where the factored form is used (1) or not (0).
+
+    The cells reached from the source cells without crossing a jump in
+    slowness larger than ``ratio`` (a flood fill over face neighbours). There T / (s0 * distance) is smooth and
+    the factored update removes the source singularity; across a sharp jump
+    (a surface source seen from below the ground, where T/T0 has a kink along
+    the critical angle) the factored differences were measured to run up to
+    several per cent early, the plain ones are not.
+    """
+    inside = np.zeros(slow.shape, dtype=np.uint8)
+    for q in range(seed_cells.shape[0]):
+        _label_region(slow, seed_cells[q], ratio, inside, 1)
+    return inside
 
 
 @njit(cache=True, inline='always')

@@ -66,28 +66,28 @@ HOMOGENEOUS_RTOL = 1e-3  # the issue's target: within 0.1 % of distance / veloci
 FERMAT_RTOL = 1e-3
 
 
-def _homogeneous_forward():
+@pytest.fixture(scope="module")
+def homogeneous_forward():
+    """Times and rays of all crosshole pairs through homogeneous rock (computed once)."""
     grid = Grid((0, 0, 0), (1, 1, 1), (20, 9, 18))
     xyz = _crosshole_nodes()
     a, b = np.triu_indices(len(xyz), 1)
     slowness = np.full(grid.shape, 1 / ROCK)
-    fwd = bent_ray_forward(grid, slowness, xyz, a, b, executor=Executor(kind="serial"))
+    fwd = bent_ray_forward(grid, slowness, xyz, a, b, executor=Executor(kind="serial"), keep_rays=True)
     distance = np.linalg.norm(xyz[b] - xyz[a], axis=1)
     return grid, xyz, a, b, fwd, distance
 
 
-def test_homogeneous_times_are_distance_over_velocity():
+def test_homogeneous_times_are_distance_over_velocity(homogeneous_forward):
     # geometry: the first arrival in a homogeneous medium runs along the straight line
-    *_, fwd, distance = _homogeneous_forward()
+    *_, fwd, distance = homogeneous_forward
     far = distance >= 4
     np.testing.assert_allclose(fwd.time_ns[far], distance[far] / ROCK, rtol=HOMOGENEOUS_RTOL)
 
 
-def test_homogeneous_bent_rays_are_straight():
+def test_homogeneous_bent_rays_are_straight(homogeneous_forward):
     # geometry: the first arrival in a homogeneous medium runs along the straight line
-    grid, xyz, a, b, _, distance = _homogeneous_forward()
-    fwd = bent_ray_forward(grid, np.full(grid.shape, 1 / ROCK), xyz, a, b, executor=Executor(kind="serial"),
-                           keep_rays=True)
+    grid, xyz, a, b, fwd, distance = homogeneous_forward
     for k, line in enumerate(fwd.polylines):
         start, end = xyz[a[k]], xyz[b[k]]
         axis = (end - start) / distance[k]

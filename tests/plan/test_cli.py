@@ -6,9 +6,7 @@ Runs are in-process on a small invented site written to pytest's tmp_path
 
 from __future__ import annotations
 
-import contextlib
 import csv
-import io
 import json
 import math
 
@@ -18,6 +16,7 @@ import scipy.constants
 
 from plan.cli import main
 from reconstruct.tables import read_nodes, read_picks
+from tests.cli_helpers import assert_user_error, run_main
 
 C_M_PER_NS = scipy.constants.c * 1e-9
 
@@ -70,13 +69,7 @@ def files(tmp_path):
 
 
 def _run(argv):
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        try:
-            code = main([str(a) for a in argv])
-        except SystemExit as stop:
-            code = stop.code
-    return code, out.getvalue(), err.getvalue()
+    return run_main(main, argv)
 
 
 def _simulate(files, out, *extra):
@@ -85,14 +78,7 @@ def _simulate(files, out, *extra):
 
 
 def _assert_user_error(code, stdout, stderr, *fragments):
-    assert code == 2, (code, stdout, stderr)
-    assert "Traceback" not in stderr and "Traceback" not in stdout
-    lines = stderr.splitlines()
-    first = next((k for k, line in enumerate(lines) if line.startswith("error: ")), None)
-    assert first is not None, stderr
-    message = "\n".join(lines[first:])
-    for fragment in fragments:
-        assert fragment in message, (fragment, message)
+    return assert_user_error(code, stdout, stderr, *fragments)
 
 
 # -------------------------------------------------------------- simulate

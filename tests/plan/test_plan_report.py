@@ -8,9 +8,7 @@ nodes are invented (a 20 x 10 x 20 m box, two boreholes, three surface nodes).
 
 from __future__ import annotations
 
-import contextlib
 import csv
-import io
 import json
 
 import networkx as nx
@@ -20,6 +18,7 @@ import pytest
 from plan.cli import main
 from plan.plan_report import flatten_summary, read_mesh_links
 from reconstruct.html_page import CAUTIONS, escape
+from tests.cli_helpers import run_main
 
 SITE_YAML = """\
 # invented test site
@@ -61,10 +60,7 @@ def files(tmp_path):
 
 
 def _run(argv):
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        code = main([str(a) for a in argv])
-    return code, out.getvalue(), err.getvalue()
+    return run_main(main, argv)
 
 
 def test_flatten_summary_gives_key_paths():

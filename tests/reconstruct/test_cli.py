@@ -9,10 +9,8 @@ from a truth model with one fast (air-filled) box; all values are invented.
 
 from __future__ import annotations
 
-import contextlib
 import csv
 import hashlib
-import io
 import json
 import math
 import subprocess
@@ -29,6 +27,7 @@ from plan.truth import parse_truth
 from reconstruct.cli import main
 from reconstruct.site import load_site
 from reconstruct.tables import EXCLUDED_NO_PICK, EXCLUDED_NOT_POSITIVE, read_nodes
+from tests.cli_helpers import assert_user_error, run_main
 
 REPO = Path(__file__).resolve().parents[2]
 C_M_PER_NS = scipy.constants.c * 1e-9  # SI definition of c, 299 792 458 m/s
@@ -104,14 +103,7 @@ def _write_inputs(folder: Path, *, node_rows=None):
 
 
 def _run(argv):
-    """Run main in-process; returns (exit code, stdout, stderr). SystemExit counts as a code."""
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        try:
-            code = main([str(a) for a in argv])
-        except SystemExit as stop:
-            code = stop.code
-    return code, out.getvalue(), err.getvalue()
+    return run_main(main, argv)
 
 
 def _invert_args(site, nodes, picks, out, *extra):
@@ -122,17 +114,7 @@ def _invert_args(site, nodes, picks, out, *extra):
 
 
 def _assert_user_error(code, stdout, stderr, *fragments):
-    """Exit code 2, one 'error:' message (after any progress lines) holding
-    every fragment, no traceback."""
-    assert code == 2, (code, stdout, stderr)
-    assert "Traceback" not in stderr and "Traceback" not in stdout
-    lines = stderr.splitlines()
-    first = next((k for k, line in enumerate(lines) if line.startswith("error: ")), None)
-    assert first is not None, stderr
-    assert all(line.startswith("[") for line in lines[:first]), stderr  # progress only
-    message = "\n".join(lines[first:])
-    for fragment in fragments:
-        assert fragment in message, (fragment, message)
+    return assert_user_error(code, stdout, stderr, *fragments, progress_before=True)
 
 
 # -------------------------------------------------------------- a good run

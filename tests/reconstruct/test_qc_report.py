@@ -11,12 +11,10 @@ standard library's ``html.parser``; CSV files are read with ``csv``.
 
 from __future__ import annotations
 
-import contextlib
 import csv
 import hashlib
 import html
 import html.parser
-import io
 import json
 
 import numpy as np
@@ -29,6 +27,7 @@ from reconstruct.cli import main
 from reconstruct.html_page import CAUTIONS
 from reconstruct.site import load_site
 from reconstruct.tables import read_nodes
+from tests.cli_helpers import run_main
 
 C_M_PER_NS = scipy.constants.c * 1e-9
 
@@ -66,13 +65,7 @@ def _inputs(folder):
 
 
 def _run(argv):
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        try:
-            code = main([str(a) for a in argv])
-        except SystemExit as stop:
-            code = stop.code
-    return code, out.getvalue(), err.getvalue()
+    return run_main(main, argv)
 
 
 def _read_csv(path):

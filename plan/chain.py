@@ -55,7 +55,7 @@ from pathlib import Path
 import numpy as np
 
 from reconstruct import __version__
-from reconstruct.errors import InputError
+from reconstruct.errors import InputError, is_whole_number
 
 __all__ = ["ChainSettings", "ChainResult", "STAGES", "run_demo", "closing_lines", "main"]
 
@@ -97,8 +97,7 @@ class ChainSettings:
 
     def __post_init__(self):
         problems = []
-        if isinstance(self.bent_iterations, bool) or not isinstance(self.bent_iterations, int) \
-                or self.bent_iterations < 1:
+        if not is_whole_number(self.bent_iterations, 1):
             problems.append(f"bent_iterations must be a whole number >= 1 (got {self.bent_iterations!r})")
         if not (isinstance(self.match_tolerance_cells, (int, float)) and self.match_tolerance_cells >= 0):
             problems.append(f"match_tolerance_cells must be a number >= 0 (got {self.match_tolerance_cells!r})")

@@ -53,7 +53,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from reconstruct.errors import InputError
+from reconstruct.errors import InputError, is_whole_number
 from reconstruct.grid import Grid, ground_top_m
 from reconstruct.resolution import fresnel_half_width_m, wavelength_m
 from reconstruct.site import Site, points_in_polygon
@@ -121,7 +121,7 @@ class CoverageStandard:
             if not ok or value < 0 or (value == 0 and not allow_zero):
                 problems.append(f"{name} must be a number {'>= 0' if allow_zero else '> 0'} (got {value!r})")
 
-        if isinstance(self.min_rays, bool) or not isinstance(self.min_rays, (int, np.integer)) or self.min_rays < 1:
+        if not is_whole_number(self.min_rays, 1):
             problems.append(f"min_rays must be a whole number >= 1 (got {self.min_rays!r})")
         a = self.min_angular_coverage
         if not isinstance(a, (int, float)) or isinstance(a, bool) or not (0 < a <= 1):

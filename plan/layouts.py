@@ -39,7 +39,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.spatial import cKDTree
 
-from reconstruct.errors import InputError
+from reconstruct.errors import InputError, is_whole_number
 from reconstruct.outputs import write_csv_atomic
 from reconstruct.site import Site
 
@@ -124,8 +124,7 @@ class LayoutOptions:
 
     def __post_init__(self):
         problems = []
-        if isinstance(self.budget, bool) or not isinstance(self.budget, (int, np.integer)) \
-                or not 2 <= self.budget <= _MAX_BUDGET:
+        if not is_whole_number(self.budget, 2, _MAX_BUDGET):
             problems.append(f"{_label('budget')} must be a whole number from 2 to {_MAX_BUDGET} (got {self.budget!r}); "
                             "give the number of nodes available")
         if self.pattern not in _PATTERNS:

@@ -73,7 +73,7 @@ import scipy.sparse as sp
 
 from reconstruct.bent_tomography import first_arrival_times
 from reconstruct.eikonal import EikonalOptions
-from reconstruct.errors import InputError
+from reconstruct.errors import InputError, is_whole_number
 from reconstruct.grid import Grid, ground_mask, ground_top_m
 from reconstruct.inversion import AIR_VELOCITY_M_PER_NS, InversionOptions, invert_travel_times
 from reconstruct.parallel import Executor
@@ -163,9 +163,9 @@ class RecoveryOptions:
                 problems.append(f"{name} must be > {low}" + (f" and <= {high}" if high else "") + f" (got {v!r})")
         if self.checker_size_m is not None and not (self.checker_size_m > 0):
             problems.append(f"checker_size_m must be > 0 metres (got {self.checker_size_m!r})")
-        if isinstance(self.max_cells, bool) or not isinstance(self.max_cells, int) or self.max_cells < 100:
+        if not is_whole_number(self.max_cells, 100):
             problems.append(f"max_cells must be a whole number >= 100 (got {self.max_cells!r})")
-        if isinstance(self.seed, bool) or not isinstance(self.seed, int) or self.seed < 0:
+        if not is_whole_number(self.seed, 0):
             problems.append(f"seed must be a whole number >= 0 (got {self.seed!r})")
         if problems:
             raise InputError(problems, source="recovery options")

@@ -119,6 +119,7 @@ import numpy as np
 from numba import njit
 from scipy import ndimage
 
+from .errors import is_whole_number
 from .grid import Grid
 from .time_field import TimeField
 
@@ -189,8 +190,7 @@ class EikonalOptions:
         if self.fast_bodies not in ("nearest_and_largest", "nearest", "all"):
             raise ValueError("EikonalOptions.fast_bodies must be 'nearest_and_largest', 'nearest' or 'all' "
                              f"(got {self.fast_bodies!r})")
-        if isinstance(self.refine, bool) or not isinstance(self.refine, (int, np.integer)) \
-                or not 1 <= int(self.refine) <= 16:
+        if not is_whole_number(self.refine, 1, 16):
             raise ValueError(f"EikonalOptions.refine must be an integer 1..16 (got {self.refine!r})")
         if not (isinstance(self.smooth_contrast, (int, float)) and self.smooth_contrast >= 1.0
                 and math.isfinite(self.smooth_contrast)):
@@ -201,8 +201,7 @@ class EikonalOptions:
             raise ValueError(
                 f"EikonalOptions.source_radius must be a number 0..50 lattice steps (got {self.source_radius!r})"
             )
-        if isinstance(self.source_refine, bool) or not isinstance(self.source_refine, (int, np.integer)) \
-                or not 1 <= int(self.source_refine) <= 16:
+        if not is_whole_number(self.source_refine, 1, 16):
             raise ValueError(
                 f"EikonalOptions.source_refine must be an integer 1..16 (got {self.source_refine!r})"
             )

@@ -8,7 +8,18 @@ shows a traceback for these.
 
 from __future__ import annotations
 
-__all__ = ["InputError", "DataQualityWarning"]
+import numbers
+
+__all__ = ["InputError", "DataQualityWarning", "is_whole_number"]
+
+
+def is_whole_number(value, minimum, maximum=None) -> bool:
+    """True for an integer (Python or numpy, not a bool) from ``minimum`` to
+    ``maximum`` (no upper bound when None): the check behind the options'
+    "must be a whole number" messages."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        return False
+    return minimum <= value and (maximum is None or value <= maximum)
 
 
 class InputError(ValueError):

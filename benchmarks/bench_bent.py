@@ -32,10 +32,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a check
 
 from benchmarks.bench_foundation import run_inversion, survey  # noqa: E402
 from reconstruct.allocator import keep_freed_memory_for_reuse  # noqa: E402
-from reconstruct.bent_tomography import bent_ray_forward, choose_sources  # noqa: E402
-from reconstruct.eikonal import travel_time_field  # noqa: E402
-from reconstruct.grid import Grid, ground_mask  # noqa: E402
-from reconstruct.inversion import AIR_VELOCITY_M_PER_NS  # noqa: E402
+from reconstruct.forward.first_arrivals import bent_ray_forward, choose_sources  # noqa: E402
+from reconstruct.forward.eikonal import travel_time_field  # noqa: E402
+from reconstruct.model.grid import Grid, ground_mask  # noqa: E402
+from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS  # noqa: E402
 from reconstruct.parallel import Executor  # noqa: E402
 
 

@@ -25,8 +25,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a check
 
 import skfmm  # noqa: E402
 
-from reconstruct.eikonal import EikonalOptions, travel_time_field  # noqa: E402
-from reconstruct.grid import Grid  # noqa: E402
+from reconstruct.forward.eikonal import EikonalOptions, travel_time_field  # noqa: E402
+from reconstruct.model.grid import Grid  # noqa: E402
 
 C = 0.299792458
 V_ROCK = 0.115

@@ -25,11 +25,12 @@ from scipy.sparse.linalg import lsqr
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
 
 from reconstruct.allocator import keep_freed_memory_for_reuse
-from reconstruct.grid import Grid, ground_mask
-from reconstruct.inversion import AIR_VELOCITY_M_PER_NS, InversionOptions, invert_travel_times
-from reconstruct.multilevel import choose_coarsening_factor, coarse_level
-from reconstruct.regularization import first_difference_operator
-from reconstruct.straight_rays import straight_ray_matrix
+from reconstruct.model.grid import Grid, ground_mask
+from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
+from reconstruct.inverse.solver import InversionOptions, invert_travel_times
+from reconstruct.inverse.multilevel import choose_coarsening_factor, coarse_level
+from reconstruct.inverse.regularization import first_difference_operator
+from reconstruct.forward.straight_rays import straight_ray_matrix
 
 
 def peak_memory_gib() -> float:

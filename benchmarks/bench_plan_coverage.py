@@ -32,12 +32,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
 
-from plan.coverage import CoverageStandard, compute_coverage
-from plan.optimise import OptimiseOptions, optimise_layout
+from plan.assess.coverage import CoverageStandard, compute_coverage
+from plan.layout.optimise import OptimiseOptions, optimise_layout
 from reconstruct.allocator import keep_freed_memory_for_reuse
-from reconstruct.site import parse_site
-from reconstruct.straight_rays import straight_ray_matrix
-from reconstruct.workflow import model_grid
+from reconstruct.io.site import parse_site
+from reconstruct.forward.straight_rays import straight_ray_matrix
+from reconstruct.io.site import model_grid
 
 GROUND_M = 65.0
 

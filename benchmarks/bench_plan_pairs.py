@@ -1,7 +1,7 @@
 """Benchmark of the planner's pair graph: 300 nodes over 200 x 60 x 70 cells.
 
 An invented benched pit (1 m cells, two benches and a sump, five boreholes)
-gets a 300-node layout from ``plan.layouts.design_layout``; then the link
+gets a 300-node layout from ``plan.layout.layouts.design_layout``; then the link
 budget of all 44,850 pairs (with the air-path check along every straight
 line) and the networkx pair graph are built and summarised. The target for
 the pair graph together with the coverage (benchmarked separately) is 30 s on
@@ -26,12 +26,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
 
-from plan.layouts import LayoutOptions, design_layout  # noqa: E402
-from plan.link_budget import link_budget_for_site  # noqa: E402
-from plan.pair_graph import build_pair_graph, pair_graph_summary  # noqa: E402
-from reconstruct.site import parse_site  # noqa: E402
-from reconstruct.straight_rays import straight_ray_matrix  # noqa: E402
-from reconstruct.tables import Nodes  # noqa: E402
+from plan.layout.layouts import LayoutOptions, design_layout  # noqa: E402
+from plan.radio.link_budget import link_budget_for_site  # noqa: E402
+from plan.radio.pair_graph import build_pair_graph, pair_graph_summary  # noqa: E402
+from reconstruct.io.site import parse_site  # noqa: E402
+from reconstruct.forward.straight_rays import straight_ray_matrix  # noqa: E402
+from reconstruct.io.tables import Nodes  # noqa: E402
 
 SITE = {
     "name": "benchmark pit (invented)",

@@ -27,11 +27,12 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
 
 from benchmarks.bench_foundation import build_problem, reference_seconds, run_inversion, survey  # noqa: E402
-from plan.simulate import gross_errors  # noqa: E402
+from plan.synthetic.simulate import gross_errors  # noqa: E402
 from reconstruct.allocator import keep_freed_memory_for_reuse  # noqa: E402
-from reconstruct.inversion import AIR_VELOCITY_M_PER_NS, InversionOptions  # noqa: E402
-from reconstruct.qc import FLAG_RECIPROCAL, QCOptions, check_picks  # noqa: E402
-from reconstruct.tables import Nodes, Picks  # noqa: E402
+from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
+from reconstruct.inverse.solver import InversionOptions  # noqa: E402
+from reconstruct.checks.picks import FLAG_RECIPROCAL, QCOptions, check_picks  # noqa: E402
+from reconstruct.io.tables import Nodes, Picks  # noqa: E402
 
 
 def qc_problem(ground_m: float = 65.0, rock_m_per_ns: float = 0.115):

@@ -31,8 +31,8 @@ from scipy import ndimage
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
 
 from reconstruct.cli import main as reconstruct_main
-from reconstruct.grid import Grid, ground_mask
-from reconstruct.outputs import (
+from reconstruct.model.grid import Grid, ground_mask
+from reconstruct.io.outputs import (
     build_manifest,
     read_cell_arrays_vti,
     utc_now_iso,

@@ -1,20 +1,28 @@
-"""voidcube.plan: survey design on top of ``reconstruct``.
+"""voidcube.plan: survey design before fieldwork, built on ``reconstruct``.
 
-Node layouts, the link budget of node pairs, the pair graph, the radio mesh,
-the shot schedule, coverage and layout optimisation, and simulating a survey
-from a truth model (``plan.recovery`` holds the recovery tests; it loads the
-eikonal solver, so it is not imported here).
+Subpackages: ``layout`` (candidate positions, layouts, optimiser), ``radio``
+(link budget, pair graph, radio mesh, shot schedule), ``assess`` (coverage,
+recovery tests), ``synthetic`` (truth models, simulated picks, comparison
+with the truth; for tests and the demo). ``report`` writes the plan report,
+``demo`` runs the whole job on a demo site, ``cli`` is the command line.
+``plan`` imports ``reconstruct``; ``reconstruct`` never imports ``plan``.
 """
 
-from .coverage import Coverage, CoverageStandard, compute_coverage
-from .layouts import Layout, LayoutOptions, candidate_positions, design_layout
-from .link_budget import LinkBudget, link_budget_for_site, link_range_m, pair_links
-from .optimise import OptimiseOptions, optimise_layout
-from .pair_graph import PairGraph, build_pair_graph, pair_graph_summary
-from .radio_mesh import RadioMesh, build_radio_mesh, mesh_summary
-from .schedule import Schedule, ScheduleOptions, plan_schedule, schedule_summary
-from .simulate import SimulatedSurvey, all_pairs, drop_missed_picks, refined_grid, simulate_picks
-from .truth import Body, TruthModel, load_truth, parse_truth, truth_velocity
+from plan.assess.coverage import Coverage, CoverageStandard, compute_coverage
+from plan.layout.layouts import Layout, LayoutOptions, candidate_positions, design_layout
+from plan.radio.link_budget import LinkBudget, link_budget_for_site, link_range_m, pair_links
+from plan.layout.optimise import OptimiseOptions, optimise_layout
+from plan.radio.pair_graph import PairGraph, build_pair_graph, pair_graph_summary
+from plan.radio.mesh import RadioMesh, build_radio_mesh, mesh_summary
+from plan.radio.schedule import Schedule, ScheduleOptions, plan_schedule, schedule_summary
+from plan.synthetic.simulate import (
+    SimulatedSurvey,
+    all_pairs,
+    drop_missed_picks,
+    refined_grid,
+    simulate_picks,
+)
+from plan.synthetic.truth import Body, TruthModel, load_truth, parse_truth, truth_velocity
 
 __all__ = [
     "Layout",

@@ -20,9 +20,9 @@ _UNITS = "Units: metres (m), nanoseconds (ns), velocities in m/ns, conductivity 
 def _cmd_describe(args) -> int:
     import numpy as np
 
-    from reconstruct.grid import ground_top_m
-    from reconstruct.site import load_site
-    from reconstruct.workflow import model_grid
+    from reconstruct.model.grid import ground_top_m
+    from reconstruct.io.site import load_site
+    from reconstruct.io.site import model_grid
 
     site = load_site(args.site)
     grid, ground = model_grid(site)
@@ -46,12 +46,12 @@ def _cmd_describe(args) -> int:
 def _cmd_simulate(args) -> int:
     import numpy as np
 
-    from reconstruct.outputs import write_csv_atomic
-    from reconstruct.site import load_site
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.outputs import write_csv_atomic
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes
 
-    from .simulate import simulate_picks
-    from .truth import load_truth
+    from plan.synthetic.simulate import simulate_picks
+    from plan.synthetic.truth import load_truth
 
     say = _progress_printer(args.quiet)
     if not (np.isfinite(args.fade_sigma) and args.fade_sigma >= 0):
@@ -69,8 +69,8 @@ def _cmd_simulate(args) -> int:
                             progress=say)
     missed_note = ""
     if args.link_budget:
-        from .link_budget import antenna_axes, link_budget_for_site, pair_links
-        from .simulate import drop_missed_picks
+        from plan.radio.link_budget import antenna_axes, link_budget_for_site, pair_links
+        from plan.synthetic.simulate import drop_missed_picks
 
         links = pair_links(site, link_budget_for_site(site), nodes.xyz_m, antenna_axes(site, nodes),
                            survey.tx, survey.rx)
@@ -129,7 +129,7 @@ def _add_standard_arguments(p: argparse.ArgumentParser):
 
 
 def _standard_from(args):
-    from .coverage import CoverageStandard
+    from plan.assess.coverage import CoverageStandard
 
     return CoverageStandard(min_rays=args.min_rays, min_angular_coverage=args.min_angular,
                             max_resolution_m=args.max_resolution, depth_of_interest_m=args.depth_of_interest,
@@ -137,8 +137,8 @@ def _standard_from(args):
 
 
 def _placed(site, nodes):
-    from reconstruct.placement import place_nodes
-    from reconstruct.workflow import model_grid
+    from reconstruct.model.placement import place_nodes
+    from reconstruct.io.site import model_grid
 
     grid, ground = model_grid(site)
     return place_nodes(nodes, grid, ground).xyz_m
@@ -147,7 +147,7 @@ def _placed(site, nodes):
 def _output_folder(out) -> Path:
     """The output folder, created if missing; a clear error if it is a file or cannot be made."""
     from reconstruct.cli import _check_output_folder
-    from reconstruct.outputs import make_output_folder
+    from reconstruct.io.outputs import make_output_folder
 
     _check_output_folder(out)
     return make_output_folder(out)
@@ -161,7 +161,7 @@ def _write_manifest(out: Path, command: str, inputs: dict, args, written, starte
     """manifest.json of this run; an earlier plan run's manifest in the folder is kept inside it."""
     import json
 
-    from reconstruct.outputs import build_manifest, utc_now_iso, write_json_atomic
+    from reconstruct.io.outputs import build_manifest, utc_now_iso, write_json_atomic
 
     parameters = {k: v for k, v in vars(args).items() if k not in ("func", "quiet")}
     manifest = build_manifest(command=command, inputs=inputs, parameters=parameters,
@@ -179,7 +179,7 @@ def _write_manifest(out: Path, command: str, inputs: dict, args, written, starte
 
 
 def _layout_options(args):
-    from .layouts import LayoutOptions
+    from plan.layout.layouts import LayoutOptions
 
     return LayoutOptions(
         budget=args.budget, pattern=args.pattern, surface_spacing_m=args.surface_spacing,
@@ -190,7 +190,7 @@ def _layout_options(args):
 
 
 def _schedule_options(args):
-    from .schedule import ScheduleOptions
+    from plan.radio.schedule import ScheduleOptions
 
     return ScheduleOptions(
         stacks=args.stacks, pulse_repetition_khz=args.prf, sampling=args.sampling,
@@ -201,7 +201,7 @@ def _schedule_options(args):
 
 
 def _run_layout(site, args, out: Path, say) -> tuple[list, Path]:
-    from .layouts import candidate_positions, design_layout, write_layout_csv
+    from plan.layout.layouts import candidate_positions, design_layout, write_layout_csv
 
     options = _layout_options(args)
     layout = design_layout(site, options)
@@ -218,10 +218,10 @@ def _run_layout(site, args, out: Path, say) -> tuple[list, Path]:
 
 
 def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
-    from reconstruct.outputs import write_json_atomic
+    from reconstruct.io.outputs import write_json_atomic
 
-    from .link_budget import link_budget_for_site
-    from .pair_graph import build_pair_graph, pair_graph_summary, write_graphml, write_pairs_csv
+    from plan.radio.link_budget import link_budget_for_site
+    from plan.radio.pair_graph import build_pair_graph, pair_graph_summary, write_graphml, write_pairs_csv
 
     budget = link_budget_for_site(site, system_performance_db=args.system_performance)
     pairs = build_pair_graph(site, nodes, budget, progress=say)
@@ -244,10 +244,10 @@ def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
 
 
 def _run_mesh(site, nodes, args, out: Path, *, write=True):
-    from reconstruct.outputs import write_json_atomic
+    from reconstruct.io.outputs import write_json_atomic
 
-    from .pair_graph import check_nodes_in_site, write_graphml
-    from .radio_mesh import build_radio_mesh, mesh_summary, mesh_with_relays
+    from plan.radio.pair_graph import check_nodes_in_site, write_graphml
+    from plan.radio.mesh import build_radio_mesh, mesh_summary, mesh_with_relays
 
     check_nodes_in_site(site, nodes)
     mesh = build_radio_mesh(site, nodes, range_m=args.radio_range)
@@ -263,9 +263,9 @@ def _run_mesh(site, nodes, args, out: Path, *, write=True):
 
 
 def _run_schedule(site, pairs, mesh, args, out: Path):
-    from reconstruct.outputs import write_json_atomic
+    from reconstruct.io.outputs import write_json_atomic
 
-    from .schedule import plan_schedule, schedule_summary, write_schedule_csv
+    from plan.radio.schedule import plan_schedule, schedule_summary, write_schedule_csv
 
     strings = len({h for h in (d.get("borehole") for _, d in pairs.graph.nodes(data=True)) if h})
     schedule = plan_schedule(pairs.graph, velocity_m_per_ns=site.rock.velocity_m_per_ns,
@@ -281,8 +281,8 @@ def _run_schedule(site, pairs, mesh, args, out: Path):
 
 
 def _start(args):
-    from reconstruct.outputs import utc_now_iso
-    from reconstruct.site import load_site
+    from reconstruct.io.outputs import utc_now_iso
+    from reconstruct.io.site import load_site
 
     started = utc_now_iso()
     site = load_site(args.site)
@@ -298,7 +298,7 @@ def _cmd_layout(args) -> int:
 
 
 def _cmd_pairs(args) -> int:
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.tables import read_nodes
 
     started, site, out = _start(args)
     _, written = _run_pairs(site, read_nodes(args.nodes), args, out, _progress_printer(args.quiet))
@@ -308,7 +308,7 @@ def _cmd_pairs(args) -> int:
 
 
 def _cmd_mesh(args) -> int:
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.tables import read_nodes
 
     started, site, out = _start(args)
     _, written = _run_mesh(site, read_nodes(args.nodes), args, out)
@@ -318,7 +318,7 @@ def _cmd_mesh(args) -> int:
 
 
 def _cmd_schedule(args) -> int:
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.tables import read_nodes
 
     started, site, out = _start(args)
     nodes = read_nodes(args.nodes)
@@ -331,7 +331,7 @@ def _cmd_schedule(args) -> int:
 
 
 def _cmd_design(args) -> int:
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.tables import read_nodes
 
     started, site, out = _start(args)
     say = _progress_printer(args.quiet)
@@ -356,7 +356,7 @@ def _cmd_design(args) -> int:
 
 def _heard_pairs(path, nodes, say):
     """The pairs of ``path`` (a pairs.csv of 'plan pairs') that the link budget hears."""
-    from .pair_graph import read_heard_pairs
+    from plan.radio.pair_graph import read_heard_pairs
 
     pairs = read_heard_pairs(path, nodes.ids)
     say(f"coverage of the {pairs[0].size:,} pairs heard by the link budget ({path})")
@@ -364,11 +364,11 @@ def _heard_pairs(path, nodes, say):
 
 
 def _cmd_coverage(args) -> int:
-    from reconstruct.outputs import utc_now_iso, write_cell_arrays_vti, write_json_atomic
-    from reconstruct.site import load_site
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.outputs import utc_now_iso, write_cell_arrays_vti, write_json_atomic
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes
 
-    from .coverage import compute_coverage, coverage_cell_arrays
+    from plan.assess.coverage import compute_coverage, coverage_cell_arrays
 
     started = utc_now_iso()
     out = _output_folder(args.out)
@@ -402,12 +402,12 @@ def _print_coverage(coverage, out):
 
 
 def _cmd_recover(args) -> int:
-    from reconstruct.outputs import utc_now_iso, write_csv_atomic, write_json_atomic
+    from reconstruct.io.outputs import utc_now_iso, write_csv_atomic, write_json_atomic
     from reconstruct.parallel import executor_from_options
-    from reconstruct.site import load_site
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes
 
-    from .recovery import RecoveryOptions, run_recovery_tests
+    from plan.assess.recovery import RecoveryOptions, run_recovery_tests
 
     started = utc_now_iso()
     out = _output_folder(args.out)
@@ -546,12 +546,12 @@ def _add_design_parsers(sub):
 def _cmd_optimise(args) -> int:
     import numpy as np
 
-    from reconstruct.outputs import utc_now_iso, write_csv_atomic, write_json_atomic
-    from reconstruct.site import load_site
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.outputs import utc_now_iso, write_csv_atomic, write_json_atomic
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes
 
-    from .coverage import compute_coverage
-    from .optimise import OptimiseOptions, optimise_layout
+    from plan.assess.coverage import compute_coverage
+    from plan.layout.optimise import OptimiseOptions, optimise_layout
 
     started = utc_now_iso()
     out = _output_folder(args.out)
@@ -617,12 +617,17 @@ def _cmd_optimise(args) -> int:
 
 
 def _cmd_report(args) -> int:
-    from reconstruct.outputs import utc_now_iso, write_cell_arrays_vti, write_json_atomic, write_text_atomic
-    from reconstruct.site import load_site
-    from reconstruct.tables import read_nodes
+    from reconstruct.io.outputs import (
+        utc_now_iso,
+        write_cell_arrays_vti,
+        write_json_atomic,
+        write_text_atomic,
+    )
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes
 
-    from .coverage import compute_coverage, coverage_cell_arrays
-    from .plan_report import plan_report_html
+    from plan.assess.coverage import compute_coverage, coverage_cell_arrays
+    from plan.report import plan_report_html
 
     started = utc_now_iso()
     folder = Path(args.dir)

@@ -11,8 +11,8 @@ import sys
 import time
 from pathlib import Path
 
-from . import __version__
-from .errors import InputError
+from reconstruct import __version__
+from reconstruct.errors import InputError
 
 __all__ = ["main"]
 
@@ -115,7 +115,7 @@ def _keep_flagged(args) -> tuple:
 
 
 def _options_from(args):
-    from .inversion import InversionOptions
+    from reconstruct.inverse.solver import InversionOptions
 
     return InversionOptions(
         velocity_min_m_per_ns=args.velocity_min, velocity_max_m_per_ns=args.velocity_max,
@@ -133,10 +133,11 @@ def _check_output_folder(out) -> None:
 
 
 def _cmd_invert(args) -> int:
-    from .outputs import utc_now_iso
-    from .site import load_site
-    from .tables import read_nodes, read_picks
-    from .workflow import straight_ray_tomography, write_tomography
+    from reconstruct.io.outputs import utc_now_iso
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes, read_picks
+    from reconstruct.inverse.straight import straight_ray_tomography
+    from reconstruct.report.folders import write_tomography
 
     started = utc_now_iso()
     _check_output_folder(args.out)
@@ -148,8 +149,8 @@ def _cmd_invert(args) -> int:
     say(f"read {len(nodes)} nodes and {picks.n_rows} pick rows ({len(picks.excluded)} excluded on reading)")
     picks, exempt, qc_summary = _checked_picks(args, site, nodes, picks, say)
     if args.rays == "bent":
-        from .bent_tomography import BentOptions, bent_ray_tomography
-        from .parallel import executor_from_options
+        from reconstruct.inverse.bent import BentOptions, bent_ray_tomography
+        from reconstruct.parallel import executor_from_options
 
         executor = executor_from_options(args.executor if args.scheduler is None else "dask",
                                          args.workers, args.scheduler)
@@ -192,7 +193,13 @@ def _checked_picks(args, site, nodes, picks, say):
     the picks to invert (a new selection; the table is untouched), the mask of
     those confirmed by an agreeing reciprocal pick (full weight in the robust
     reweighting) and a summary."""
-    from .qc import check_site_picks, kept_by_flags, picks_for_inversion, reciprocal_confirmed, usability_problems
+    from reconstruct.checks.picks import (
+        check_site_picks,
+        kept_by_flags,
+        picks_for_inversion,
+        reciprocal_confirmed,
+        usability_problems,
+    )
 
     keep = _keep_flagged(args)
     placement, checks = check_site_picks(site, nodes, picks, snap_tolerance_m=args.snap_tolerance)
@@ -214,11 +221,11 @@ def _checked_picks(args, site, nodes, picks, say):
 
 
 def _cmd_qc(args) -> int:
-    from .outputs import utc_now_iso
-    from .qc import check_site_picks, picks_for_inversion, usability_problems
-    from .qc_report import write_qc
-    from .site import load_site
-    from .tables import read_nodes, read_picks
+    from reconstruct.io.outputs import utc_now_iso
+    from reconstruct.checks.picks import check_site_picks, picks_for_inversion, usability_problems
+    from reconstruct.report.pick_checks import write_qc
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes, read_picks
 
     started = utc_now_iso()
     _check_output_folder(args.out)
@@ -252,10 +259,10 @@ def _cmd_qc(args) -> int:
 
 
 def _cmd_check(args) -> int:
-    from .placement import place_nodes
-    from .site import load_site
-    from .tables import read_nodes, read_picks
-    from .workflow import model_grid
+    from reconstruct.model.placement import place_nodes
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes, read_picks
+    from reconstruct.io.site import model_grid
 
     if args.picks and not args.nodes:
         raise InputError("--picks needs --nodes: picks name nodes of the node table; give both")
@@ -276,10 +283,11 @@ def _cmd_check(args) -> int:
 
 
 def _cmd_voids(args) -> int:
-    from .hazard import HazardOptions
-    from .interpretation import load_inversion_folder, screen_folder, write_void_outputs
-    from .outputs import utc_now_iso
-    from .voids import VoidOptions
+    from reconstruct.interpret.screening import HazardOptions
+    from reconstruct.interpret.folder import load_inversion_folder, screen_folder
+    from reconstruct.report.folders import write_void_outputs
+    from reconstruct.io.outputs import utc_now_iso
+    from reconstruct.interpret.bodies import VoidOptions
 
     started = utc_now_iso()
     say = _progress_printer(args.quiet)
@@ -289,7 +297,7 @@ def _cmd_voids(args) -> int:
     hazard_options = HazardOptions(specific_gravity=args.specific_gravity, dip_deg=args.dip,
                                    rock_mass_q=args.rock_mass_q)
     if not args.no_pictures:
-        from .render import start_offscreen_probe
+        from reconstruct.report.pictures import start_offscreen_probe
 
         start_offscreen_probe()  # runs while the cube is read and searched
     data = load_inversion_folder(args.folder, args.site)
@@ -317,8 +325,8 @@ def _cmd_voids(args) -> int:
 
 
 def _cmd_report(args) -> int:
-    from .outputs import utc_now_iso
-    from .report import write_report
+    from reconstruct.io.outputs import utc_now_iso
+    from reconstruct.report.void_report import write_report
 
     started = utc_now_iso()
     path = write_report(args.folder, started=started)
@@ -425,7 +433,7 @@ def run_command(parser: argparse.ArgumentParser, argv, *, memory_hint: str) -> i
     with ``memory_hint``; Ctrl-C returns 130. Other exceptions are bugs and
     keep their traceback.
     """
-    from .allocator import keep_freed_memory_for_reuse
+    from reconstruct.allocator import keep_freed_memory_for_reuse
 
     keep_freed_memory_for_reuse()
     args = parser.parse_args(argv)

@@ -84,7 +84,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import InputError
+from reconstruct.errors import InputError
 
 __all__ = ["Executor", "executor_from_options", "map_tasks", "KINDS"]
 

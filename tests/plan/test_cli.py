@@ -15,10 +15,10 @@ import pytest
 import scipy.constants
 
 from plan.cli import main
-from reconstruct.tables import read_nodes, read_picks
+from reconstruct.io.tables import read_nodes, read_picks
 from tests.cli_helpers import assert_user_error, run_main
 
-C_M_PER_NS = scipy.constants.c * 1e-9
+SPEED_OF_LIGHT_M_PER_NS = scipy.constants.c * 1e-9
 
 SITE_YAML = """\
 # invented test site
@@ -182,7 +182,7 @@ def test_describe_prints_grid_ground_and_rock(files):
     assert "grid: 20 x 10 x 20 cells of 1 x 1 x 1 m = 4,000 cells; 3,600 ground (unknowns), 400 air" in out
     assert "ground surface (flat): 18 to 18 m elevation" in out
     # K = (c / v)^2 for low-loss rock; wavelength = v / f = 0.12 m/ns / 0.1 GHz
-    k = (C_M_PER_NS / 0.12) ** 2
+    k = (SPEED_OF_LIGHT_M_PER_NS / 0.12) ** 2
     assert f"rock: 0.1200 m/ns (K = {k:.2f})" in out
     assert f"K = {k:.2f}" == "K = 6.24"
     assert "2.5 mS/m, antenna 100 MHz, wavelength in rock 1.20 m" in out

@@ -13,8 +13,8 @@ import json
 import numpy as np
 import pytest
 
-from reconstruct.grid import Grid
-from reconstruct.outputs import build_manifest, utc_now_iso, write_cell_arrays_vti
+from reconstruct.model.grid import Grid
+from reconstruct.io.outputs import build_manifest, utc_now_iso, write_cell_arrays_vti
 
 SITE_TEMPLATE = """\
 # invented test site

@@ -3,7 +3,7 @@
 Every run is in-process (``main([...])``) on a SMALL invented site written to
 pytest's tmp_path: a 20 x 10 x 20 m box of 1 m cells, flat ground at 18 m
 elevation (two layers of air above it), two vertical boreholes of nodes and
-three surface nodes. Picks are simulated with ``plan.simulate.simulate_picks``
+three surface nodes. Picks are simulated with ``plan.synthetic.simulate.simulate_picks``
 from a truth model with one fast (air-filled) box; all values are invented.
 """
 
@@ -22,15 +22,15 @@ import numpy as np
 import pytest
 import scipy.constants
 
-from plan.simulate import simulate_picks
-from plan.truth import parse_truth
+from plan.synthetic.simulate import simulate_picks
+from plan.synthetic.truth import parse_truth
 from reconstruct.cli import main
-from reconstruct.site import load_site
-from reconstruct.tables import EXCLUDED_NO_PICK, EXCLUDED_NOT_POSITIVE, read_nodes
+from reconstruct.io.site import load_site
+from reconstruct.io.tables import EXCLUDED_NO_PICK, EXCLUDED_NOT_POSITIVE, read_nodes
 from tests.cli_helpers import assert_user_error, run_main
 
 REPO = Path(__file__).resolve().parents[2]
-C_M_PER_NS = scipy.constants.c * 1e-9  # SI definition of c, 299 792 458 m/s
+SPEED_OF_LIGHT_M_PER_NS = scipy.constants.c * 1e-9  # SI definition of c, 299 792 458 m/s
 
 GROUND_M = 18.0
 SHAPE = (20, 10, 20)
@@ -185,10 +185,10 @@ def test_air_cells_move_at_the_speed_of_light(good):
     arrays = _vti_cells(good["out"] / "velocity.vti")["arrays"]
     air = ~arrays["ground"].astype(bool)
     assert air.sum() == SHAPE[0] * SHAPE[1] * 2
-    np.testing.assert_allclose(arrays["velocity_m_per_ns"][air], C_M_PER_NS, rtol=1e-12)
+    np.testing.assert_allclose(arrays["velocity_m_per_ns"][air], SPEED_OF_LIGHT_M_PER_NS, rtol=1e-12)
     # ground cells stay inside the default velocity band 0.03..0.30 m/ns
     v_ground = arrays["velocity_m_per_ns"][~air]
-    assert v_ground.min() >= 0.03 - 1e-12 and v_ground.max() <= C_M_PER_NS + 1e-12
+    assert v_ground.min() >= 0.03 - 1e-12 and v_ground.max() <= SPEED_OF_LIGHT_M_PER_NS + 1e-12
 
 
 def _read_csv(path: Path):

@@ -1,0 +1,342 @@
+"""The plan report: one self-contained HTML page about a survey layout.
+
+It shows, with the cautions at the top: plan-view maps of the nodes (and the
+radio-mesh links when ``mesh.graphml`` is in the plan folder), the coverage of
+the target volume in horizontal slices and a vertical section, the coverage
+figures, and whatever other planning results the folder holds: the recovery
+tests (``recovery_summary.json``), the layout optimisation
+(``optimise_summary.json``), the pair graph, radio mesh and shot schedule
+summaries (``pairs_summary.json``, ``mesh_summary.json``,
+``schedule_summary.json``, shown key by key) and the first rows of
+``pairs.csv`` and ``schedule.csv``.
+
+Pictures are :class:`matplotlib.figure.Figure` objects drawn with the Agg
+canvas (no display, no pyplot); the page is built with
+:mod:`reconstruct.report.html`, which escapes every text taken from inputs.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+from pathlib import Path
+
+import numpy as np
+
+from reconstruct.model.grid import ground_top_m
+from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
+
+from plan.assess.coverage import Coverage
+
+__all__ = ["plan_report_html", "flatten_summary", "read_mesh_links", "OTHER_SUMMARIES", "OTHER_TABLES"]
+
+#: Summaries of other planning steps shown key by key when present.
+OTHER_SUMMARIES = (
+    ("pairs_summary.json", "Pair graph"),
+    ("mesh_summary.json", "Radio mesh"),
+    ("schedule_summary.json", "Shot schedule"),
+)
+#: Tables of other planning steps shown (first rows) when present.
+OTHER_TABLES = (("pairs.csv", "Pairs"), ("schedule.csv", "Schedule"))
+_TABLE_ROWS = 25
+
+
+def flatten_summary(data, prefix: str = "") -> list[tuple[str, object]]:
+    """``(key path, value)`` rows of nested JSON: ``a.b[2].c``; lists of plain values joined."""
+    rows: list[tuple[str, object]] = []
+    if isinstance(data, dict):
+        for key, value in data.items():
+            rows.extend(flatten_summary(value, f"{prefix}.{key}" if prefix else str(key)))
+    elif isinstance(data, list) and any(isinstance(v, (dict, list)) for v in data):
+        for i, value in enumerate(data):
+            rows.extend(flatten_summary(value, f"{prefix}[{i}]"))
+    elif isinstance(data, list):
+        rows.append((prefix, ", ".join("null" if v is None else str(v) for v in data)))
+    else:
+        rows.append((prefix, "null" if data is None else data))
+    return rows
+
+
+def read_mesh_links(path, ids, xyz_m):
+    """Plan-view segments of the radio-mesh links in a GraphML file.
+
+    A GraphML node is placed by its ``x_m``/``y_m`` attributes when it has
+    them, else by the node table position of the node with the same id.
+    Returns (segments as an (n, 2, 2) array, number of links that could not be
+    placed, note).
+    """
+    import networkx as nx
+
+    try:
+        graph = nx.read_graphml(path)
+    except Exception as error:  # a malformed file must not stop the report
+        return np.zeros((0, 2, 2)), 0, f"{Path(path).name} could not be read ({error}); links not drawn"
+    where = {node_id: xyz_m[k, :2] for k, node_id in enumerate(ids)}
+    position = {}
+    for node, attributes in graph.nodes(data=True):
+        if "x_m" in attributes and "y_m" in attributes:
+            try:
+                position[node] = np.array([float(attributes["x_m"]), float(attributes["y_m"])])
+                continue
+            except (TypeError, ValueError):
+                pass
+        if str(node) in where:
+            position[node] = where[str(node)]
+    segments, missing = [], 0
+    for u, v in graph.edges():
+        if u in position and v in position:
+            segments.append([position[u], position[v]])
+        else:
+            missing += 1
+    note = f"{graph.number_of_edges()} links in {Path(path).name}"
+    if missing:
+        note += f"; {missing} could not be placed (node not in the node table and no x_m/y_m)"
+    return np.asarray(segments).reshape(-1, 2, 2), missing, note
+
+
+def _new_figure(width=7.5, height=4.6):
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=(width, height), layout="constrained")
+
+
+def _extent(grid):
+    return (grid.origin_m[0], grid.end_m[0], grid.origin_m[1], grid.end_m[1])
+
+
+def _draw_site_outlines(ax, site):
+    for work in site.planned_works:
+        pts = np.asarray(work.points_m)[:, :2]
+        if work.geometry == "polygon":
+            pts = np.vstack([pts, pts[:1]])
+        ax.plot(pts[:, 0], pts[:, 1], color="#7b2d26", lw=1.6, ls="-")
+    for zone in site.exclusion_zones:
+        pts = np.asarray(zone.polygon_xy_m)
+        pts = np.vstack([pts, pts[:1]])
+        ax.plot(pts[:, 0], pts[:, 1], color="#555555", lw=1.2, ls="--")
+
+
+def _layout_map(site, coverage: Coverage, ids, xyz, kinds, links):
+    grid = coverage.grid
+    top = ground_top_m(grid, coverage.ground)
+    fig = _new_figure()
+    ax = fig.add_subplot()
+    image = ax.imshow(top.T, origin="lower", extent=_extent(grid), cmap="Greys", alpha=0.55, aspect="equal")
+    fig.colorbar(image, ax=ax, label="ground top (m elevation)", shrink=0.8)
+    if links is not None and len(links):
+        for segment in links:
+            ax.plot(segment[:, 0], segment[:, 1], color="#2b6cb0", lw=0.6, alpha=0.7)
+    _draw_site_outlines(ax, site)
+    styles = {"surface": ("o", "#1a7f37"), "face": ("s", "#9a6700"), "borehole": ("v", "#8250df")}
+    for kind, (marker, colour) in styles.items():
+        pick = np.array([k == kind for k in kinds])
+        if pick.any():
+            ax.scatter(xyz[pick, 0], xyz[pick, 1], s=14, marker=marker, color=colour, label=f"{kind} ({pick.sum()})",
+                       zorder=3)
+    other = np.array([k not in styles for k in kinds])
+    if other.any():
+        ax.scatter(xyz[other, 0], xyz[other, 1], s=14, marker="x", color="black", label=f"unspecified ({other.sum()})",
+                   zorder=3)
+    ax.set_xlim(grid.origin_m[0], grid.end_m[0])
+    ax.set_ylim(grid.origin_m[1], grid.end_m[1])
+    ax.set_xlabel("x east (m)")
+    ax.set_ylabel("y north (m)")
+    ax.legend(loc="upper right", fontsize=7)
+    ax.set_title("Layout: nodes, planned works (solid), exclusion zones (dashed)" +
+                 (", mesh links (blue)" if links is not None and len(links) else ""), fontsize=9)
+    return fig
+
+
+def _coverage_slices(coverage: Coverage, depths_m):
+    grid = coverage.grid
+    top = ground_top_m(grid, coverage.ground)
+    z = grid.centres_m(2)
+    fig = _new_figure(7.5, 2.6 * len(depths_m))
+    axes = fig.subplots(len(depths_m), 1, squeeze=False)[:, 0]
+    quality = np.where(coverage.ground, coverage.quality, np.nan)
+    for ax, depth in zip(axes, depths_m):
+        # the cell of each column nearest to `depth` below its own ground top
+        iz = np.clip(np.rint((top - depth - grid.origin_m[2]) / grid.cell_m[2] - 0.5), 0, grid.shape[2] - 1)
+        iz = np.where(np.isfinite(iz), iz, 0).astype(int)
+        layer = np.take_along_axis(quality, iz[:, :, None], axis=2)[:, :, 0]
+        layer = np.where(np.isfinite(top) & (top - depth > z[0] - grid.cell_m[2] / 2), layer, np.nan)
+        image = ax.imshow(layer.T, origin="lower", extent=_extent(grid), cmap="viridis", vmin=0, vmax=1,
+                          aspect="equal")
+        target = np.take_along_axis(coverage.target, iz[:, :, None], axis=2)[:, :, 0]
+        if target.any() and not target.all():
+            ax.contour(grid.centres_m(0), grid.centres_m(1), target.T.astype(float), levels=[0.5],
+                       colors="white", linewidths=0.8)
+        ax.set_title(f"coverage quality {depth:g} m below ground (white: target volume)", fontsize=9)
+        ax.set_ylabel("y (m)")
+        fig.colorbar(image, ax=ax, shrink=0.85, label="quality (1 = meets standard)")
+    axes[-1].set_xlabel("x east (m)")
+    return fig
+
+
+def _coverage_section(coverage: Coverage):
+    grid = coverage.grid
+    cols = np.argwhere(coverage.target.any(axis=2))
+    iy = int(np.rint(cols[:, 1].mean())) if cols.size else grid.shape[1] // 2
+    section = np.where(coverage.ground[:, iy, :], coverage.ray_count[:, iy, :].astype(float), np.nan)
+    fig = _new_figure(7.5, 3.2)
+    ax = fig.add_subplot()
+    image = ax.imshow(section.T, origin="lower", cmap="magma",
+                      extent=(grid.origin_m[0], grid.end_m[0], grid.origin_m[2], grid.end_m[2]), aspect="equal")
+    if coverage.target[:, iy, :].any():
+        ax.contour(grid.centres_m(0), grid.centres_m(2), coverage.target[:, iy, :].T.astype(float), levels=[0.5],
+                   colors="cyan", linewidths=0.8)
+    y = grid.centres_m(1)[iy]
+    ax.set_title(f"rays per cell, vertical section at y = {y:g} m (cyan: target volume)", fontsize=9)
+    ax.set_xlabel("x east (m)")
+    ax.set_ylabel("z elevation (m)")
+    fig.colorbar(image, ax=ax, shrink=0.85, label="rays crossing the cell")
+    return fig
+
+
+def _read_json(path: Path):
+    try:
+        return json.loads(path.read_text(encoding="utf-8")), None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as error:
+        return None, f"{path.name} could not be read ({error})"
+
+
+def _csv_head(path: Path):
+    try:
+        with open(path, encoding="utf-8-sig", newline="") as handle:
+            rows = list(csv.reader(handle))
+    except (OSError, UnicodeDecodeError, csv.Error) as error:
+        return None, f"{path.name} could not be read ({error})"
+    rows = [r for r in rows if r and not r[0].lstrip().startswith("#")]
+    if not rows:
+        return None, f"{path.name} is empty"
+    header, body = rows[0], rows[1:]
+    width = len(header)
+    shown = [(r + [""] * width)[:width] for r in body[:_TABLE_ROWS]]
+    return (header, shown, len(body)), None
+
+
+def _key_value_table(data, caption):
+    return table_html(["key", "value"], [(k, v if isinstance(v, (int, float, str)) else str(v))
+                                         for k, v in flatten_summary(data)], float_format=".4g", caption=caption)
+
+
+def _recovery_html(recovery: dict) -> str:
+    parts = ["<h2>Recovery tests</h2>"]
+    statements = recovery.get("statements") or []
+    if statements:
+        parts.append("<ul>" + "".join(f"<li>{escape(s)}</li>" for s in statements) + "</ul>")
+    checker = recovery.get("checkerboard") or {}
+    if checker:
+        parts.append(f"<p>Checkerboard of {escape(checker.get('cube_m'))} m cubes: correlation of recovered and "
+                     f"true pattern {escape(_fmt(checker.get('correlation')))} over the target cells crossed by "
+                     "rays.</p>")
+        bands = checker.get("by_depth") or []
+        if bands:
+            parts.append(table_html(["from depth (m)", "to depth (m)", "cells", "correlation"],
+                                    [(b.get("depth_from_m"), b.get("depth_to_m"), b.get("cells"),
+                                      _fmt(b.get("correlation"))) for b in bands]))
+        if checker.get("caution"):
+            parts.append(f"<p><strong>Caution.</strong> {escape(checker['caution'])}</p>")
+    voids = recovery.get("voids") or []
+    if voids:
+        parts.append(table_html(
+            ["fill", "depth (m)", "diameter (m)", "largest time change (ns)", "seen in data", "resolved"],
+            [(v.get("fill"), v.get("depth_m"), v.get("diameter_m"), _fmt(v.get("largest_time_change_ns")),
+              "yes" if v.get("seen_in_data") else "no", "yes" if v.get("resolved") else "no") for v in voids],
+            caption="Inserted voids"))
+    return "".join(parts)
+
+
+def _fmt(value):
+    if value is None:
+        return "n/a"
+    if isinstance(value, float):
+        return f"{value:.3g}"
+    return value
+
+
+def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> tuple[str, list[str]]:
+    """The plan report page and the list of plan-folder files it used.
+
+    Parameters
+    ----------
+    site : Site
+    coverage : Coverage
+        Coverage of the layout (:func:`plan.assess.coverage.compute_coverage`).
+    ids, xyz_m, kinds : node ids, positions (n, 3) in metres and kinds
+    plan_dir : path of the plan folder (other planning outputs are read from it)
+    """
+    plan_dir = Path(plan_dir)
+    used: list[str] = []
+    notes: list[str] = []
+    xyz = np.asarray(xyz_m, dtype=float)
+    links = None
+    mesh = plan_dir / "mesh.graphml"
+    if mesh.is_file():
+        links, _, note = read_mesh_links(mesh, ids, xyz)
+        notes.append(note)
+        used.append(mesh.name)
+    s = coverage.summary()
+    tv = s["target_volume"]
+    std = coverage.standard
+    body = [f"<p>Site: {escape(site.name)}. Layout: {coverage.n_nodes} nodes, {coverage.n_rays:,} straight rays "
+            f"(one per pair). Wavelength in the rock {coverage.wavelength_m:.2f} m "
+            f"({site.rock.antenna_frequency_mhz:g} MHz at {site.rock.velocity_m_per_ns:g} m/ns).</p>"]
+    body.append("<h2>Layout</h2>")
+    body.append(png_img_html(figure_png(_layout_map(site, coverage, ids, xyz, kinds, links)),
+                             alt="plan view of the nodes, planned works and exclusion zones",
+                             caption="; ".join(notes) if notes else None))
+    body.append("<h2>Coverage of the target volume</h2>")
+    body.append(f"<p>Target volume: {escape(tv['description'])}; {tv['cells']:,} cells "
+                f"({tv['volume_m3']:,.0f} m&sup3;). Standard: at least {std.min_rays} rays per cell and angular "
+                f"coverage at least {std.min_angular_coverage:g}"
+                + (f" and a resolution floor no wider than {std.max_resolution_m:g} m" if std.max_resolution_m else "")
+                + ".</p>")
+    body.append(table_html(["figure", "value"], [
+        ("share of the target volume covered to the standard", f"{100 * tv['covered_fraction']:.1f} %"),
+        ("coverage score (mean cell quality, 0..1)", f"{tv['score']:.3f}"),
+        ("target cells crossed by no ray", tv["cells_without_rays"]),
+        ("median rays per target cell", _fmt(tv["ray_count"]["median"])),
+        ("median angular coverage (0 one direction, 1 all directions)", _fmt(tv["angular_coverage"]["median"])),
+        ("resolution floor, median (first Fresnel zone width, m)", _fmt(tv["resolution_floor_m"]["median"])),
+        ("resolution floor, widest (m)", _fmt(tv["resolution_floor_m"]["max"])),
+    ]))
+    body.append("<p>The resolution floor is the narrowest first Fresnel zone among the rays crossing a cell "
+                "(Williamson 1991; Spetzler and Snieder 2004): voids much smaller than it are averaged away "
+                "whatever the ray density.</p>")
+    depth = std.depth_of_interest_m
+    body.append(png_img_html(figure_png(_coverage_slices(coverage, [round(depth * f, 1) for f in (0.2, 0.5, 0.9)])),
+                             alt="coverage quality in horizontal slices below the ground"))
+    body.append(png_img_html(figure_png(_coverage_section(coverage)), alt="rays per cell in a vertical section"))
+
+    recovery = plan_dir / "recovery_summary.json"
+    if recovery.is_file():
+        data, problem = _read_json(recovery)
+        body.append(_recovery_html(data) if isinstance(data, dict) else f"<p>{escape(problem or 'unreadable')}</p>")
+        used.append(recovery.name)
+    optimise = plan_dir / "optimise_summary.json"
+    if optimise.is_file():
+        data, problem = _read_json(optimise)
+        body.append("<h2>Layout optimisation</h2>")
+        body.append(_key_value_table(data, "optimise_summary.json") if data is not None
+                    else f"<p>{escape(problem)}</p>")
+        used.append(optimise.name)
+    for name, title in OTHER_SUMMARIES:
+        path = plan_dir / name
+        if path.is_file():
+            data, problem = _read_json(path)
+            body.append(f"<h2>{escape(title)}</h2>")
+            body.append(_key_value_table(data, name) if data is not None else f"<p>{escape(problem)}</p>")
+            used.append(name)
+    for name, title in OTHER_TABLES:
+        path = plan_dir / name
+        if path.is_file():
+            head, problem = _csv_head(path)
+            body.append(f"<h2>{escape(title)} ({escape(name)})</h2>")
+            if head is None:
+                body.append(f"<p>{escape(problem)}</p>")
+            else:
+                header, rows, total = head
+                body.append(table_html(header, rows, caption=f"first {len(rows)} of {total} rows"))
+            used.append(name)
+    return html_document(f"Survey plan: {site.name}", "".join(body), generated_by="voidcube plan report"), used

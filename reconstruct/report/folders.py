@@ -1,0 +1,238 @@
+"""Writing results to an output folder: the inversion's cube and tables, the void outputs.
+
+Each file is written atomically (temporary file, then rename); the manifest
+comes last, so a folder with a manifest is complete.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+
+import numpy as np
+
+from reconstruct.interpret.bodies import STATUS_VOID, VOID_TABLE_COLUMNS, void_table_rows
+from reconstruct.interpret.folder import InversionFolder
+from reconstruct.interpret.screening import HAZARD_COLUMNS, SCREENING_NOTE
+from reconstruct.inverse.straight import TomographyRun, run_summary
+from reconstruct.io.outputs import (
+    build_manifest,
+    make_output_folder,
+    utc_now_iso,
+    write_cell_arrays_vti,
+    write_csv_atomic,
+    write_json_atomic,
+    extend_manifest,
+)
+from reconstruct.model.petrophysics import SOIL_FIT_CAUTION, petrophysics_arrays
+from reconstruct.report import pictures as render
+from reconstruct.report.html import CAUTIONS
+
+__all__ = ["write_tomography", "write_void_outputs"]
+
+
+def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: dict, started: str, command: str,
+                     extra_summary: dict | None = None) -> dict:
+    """Write the output folder of a run; returns the summary dictionary.
+
+    Files: ``velocity.vti``, ``residuals.csv``, ``time_zero.csv``,
+    ``nodes_used.csv``, ``excluded_picks.csv``, ``rejected_picks.csv`` (robust
+    runs), ``rays.vtp`` (when the run kept its rays), ``summary.json`` (with
+    ``extra_summary`` merged in) and, last, ``manifest.json``. Each is written
+    atomically.
+    """
+    out = make_output_folder(out_dir)
+    r = run.result
+    grid = run.grid
+    slowness = r.slowness_ns_per_m.reshape(grid.shape)
+    written = []
+    written.append(write_cell_arrays_vti(out / "velocity.vti", grid, {
+        "velocity_m_per_ns": 1.0 / slowness,
+        "slowness_ns_per_m": slowness,
+        "ray_length_m": run.ray_length_m,
+        "ray_count": run.ray_count.astype(np.int32),
+        "ground": run.ground,
+    }))
+    ids = run.nodes.ids
+    picks = run.picks
+    u = run.used
+    xyz = run.placement.xyz_m
+    dist = np.linalg.norm(xyz[picks.rx[u]] - xyz[picks.tx[u]], axis=1)
+    sigma = picks.sigma_ns[u] if picks.sigma_ns is not None else np.full(u.size, np.nan)
+    robust = r.robust_weight is not None
+    written.append(write_csv_atomic(
+        out / "residuals.csv",
+        ["line", "tx", "rx", "distance_m", "observed_ns", "predicted_ns", "residual_ns", "sigma_ns"]
+        + (["robust_weight"] if robust else []),
+        (
+            [int(picks.lines[k]), ids[picks.tx[k]], ids[picks.rx[k]], f"{dist[i]:.3f}",
+             f"{picks.time_ns[k]:.4f}", f"{r.predicted_ns[i]:.4f}", f"{r.residual_ns[i]:.4f}",
+             "" if not np.isfinite(sigma[i]) else f"{sigma[i]:.4f}"]
+            + ([f"{r.robust_weight[i]:.4f}"] if robust else [])
+            for i, k in enumerate(u)
+        ),
+    ))
+    if robust:
+        written.append(write_csv_atomic(
+            out / "rejected_picks.csv",
+            ["line", "tx", "rx", "observed_ns", "residual_ns", "sigma_ns", "robust_weight", "reason"],
+            ([int(picks.lines[k]), ids[picks.tx[k]], ids[picks.rx[k]], f"{picks.time_ns[k]:.4f}",
+              f"{r.residual_ns[i]:.4f}", "" if not np.isfinite(sigma[i]) else f"{sigma[i]:.4f}",
+              f"{r.robust_weight[i]:.4f}",
+              f"robust {r.robust_loss} weight {r.robust_weight[i]:.3g} below {run.options.rejection_weight:g}: "
+              f"residual {r.residual_ns[i]:.2f} ns" + (f" = {abs(r.residual_ns[i]) / sigma[i]:.1f} sigma"
+                                                      if np.isfinite(sigma[i]) else "")]
+             for i, k in enumerate(u) if r.rejected[i]),
+        ))
+    n_tx = np.bincount(picks.tx[u], minlength=len(ids))
+    n_rx = np.bincount(picks.rx[u], minlength=len(ids))
+    written.append(write_csv_atomic(
+        out / "time_zero.csv", ["node_id", "time_zero_ns", "picks_as_tx", "picks_as_rx"],
+        ([ids[k], f"{r.time_zero_ns[k]:.4f}", int(n_tx[k]), int(n_rx[k])] for k in range(len(ids))),
+    ))
+    shift = run.placement.shift_m
+    written.append(write_csv_atomic(
+        out / "nodes_used.csv",
+        ["node_id", "x_m", "y_m", "z_m", "shift_x_m", "shift_y_m", "shift_z_m", "kind", "line"],
+        ([ids[k], *(f"{v:.4f}" for v in xyz[k]), *(f"{v:.4f}" for v in shift[k]),
+          run.nodes.kinds[k] or "", int(run.nodes.lines[k])] for k in range(len(ids))),
+    ))
+    written.append(write_csv_atomic(
+        out / "excluded_picks.csv", ["line", "tx", "rx", "time_ns", "reason"],
+        ([e.line, e.tx, e.rx, e.time_text, e.reason] for e in run.excluded),
+    ))
+    if run.polylines is not None:
+        from reconstruct.io.outputs import write_rays_vtp
+
+        written.append(write_rays_vtp(
+            out / "rays.vtp", run.polylines, tx_ids=[ids[picks.tx[k]] for k in u],
+            rx_ids=[ids[picks.rx[k]] for k in u], observed_ns=picks.time_ns[u], predicted_ns=r.predicted_ns,
+            lines=picks.lines[u]))
+    summary = run_summary(run)
+    if robust:
+        summary["robust"] = {
+            "loss": r.robust_loss, "rejected": int(r.rejected.sum()),
+            "rejection_weight": run.options.rejection_weight, "scale_sigmas": r.robust_scale,
+            "reweightings": r.robust_reweightings,
+            "put_back": "rerun with --robust none to give every pick its full weight",
+        }
+    summary.update(extra_summary or {})
+    written.append(write_json_atomic(out / "summary.json", summary))
+    manifest = build_manifest(
+        command=command, inputs=inputs, parameters=parameters,
+        outputs=[p.name for p in written] + ["manifest.json"], started=started, finished=utc_now_iso(),
+    )
+    write_json_atomic(out / "manifest.json", manifest)
+    return summary
+
+
+def _csv_value(value):
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return "" if not math.isfinite(value) else f"{value:.4g}" if abs(value) < 1e-3 else f"{value:.4f}"
+    return value
+
+
+def _remove_stale_pictures(folder: Path, keep) -> None:
+    """Remove pictures an earlier run wrote that this run did not, so none outlives its body."""
+    if not folder.is_dir():
+        return
+    for path in folder.glob("*.png"):
+        if path not in keep and re.fullmatch(r"view_3d\.png|void_\d+_slices\.png", path.name):
+            path.unlink()
+
+
+def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: bool = True,
+                       max_pictures: int = 20, parameters: dict, started: str, progress=None) -> dict:
+    """Write the void outputs into the inversion folder; returns the content of ``voids.json``."""
+    def say(message):
+        if progress is not None:
+            progress(message)
+
+    out = data.path
+    written = []
+    rows = void_table_rows(analysis.bodies)
+    written.append(write_csv_atomic(out / "voids.csv", VOID_TABLE_COLUMNS,
+                                    ([_csv_value(r[c]) for c in VOID_TABLE_COLUMNS] for r in rows)))
+    hazard_rows = [{c: getattr(h, c) for c in HAZARD_COLUMNS} for h in hazard]
+    written.append(write_csv_atomic(out / "hazard.csv", HAZARD_COLUMNS,
+                                    ([_csv_value(r[c]) for c in HAZARD_COLUMNS] for r in hazard_rows)))
+    petro = petrophysics_arrays(data.velocity_m_per_ns, data.ground)
+    written.append(write_cell_arrays_vti(out / "interpretation.vti", data.grid, {
+        "velocity_m_per_ns": data.velocity_m_per_ns,
+        **petro,
+        "background_velocity_m_per_ns": 1.0 / analysis.background_slowness_ns_per_m,
+        "slowness_anomaly_ns_per_m": analysis.anomaly_ns_per_m,
+        "body_id": analysis.labels,
+        "ray_count": data.ray_count.astype(np.int32),
+        "ground": data.ground,
+    }))
+    say(f"{len(analysis.bodies)} bodies; writing isosurfaces")
+    voids_mesh = render.void_surfaces(data.grid, analysis.labels, analysis.anomaly_ns_per_m, analysis.bodies)
+    ground_mesh = render.ground_surface(data.grid, data.surface_m)
+    written.append(render.save_mesh(out / "voids.vtp", voids_mesh))
+    written.append(render.save_mesh(out / "ground.vtp", ground_mesh))
+
+    picture_list = []
+    rendering = "pictures not requested (--no-pictures)"
+    if pictures:
+        backend, rendering = render.probe_offscreen_backend()
+        say(rendering)
+        if backend is not None:
+            path = out / "pictures" / "view_3d.png"
+            render.render_oblique_view(path, ground_mesh, voids_mesh, nodes_xyz_m=data.nodes_xyz_m,
+                                       works=data.site.planned_works, title=data.site.name)
+            written.append(path)
+            picture_list.append({"file": "pictures/view_3d.png", "body_id": None,
+                                 "caption": "Oblique view from above: ground surface (grey), bodies "
+                                            "(orange fast, blue slow), nodes (black), planned works "
+                                            "(purple)"})
+        voids_only = [b for b in analysis.bodies if b.status == STATUS_VOID]
+        for body in voids_only[:max_pictures]:
+            say(f"slices through body {body.id}")
+            png = render.slice_pictures(data.grid, data.velocity_m_per_ns, data.ground, data.ray_count,
+                                        analysis.labels, data.surface_m, body)
+            name = f"pictures/void_{body.id}_slices.png"
+            written.append(render.write_png_atomic(out / name, png))
+            picture_list.append({"file": name, "body_id": body.id,
+                                 "caption": f"Body {body.id}: plan (top) and east-west section (bottom) "
+                                            "through its centroid; velocity (cividis), body outline "
+                                            "(vermilion), cells without rays shaded grey"})
+        if len(voids_only) > max_pictures:
+            rendering += f"; slices drawn for the first {max_pictures} of {len(voids_only)} voids"
+    _remove_stale_pictures(out / "pictures", {out / p["file"] for p in picture_list})
+
+    ground_k = petro["relative_permittivity"][data.ground]
+    theta = petro["water_content_topp"][data.ground]
+    content = {
+        "site": data.site.name,
+        "inversion_folder": str(data.path),
+        "site_file": str(data.site_path),
+        "cautions": list(CAUTIONS) + [SCREENING_NOTE, SOIL_FIT_CAUTION],
+        "counts": {
+            "voids": sum(b.status == STATUS_VOID for b in analysis.bodies),
+            "unresolved_indications": sum(b.status != STATUS_VOID for b in analysis.bodies),
+        },
+        "method": analysis.parameters,
+        "depth_slabs": analysis.slabs,
+        "bodies": rows,
+        "hazard": {"note": SCREENING_NOTE, "options": parameters.get("hazard", {}), "ranked": hazard_rows},
+        "petrophysics": {
+            "relation": "K = (c/v)^2 (low-loss); theta by Topp et al. (1980)",
+            "caution": SOIL_FIT_CAUTION,
+            "ground_permittivity_min_median_max": [float(ground_k.min()), float(np.median(ground_k)),
+                                                   float(ground_k.max())],
+            "ground_cells_with_water_content": int(np.isfinite(theta).sum()),
+        },
+        "rendering": rendering,
+        "pictures": picture_list,
+        "notes": list(data.notes) + list(analysis.notes),
+    }
+    written.append(write_json_atomic(out / "voids.json", content))
+    extend_manifest(out, command="reconstruct voids", inputs={
+        "site": data.site_path, "velocity": out / "velocity.vti", "summary": out / "summary.json",
+        "residuals": out / "residuals.csv"}, parameters=parameters,
+        outputs=[str(Path(p).relative_to(out)) for p in written], started=started)
+    return content

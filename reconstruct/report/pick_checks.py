@@ -1,0 +1,303 @@
+"""Writing the pick checks: ``qc.csv``, ``node_clocks.csv``, ``qc.json``, ``qc.html``.
+
+:func:`qc_summary` and :func:`qc_rows` decide what is written (pure);
+:func:`write_qc` writes the folder, manifest last. The figures are drawn with
+:class:`matplotlib.figure.Figure` (no pyplot, no display) and embedded in the
+page by :mod:`reconstruct.report.html`, which also puts the cautions at its top.
+"""
+
+from __future__ import annotations
+
+
+import numpy as np
+
+from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
+from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
+from reconstruct.io.outputs import (
+    build_manifest,
+    make_output_folder,
+    utc_now_iso,
+    write_csv_atomic,
+    write_json_atomic,
+    write_text_atomic,
+)
+from reconstruct.checks.picks import (
+    FLAG_AIR_DIRECT,
+    FLAG_AIR_REFRACTED,
+    FLAG_FASTER_THAN_AIR,
+    FLAG_RECIPROCAL,
+    FLAG_SLOWER_THAN_BAND,
+    FLAGS,
+    PickChecks,
+    excluded_flags,
+)
+from reconstruct.io.tables import Nodes, Picks
+
+__all__ = ["QC_COLUMNS", "NODE_CLOCK_COLUMNS", "qc_rows", "node_clock_rows", "qc_summary", "write_qc"]
+
+QC_COLUMNS = ["line", "tx", "rx", "time_ns", "sigma_ns", "distance_m", "clock_correction_ns",
+              "corrected_time_ns", "apparent_velocity_m_per_ns", "reciprocal_line", "reciprocal_error_ns",
+              "reciprocal_mean_ns", "air_time_ns", "reference_ns", "residual_ns", "flags", "action"]
+NODE_CLOCK_COLUMNS = ["node_id", "clock_ns", "tx_time_zero_ns", "rx_time_zero_ns", "depth_m", "picks_as_tx",
+                      "picks_as_rx", "reciprocal_pairs", "median_residual_ns"]
+
+
+def _f(value, digits=4) -> str:
+    return "" if value is None or not np.isfinite(value) else f"{value:.{digits}f}"
+
+
+def qc_rows(picks: Picks, nodes: Nodes, checks: PickChecks, excluding=()):
+    """Rows of ``qc.csv``: every pick read, checked picks first, then the rows
+    excluded on reading (with their reason as the flag)."""
+    ids = nodes.ids
+    excluding = set(excluding)
+    for k in range(len(picks)):
+        partner = int(checks.reciprocal[k])
+        flags = checks.flags[k]
+        action = "excluded" if excluding.intersection(flags) else "kept"
+        yield [int(picks.lines[k]), ids[picks.tx[k]], ids[picks.rx[k]], f"{picks.time_ns[k]:.4f}",
+               _f(checks.sigma_ns[k]), _f(checks.distance_m[k], 3), _f(checks.clock_correction_ns[k]),
+               _f(checks.corrected_time_ns[k]), _f(checks.apparent_velocity_m_per_ns[k], 5),
+               "" if partner < 0 else int(picks.lines[partner]), _f(checks.reciprocal_error_ns[k]),
+               _f(checks.reciprocal_mean_ns[k]), _f(checks.air_time_ns[k]), _f(checks.reference_ns[k]),
+               _f(checks.residual_ns[k]), ";".join(flags), action]
+    for e in picks.excluded:
+        yield [e.line, e.tx, e.rx, e.time_text, "", "", "", "", "", "", "", "", "", "", "", e.reason, "excluded"]
+
+
+def _node_residuals(picks: Picks, checks: PickChecks, n_nodes: int) -> np.ndarray:
+    median = np.full(n_nodes, np.nan)
+    order = np.r_[picks.tx, picks.rx]
+    values = np.r_[checks.residual_ns, checks.residual_ns]
+    sort = np.argsort(order, kind="stable")
+    order, values = order[sort], values[sort]
+    starts = np.searchsorted(order, np.arange(n_nodes))
+    ends = np.searchsorted(order, np.arange(n_nodes), side="right")
+    for k in range(n_nodes):
+        if ends[k] > starts[k]:
+            median[k] = float(np.median(values[starts[k]:ends[k]]))
+    return median
+
+
+def node_clock_rows(picks: Picks, nodes: Nodes, checks: PickChecks):
+    """Rows of ``node_clocks.csv``: one per node."""
+    n = len(nodes)
+    n_tx = np.bincount(picks.tx, minlength=n)
+    n_rx = np.bincount(picks.rx, minlength=n)
+    has_partner = checks.reciprocal >= 0
+    n_rec = np.bincount(picks.tx[has_partner], minlength=n)
+    median = _node_residuals(picks, checks, n)
+    for k in range(n):
+        yield [nodes.ids[k], _f(checks.clock_ns[k]), _f(checks.tx_time_zero_ns[k]), _f(checks.rx_time_zero_ns[k]),
+               _f(checks.depth_m[k], 3), int(n_tx[k]), int(n_rx[k]), int(n_rec[k]), _f(median[k])]
+
+
+def qc_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems, *, rays: str = "straight",
+               keep_flagged=()) -> dict:
+    """Content of ``qc.json``."""
+    o = checks.options
+    excluding = excluded_flags(rays, keep_flagged)
+    flagged_out = np.array([bool(set(excluding).intersection(f)) for f in checks.flags], dtype=bool)
+    clock = checks.clock_ns
+    return {
+        "picks": {
+            "rows_read": picks.n_rows, "checked": len(picks), "excluded_on_reading": len(picks.excluded),
+            "flag_counts": checks.counts(),
+            "excluded_by_flags": int(flagged_out.sum()),
+            "flags_that_exclude": list(excluding),
+            "kept": int(len(picks) - flagged_out.sum()),
+            "faster_than_air_lines": [int(k) for k in picks.lines[checks.has(FLAG_FASTER_THAN_AIR)]],
+        },
+        "sigma": {
+            "source": checks.sigma_source,
+            "median_sigma_ns": float(np.median(checks.sigma_ns)) if len(picks) else None,
+            "pick_noise_from_reciprocity_ns": checks.noise_sigma_ns,
+        },
+        "reciprocity": checks.reciprocity,
+        "clocks": {
+            "model": "t_ab = T_ab + rx_time_zero_b - tx_time_zero_a; clock = mean of the two, relative to the "
+                     "mean over the nodes",
+            "largest_abs_clock_ns": float(np.nanmax(np.abs(clock))) if np.isfinite(clock).any() else None,
+            "largest_tx_rx_difference_ns": (float(np.nanmax(np.abs(checks.tx_time_zero_ns - checks.rx_time_zero_ns)))
+                                            if np.isfinite(clock).any() else None),
+            "per_node": {nodes.ids[k]: {"clock_ns": clock[k], "tx_time_zero_ns": checks.tx_time_zero_ns[k],
+                                        "rx_time_zero_ns": checks.rx_time_zero_ns[k]} for k in range(len(nodes))},
+        },
+        "velocity_m_per_ns": {
+            "band": [o.velocity_min_m_per_ns, o.velocity_max_m_per_ns],
+            "air_c": AIR_VELOCITY_M_PER_NS,
+            "site_rock": checks.rock_velocity_m_per_ns,
+            "fitted_to_picks": checks.fitted_velocity_m_per_ns,
+        },
+        "thresholds": {
+            "band_sigmas": o.band_sigmas, "reciprocal_sigmas": o.reciprocal_sigmas,
+            "air_tolerance_fraction": o.air_tolerance_fraction,
+            "velocity_uncertainty_fraction": o.velocity_uncertainty_fraction,
+            "max_implausible_fraction": o.max_implausible_fraction,
+            "max_mismatch_fraction": o.max_mismatch_fraction, "max_noise_ratio": o.max_noise_ratio,
+        },
+        "rays": rays,
+        "usable": not problems,
+        "problems": list(problems),
+        "put_back": ("nothing in the pick table is changed; rerun with --keep-flagged FLAG[,FLAG] to keep "
+                     "flagged picks in the inversion"),
+    }
+
+
+# --------------------------------------------------------------------------
+# figures
+
+_COLOURS = {"kept": "#3b6ea5", "air": "#d08a00", "reciprocal": "#7a3fa0", "implausible": "#c0392b"}
+
+
+def _category(checks: PickChecks) -> np.ndarray:
+    cat = np.full(len(checks.flags), "kept", dtype=object)
+    cat[checks.has(FLAG_RECIPROCAL)] = "reciprocal"
+    cat[checks.has(FLAG_AIR_DIRECT) | checks.has(FLAG_AIR_REFRACTED)] = "air"
+    cat[checks.has(FLAG_FASTER_THAN_AIR) | checks.has(FLAG_SLOWER_THAN_BAND)] = "implausible"
+    return cat
+
+
+def _figure(width=7.0, height=4.5):
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=(width, height))
+
+
+def _time_distance_png(checks: PickChecks) -> bytes:
+    fig = _figure()
+    ax = fig.add_subplot()
+    cat = _category(checks)
+    d, t = checks.distance_m, checks.corrected_time_ns
+    for name, colour in _COLOURS.items():
+        sel = cat == name
+        if sel.any():
+            ax.scatter(d[sel], t[sel], s=4, color=colour, label=f"{name} ({int(sel.sum())})", alpha=0.7)
+    dmax = float(d.max()) if d.size else 1.0
+    xs = np.array([0.0, dmax])
+    o = checks.options
+    for v, style, label in ((AIR_VELOCITY_M_PER_NS, "-", "air, c"),
+                            (checks.rock_velocity_m_per_ns, "--", "site rock"),
+                            (checks.fitted_velocity_m_per_ns, ":", "fitted to the picks"),
+                            (o.velocity_min_m_per_ns, "-.", "band minimum")):
+        ax.plot(xs, xs / v, style, color="#333333", linewidth=1, label=f"{label} {v:.3f} m/ns")
+    tmax = float(np.nanmax(t)) if t.size else 1.0
+    ax.set_ylim(0, 1.05 * max(tmax, 1.0))
+    ax.set_xlabel("distance between nodes (m)")
+    ax.set_ylabel("clock-corrected time (ns)")
+    ax.legend(fontsize=7, loc="upper left")
+    ax.grid(alpha=0.3)
+    return figure_png(fig)
+
+
+def _reciprocity_png(picks: Picks, checks: PickChecks) -> bytes:
+    fig = _figure(5.5, 5.0)
+    ax = fig.add_subplot()
+    k = np.flatnonzero((checks.reciprocal >= 0) & (np.arange(len(picks)) < checks.reciprocal))
+    j = checks.reciprocal[k]
+    bad = checks.has(FLAG_RECIPROCAL)[k]
+    t = picks.time_ns
+    ax.scatter(t[k][~bad], t[j][~bad], s=4, color=_COLOURS["kept"], label=f"agree ({int((~bad).sum())})")
+    if bad.any():
+        ax.scatter(t[k][bad], t[j][bad], s=10, color=_COLOURS["implausible"], label=f"mismatch ({int(bad.sum())})")
+    top = float(max(t.max(), 1.0)) if t.size else 1.0
+    ax.plot([0, top], [0, top], color="#333333", linewidth=1, label="t(A->B) = t(B->A)")
+    ax.set_xlabel("t(A->B) as picked (ns)")
+    ax.set_ylabel("t(B->A) as picked (ns)")
+    ax.legend(fontsize=7, loc="upper left")
+    ax.grid(alpha=0.3)
+    return figure_png(fig)
+
+
+def _histogram_png(checks: PickChecks) -> bytes:
+    fig = _figure(6.0, 4.0)
+    ax = fig.add_subplot()
+    r = checks.residual_ns[np.isfinite(checks.residual_ns)]
+    if r.size:
+        lim = float(np.percentile(np.abs(r), 99.5)) or 1.0
+        ax.hist(np.clip(r, -lim, lim), bins=60, color=_COLOURS["kept"])
+        s = float(np.median(checks.sigma_ns))
+        for x in (-3 * s, 3 * s):
+            ax.axvline(x, color="#333333", linestyle="--", linewidth=1)
+    ax.set_xlabel("residual against the reference (ns), clipped at the 99.5th percentile; dashed: +-3 sigma")
+    ax.set_ylabel("picks")
+    return figure_png(fig)
+
+
+def _node_map_png(picks: Picks, nodes: Nodes, checks: PickChecks, xyz_m) -> bytes:
+    fig = _figure(6.5, 5.0)
+    ax = fig.add_subplot()
+    median = _node_residuals(picks, checks, len(nodes))
+    xyz = np.asarray(xyz_m)
+    ok = np.isfinite(median)
+    lim = float(np.nanmax(np.abs(median))) if ok.any() else 1.0
+    sc = ax.scatter(xyz[ok, 0], xyz[ok, 1], c=median[ok], cmap="coolwarm", vmin=-lim, vmax=lim, s=30,
+                    edgecolors="#333333", linewidths=0.5)
+    if (~ok).any():
+        ax.scatter(xyz[~ok, 0], xyz[~ok, 1], marker="x", color="#777777", label="no pick")
+        ax.legend(fontsize=7)
+    fig.colorbar(sc, ax=ax, label="median residual of the node's picks (ns)")
+    ax.set_xlabel("x, east (m)")
+    ax.set_ylabel("y, north (m)")
+    ax.set_aspect("equal", adjustable="datalim")
+    ax.grid(alpha=0.3)
+    return figure_png(fig)
+
+
+def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
+    parts = []
+    if summary["problems"]:
+        items = "".join(f"<li>{escape(p)}</li>" for p in summary["problems"])
+        parts.append(f"<h2>Verdict: not usable as it stands</h2><ul>{items}</ul>"
+                     "<p>reconstruct invert refuses these picks unless --accept-flags is given.</p>")
+    else:
+        parts.append("<h2>Verdict: usable</h2><p>No check stops an inversion. Flagged picks are listed below.</p>")
+    counts = summary["picks"]["flag_counts"]
+    rows = [["rows read", summary["picks"]["rows_read"]], ["picks checked", summary["picks"]["checked"]],
+            ["excluded on reading", summary["picks"]["excluded_on_reading"]]]
+    rows += [[f"flag {f}", counts[f]] for f in FLAGS]
+    rows += [["left out of the inversion by flags", summary["picks"]["excluded_by_flags"]],
+             ["sigma source", checks.sigma_source],
+             ["pick noise from reciprocity (ns)", "" if checks.noise_sigma_ns is None else f"{checks.noise_sigma_ns:.3f}"],
+             ["reciprocal pairs", checks.n_reciprocal_pairs],
+             ["site rock velocity (m/ns)", f"{checks.rock_velocity_m_per_ns:.4f}"],
+             ["velocity fitted to the picks (m/ns)", f"{checks.fitted_velocity_m_per_ns:.4f}"]]
+    parts.append("<h2>Summary</h2>" + table_html(["item", "value"], [[str(a), str(b)] for a, b in rows]))
+    parts.append("<h2>Plots</h2>")
+    parts.append(png_img_html(_time_distance_png(checks), "time against distance",
+                              "Clock-corrected time against distance, with lines of constant velocity."))
+    parts.append(png_img_html(_reciprocity_png(picks, checks), "reciprocity scatter",
+                              "Reciprocal pairs: time one way against time the other way."))
+    parts.append(png_img_html(_histogram_png(checks), "residual histogram",
+                              "Residuals against the reference: a homogeneous rock fitted to the picks (air "
+                              "segments at c), or the air-wave time for air-wave picks."))
+    parts.append(png_img_html(_node_map_png(picks, nodes, checks, xyz_m), "residual per node",
+                              "Plan map of the nodes coloured by the median residual of their picks."))
+    node_rows = list(node_clock_rows(picks, nodes, checks))
+    parts.append("<h2>Node clocks</h2>" + table_html(NODE_CLOCK_COLUMNS, node_rows))
+    flagged = [r for r in qc_rows(picks, nodes, checks) if r[-2]][:500]
+    parts.append(f"<h2>Flagged picks (first {len(flagged)})</h2>"
+                 + table_html(["line", "tx", "rx", "time_ns", "flags"], [[r[0], r[1], r[2], r[3], r[-2]] for r in flagged]))
+    parts.append(f"<p>{escape(summary['put_back'])}.</p>")
+    return html_document(f"Pick quality control: {site_name}", "".join(parts))
+
+
+def write_qc(picks: Picks, nodes: Nodes, checks: PickChecks, problems, out_dir, *, xyz_m, site_name: str,
+             inputs: dict, parameters: dict, started: str, command: str, rays: str = "straight",
+             keep_flagged=()) -> dict:
+    """Write ``qc.csv``, ``node_clocks.csv``, ``qc.json``, ``qc.html`` and, last,
+    ``manifest.json`` into ``out_dir``; returns the summary."""
+    out = make_output_folder(out_dir)
+    excluding = excluded_flags(rays, keep_flagged)
+    summary = qc_summary(picks, nodes, checks, problems, rays=rays, keep_flagged=keep_flagged)
+    written = [
+        write_csv_atomic(out / "qc.csv", QC_COLUMNS, qc_rows(picks, nodes, checks, excluding)),
+        write_csv_atomic(out / "node_clocks.csv", NODE_CLOCK_COLUMNS, node_clock_rows(picks, nodes, checks)),
+        write_json_atomic(out / "qc.json", summary),
+        write_text_atomic(out / "qc.html", _html(picks, nodes, checks, summary, xyz_m, site_name)),
+    ]
+    manifest = build_manifest(command=command, inputs=inputs, parameters=parameters,
+                              outputs=[p.name for p in written] + ["manifest.json"], started=started,
+                              finished=utc_now_iso())
+    write_json_atomic(out / "manifest.json", manifest)
+    return summary

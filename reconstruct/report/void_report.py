@@ -1,0 +1,168 @@
+"""The void report: one self-contained HTML page for the safety officer.
+
+``reconstruct report DIR`` reads the outputs of ``reconstruct invert`` and
+``reconstruct voids`` in DIR and writes ``DIR/report.html``: the cautions at
+the top, the ranked screening list, the void table, the pictures (embedded as
+PNG, so the page opens with no network and no software of ours), the
+data-quality and resolution summary, and the run manifest. Every piece of
+text that comes from an input (site name, planned-work names, paths) is
+escaped by :mod:`reconstruct.report.html`.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+from reconstruct.errors import InputError
+from reconstruct.report.html import escape, html_document, png_img_html, table_html
+from reconstruct.interpret.folder import read_json_object
+from reconstruct.io.outputs import extend_manifest, utc_now_iso, write_text_atomic
+
+__all__ = ["build_report_html", "write_report"]
+
+_VOID_COLUMNS = (
+    ("id", "id"), ("fill", "fill"), ("volume_m3", "volume (m^3)"),
+    ("centroid_x_m", "x (m)"), ("centroid_y_m", "y (m)"), ("centroid_z_m", "z (m)"),
+    ("roof_depth_m", "roof depth (m)"), ("roof_to_ground_m", "rock to ground (m)"),
+    ("roof_below_work_m", "rock to work above (m)"), ("nearest_work", "nearest planned work"),
+    ("standoff_to_work_m", "stand-off (m)"), ("largest_span_m", "largest span (m)"),
+    ("extreme_velocity_m_per_ns", "extreme v (m/ns)"), ("ray_covered_fraction", "cells with rays"),
+    ("confidence", "confidence"), ("confidence_reason", "why"),
+)
+
+_HAZARD_COLUMNS = (
+    ("rank", "rank"), ("id", "body"), ("status", "status"), ("confidence", "confidence"),
+    ("thickness_m", "roof rock (m)"), ("span_m", "span across (m)"), ("scaled_span_m", "scaled span (m)"),
+    ("critical_span_m", "critical span (m)"), ("reasons", "plain-language reasons"),
+)
+
+
+def _value(row: dict, key: str):
+    value = row.get(key)
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "-"
+    return value
+
+
+def _text(value) -> str:
+    """A value for a text cell: numbers with four significant digits."""
+    if isinstance(value, float):
+        return f"{value:.4g}"
+    return str(value)
+
+
+def _rows(records, columns):
+    return [[_value(r, key) for key, _ in columns] for r in records]
+
+
+def _quality_section(summary: dict, voids: dict) -> str:
+    misfit = summary.get("misfit", {})
+    picks = summary.get("picks", {})
+    coverage = summary.get("coverage", {})
+    lam = summary.get("lambda", {})
+    velocity = summary.get("velocity_m_per_ns", {})
+    method = voids.get("method", {})
+    chi = misfit.get("chi2_per_pick")
+    rows = [
+        ["picks inverted / rows read", f"{picks.get('inverted', '-')} / {picks.get('rows_read', '-')}"],
+        ["picks excluded", _value(picks, "excluded")],
+        ["RMS misfit (ns)", _value(misfit, "rms_ns")],
+        ["chi-square per pick (near 1 when sigmas are right)", "-" if chi is None else chi],
+        ["smoothing lambda and how it was chosen", f"{_text(_value(lam, 'smoothing'))} ({_value(lam, 'method')})"],
+        ["ground cells crossed by rays", _value(coverage, "fraction_of_ground_with_rays")],
+        ["ground velocity min / median / max (m/ns)",
+         " / ".join(_text(_value(velocity, k)) for k in ("ground_min", "ground_median", "ground_max"))],
+        ["cells clipped at the velocity band", f"{_value(velocity, 'cells_clipped_at_min')} slow, "
+                                               f"{_value(velocity, 'cells_clipped_at_max')} fast"],
+        ["detection threshold rule", _value(method, "threshold_rule")],
+        ["robust spread of the anomaly (ns/m)", _value(method, "sigma_model_ns_per_m")],
+        ["threshold in robust standard deviations", _value(method, "sigmas")],
+        ["median transmitter-receiver distance (m)", _value(method, "path_length_m")],
+        ["antenna frequency (MHz)", _value(method, "frequency_mhz")],
+        ["resolution rule", _value(method, "resolution_rule")],
+        ["body extent rule", _value(method, "extent_rule")],
+    ]
+    slabs = voids.get("depth_slabs", [])
+    slab_rows = [[s.get("depth_from_m"), s.get("depth_to_m"), s.get("background_velocity_m_per_ns"),
+                  s.get("resolution_m"), s.get("threshold_ns_per_m"), s.get("cells_in_median")]
+                 for s in slabs[::max(1, len(slabs) // 12)]]
+    return (
+        "<h2>Data quality and resolution</h2>"
+        + table_html(["quantity", "value"], rows, float_format=".4g")
+        + "<p>Background, resolution and threshold by depth below the ground surface "
+          "(every few slabs; all slabs in voids.json):</p>"
+        + table_html(["depth from (m)", "depth to (m)", "background v (m/ns)", "resolution (m)",
+                      "threshold (ns/m)", "cells in median"], slab_rows, float_format=".4g")
+    )
+
+
+def build_report_html(folder) -> str:
+    """The report page for an output folder (nothing written)."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputError(f"{folder}: not a folder; give the output folder of 'reconstruct invert'")
+    summary = read_json_object(folder / "summary.json", "give the output folder of 'reconstruct invert'")
+    voids = read_json_object(folder / "voids.json", f"run 'reconstruct voids {folder}' first")
+    manifest = read_json_object(folder / "manifest.json", "give the output folder of 'reconstruct invert'")
+    counts = voids.get("counts", {})
+    parts = [
+        f"<p><b>Site:</b> {escape(voids.get('site', summary.get('site', '-')))}<br>"
+        f"<b>Folder:</b> {escape(folder)}<br><b>Written:</b> {escape(utc_now_iso())}</p>",
+        f"<h2>Summary</h2><p>{int(counts.get('voids', 0))} void(s) and "
+        f"{int(counts.get('unresolved_indications', 0))} unresolved indication(s) (bodies smaller than the "
+        "resolution at their depth). A void here is a body of cells whose velocity departs from the "
+        "background by more than the threshold; it is a place to drill, not a proven cavity.</p>",
+    ]
+    hazard = voids.get("hazard", {})
+    ranked = hazard.get("ranked", [])
+    labels = [label for _, label in _HAZARD_COLUMNS]
+    parts.append("<h2>Screening: which to check first</h2>"
+                 f"<p>{escape(hazard.get('note', ''))}</p>"
+                 + table_html(labels, _rows([r for r in ranked if r.get("status") == "void"], _HAZARD_COLUMNS),
+                              float_format=".3g", caption="Voids")
+                 + "<p>Unresolved indications: smaller than the resolution at their depth, so their size "
+                   "and contrast are not known; those near planned works still deserve a probe hole.</p>"
+                 + table_html(labels, _rows([r for r in ranked if r.get("status") != "void"], _HAZARD_COLUMNS),
+                              float_format=".3g", caption="Unresolved indications"))
+    parts.append("<h2>Void table</h2><p>Voids only; every body, with bounding boxes and more columns, "
+                 "is in voids.csv.</p>"
+                 + table_html([label for _, label in _VOID_COLUMNS],
+                              _rows([b for b in voids.get("bodies", []) if b.get("status") == "void"],
+                                    _VOID_COLUMNS), float_format=".3g"))
+    pictures = []
+    for picture in voids.get("pictures", []):
+        path = folder / str(picture.get("file", ""))
+        try:
+            png = path.read_bytes()
+        except OSError:
+            pictures.append(f"<p>Picture {escape(picture.get('file'))} is missing; run "
+                            f"'reconstruct voids' again.</p>")
+            continue
+        pictures.append(png_img_html(png, alt=str(picture.get("caption", "")),
+                                     caption=str(picture.get("caption", ""))))
+    parts.append(f"<h2>Pictures</h2><p>{escape(voids.get('rendering', ''))}</p>" + "".join(pictures))
+    petro = voids.get("petrophysics", {})
+    parts.append(f"<h2>Petrophysics</h2><p>{escape(petro.get('relation', ''))}. "
+                 f"{escape(petro.get('caution', ''))} The cell arrays are in interpretation.vti.</p>")
+    parts.append(_quality_section(summary, voids))
+    notes = voids.get("notes", [])
+    if notes:
+        parts.append("<h2>Notes</h2><ul>" + "".join(f"<li>{escape(n)}</li>" for n in notes) + "</ul>")
+    parts.append("<h2>Manifest</h2><p>Inputs with their SHA-256, parameters and versions of every run "
+                 "on this folder.</p><pre>" + escape(json.dumps(manifest, indent=2)) + "</pre>")
+    title = f"Void screening report: {voids.get('site', summary.get('site', ''))}"
+    return html_document(title, "".join(parts), generated_by="voidcube reconstruct report")
+
+
+def write_report(folder, *, started: str | None = None) -> Path:
+    """Write ``report.html`` into ``folder`` atomically and record the run in the manifest."""
+    folder = Path(folder)
+    started = started or utc_now_iso()
+    page = build_report_html(folder)
+    path = write_text_atomic(folder / "report.html", page)
+    extend_manifest(folder, command="reconstruct report",
+                    inputs={"summary": folder / "summary.json", "voids": folder / "voids.json"},
+                    parameters={}, outputs=["report.html"], started=started)
+    return path

@@ -1,0 +1,180 @@
+"""Tests for plan.report and the ``plan coverage / recover / optimise / report`` commands.
+
+Outside references: networkx writes the GraphML file whose links the report
+draws (networkx.write_graphml), the VTK file is read back with pyvista, and
+the standard-library csv and json modules read the outputs. The site and
+nodes are invented (a 20 x 10 x 20 m box, two boreholes, three surface nodes).
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+
+import networkx as nx
+import numpy as np
+import pytest
+
+from plan.cli import main
+from plan.report import flatten_summary, read_mesh_links
+from reconstruct.report.html import CAUTIONS, escape
+from tests.cli_helpers import run_main
+
+SITE_YAML = """\
+# invented test site
+name: report <box>
+model:
+  origin_m: [0, 0, 0]
+  size_m: [20, 10, 20]
+  cell_m: 1.0
+ground:
+  flat_elevation_m: 18
+rock:
+  velocity_m_per_ns: 0.12
+  conductivity_ms_per_m: 2.5
+  antenna_frequency_mhz: 100
+planned_works:
+  - name: road
+    kind: haul_road
+    polyline_m: [[0, 5, 18], [20, 5, 18]]
+"""
+
+
+def _node_rows(xs=(4, 16), surface=(2, 10, 18)):
+    rows = ["node_id,x_m,y_m,z_m,kind,borehole"]
+    for hole, x in zip(("BH1", "BH2"), xs):
+        for k, z in enumerate(range(16, 3, -3)):
+            rows.append(f"{hole}-{k + 1:02d},{x},5,{z},borehole,{hole}")
+    for k, x in enumerate(surface):
+        rows.append(f"S{k + 1},{x},5,18,surface,")
+    return "\n".join(rows) + "\n"
+
+
+@pytest.fixture()
+def files(tmp_path):
+    site = tmp_path / "site.yaml"
+    site.write_text(SITE_YAML, encoding="utf-8")
+    nodes = tmp_path / "nodes.csv"
+    nodes.write_text(_node_rows(), encoding="utf-8")
+    return tmp_path, site, nodes
+
+
+def _run(argv):
+    return run_main(main, argv)
+
+
+def test_flatten_summary_gives_key_paths():
+    rows = dict(flatten_summary({"a": {"b": 1, "c": [1, 2]}, "d": [{"e": None}], "f": "x"}))
+    assert rows == {"a.b": 1, "a.c": "1, 2", "d[0].e": "null", "f": "x"}
+
+
+def test_mesh_links_from_graphml_written_by_networkx(tmp_path):
+    graph = nx.Graph()
+    graph.add_edge("A", "B")
+    graph.add_edge("B", "C")
+    graph.add_node("R", x_m=5.0, y_m=6.0)
+    graph.add_edge("C", "R")
+    graph.add_edge("C", "nowhere")
+    path = tmp_path / "mesh.graphml"
+    nx.write_graphml(graph, path)
+    xyz = np.array([[0.0, 0, 0], [1, 0, 0], [1, 1, 0]])
+    segments, missing, note = read_mesh_links(path, ("A", "B", "C"), xyz)
+    assert segments.shape == (3, 2, 2) and missing == 1
+    assert any(np.allclose(s, [[1, 1], [5, 6]]) or np.allclose(s, [[5, 6], [1, 1]]) for s in segments)
+    assert "could not be placed" in note
+
+
+def test_coverage_command_writes_vti_summary_and_manifest(files):
+    folder, site, nodes = files
+    before = nodes.read_bytes()
+    code, out, err = _run(["coverage", "--site", site, "--nodes", nodes, "--out", folder / "plan",
+                           "--min-rays", "2", "--depth-of-interest", "10"])
+    assert code == 0, err
+    assert "covered to the standard" in out and "straight rays" in err
+    summary = json.loads((folder / "plan" / "coverage_summary.json").read_text())
+    assert summary["standard"]["min_rays"] == 2 and summary["layout"]["nodes"] == 13
+    import pyvista
+
+    image = pyvista.read(folder / "plan" / "coverage.vti")
+    for name in ("ray_count", "angular_coverage", "resolution_floor_m", "covered", "target"):
+        assert name in image.cell_data
+    manifest = json.loads((folder / "plan" / "manifest.json").read_text())
+    assert manifest["command"] == "plan coverage" and "coverage.vti" in manifest["outputs"]
+    assert nodes.read_bytes() == before  # inputs are never modified
+
+
+def test_report_shows_other_planning_outputs_and_keeps_earlier_manifests(files):
+    folder, site, nodes = files
+    plan = folder / "plan"
+    plan.mkdir()
+    (plan / "nodes.csv").write_text(_node_rows(), encoding="utf-8")
+    (plan / "pairs_summary.json").write_text(json.dumps({"heard_pairs": 40, "isolated": ["<S9>"],
+                                                         "degree": {"min": 2, "max": 9}}))
+    (plan / "schedule.csv").write_text("slot,tx,listeners\n1,S1,BH1-01\n2,S2,BH1-02\n")
+    (plan / "mesh_summary.json").write_text("{not json")
+    graph = nx.Graph()
+    graph.add_edge("S1", "S2")
+    nx.write_graphml(graph, plan / "mesh.graphml")
+    (plan / "manifest.json").write_text(json.dumps({"command": "plan layout", "outputs": ["nodes.csv"]}))
+    code, out, err = _run(["report", plan, "--site", site, "--quiet"])
+    assert code == 0, err
+    page = (plan / "plan_report.html").read_text(encoding="utf-8")
+    for caution in CAUTIONS:
+        assert escape(caution) in page
+    assert "report &lt;box&gt;" in page and "<box>" not in page  # input text is escaped
+    assert "heard_pairs" in page and "degree.max" in page and "&lt;S9&gt;" in page
+    assert "mesh_summary.json could not be read" in page
+    assert "BH1-02" in page  # schedule.csv rows
+    assert page.count("data:image/png;base64,") >= 3
+    manifest = json.loads((plan / "manifest.json").read_text())
+    assert manifest["command"] == "plan report"
+    assert manifest["earlier_runs"][0]["command"] == "plan layout"
+    assert "pairs_summary.json" in manifest["inputs"]
+
+
+def test_optimise_command_writes_a_node_table_that_scores_no_lower(files):
+    folder, site, nodes = files
+    candidates = folder / "candidates.csv"
+    rows = ["node_id,x_m,y_m,z_m,kind,borehole"]
+    for k, (x, y) in enumerate([(x, y) for x in range(1, 20, 3) for y in (2, 5, 8)]):
+        rows.append(f"C{k},{x},{y},18,surface,")
+    candidates.write_text("\n".join(rows) + "\n", encoding="utf-8")
+    code, out, err = _run(["optimise", "--site", site, "--candidates", candidates, "--nodes", nodes,
+                           "--out", folder / "opt", "--budget", "15", "--max-swaps", "3", "--min-rays", "2",
+                           "--depth-of-interest", "10", "--quiet"])
+    assert code == 0, err
+    summary = json.loads((folder / "opt" / "optimise_summary.json").read_text())
+    assert summary["score_optimised"] >= summary["score_start"]
+    with open(folder / "opt" / "nodes_optimised.csv", newline="") as handle:
+        table = list(csv.DictReader(handle))
+    assert 13 <= len(table) <= 15
+    assert len({r["node_id"] for r in table}) == len(table)
+
+
+def test_recover_command_and_its_statements(files):
+    folder, site, nodes = files
+    code, out, err = _run(["recover", "--site", site, "--nodes", nodes, "--out", folder / "rec",
+                           "--void-sizes", "6", "--depths", "9", "--fills", "air,water", "--max-cells", "600",
+                           "--executor", "serial", "--quiet"])
+    assert code == 0, err
+    assert "checkerboard" in out and "water-filled" in out
+    summary = json.loads((folder / "rec" / "recovery_summary.json").read_text())
+    assert {v["fill"] for v in summary["voids"]} == {"air", "water"}
+    with open(folder / "rec" / "recovery.csv", newline="") as handle:
+        assert len(list(csv.DictReader(handle))) == 2
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["report", "{tmp}/missing", "--site", "{site}"], "no such plan folder"),
+    (["coverage", "--site", "{site}", "--nodes", "{nodes}", "--out", "{tmp}/o", "--min-angular", "2"],
+     "min_angular_coverage"),
+    (["recover", "--site", "{site}", "--nodes", "{nodes}", "--out", "{tmp}/o", "--fills", "mud"], "fills"),
+    (["optimise", "--site", "{site}", "--candidates", "{nodes}", "--nodes", "{nodes}", "--out", "{tmp}/o",
+      "--budget", "3"], "more than the budget"),
+])
+def test_user_errors_end_in_one_clear_message(files, argv, message):
+    folder, site, nodes = files
+    argv = [a.format(tmp=folder, site=site, nodes=nodes) for a in argv]
+    code, out, err = _run(argv)
+    assert code == 2
+    assert message in err and "Traceback" not in err

@@ -3,7 +3,7 @@
 The folder is the invented one of conftest.py (a box void 7 x 5 x 5 m whose
 roof is 7 m below flat ground). Outside checks: plain geometry of the box
 (volume, roof thickness, the road 7 m above its roof); the Topp et al. (1980)
-fit for the water content written to the cube (REFERENCES.md pair
+fit for the water content written to the cube (tests/REFERENCES.md pair
 theta(10) = 0.1883 checked through K = (c/v)^2 with scipy.constants).
 """
 
@@ -73,7 +73,7 @@ def test_interpretation_cube_holds_petrophysics_and_body_ids(make_inversion_fold
     c = scipy.constants.c * 1e-9
     v = cube["velocity_m_per_ns"][2, 2, 2]
     assert cube["relative_permittivity"][2, 2, 2] == pytest.approx((c / v) ** 2)
-    # Topp et al. (1980) pair from REFERENCES.md: theta(10) = 0.1883; a cell at c / sqrt(10)
+    # Topp et al. (1980) pair from tests/REFERENCES.md: theta(10) = 0.1883; a cell at c / sqrt(10)
     k = cube["relative_permittivity"][2, 2, 2]
     theta = cube["water_content_topp"][2, 2, 2]
     assert theta == pytest.approx(-0.053 + 0.0292 * k - 5.5e-4 * k**2 + 4.3e-6 * k**3)

@@ -41,10 +41,13 @@ Continuous values
 - ground elevation, drawn as a backdrop under coloured markers: ``Greys``, a
   single-hue ramp whose lightness rises steadily, which stays out of the way
   of the category colours drawn on top;
-- anomalies and residuals (signed, centred on zero): the diverging ``PuOr``
+- anomalies and residuals (signed, centred on zero): the diverging ``RdBu``
   (Harrower and Brewer 2003, marked colour-blind safe there), with the limits
-  set symmetric about zero by the caller. Its orange end holds negative
-  values (earlier than predicted: faster), in keeping with orange for fast.
+  set symmetric about zero by the caller. Lightest at zero, its two ends are
+  about equally dark, so that neither sign looks stronger (``PuOr``, whose
+  purple end is far darker than its orange end, is not); its blue end holds
+  positive values (later than predicted: slower), in keeping with blue for
+  slow.
 
 Cells crossed by no ray
 -----------------------
@@ -180,7 +183,7 @@ NO_RAYS_HATCH_COLOUR = "#333333"
 VELOCITY_MAP = "cividis"
 COVERAGE_MAP = "viridis"
 ELEVATION_MAP = "Greys"
-DIVERGING_MAP = "PuOr"
+DIVERGING_MAP = "RdBu"
 
 # -- report pages (CSS custom properties of reconstruct.report.html) ----------
 

@@ -122,11 +122,13 @@ def _layout_map(site, coverage: Coverage, ids, xyz, kinds, links):
     top = ground_top_m(grid, coverage.ground)
     fig = _new_figure()
     ax = fig.add_subplot()
-    image = ax.imshow(top.T, origin="lower", extent=_extent(grid), cmap=colours.ELEVATION_MAP, alpha=0.55, aspect="equal")
+    image = ax.imshow(top.T, origin="lower", extent=_extent(grid), cmap=colours.ELEVATION_MAP, alpha=0.55,
+                      aspect="equal")
     fig.colorbar(image, ax=ax, label="ground top (m elevation)", shrink=0.8)
     if links is not None and len(links):
         for segment in links:
-            ax.plot(segment[:, 0], segment[:, 1], color=colours.MESH_LINK_COLOUR, lw=0.6, alpha=0.7)
+            ax.plot(segment[:, 0], segment[:, 1], color=colours.MESH_LINK_COLOUR, lw=0.6,
+                    alpha=colours.MESH_LINK_ALPHA)
     _draw_site_outlines(ax, site)
     styles = {kind: (marker, colours.NODE_KIND_COLOURS[kind])
               for kind, marker in (("surface", "o"), ("face", "s"), ("borehole", "v"))}
@@ -134,18 +136,18 @@ def _layout_map(site, coverage: Coverage, ids, xyz, kinds, links):
         pick = np.array([k == kind for k in kinds])
         if pick.any():
             ax.scatter(xyz[pick, 0], xyz[pick, 1], s=14, marker=marker, color=colour, label=f"{kind} ({pick.sum()})",
-                       zorder=3)
+                       zorder=3, edgecolors=colours.REFERENCE_LINE_COLOUR, linewidths=0.4)
     other = np.array([k not in styles for k in kinds])
     if other.any():
-        ax.scatter(xyz[other, 0], xyz[other, 1], s=14, marker="x", color=colours.UNSPECIFIED_KIND_COLOUR, label=f"unspecified ({other.sum()})",
-                   zorder=3)
+        ax.scatter(xyz[other, 0], xyz[other, 1], s=14, marker="x", label=f"unspecified ({other.sum()})",
+                   zorder=3, color=colours.UNSPECIFIED_KIND_COLOUR)
     ax.set_xlim(grid.origin_m[0], grid.end_m[0])
     ax.set_ylim(grid.origin_m[1], grid.end_m[1])
     ax.set_xlabel("x east (m)")
     ax.set_ylabel("y north (m)")
     ax.legend(loc="upper right", fontsize=7)
     ax.set_title("Layout: nodes, planned works (solid), exclusion zones (dashed)" +
-                 (f", mesh links ({colours.COLOUR_NAMES[colours.MESH_LINK_COLOUR]})" if links is not None and len(links) else ""), fontsize=9)
+                 (", mesh links (thin grey)" if links is not None and len(links) else ""), fontsize=9)
     return fig
 
 

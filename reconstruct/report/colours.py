@@ -25,8 +25,12 @@ picture share a colour:
   sky blue, with a marker shape for each kind as well; a node whose kind is
   not given, and every node of the 3D view (where kinds are not drawn), black;
 - pick classes (pick-check page): kept blue, air wave orange, reciprocity
-  mismatch reddish purple, implausible velocity vermilion;
-- radio-mesh links (plan map): blue, thin.
+  mismatch reddish purple, implausible velocity vermilion.
+
+Radio-mesh links on the plan map are not a category but a web of many lines:
+thin and translucent black (a grey on white and on the elevation backdrop),
+so that the node markers stay on top; in a colour of the palette they hid
+the markers of the same or a near colour.
 
 Yellow is left for nothing: thin lines and small markers in yellow do not
 read on a white page.
@@ -90,6 +94,7 @@ __all__ = [
     "UNSPECIFIED_KIND_COLOUR",
     "PICK_CLASS_COLOURS",
     "MESH_LINK_COLOUR",
+    "MESH_LINK_ALPHA",
     "BODY_OUTLINE_HALO",
     "TARGET_OUTLINE_COLOUR",
     "TARGET_OUTLINE_HALO",
@@ -149,8 +154,6 @@ PICK_CLASS_COLOURS = {
     "reciprocal": OKABE_ITO["reddish purple"],
     "implausible": OKABE_ITO["vermilion"],
 }
-#: Radio-mesh links on the plan map.
-MESH_LINK_COLOUR = OKABE_ITO["blue"]
 
 # -- lines and neutral greys (not categories) ---------------------------------
 
@@ -168,6 +171,9 @@ REFERENCE_LINE_COLOUR = "#333333"
 #: Markers of things with no value to show (a node with no pick).
 NO_DATA_COLOUR = "#777777"
 EXCLUSION_ZONE_COLOUR = "#555555"
+#: Radio-mesh links on the plan map: thin, translucent black.
+MESH_LINK_COLOUR = OKABE_ITO["black"]
+MESH_LINK_ALPHA = 0.3
 BACKGROUND_COLOUR = "#FFFFFF"
 TEXT_COLOUR = OKABE_ITO["black"]
 

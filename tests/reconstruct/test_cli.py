@@ -521,7 +521,11 @@ def test_bent_rays_through_the_command_line_write_iterations_and_rays(inputs, tm
     residuals = _read_csv(out / "residuals.csv")
     assert rays.n_cells == len(residuals)  # one polyline per inverted pick
     assert {"tx", "rx", "observed_ns", "predicted_ns", "pair_index", "line"} <= set(rays.cell_data.keys())
-    assert "rays: bent" in stdout
+    assert "rays: bent" in stdout and "0 is the starting model" in stdout
+    # the progress says in words what iteration 0 is, and each iteration is one short line
+    assert "bent-ray iteration 0, the starting model: RMS misfit" in stderr
+    assert "misfit^2" not in stderr
+    assert len([line for line in stderr.splitlines() if "bent-ray iteration 1" in line]) <= 4  # step halvings
 
 
 def test_write_rays_needs_bent_rays(inputs, tmp_path):

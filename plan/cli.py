@@ -673,18 +673,7 @@ def _cmd_report(args) -> int:
     return 0
 
 
-def build_parser(prog: str = "voidcube plan") -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog=prog, description="Design a radar tomography survey before fieldwork.",
-                                     epilog=_UNITS)
-    parser.add_argument("--version", action="version", version=f"voidcube {__version__}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-
-    p = sub.add_parser("describe", help="summarise a site's model grid, ground and rock",
-                       description="Load a site description and print its grid, ground and rock figures.",
-                       epilog=_UNITS)
-    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
-    p.set_defaults(func=_cmd_describe)
-
+def _add_simulate_parser(sub):
     p = sub.add_parser(
         "simulate",
         help="synthetic picks from a truth model (first arrivals through bent or straight rays, clock offsets, noise)",
@@ -714,8 +703,9 @@ def build_parser(prog: str = "voidcube plan") -> argparse.ArgumentParser:
                    help="with --link-budget: random fade added to every margin, standard deviation in dB "
                         "(seeded by the truth model's seed; default 0)")
     p.set_defaults(func=_cmd_simulate)
-    _add_design_parsers(sub)
 
+
+def _add_assess_parsers(sub):
     p = sub.add_parser(
         "coverage", help="ray coverage, angular coverage and resolution floor of a layout",
         description="Ray count and length, angular coverage (direction tensor) and resolution floor (first "
@@ -795,6 +785,23 @@ def build_parser(prog: str = "voidcube plan") -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     _add_standard_arguments(p)
     p.set_defaults(func=_cmd_report)
+
+
+def build_parser(prog: str = "voidcube plan") -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog=prog, description="Design a radar tomography survey before fieldwork.",
+                                     epilog=_UNITS)
+    parser.add_argument("--version", action="version", version=f"voidcube {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser("describe", help="summarise a site's model grid, ground and rock",
+                       description="Load a site description and print its grid, ground and rock figures.",
+                       epilog=_UNITS)
+    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
+    p.set_defaults(func=_cmd_describe)
+
+    _add_simulate_parser(sub)
+    _add_design_parsers(sub)
+    _add_assess_parsers(sub)
     return parser
 
 

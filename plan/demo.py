@@ -62,7 +62,7 @@ from reconstruct.errors import InputError, is_whole_number
 __all__ = ["ChainSettings", "ChainResult", "STAGES", "run_demo", "closing_lines", "main"]
 
 #: The stages in order, as printed and recorded in the manifest.
-STAGES = ("voidcube plan layout", "voidcube plan report", "simulate picks", "pick checks", "inversion, bodies and screening",
+STAGES = ("plan layout", "plan report", "simulate picks", "pick checks", "inversion, bodies and screening",
           "writing the model folder and report")
 
 
@@ -135,15 +135,23 @@ class _Stages:
         self.start = time.perf_counter()
         self.seconds: dict[str, float] = {}
         self._stage_start = self.start
+        self._last_print = self.start
         self._name = None
 
     def say(self, message: str) -> None:
-        if not self.quiet:
-            print(f"[{time.perf_counter() - self.start:6.1f} s]   {message}", file=sys.stderr, flush=True)
+        """Library progress; counters and solver details only to break a silence (as the commands)."""
+        from reconstruct.cli import HEARTBEAT_S, is_detail_message
+
+        now = time.perf_counter()
+        if self.quiet or (is_detail_message(message) and now - self._last_print < HEARTBEAT_S):
+            return
+        self._last_print = now
+        text = message[len("solver: "):] if message.startswith("solver: ") else message
+        print(f"[{now - self.start:6.1f} s]   {text}", file=sys.stderr, flush=True)
 
     def begin(self, name: str) -> None:
         self._name = name
-        self._stage_start = time.perf_counter()
+        self._stage_start = self._last_print = time.perf_counter()
         if not self.quiet:
             print(f"[{self._stage_start - self.start:6.1f} s] stage {STAGES.index(name) + 1}/{len(STAGES)}: {name}",
                   file=sys.stderr, flush=True)
@@ -350,10 +358,10 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     plan_dir, checks_dir, model_dir = root / "plan", root / "pick_checks", root / "model"
     plan_dir.mkdir(exist_ok=True)
 
-    stages.begin("voidcube plan layout")
+    stages.begin("plan layout")
     nodes, pairs, plan_written = _plan_layout(site, settings, plan_dir, say)
     stages.end()
-    stages.begin("voidcube plan report")
+    stages.begin("plan report")
     plan_written += _plan_report(site, nodes, pairs, plan_dir, say)
     write_json_atomic(plan_dir / "manifest.json", build_manifest(
         command="voidcube demo (plan)", inputs={"site": site_path}, parameters={"budget": settings.budget},

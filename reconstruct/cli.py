@@ -15,16 +15,16 @@ from pathlib import Path
 from reconstruct import __version__
 from reconstruct.errors import InputError
 
-__all__ = ["main", "build_parser", "run_command", "progress_printer", "add_executor_arguments", "executor_from_args"]
+__all__ = ["main", "build_parser", "run_command", "progress_printer", "is_detail_message", "HEARTBEAT_S", "add_executor_arguments", "executor_from_args"]
 
 _EPILOG_UNITS = "Units: metres (m), nanoseconds (ns), velocities in m/ns, conductivity in mS/m."
 
 
 #: Progress messages shown only after this many seconds without any other message.
-_HEARTBEAT_S = 5.0
+HEARTBEAT_S = 5.0
 
 
-def _is_detail(message: str) -> bool:
+def is_detail_message(message: str) -> bool:
     """A counter ("travel-time fields: 3/16") or a solver detail: shown only to break a silence."""
     if message.startswith("solver: "):
         return True
@@ -47,7 +47,7 @@ def progress_printer(quiet: bool):
         if quiet:
             return
         now = time.perf_counter()
-        if _is_detail(message) and now - last[0] < _HEARTBEAT_S:
+        if is_detail_message(message) and now - last[0] < HEARTBEAT_S:
             return
         last[0] = now
         text = message[len("solver: "):] if message.startswith("solver: ") else message

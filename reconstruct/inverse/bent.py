@@ -94,6 +94,31 @@ class BentOptions:
 
 
 
+def _starting_model(start, reference, forward, misfit, C, weight, t_obs, pick_pair, say):
+    """The start of the bent-ray iterations: the straight-ray model, or the reference model
+    (rock and air) when it explains the picks better through bent rays. Where air waves arrive
+    first, straight rays force absurd velocities that bent rays need not undo.
+
+    Returns (slowness, time-zero offsets, forward result, weighted misfit, RMS ns, name).
+    """
+    model = start.result.slowness_ns_per_m.copy()
+    tau = start.result.time_zero_ns.copy()
+    fwd = forward(model)
+    current, rms = misfit(fwd.time_ns[pick_pair] + C @ tau)
+    start_name = "straight-ray model"
+    fwd_ref = forward(reference)
+    tau_ref = estimate_time_zero(C, weight, t_obs - fwd_ref.time_ns[pick_pair])
+    value_ref, rms_ref = misfit(fwd_ref.time_ns[pick_pair] + C @ tau_ref)
+    rms_straight_model = rms
+    if value_ref < current:
+        model, tau, fwd, current, rms = reference.copy(), tau_ref, fwd_ref, value_ref, rms_ref
+        start_name = "reference model"
+    say(f"bent-ray iteration 0, the starting model: RMS misfit {rms:.3f} ns through bent rays (the "
+        f"straight-ray model gives {rms_straight_model:.3f} ns, the site's rock velocity {rms_ref:.3f} ns; "
+        "the lower one is the start)")
+    return model, tau, fwd, current, rms, start_name
+
+
 def bent_ray_tomography(site, nodes, picks, options: InversionOptions = InversionOptions(), *,
                         bent: BentOptions = BentOptions(), executor: Executor = Executor(kind="serial"),
                         snap_tolerance_m=None, memory_limit_bytes=None, progress=None) -> TomographyRun:
@@ -139,26 +164,10 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         r = t_obs - pred
         return float(np.sum((weight * r) ** 2)), float(np.sqrt(np.mean(r**2)))
 
-    # Start from the straight-ray model unless the reference model (rock and air)
-    # explains the data better through bent rays: where air waves arrive first,
-    # straight rays force absurd velocities that bent rays need not undo.
-    model = start.result.slowness_ns_per_m.copy()
-    tau = start.result.time_zero_ns.copy()
     if kernels_need_compiling():
         say(COMPILING_MESSAGE)
-    fwd = forward(model)
-    current, rms = misfit(fwd.time_ns[pick_pair] + C @ tau)
-    start_name = "straight-ray model"
-    fwd_ref = forward(reference)
-    tau_ref = estimate_time_zero(C, weight, t_obs - fwd_ref.time_ns[pick_pair])
-    value_ref, rms_ref = misfit(fwd_ref.time_ns[pick_pair] + C @ tau_ref)
-    rms_straight_model = rms
-    if value_ref < current:
-        model, tau, fwd, current, rms = reference.copy(), tau_ref, fwd_ref, value_ref, rms_ref
-        start_name = "reference model"
-    say(f"bent-ray iteration 0, the starting model: RMS misfit {rms:.3f} ns through bent rays (the "
-        f"straight-ray model gives {rms_straight_model:.3f} ns, the site's rock velocity {rms_ref:.3f} ns; "
-        "the lower one is the start)")
+    model, tau, fwd, current, rms, start_name = _starting_model(start, reference, forward, misfit, C, weight,
+                                                                t_obs, pick_pair, say)
     history = [dict(iteration=0, rays=f"bent rays through the {start_name}", rms_ns=rms,
                     chi2=current if sigma is not None else None, lambda_smooth=None,
                     step=None, rays_not_reaching_source=int((~fwd.reached).sum()))]

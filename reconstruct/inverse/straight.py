@@ -136,6 +136,9 @@ def straight_ray_tomography(
                               vertical_weight=options.vertical_weight)
         _say(progress, f"lambda search on a coarse grid of {factor} x {factor} x {factor} blocks "
                        f"({int(coarse.ground.sum()):,} unknowns)")
+    _say(progress, "solving for the straight-ray model" + (
+        "; the smoothing weight is chosen by trial solves (tens of seconds each on a large grid)"
+        if options.smoothing is None else ""))
     result = invert_travel_times(
         G, picks.time_ns[used], picks.tx[used], picks.rx[used], len(nodes), ground_flat, reference, D,
         cell_m=grid.cell_m, sigma_ns=sigma, options=options, coarse=coarse, progress=solver_progress(progress),

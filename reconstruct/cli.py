@@ -96,7 +96,7 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
                         "(Huber first, then Tukey's biweight) or 'none' (plain least squares); default "
                         f"'{robust_rule('straight')}' with straight rays, '{robust_rule('bent')}' with bent "
                         "rays (their steps are judged by the plain misfit). With robust weighting on, the "
-                        "picks ending with weight below 0.1 are listed in rejected_picks.csv")
+                        f"picks ending with weight below {o.rejection_weight:g} are listed in rejected_picks.csv")
     _add_check_arguments(p)
     b = p.add_argument_group("bent rays")
     b.add_argument("--rays", choices=("straight", "bent"), default=d.rays,

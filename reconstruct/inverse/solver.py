@@ -73,6 +73,9 @@ class InversionOptions:
     robust : {"none", "huber", "tukey"}
         Iteratively reweighted least squares against gross pick errors
         (:mod:`reconstruct.inverse.robust`); "none" is plain least squares.
+        The processing (:mod:`reconstruct.pipeline`, the commands, the demo)
+        sets it by one rule, :func:`reconstruct.pipeline.robust_rule`: Huber
+        with straight rays, none with bent rays.
     robust_iterations : int
         Largest number of reweightings per IRLS pass.
     robust_tolerance : float

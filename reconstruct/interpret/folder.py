@@ -69,7 +69,8 @@ _CUBE_ARRAYS = ("velocity_m_per_ns", "ray_length_m", "ray_count", "ground")
 
 @dataclass(frozen=True)
 class InversionFolder:
-    """The pieces of an inversion folder that the void screening needs."""
+    """The pieces of an inversion that the void screening needs: read from a folder
+    (:func:`load_inversion_folder`) or taken from a result in memory (:func:`inversion_from_run`)."""
 
     path: Path
     grid: Grid
@@ -145,6 +146,12 @@ def _median_path_length_m(path: Path) -> float:
     return float(np.median(lengths))
 
 
+def _surface_m(grid: Grid, site: Site) -> np.ndarray:
+    """Ground elevation (m) at the centres of the grid's columns, shape (nx, ny)."""
+    x, y = np.meshgrid(grid.centres_m(0), grid.centres_m(1), indexing="ij")
+    return np.broadcast_to(np.asarray(site.ground.elevation_m(x, y), dtype=float), x.shape).copy()
+
+
 def inversion_from_run(run, *, path=None, site_path=None) -> InversionFolder:
     """The pieces the void screening needs, from an inversion in memory (no file read).
 
@@ -173,8 +180,7 @@ def inversion_from_run(run, *, path=None, site_path=None) -> InversionFolder:
         raise InputError(f"{run.picks.source}: no pick with a positive distance; the void screening needs "
                          "the residuals of an inversion")
     grid, site = run.grid, run.site
-    x, y = np.meshgrid(grid.centres_m(0), grid.centres_m(1), indexing="ij")
-    surface = np.broadcast_to(np.asarray(site.ground.elevation_m(x, y), dtype=float), x.shape).copy()
+    surface = _surface_m(grid, site)
     velocity = (1.0 / run.result.slowness_ns_per_m).reshape(grid.shape)
     return InversionFolder(
         path=Path(path or "."), grid=grid, velocity_m_per_ns=velocity, ray_count=run.ray_count,
@@ -238,8 +244,7 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
     if not isinstance(rms, (int, float)) or not math.isfinite(rms) or rms <= 0:
         raise InputError(f"{folder / 'summary.json'}: misfit.rms_ns missing or not > 0; the threshold "
                          "needs the RMS misfit of the inversion; write the folder again")
-    x, y = np.meshgrid(grid.centres_m(0), grid.centres_m(1), indexing="ij")
-    surface = np.broadcast_to(np.asarray(site.ground.elevation_m(x, y), dtype=float), x.shape).copy()
+    surface = _surface_m(grid, site)
     return InversionFolder(
         path=folder, grid=grid, velocity_m_per_ns=velocity, ray_count=arrays["ray_count"],
         ray_length_m=arrays["ray_length_m"], ground=ground, surface_m=surface, summary=summary,

@@ -330,3 +330,23 @@ def test_bad_overrides_are_user_errors(files, tmp_path, command, option, value, 
     files["site"].write_text(SITE_YAML + "radio: {gateway_m: [0, 5, 19]}\n", encoding="utf-8")
     code, out, err = _run([command, "--site", files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x", option, value])
     _assert_user_error(code, out, err, fragment)
+
+
+def test_coverage_standard_defaults_are_defined_once_in_the_library():
+    from plan.assess.coverage import CoverageStandard
+    from plan.cli import _standard_from, build_parser
+
+    for command in ("coverage", "recover"):
+        args = build_parser().parse_args([command, "--site", "s", "--nodes", "n", "--out", "o"])
+        assert _standard_from(args) == CoverageStandard()
+    assert CoverageStandard().min_rays == 10  # the standard the demo's plan report uses
+
+
+def test_simulate_offers_the_dask_executor(files, tmp_path):
+    from plan.cli import build_parser
+
+    args = build_parser().parse_args(["simulate", "--site", "s", "--nodes", "n", "--truth", "t", "--out", "o",
+                                      "--scheduler", "tcp://10.0.0.5:8786"])
+    assert (args.executor, args.scheduler) == (None, "tcp://10.0.0.5:8786")  # None + scheduler: dask
+    code, out, err = _simulate(files, tmp_path / "picks.csv", "--executor", "serial", "--scheduler", "tcp://h:1")
+    _assert_user_error(code, out, err, "drop --scheduler or choose dask")

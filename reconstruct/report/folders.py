@@ -231,7 +231,7 @@ def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: boo
         "notes": list(data.notes) + list(analysis.notes),
     }
     written.append(write_json_atomic(out / "voids.json", content))
-    extend_manifest(out, command="reconstruct voids", inputs={
+    extend_manifest(out, command="voidcube reconstruct voids", inputs={
         "site": data.site_path, "velocity": out / "velocity.vti", "summary": out / "summary.json",
         "residuals": out / "residuals.csv"}, parameters=parameters,
         outputs=[str(Path(p).relative_to(out)) for p in written], started=started)

@@ -250,7 +250,7 @@ def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
     if summary["problems"]:
         items = "".join(f"<li>{escape(p)}</li>" for p in summary["problems"])
         parts.append(f"<h2>Verdict: not usable as it stands</h2><ul>{items}</ul>"
-                     "<p>reconstruct invert refuses these picks unless --accept-flags is given.</p>")
+                     "<p>voidcube reconstruct invert refuses these picks unless --invert-unusable is given.</p>")
     else:
         parts.append("<h2>Verdict: usable</h2><p>No check stops an inversion. Flagged picks are listed below.</p>")
     counts = summary["picks"]["flag_counts"]

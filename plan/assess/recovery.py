@@ -2,7 +2,7 @@
 
 Before fieldwork, the question is which voids this layout could show. The
 tests here run the processor's own regularised inversion
-(:func:`reconstruct.inverse.solver.invert_travel_times` with the straight-ray
+(:func:`reconstruct.inverse.solver.solve_inverse_problem` with the straight-ray
 operator, lambda by the discrepancy principle) on synthetic data made for the
 layout:
 
@@ -75,11 +75,10 @@ from reconstruct.forward.first_arrivals import first_arrival_times
 from reconstruct.forward.eikonal import EikonalOptions
 from reconstruct.errors import InputError, is_whole_number
 from reconstruct.model.grid import Grid, ground_mask, ground_top_m
-from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
-from reconstruct.inverse.solver import InversionOptions, invert_travel_times
+from reconstruct.inverse.problem import build_inverse_problem, reference_slowness
+from reconstruct.inverse.solver import InversionOptions, solve_inverse_problem
 from reconstruct.parallel import Executor
 from reconstruct.model.placement import place_nodes
-from reconstruct.inverse.regularization import first_difference_operator
 from reconstruct.io.site import Site
 from reconstruct.forward.straight_rays import straight_ray_matrix
 from reconstruct.io.tables import Nodes
@@ -289,26 +288,28 @@ def run_recovery_tests(
         f"({factor} model cells), {int(ground.sum()):,} ground cells; {a.size:,} pairs")
     rock_v = site.rock.velocity_m_per_ns
     rock_s = 1.0 / rock_v
-    ground_flat = ground.ravel()
-    reference = np.where(ground_flat, rock_s, 1.0 / AIR_VELOCITY_M_PER_NS)
     G = straight_ray_matrix(grid, xyz[a], xyz[b])
-    D = first_difference_operator(grid, ground)
     crossed = (np.bincount(G.indices, minlength=grid.n_cells) > 0).reshape(grid.shape)
     target, _ = target_mask(site, grid, ground, standard)
     rng = np.random.default_rng(options.seed)
-    sigma = np.full(2 * a.size, options.noise_sigma_ns)
-    inversion = InversionOptions()
 
     # both directions of every pair are picked, as in the field: reciprocal picks
     # separate node clock offsets from the rock (one-way picks let them absorb a void)
     G_both = sp.vstack([G, G], format="csr")
-    tx_both, rx_both = np.concatenate([a, b]), np.concatenate([b, a])
+    problem = build_inverse_problem(
+        grid, ground, rock_v, np.zeros(2 * a.size), np.concatenate([a, b]), np.concatenate([b, a]), len(xyz),
+        sigma_ns=np.full(2 * a.size, options.noise_sigma_ns), options=InversionOptions())
+    # the recovery grid is already held under max_cells: lambda is searched on it directly
+    problem = replace(problem, coarse=None)
+    reference = problem.reference_slowness_ns_per_m
 
-    def invert(delta_t, options_used):
+    def invert(delta_t, smoothing=None):
         data = G_both @ reference + np.concatenate([delta_t, delta_t])
         data = data + rng.normal(0.0, options.noise_sigma_ns, data.size)
-        result = invert_travel_times(G_both, data, tx_both, rx_both, len(xyz), ground_flat, reference, D,
-                                     cell_m=grid.cell_m, sigma_ns=sigma, options=options_used)
+        posed = problem.with_times(data)
+        if smoothing is not None:
+            posed = replace(posed, options=replace(posed.options, smoothing=smoothing))
+        result = solve_inverse_problem(posed, G_both)
         return (result.velocity_m_per_ns - 1.0 / reference).reshape(grid.shape), result
 
     top = ground_top_m(grid, ground)
@@ -323,10 +324,7 @@ def run_recovery_tests(
     pattern_fine = _checkerboard(fine, fine_ground, rock_s, size_m, options.checker_contrast)
     say(f"checkerboard of {size_m:g} m cubes, +/-{100 * options.checker_contrast:g} % velocity")
     delta_t = straight_ray_matrix(fine, xyz[a], xyz[b]) @ pattern_fine.ravel()
-    recovered, checker_result = invert(delta_t, inversion)
-    # the voids are inverted with the smoothing the discrepancy principle chose for the
-    # checkerboard (same layout, same noise): one solve each instead of a lambda search
-    void_inversion = replace(inversion, smoothing=checker_result.lambda_smooth)
+    recovered, checker_result = invert(delta_t)
     true_dv = (1.0 / (rock_s + _checkerboard(grid, ground, rock_s, size_m, options.checker_contrast))
                - rock_v)
     use = target & crossed
@@ -387,7 +385,7 @@ def run_recovery_tests(
                     fine_v = refined_grid(grid, refine)
                     fine_ground_v = ground_mask(fine_v, site.ground.elevation_m)
                     forward_grids = {refine: (fine_v, fine_ground_v,
-                                              np.where(fine_ground_v, rock_s, 1.0 / AIR_VELOCITY_M_PER_NS).ravel())}
+                                              reference_slowness(fine_ground_v, rock_v))}
                     background.clear()
                 fine_v, fine_ground_v, fine_reference = forward_grids[refine]
                 if diameter < 2.0 * cell / refine:
@@ -411,7 +409,9 @@ def run_recovery_tests(
                     with_void = first_arrival_times(fine_v, fine_slowness, xyz, a[near], b[near],
                                                     executor=executor, eikonal_options=_EIKONAL)
                     delta[near] = with_void - background[key]
-                recovered, _ = invert(delta, void_inversion)
+                # inverted with the smoothing the discrepancy principle chose for the checkerboard
+                # (same layout, same noise): one solve each instead of a lambda search
+                recovered, _ = invert(delta, checker_result.lambda_smooth)
                 true_cells = 1.0 / slowness.reshape(grid.shape) - 1.0 / reference.reshape(grid.shape)
                 inside = fraction >= 0.5
                 if not inside.any():

@@ -253,13 +253,26 @@ def _l_curve_corner(log_rho: np.ndarray, log_eta: np.ndarray) -> int:
     return int(np.argmin(turn)) + 1
 
 
-def _record(search, level, lam, sol, n_picks):
-    search.append(dict(level=level, lambda_smooth=float(lam), chi2=sol.misfit**2,
-                       rms_weighted=sol.misfit / np.sqrt(n_picks),
-                       roughness=sol.roughness, iterations=sol.iterations))
+class _SolveLog:
+    """Every solve of one inversion (``search``, returned as
+    ``InversionResult.lambda_search``) and the progress messages."""
+
+    def __init__(self, n_picks: int, progress=None):
+        self.search: list = []
+        self.n_picks = n_picks
+        self.progress = progress
+
+    def record(self, level, lam, sol):
+        self.search.append(dict(level=level, lambda_smooth=float(lam), chi2=sol.misfit**2,
+                                rms_weighted=sol.misfit / np.sqrt(self.n_picks),
+                                roughness=sol.roughness, iterations=sol.iterations))
+
+    def say(self, message):
+        if self.progress:
+            self.progress(message)
 
 
-def _sweep(problem, options, n_picks, stop_below, progress, level, search, tolerance, x_start, lambdas=None):
+def _sweep(problem, options, log, stop_below, level, tolerance, x_start, lambdas=None):
     """Solve for lambda from large to small, each warm-started from the last.
 
     Stops early once chi^2 <= ``stop_below`` (None: never), or once chi^2 falls
@@ -275,10 +288,9 @@ def _sweep(problem, options, n_picks, stop_below, progress, level, search, toler
         sol = problem.solve(lam, ratio * lam, y0, options.max_iterations, tolerance)
         y0 = sol.y
         trials.append((float(lam), sol))
-        _record(search, level, lam, sol, n_picks)
-        if progress:
-            progress(f"{level} grid, lambda {k + 1}/{lambdas.size}: {lam:.3g}, "
-                     f"weighted misfit^2 {sol.misfit**2:.4g}, {sol.iterations} iterations")
+        log.record(level, lam, sol)
+        log.say(f"{level} grid, lambda {k + 1}/{lambdas.size}: {lam:.3g}, "
+                f"weighted misfit^2 {sol.misfit**2:.4g}, {sol.iterations} iterations")
         if stop_below is not None and sol.misfit**2 <= stop_below:
             break
         if len(trials) >= 4 and sol.misfit**2 > 0.98 * trials[-2][1].misfit ** 2:
@@ -301,7 +313,7 @@ def _log_slope(trials, k):
     return float((np.log(c_hi) - np.log(c_lo)) / (np.log(trials[hi][0]) - np.log(trials[lo][0])))
 
 
-def _discrepancy_root(problem, options, start, target, progress, level, search, n_picks, *,
+def _discrepancy_root(problem, options, start, target, log, level, *,
                       slope=1.0, tolerance=0.03, max_solves=6):
     """Find lambda with chi^2 = target, starting from ``start = (lambda, _Solve)``.
 
@@ -335,11 +347,10 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
         lam = float(np.exp(log_lam))
         nearest = min(points, key=lambda p: abs(p[0] - log_lam))[2]
         sol = problem.solve(lam, ratio * lam, nearest.y, options.max_iterations, options.search_tolerance)
-        _record(search, level, lam, sol, n_picks)
+        log.record(level, lam, sol)
         g = g_of(sol)
-        if progress:
-            progress(f"{level} grid, discrepancy step: lambda {lam:.4g}, chi^2 {sol.misfit**2:.5g} "
-                     f"(target {target:.5g}), {sol.iterations} iterations")
+        log.say(f"{level} grid, discrepancy step: lambda {lam:.4g}, chi^2 {sol.misfit**2:.5g} "
+                f"(target {target:.5g}), {sol.iterations} iterations")
         if abs(g) < tolerance:
             return lam, sol, True
         point = [log_lam, g, sol]
@@ -369,8 +380,7 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
     return float(np.exp(best[0])), best[2], abs(best[1]) < 0.1
 
 
-def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_picks, exempt=None,
-          max_reweightings=None):
+def _irls(problem, options, lam, sol, loss, trust_sigma, log, exempt=None, max_reweightings=None):
     """Iteratively reweighted least squares at a fixed lambda.
 
     Residuals are standardised by the pick sigmas (``trust_sigma``: picks carry
@@ -404,10 +414,9 @@ def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_pic
         sol = problem.solve(lam, ratio * lam, sol.y, options.max_iterations,
                             min(options.search_tolerance, 10 * options.tolerance))
         count += 1
-        _record(search, "fine", lam, sol, n_picks)
-        if progress:
-            progress(f"robust ({loss}) reweighting {count}: {int(np.sum(omega < options.rejection_weight))} "
-                     f"picks below weight {options.rejection_weight:g}, {sol.iterations} iterations")
+        log.record("fine", lam, sol)
+        log.say(f"robust ({loss}) reweighting {count}: {int(np.sum(omega < options.rejection_weight))} "
+                f"picks below weight {options.rejection_weight:g}, {sol.iterations} iterations")
     return sol, omega, scale, count
 
 
@@ -625,26 +634,26 @@ def solve_inverse_problem(problem: InverseProblem, operator, *, progress=None) -
     if problem.ground_flat.shape != (n_cells,):
         raise ValueError("ground_flat and reference slowness must have one entry per cell")
     levels = _scaled_levels(problem, G)
-    search: list = []
+    log = _SolveLog(problem.n_picks, progress)
     if problem.options.smoothing is not None:
-        choice = _user_lambda(levels, search)
+        choice = _user_lambda(levels, log)
     else:
-        choice = _automatic_lambda(levels, search, progress)
-    choice, robust = _robust_pass(levels, choice, search, progress)
-    return _assembled_result(problem, G, levels.fine, choice, robust, search)
+        choice = _automatic_lambda(levels, log)
+    choice, robust = _robust_pass(levels, choice, log)
+    return _assembled_result(problem, G, levels.fine, choice, robust, log.search)
 
 
-def _user_lambda(levels: _Levels, search: list) -> _Choice:
+def _user_lambda(levels: _Levels, log: _SolveLog) -> _Choice:
     options = levels.problem.options
     fine = levels.fine
     lam = float(options.smoothing)
     sol = fine.solve(lam, options.damping_ratio * lam, levels.start(fine.n_slowness) * fine.scale,
                      options.max_iterations, options.tolerance)
-    _record(search, "fine", lam, sol, levels.problem.n_picks)
+    log.record("fine", lam, sol)
     return _Choice(lam, sol, "user", "set by the user")
 
 
-def _automatic_lambda(levels: _Levels, search: list, progress) -> _Choice:
+def _automatic_lambda(levels: _Levels, log: _SolveLog) -> _Choice:
     """Lambda by the discrepancy principle (sigmas given) or the L-curve corner,
     searched on the coarse level when there is one, then on the model grid."""
     problem, fine = levels.problem, levels.fine
@@ -654,9 +663,9 @@ def _automatic_lambda(levels: _Levels, search: list, progress) -> _Choice:
         level_problem, level = fine, "fine"
     else:
         level_problem, level = levels.coarse_problem(), "coarse"
-    trials = _sweep(level_problem, options, n_picks,
-                    (2.0 if coarse is not None else 1.0) * target if problem.sigma_given else None, progress,
-                    level, search, options.search_tolerance if coarse is not None else options.tolerance,
+    trials = _sweep(level_problem, options, log,
+                    (2.0 if coarse is not None else 1.0) * target if problem.sigma_given else None,
+                    level, options.search_tolerance if coarse is not None else options.tolerance,
                     levels.start(level_problem.n_slowness))
     method = "discrepancy" if problem.sigma_given else "l-curve"
     k = _first_trial_choice(trials, method, target, coarse is not None, options.damping_ratio)
@@ -665,10 +674,9 @@ def _automatic_lambda(levels: _Levels, search: list, progress) -> _Choice:
     # the coarse curve is flatter where it nears its floor
     slope = max(_log_slope(trials, k), 1.0)
     if coarse is not None:
-        lam, sol, trials, k = _refine_on_model_grid(levels, level_problem, method, lam, sol, trials, k,
-                                                    search, progress)
+        lam, sol, trials, k = _refine_on_model_grid(levels, level_problem, method, (lam, sol), (trials, k), log)
     if method == "discrepancy":
-        choice = _discrepancy_choice(levels, lam, sol, trials, slope, search, progress)
+        choice = _discrepancy_choice(levels, (lam, sol), trials, slope, log)
     else:
         choice = _Choice(lam, sol, method, f"L-curve corner at lambda {lam:.4g} (trial {k + 1} of {len(trials)})",
                          slope)
@@ -694,41 +702,38 @@ def _first_trial_choice(trials, method, target, on_coarse, ratio) -> int:
     return int(below[0]) if below.size else int(np.flatnonzero(chi2s <= 1.1 * chi2s.min())[0])
 
 
-def _refine_on_model_grid(levels, level_problem, method, lam, start_sol, trials, k, search, progress):
+def _refine_on_model_grid(levels, level_problem, method, start, sweep, log):
     """Carry the coarse choice to the model grid: one solve there (discrepancy),
     or a new L-curve sweep from there downwards. Returns (lambda, solve, trials, k)."""
     fine, options, coarse = levels.fine, levels.problem.options, levels.problem.coarse
-    n_picks = levels.problem.n_picks
+    (lam, start_sol), (trials, k) = start, sweep
     ratio = options.damping_ratio
     x_coarse = start_sol.y / level_problem.scale
     n_c = coarse.prolongation.shape[1]
     x0 = np.concatenate([coarse.prolongation @ x_coarse[:n_c], x_coarse[n_c:]])
     if method == "discrepancy":
         sol = fine.solve(lam, ratio * lam, x0 * fine.scale, options.max_iterations, options.search_tolerance)
-        _record(search, "fine", lam, sol, n_picks)
-        if progress:
-            progress(f"fine grid: lambda {lam:.4g}, weighted misfit^2 {sol.misfit**2:.5g}, "
-                     f"{sol.iterations} iterations")
+        log.record("fine", lam, sol)
+        log.say(f"fine grid: lambda {lam:.4g}, weighted misfit^2 {sol.misfit**2:.5g}, "
+                f"{sol.iterations} iterations")
         return lam, sol, trials, k
     # The coarse curve levels off early (its cells cannot fit small
     # bodies), which moves its corner to larger lambda: trace the
     # L-curve again on the model grid from there downwards.
     fine_lambdas = lam * np.geomspace(10**0.5, 10**-2.5, 7)
-    fine_trials = _sweep(fine, options, n_picks, None, progress, "fine", search,
-                         options.tolerance, x0, lambdas=fine_lambdas)
+    fine_trials = _sweep(fine, options, log, None, "fine", options.tolerance, x0, lambdas=fine_lambdas)
     k = _l_curve_choice(fine_trials, ratio) if len(fine_trials) >= 3 else len(fine_trials) - 1
     lam, sol = fine_trials[k]
     return lam, sol, fine_trials, k
 
 
-def _discrepancy_choice(levels, lam, sol, trials, slope, search, progress) -> _Choice:
+def _discrepancy_choice(levels, start, trials, slope, log) -> _Choice:
     """chi^2 = N by regula falsi from ``(lam, sol)``, the L-curve corner when the
     data cannot be fit to their sigmas, and a polishing solve."""
     fine, options, n_picks = levels.fine, levels.problem.options, levels.problem.n_picks
     ratio = options.damping_ratio
     target = float(n_picks)
-    lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), target, progress, "fine",
-                                          search, n_picks, slope=slope)
+    lam, sol, reached = _discrepancy_root(fine, options, start, target, log, "fine", slope=slope)
     fallback = ""
     if not reached and sol.misfit**2 > target:
         # the data cannot be fit to their sigmas (forward-model error, outliers or
@@ -740,10 +745,9 @@ def _discrepancy_choice(levels, lam, sol, trials, slope, search, progress) -> _C
             fallback = f"; fell back to the L-curve corner, lambda {lam:.4g}"
     # the search solves stop at the looser search tolerance: polish the last one
     sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
-    _record(search, "fine", lam, sol, n_picks)
-    if progress:
-        progress(f"fine grid, final solve: lambda {lam:.4g}, chi^2 {sol.misfit**2:.5g}, "
-                 f"{sol.iterations} iterations")
+    log.record("fine", lam, sol)
+    log.say(f"fine grid, final solve: lambda {lam:.4g}, chi^2 {sol.misfit**2:.5g}, "
+            f"{sol.iterations} iterations")
     if reached:
         note = f"chi^2 = {sol.misfit**2:.5g} for N = {n_picks} picks"
     else:
@@ -760,7 +764,7 @@ class _RobustOutcome:
     reweightings: int = 0
 
 
-def _robust_pass(levels: _Levels, choice: _Choice, search: list, progress):
+def _robust_pass(levels: _Levels, choice: _Choice, log: _SolveLog):
     """IRLS at the chosen lambda (Huber first: Tukey's loss is not convex and
     needs a good start), then, with the discrepancy principle, lambda is
     chosen again with chi^2 counted over the picks that keep their weight.
@@ -771,16 +775,14 @@ def _robust_pass(levels: _Levels, choice: _Choice, search: list, progress):
         return choice, _RobustOutcome()
     lam, sol, note = choice.lam, choice.sol, choice.note
     have_sigma = problem.sigma_given
-    sol, omega, scale_used, n_reweightings = _irls(fine, options, lam, sol, "huber", have_sigma, progress,
-                                                   search, n_picks, exempt)
+    sol, omega, scale_used, n_reweightings = _irls(fine, options, lam, sol, "huber", have_sigma, log, exempt)
     if n_reweightings == 0:
         pass  # every weight is 1: the plain solution is the robust one
     elif choice.method == "discrepancy":
         counted = omega >= options.rejection_weight
-        lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), float(counted.sum()), progress,
-                                              "fine", search, n_picks, slope=choice.slope)
-        sol, omega, scale_used, n = _irls(fine, options, lam, sol, options.robust, have_sigma, progress,
-                                         search, n_picks, exempt,
+        lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), float(counted.sum()), log, "fine",
+                                              slope=choice.slope)
+        sol, omega, scale_used, n = _irls(fine, options, lam, sol, options.robust, have_sigma, log, exempt,
                                          max_reweightings=max(3, options.robust_iterations // 2))
         n_reweightings += n
         counted = omega >= options.rejection_weight
@@ -788,12 +790,11 @@ def _robust_pass(levels: _Levels, choice: _Choice, search: list, progress):
                 f"robust weights ({n_picks - int(counted.sum())} rejected)"
                 + ("" if reached else "; chi^2 = N not reached within the search range"))
     elif options.robust == "tukey":
-        sol, omega, scale_used, n = _irls(fine, options, lam, sol, "tukey", have_sigma, progress, search,
-                                         n_picks, exempt)
+        sol, omega, scale_used, n = _irls(fine, options, lam, sol, "tukey", have_sigma, log, exempt)
         n_reweightings += n
     if n_reweightings:
         sol = fine.solve(lam, options.damping_ratio * lam, sol.y, options.max_iterations, options.tolerance)
-        _record(search, "fine", lam, sol, n_picks)
+        log.record("fine", lam, sol)
     return (dataclasses.replace(choice, lam=lam, sol=sol, note=note),
             _RobustOutcome(weight=omega, scale=scale_used, reweightings=n_reweightings))
 

@@ -99,17 +99,18 @@ and the generated hash would fail on arrays.
 from __future__ import annotations
 
 import csv
+import errno
 import io
 import math
 import os
 import re
-import uuid
 from dataclasses import dataclass, replace
 from functools import cached_property
 
 import numpy as np
 
 from reconstruct.errors import InputError
+from reconstruct.io.outputs import write_text_atomic
 
 __all__ = [
     "Nodes",
@@ -769,19 +770,14 @@ def write_excluded_csv(excluded, path_or_buffer) -> None:
         _write_excluded_rows(excluded, path_or_buffer)
         return
     path = os.fspath(path_or_buffer)
-    folder = os.path.dirname(os.path.abspath(path))
-    # Created with open(..., "x") rather than mkstemp so the file gets the
-    # user's usual permissions (mkstemp makes it private, 0600).
-    tmp = os.path.join(folder, f".{os.path.basename(path)}.{uuid.uuid4().hex}.tmp")
+    buffer = io.StringIO()
+    _write_excluded_rows(excluded, buffer)
     try:
-        with open(tmp, "x", encoding="utf-8", newline="") as f:
-            _write_excluded_rows(excluded, f)
-        os.replace(tmp, path)
+        if not os.path.isdir(os.path.dirname(os.path.abspath(path))):
+            # the one atomic writer would create the folder; here a missing one is the user's mistake
+            raise FileNotFoundError(errno.ENOENT, os.strerror(errno.ENOENT))
+        write_text_atomic(path, buffer.getvalue())
     except OSError as exc:
-        try:
-            os.remove(tmp)
-        except OSError:
-            pass
         raise InputError(
             f"{path}: cannot write the excluded-picks table ({exc.strerror or exc}); "
             "check that the folder exists and is writable",

@@ -35,7 +35,7 @@ def reference_slowness(ground: np.ndarray, rock_velocity_m_per_ns: float) -> np.
     return np.where(ground_flat, 1.0 / rock_velocity_m_per_ns, 1.0 / AIR_VELOCITY_M_PER_NS)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # arrays inside: compare fields, not problems
 class InverseProblem:
     """Data, weights, time-zero columns, regularisation and bounds of one inversion.
 

@@ -237,6 +237,37 @@ def optimise_layout(
         fewer positions than the budget.
     """
     began = time.perf_counter()
+    xyz, start = _checked_pool(pool_xyz_m, start, options)
+    n_pool = xyz.shape[0]
+    search, step, n_pairs = _pair_search(site, xyz, standard, options, progress)
+
+    chosen: list[int] = []
+    for k in start:
+        search.apply(int(k), np.asarray(chosen, dtype=np.int64), +1)
+        chosen.append(int(k))
+    start_score = search.score
+    history = [{"step": 0, "action": "start", "added": None, "removed": None, "score": start_score}]
+    in_layout = np.zeros(n_pool, dtype=bool)
+    in_layout[chosen] = True
+    add_reason = _greedy_adds(search, in_layout, options, history, progress)
+    stop_reason = _swaps(search, in_layout, options, history, began, progress) or add_reason
+
+    selected = np.flatnonzero(in_layout)
+    # recompute both scores from scratch: the running sums could drift by rounding
+    final = _score_of(search, selected)
+    begin = _score_of(search, start)
+    if final < begin:
+        selected, final = start, begin
+        stop_reason += "; no improvement kept"
+    return OptimisationResult(
+        selected=selected, start=start, start_score=begin, score=final, history=tuple(history),
+        sample_step=step, n_samples=int(search.n), n_candidate_pairs=int(n_pairs),
+        stop_reason=stop_reason, seconds=time.perf_counter() - began,
+    )
+
+
+def _checked_pool(pool_xyz_m, start, options: OptimiseOptions):
+    """The pool as an (n, 3) array and the start layout as sorted unique indices, checked."""
     xyz = np.asarray(pool_xyz_m, dtype=float)
     if xyz.ndim != 2 or xyz.shape[1] != 3:
         raise ValueError(f"pool_xyz_m has shape {xyz.shape}, expected (n, 3)")
@@ -250,7 +281,13 @@ def optimise_layout(
     if options.budget > n_pool:
         raise InputError(f"the budget of {options.budget} nodes is larger than the {n_pool} positions "
                          "available (candidates and start layout); give more candidates or a smaller budget")
+    return xyz, start
 
+
+def _pair_search(site, xyz, standard, options, progress):
+    """The score's search state over sampled target cells and every candidate pair;
+    returns (search, sampling step, number of pairs)."""
+    n_pool = xyz.shape[0]
     grid, ground = model_grid(site)
     target, _ = target_mask(site, grid, ground, standard)
     step = sample_step(target, options.max_target_samples)
@@ -273,47 +310,47 @@ def optimise_layout(
     R = _candidate_matrix(grid, xyz, a, b, columns, progress)
     d = xyz[b] - xyz[a]
     unit = d / np.maximum(np.linalg.norm(d, axis=1), 1e-12)[:, None]
-    search = _Search(R, unit, pair_id, standard, columns.size)
+    return _Search(R, unit, pair_id, standard, columns.size), step, a.size
 
-    chosen: list[int] = []
-    for k in start:
-        search.apply(int(k), np.asarray(chosen, dtype=np.int64), +1)
-        chosen.append(int(k))
-    start_score = search.score
-    history = [{"step": 0, "action": "start", "added": None, "removed": None, "score": start_score}]
-    in_layout = np.zeros(n_pool, dtype=bool)
-    in_layout[chosen] = True
 
-    def best_addition(exclude=()):
-        free = np.flatnonzero(~in_layout)
-        free = free[~np.isin(free, exclude)]
-        if free.size == 0:
-            return None, -np.inf
-        gains = search.deltas(free, np.flatnonzero(in_layout), +1)
-        k = int(np.argmax(gains))
-        return int(free[k]), float(gains[k])
+def _best_addition(search: _Search, in_layout, exclude=()):
+    """The free position whose addition raises the score most, and the gain."""
+    free = np.flatnonzero(~in_layout)
+    free = free[~np.isin(free, exclude)]
+    if free.size == 0:
+        return None, -np.inf
+    gains = search.deltas(free, np.flatnonzero(in_layout), +1)
+    k = int(np.argmax(gains))
+    return int(free[k]), float(gains[k])
 
-    stop_reason = "no swap raises the score"
+
+def _greedy_adds(search: _Search, in_layout, options, history, progress) -> str:
+    """Add the best position until the budget is met or no addition helps
+    (``in_layout`` and ``history`` updated in place); returns the stop reason so far."""
     while in_layout.sum() < options.budget:
-        node, gain = best_addition()
+        node, gain = _best_addition(search, in_layout)
         if node is None or gain <= 1e-12:
-            stop_reason = "no candidate raises the score"
-            break
+            return "no candidate raises the score"
         search.apply(node, np.flatnonzero(in_layout), +1)
         in_layout[node] = True
         history.append({"step": len(history), "action": "add", "added": node, "removed": None,
                         "score": search.score})
         if progress:
             progress(f"add: {int(in_layout.sum())}/{options.budget} nodes, score {search.score:.4f}")
+    return "no swap raises the score"
 
+
+def _swaps(search: _Search, in_layout, options, history, began, progress):
+    """Swap a node for a better free position while that raises the score
+    (``in_layout`` and ``history`` updated in place); returns the stop reason, or
+    None when the layout is empty."""
     swaps = 0
     while swaps < options.max_swaps:
         if options.time_limit_s is not None and time.perf_counter() - began > options.time_limit_s:
-            stop_reason = f"time limit of {options.time_limit_s:g} s reached"
-            break
+            return f"time limit of {options.time_limit_s:g} s reached"
         chosen_now = np.flatnonzero(in_layout)
         if chosen_now.size == 0:
-            break
+            return None
         current = search.score
         losses = search.deltas(chosen_now, chosen_now, -1)
         improved = False
@@ -321,7 +358,7 @@ def optimise_layout(
             k = int(k)
             in_layout[k] = False
             search.apply(k, np.flatnonzero(in_layout), -1)
-            node, gain = best_addition(exclude=(k,))
+            node, gain = _best_addition(search, in_layout, exclude=(k,))
             if node is not None and search.score + gain > current + 1e-12:
                 search.apply(node, np.flatnonzero(in_layout), +1)
                 in_layout[node] = True
@@ -335,23 +372,8 @@ def optimise_layout(
             search.apply(k, np.flatnonzero(in_layout), +1)
             in_layout[k] = True
         if not improved:
-            stop_reason = "no swap raises the score"
-            break
-    else:
-        stop_reason = f"swap limit of {options.max_swaps} reached"
-
-    selected = np.flatnonzero(in_layout)
-    # recompute both scores from scratch: the running sums could drift by rounding
-    final = _score_of(search, selected)
-    begin = _score_of(search, start)
-    if final < begin:
-        selected, final = start, begin
-        stop_reason += "; no improvement kept"
-    return OptimisationResult(
-        selected=selected, start=start, start_score=begin, score=final, history=tuple(history),
-        sample_step=step, n_samples=int(columns.size), n_candidate_pairs=int(a.size),
-        stop_reason=stop_reason, seconds=time.perf_counter() - began,
-    )
+            return "no swap raises the score"
+    return f"swap limit of {options.max_swaps} reached"
 
 
 def _score_of(search: _Search, nodes) -> float:

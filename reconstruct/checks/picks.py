@@ -362,6 +362,9 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
                 cell_m=(1.0, 1.0, 1.0), options: QCOptions = QCOptions()) -> PickChecks:
     """Check every pick against reciprocity, node clocks, the velocity band and air waves.
 
+    Long because the checks run in a fixed order, each on the flags of the ones
+    before; kept whole while the pick-check vocabulary is being renamed.
+
     Parameters
     ----------
     nodes : Nodes

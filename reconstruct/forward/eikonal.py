@@ -482,9 +482,11 @@ def _multi_axis_min(K, A, B, C, add, s, use, keep, nk):
 
 
 @njit(cache=True, inline='always')
-def _side_coefficients(T, state, fam, m1, m2, a, h, second_order, two_ok, A, B, q):
+def _side_coefficients(T, state, fam, m1, m2, a, h, second, coefficients, q):
     """Plain one-sided difference of axis-side ``q`` from the values of family
-    ``fam`` (0, 1; 2: the earlier of the two). Returns (known, second order used)."""
+    ``fam`` (0, 1; 2: the earlier of the two), into ``coefficients = (A, B)``;
+    ``second``: second order allowed here. Returns (known, second order used)."""
+    A, B = coefficients
     if fam == 2:
         t1 = min(T[2 * m1] if state[2 * m1] == 2 else np.inf, T[2 * m1 + 1] if state[2 * m1 + 1] == 2 else np.inf)
     else:
@@ -493,7 +495,7 @@ def _side_coefficients(T, state, fam, m1, m2, a, h, second_order, two_ok, A, B, 
         return False, False
     two = False
     t2 = 0.0
-    if second_order and two_ok:
+    if second:
         if fam == 2:
             t2 = min(T[2 * m2] if state[2 * m2] == 2 else np.inf, T[2 * m2 + 1] if state[2 * m2 + 1] == 2 else np.inf)
         else:
@@ -509,18 +511,52 @@ def _side_coefficients(T, state, fam, m1, m2, a, h, second_order, two_ok, A, B, 
 
 
 @njit(cache=True, _nrt=False)
-def _march_loop(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
-                second_order, smooth, seed_direct, xes, s1s, targets, margin, dominance, T, state, hk, hv, hpos,
-                h, strides, dims, Af, Bf, A1, B1, C1, Am, Bm, Cm, k0, k1, km, mf, cs, cf, ca, use, keep, nk,
-                ijk, g, uni, is_target):
+def _march_loop(cells, points, lattice, source, fast_bodies, settings, heap, scratch):
     """The marching loop of :func:`_march` over arrays it allocated.
 
     Compiled without numba's reference counting (``_nrt=False``: nothing is
     allocated here): the array arguments of the inlined helpers otherwise
     cost an atomic increment and decrement per call, measured as a third of
     the march. Returns the time up to which the field is final.
+
+    Long because it is the hot loop of the solver, one pass per accepted value:
+    its stages (the eight cells around a neighbour, the one-sided differences
+    of each family, the stencils, the heap update) share some thirty local
+    values, and the helpers it does call are inlined; splitting the rest would
+    pass them through tuples on every update for no gain in clarity.
+
+    The arguments are tuples of arrays and numbers (numba passes them as
+    plain structures, unpacked once here):
+
+    - ``cells``: ``(cs_pad, cf_pad, ca_pad)``, see :func:`_march`;
+    - ``points``: per lattice point ``(smooth, uni, is_target)``: second order
+      allowed, eight cells alike, receiver corner (0 no, 1 waited for, 2 reached);
+    - ``lattice``: ``(h, strides, dims)``: spacing (m), flat-index strides and
+      number of points per axis;
+    - ``source``: ``(src, s0, seed_nodes, seed_times, seed_direct)``;
+    - ``fast_bodies``: ``(xes, s1s)``, apexes and slownesses of the additive factors;
+    - ``settings``: ``(second_order, targets, margin, dominance)``;
+    - ``heap``: ``(T, state, hk, hv, hpos)``, times and states per value and the binary heap;
+    - ``scratch``: ``((Af, Bf, A1, B1, C1, Am, Bm, Cm), (k0, k1, km, mf), (cs, cf, ca),
+      (use, keep, nk, ijk, g))``, see :func:`_march`.
     """
-    n_nodes = npx * npy * npz
+    cs_pad, cf_pad, ca_pad = cells
+    smooth, uni, is_target = points
+    h, strides, dims = lattice
+    npy = dims[1]
+    npz = dims[2]
+    hx = h[0]
+    hy = h[1]
+    hz = h[2]
+    src, s0, seed_nodes, seed_times, seed_direct = source
+    xes, s1s = fast_bodies
+    second_order, targets, margin, dominance = settings
+    T, state, hk, hv, hpos = heap
+    coefficients, side_flags, cell_scratch, index_scratch = scratch
+    Af, Bf, A1, B1, C1, Am, Bm, Cm = coefficients
+    k0, k1, km, mf = side_flags
+    cs, cf, ca = cell_scratch
+    use, keep, nk, ijk, g = index_scratch
     size = 0
     # start values are final: a difference stencil next to the source, where
     # the front is a point, only spoils them (measured: second-order plain
@@ -680,12 +716,12 @@ def _march_loop(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed
                             two1 = False
                             twom = False
                             if do1:
-                                ok, two1 = _side_coefficients(T, state, 1, m1, m2, a, h, second_order, two_ok,
-                                                              A1, B1, q)
+                                ok, two1 = _side_coefficients(T, state, 1, m1, m2, a, h, second_order and two_ok,
+                                                              (A1, B1), q)
                                 k1[q] = ok
                             if dom:
-                                okm, twom = _side_coefficients(T, state, 2, m1, m2, a, h, second_order, two_ok,
-                                                               Am, Bm, q)
+                                okm, twom = _side_coefficients(T, state, 2, m1, m2, a, h,
+                                                               second_order and two_ok, (Am, Bm), q)
                                 km[q] = okm
                                 # a 1D update takes the additive factor only from a wave
                                 # already in the fast medium (family 1 earliest there), not
@@ -877,8 +913,7 @@ def _march_loop(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed
 
 
 @njit(cache=True)
-def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
-           second_order, smooth, seed_direct, xes, s1s, targets, margin, dominance):
+def _march(cells, lattice, source, fast_bodies, smooth, settings):
     """Fast marching over the lattice with two wave families per point.
 
     Family 0 is the source's own wave in its smooth region (the factored form
@@ -898,13 +933,23 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
     grows at the full slowness, the other's at most as fast, so it stays later
     downstream).
 
-    ``*_pad`` are the lattice cells' slowness, factored flag and fast-region
-    flag, padded by one cell (inf / 0) all round: cell (I, J, K) sits at
-    [I + 1, J + 1, K + 1] (see :func:`_padded_cells`). With ``targets`` (lattice
-    point numbers), the march stops ``margin`` ns after the last of them is
-    reached; later points are set to inf. Returns the first-arrival times, the
-    times per family and the time up to which they are final (inf: all).
+    ``cells = (cs_pad, cf_pad, ca_pad)`` are the lattice cells' slowness,
+    factored flag and fast-region flag, padded by one cell (inf / 0) all round:
+    cell (I, J, K) sits at [I + 1, J + 1, K + 1] (see :func:`_padded_cells`).
+    ``lattice = ((npx, npy, npz), (hx, hy, hz))``: points per axis and spacing
+    (m). ``source = (src, s0, seed_nodes, seed_times, seed_direct)``: position
+    (m from the lattice origin), slowness of the factored form, start values
+    and whether each came by the direct wave. ``fast_bodies = (xes, s1s)``: see
+    :func:`_fast_region`. ``smooth``: per lattice point, 1 where second order is
+    allowed. ``settings = (second_order, targets, margin, dominance)``: with
+    ``targets`` (lattice point numbers), the march stops ``margin`` ns after the
+    last of them is reached; later points are set to inf. Returns the
+    first-arrival times, the times per family and the time up to which they are
+    final (inf: all).
     """
+    cs_pad, cf_pad, ca_pad = cells
+    (npx, npy, npz), (hx, hy, hz) = lattice
+    targets = settings[1]
     n_nodes = npx * npy * npz
     # entry 2 n + f: point n, family f
     T = np.full(2 * n_nodes, np.inf)
@@ -946,9 +991,28 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
     ijk = np.empty(3, dtype=np.int64)
     g = np.empty(3)
 
-    # lattice points whose eight cells are alike in slowness and flags (and
-    # inside the box): their stencils all share one cell
-    uni = np.zeros(n_nodes, dtype=np.uint8)
+    uni = _uniform_points(cs_pad, cf_pad, ca_pad, npx, npy, npz)
+    is_target = np.zeros(n_nodes if targets.shape[0] > 0 else 0, dtype=np.uint8)
+
+    t_stop = _march_loop(cells, (smooth, uni, is_target), (h, strides, dims), source, fast_bodies, settings,
+                         (T, state, hk, hv, hpos),
+                         ((Af, Bf, A1, B1, C1, Am, Bm, Cm), (k0, k1, km, mf), (cs, cf, ca), (use, keep, nk, ijk, g)))
+    out = np.full(n_nodes, np.inf)
+    families = np.full((2, n_nodes), np.inf)
+    for n in range(n_nodes):
+        for f in range(2):
+            if state[2 * n + f] == 2 or state[2 * n + f] == 4:
+                families[f, n] = T[2 * n + f]
+                if T[2 * n + f] < out[n]:
+                    out[n] = T[2 * n + f]
+    return out, families, t_stop
+
+
+@njit(cache=True)
+def _uniform_points(cs_pad, cf_pad, ca_pad, npx, npy, npz):
+    """1 at lattice points whose eight cells are alike in slowness and flags (and
+    inside the box): their stencils all share one cell."""
+    uni = np.zeros(npx * npy * npz, dtype=np.uint8)
     for i in range(npx):
         for j in range(npy):
             for k in range(npz):
@@ -967,22 +1031,7 @@ def _march(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_node
                         break
                 if same:
                     uni[(i * npy + j) * npz + k] = 1
-
-    is_target = np.zeros(n_nodes if targets.shape[0] > 0 else 0, dtype=np.uint8)
-
-    t_stop = _march_loop(cs_pad, cf_pad, ca_pad, npx, npy, npz, hx, hy, hz, src, s0, seed_nodes, seed_times,
-                         second_order, smooth, seed_direct, xes, s1s, targets, margin, dominance, T, state, hk,
-                         hv, hpos, h, strides, dims, Af, Bf, A1, B1, C1, Am, Bm, Cm, k0, k1, km, mf, cs, cf,
-                         ca, use, keep, nk, ijk, g, uni, is_target)
-    out = np.full(n_nodes, np.inf)
-    families = np.full((2, n_nodes), np.inf)
-    for n in range(n_nodes):
-        for f in range(2):
-            if state[2 * n + f] == 2 or state[2 * n + f] == 4:
-                families[f, n] = T[2 * n + f]
-                if T[2 * n + f] < out[n]:
-                    out[n] = T[2 * n + f]
-    return out, families, t_stop
+    return uni
 
 
 @njit(cache=True)
@@ -1274,10 +1323,12 @@ def _lattice_times(slow, r, cell, src, options, local, targets_m=None):
     # whose time is below the target's. Four steps at the slowest cell's
     # slowness bound their times from above.
     margin = 4.0 * float(slow.max()) * float(np.max(h))
-    T, families, t_final = _march(cs_pad, _padded_cells(factor_cells, r, 0),
-                        _padded_cells(fast_cells, r, 0), n_lat[0], n_lat[1], n_lat[2], h[0], h[1], h[2],
-                        src, float(s0), nodes, times, bool(options.second_order), smooth, seed_direct,
-                        xes, s1s, targets, margin, _DOMINANCE_STEPS * float(slow.max()) * float(np.max(h)))
+    cells = (cs_pad, _padded_cells(factor_cells, r, 0), _padded_cells(fast_cells, r, 0))
+    lattice = ((n_lat[0], n_lat[1], n_lat[2]), (float(h[0]), float(h[1]), float(h[2])))
+    settings = (bool(options.second_order), targets, margin,
+                _DOMINANCE_STEPS * float(slow.max()) * float(np.max(h)))
+    T, families, t_final = _march(cells, lattice, (src, float(s0), nodes, times, seed_direct), (xes, s1s),
+                                  smooth, settings)
     return T.reshape(n_lat), families.reshape((2,) + n_lat), t_final
 
 

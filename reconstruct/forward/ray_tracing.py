@@ -170,7 +170,7 @@ def trace_rays(field: TimeField, receivers_xyz_m, *, step_fraction: float = 0.5,
     buffer = np.empty((int(offsets[-1]), 3))
     counts = np.zeros(rx.shape[0], dtype=np.int64)
     reached = np.zeros(rx.shape[0], dtype=bool)
-    _trace_all(times, origin, spacing, source, rx, step, end_radius, max_steps, offsets, buffer, counts, reached)
+    _trace_all((times, origin, spacing, source), rx, step, end_radius, max_steps, (offsets, buffer, counts, reached))
     polylines = [
         buffer[offsets[i]:offsets[i] + counts[i]].copy() if reached[i] else np.vstack([rx[i], source])
         for i in range(rx.shape[0])
@@ -179,9 +179,14 @@ def trace_rays(field: TimeField, receivers_xyz_m, *, step_fraction: float = 0.5,
 
 
 @njit(cache=True)
-def _trace_all(times, origin, spacing, source, receivers, step, end_radius, max_steps, offsets, out,
-               counts, reached):
-    """Trace every receiver in one compiled loop; ray i fills out[offsets[i]:]."""
+def _trace_all(field, receivers, step, end_radius, max_steps, output):
+    """Trace every receiver in one compiled loop; ray i fills out[offsets[i]:].
+
+    ``field`` is ``(times, origin, spacing, source)`` of the time field and
+    ``output`` ``(offsets, out, counts, reached)``, filled in place.
+    """
+    times, origin, spacing, source = field
+    offsets, out, counts, reached = output
     for i in range(receivers.shape[0]):
         view = out[offsets[i]:offsets[i + 1]]
         n, ok = _trace(times, origin, spacing, source, receivers[i], step, end_radius, max_steps[i], view)

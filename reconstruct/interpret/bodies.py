@@ -460,6 +460,10 @@ def find_voids(
 ) -> VoidAnalysis:
     """Find void bodies in a velocity cube.
 
+    Long because it runs the whole interpretation of one cube in order
+    (background, threshold, labelling, sizes, status, screening); kept whole
+    while the body vocabulary is being renamed.
+
     Parameters
     ----------
     grid : Grid

@@ -31,12 +31,10 @@ import numpy as np
 
 from reconstruct.forward.first_arrivals import bent_ray_forward, unique_pairs
 from reconstruct.forward.kernels import COMPILING_MESSAGE, kernels_need_compiling
-from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
-from reconstruct.inverse.solver import InversionOptions, invert_travel_times
-from reconstruct.inverse.time_zero import estimate_time_zero, time_zero_matrix
-from reconstruct.inverse.multilevel import choose_coarsening_factor, coarse_level
+from reconstruct.inverse.problem import InverseProblem
+from reconstruct.inverse.solver import InversionOptions, solve_inverse_problem
+from reconstruct.inverse.time_zero import estimate_time_zero
 from reconstruct.parallel import Executor
-from reconstruct.inverse.regularization import first_difference_operator
 from reconstruct.inverse.straight import TomographyRun, solver_progress, straight_ray_tomography
 from reconstruct.forward.straight_rays import ray_coverage
 
@@ -94,31 +92,6 @@ class BentOptions:
 
 
 
-def _starting_model(start, reference, forward, misfit, C, weight, t_obs, pick_pair, say):
-    """The start of the bent-ray iterations: the straight-ray model, or the reference model
-    (rock and air) when it explains the picks better through bent rays. Where air waves arrive
-    first, straight rays force absurd velocities that bent rays need not undo.
-
-    Returns (slowness, time-zero offsets, forward result, weighted misfit, RMS ns, name).
-    """
-    model = start.result.slowness_ns_per_m.copy()
-    tau = start.result.time_zero_ns.copy()
-    fwd = forward(model)
-    current, rms = misfit(fwd.time_ns[pick_pair] + C @ tau)
-    start_name = "straight-ray model"
-    fwd_ref = forward(reference)
-    tau_ref = estimate_time_zero(C, weight, t_obs - fwd_ref.time_ns[pick_pair])
-    value_ref, rms_ref = misfit(fwd_ref.time_ns[pick_pair] + C @ tau_ref)
-    rms_straight_model = rms
-    if value_ref < current:
-        model, tau, fwd, current, rms = reference.copy(), tau_ref, fwd_ref, value_ref, rms_ref
-        start_name = "reference model"
-    say(f"bent-ray iteration 0, the starting model: RMS misfit {rms:.3f} ns through bent rays (the "
-        f"straight-ray model gives {rms_straight_model:.3f} ns, the site's rock velocity {rms_ref:.3f} ns; "
-        "the lower one is the start)")
-    return model, tau, fwd, current, rms, start_name
-
-
 def bent_ray_tomography(site, nodes, picks, options: InversionOptions = InversionOptions(), *,
                         bent: BentOptions = BentOptions(), executor: Executor = Executor(kind="serial"),
                         snap_tolerance_m=None, memory_limit_bytes=None, progress=None) -> TomographyRun:
@@ -126,104 +99,151 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
 
     Returns a :class:`reconstruct.inverse.straight.TomographyRun` with ``rays="bent"``,
     the per-iteration misfits in ``history`` and, with ``bent.keep_rays``, the
-    final rays in ``polylines``.
+    final rays in ``polylines``. The inverse problem is the straight-ray run's
+    (:attr:`TomographyRun.problem`); each iteration changes only its times.
     """
-    def say(message):
-        if progress is not None:
-            progress(message)
-
     start = straight_ray_tomography(site, nodes, picks, options, snap_tolerance_m=snap_tolerance_m,
                                     memory_limit_bytes=memory_limit_bytes, progress=progress)
-    grid, ground = start.grid, start.ground
-    used = start.used
-    xyz = start.placement.xyz_m
-    tx, rx = picks.tx[used], picks.rx[used]
-    t_obs = picks.time_ns[used]
-    sigma = None if picks.sigma_ns is None else picks.sigma_ns[used]
-    weight = np.ones(used.size) if sigma is None else 1.0 / sigma
-    pair_a, pair_b, pick_pair = unique_pairs(tx, rx)
-    C = time_zero_matrix(tx, rx, len(nodes), options.time_zero)
-    ground_flat = ground.ravel()
-    reference = np.where(ground_flat, 1.0 / site.rock.velocity_m_per_ns, 1.0 / AIR_VELOCITY_M_PER_NS)
-    D = first_difference_operator(grid, ground, horizontal_weight=options.horizontal_weight,
-                                  vertical_weight=options.vertical_weight)
-    factor = choose_coarsening_factor(int(ground.sum()))
-    coarse = None
-    if options.smoothing is None and factor > 1:
-        coarse = coarse_level(grid, ground, factor, horizontal_weight=options.horizontal_weight,
-                              vertical_weight=options.vertical_weight)
-
-    def forward(model, keep=False):
-        def fw_progress(done, total):
-            if done == total or done % max(1, total // 10) == 0:
-                say(f"travel-time fields: {done}/{total}")
-        return bent_ray_forward(grid, model.reshape(grid.shape), xyz, pair_a, pair_b, executor=executor,
-                                eikonal_options=bent.eikonal, keep_rays=keep, progress=fw_progress)
-
-    def misfit(pred):
-        r = t_obs - pred
-        return float(np.sum((weight * r) ** 2)), float(np.sqrt(np.mean(r**2)))
-
+    steps = _BentSteps(start.problem, start.grid, start.placement.xyz_m, bent, executor, progress)
     if kernels_need_compiling():
-        say(COMPILING_MESSAGE)
-    model, tau, fwd, current, rms, start_name = _starting_model(start, reference, forward, misfit, C, weight,
-                                                                t_obs, pick_pair, say)
-    history = [dict(iteration=0, rays=f"bent rays through the {start_name}", rms_ns=rms,
-                    chi2=current if sigma is not None else None, lambda_smooth=None,
-                    step=None, rays_not_reaching_source=int((~fwd.reached).sum()))]
+        steps.say(COMPILING_MESSAGE)
+    state, history = steps.starting_point(start.result)
     result = start.result
     lambda_floor = options.lambda_min
     for iteration in range(1, bent.max_iterations + 1):
-        G = fwd.operator[pick_pair]
-        t_eff = t_obs - fwd.time_ns[pick_pair] + G @ model
-        step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
-        trial = invert_travel_times(G, t_eff, tx, rx, len(nodes), ground_flat, reference, D,
-                                    cell_m=grid.cell_m, sigma_ns=sigma, options=step_options, coarse=coarse,
-                                    progress=solver_progress(progress))
-        step = 1.0
-        while True:
-            candidate = model + step * (trial.slowness_ns_per_m - model)
-            tau_candidate = tau + step * (trial.time_zero_ns - tau)
-            fwd_new = forward(candidate)
-            pred_new = fwd_new.time_ns[pick_pair] + C @ tau_candidate
-            value, rms_new = misfit(pred_new)
-            if value < current or step <= 0.125:
-                break
-            step *= 0.5
-            say(f"bent-ray iteration {iteration}: the misfit rose to RMS {rms_new:.3f} ns; trying a step of {step:g}")
-        if value >= current:
-            say(f"bent-ray iteration {iteration}: no step lowers the misfit; keeping the previous model")
+        trial, state_new, entry = steps.iterate(iteration, state, lambda_floor)
+        if trial is None:
             break
-        rms_before = history[-1]["rms_ns"]
-        improvement = (current - value) / current
-        model, tau, fwd, current = candidate, tau_candidate, fwd_new, value
-        result = trial
+        improvement = (state.misfit - state_new.misfit) / state.misfit
+        state, result = state_new, trial
         # roughen gradually: the next lambda may fall at most tenfold
         lambda_floor = max(options.lambda_min, trial.lambda_smooth / 10)
-        history.append(dict(iteration=iteration, rays="bent", rms_ns=rms_new,
-                            chi2=value if sigma is not None else None, lambda_smooth=trial.lambda_smooth,
-                            step=step, rays_not_reaching_source=int((~fwd.reached).sum())))
-        say(f"bent-ray iteration {iteration} of {bent.max_iterations}: RMS misfit {rms_new:.3f} ns "
-            f"(was {rms_before:.3f} ns), " + ("full step" if step == 1 else f"step {step:g}")
-            + f", smoothing weight {trial.lambda_smooth:.3g}")
+        history.append(entry)
         if improvement < bent.plateau:
-            say(f"the misfit improved by only {improvement:.1%} (less than {bent.plateau:.0%}); stopping here")
+            steps.say(f"the misfit improved by only {improvement:.1%} (less than {bent.plateau:.0%}); stopping here")
             break
+    return steps.final_run(start, state, result, history)
 
-    final = fwd
-    if bent.keep_rays:
-        final = forward(model, keep=True)
-    pred = final.time_ns[pick_pair] + C @ tau
-    residual = t_obs - pred
-    G = final.operator[pick_pair]
-    final_result = dataclasses.replace(
-        result, slowness_ns_per_m=model, time_zero_ns=tau, predicted_ns=pred, residual_ns=residual,
-        rms_ns=float(np.sqrt(np.mean(residual**2))),
-        chi2=float(np.sum((residual / sigma) ** 2)) if sigma is not None else None,
-    )
-    ray_length, ray_count = ray_coverage(G, grid)
-    return dataclasses.replace(
-        start, result=final_result, ray_length_m=ray_length, ray_count=ray_count, rays="bent",
-        history=tuple(history),
-        polylines=None if final.polylines is None else [final.polylines[k] for k in pick_pair],
-    )
+
+@dataclass(frozen=True)
+class _Model:
+    """A model of the iterations, its time-zeros and its forward times."""
+
+    slowness: np.ndarray
+    tau: np.ndarray
+    forward: object  # BentForward of the slowness
+    misfit: float  # sum of (w r)^2
+    rms_ns: float
+
+
+class _BentSteps:
+    """The forward model and the Gauss-Newton steps of the bent-ray iterations."""
+
+    def __init__(self, problem: InverseProblem, grid, xyz, bent: BentOptions, executor, progress):
+        self.problem = problem
+        self.grid = grid
+        self.xyz = xyz
+        self.bent = bent
+        self.executor = executor
+        self.progress = progress
+        self.pair_a, self.pair_b, self.pick_pair = unique_pairs(problem.tx, problem.rx)
+        # the misfit is weighted by 1 / sigma when the picks carry sigmas, else by 1
+        self.weight = problem.weight if problem.sigma_given else np.ones(problem.n_picks)
+
+    def say(self, message):
+        if self.progress is not None:
+            self.progress(message)
+
+    def forward(self, model, keep=False):
+        def fw_progress(done, total):
+            if done == total or done % max(1, total // 10) == 0:
+                self.say(f"travel-time fields: {done}/{total}")
+        return bent_ray_forward(self.grid, model.reshape(self.grid.shape), self.xyz, self.pair_a, self.pair_b,
+                                executor=self.executor, eikonal_options=self.bent.eikonal, keep_rays=keep,
+                                progress=fw_progress)
+
+    def predicted(self, fwd, tau):
+        return fwd.time_ns[self.pick_pair] + self.problem.time_zero_columns @ tau
+
+    def misfit(self, pred):
+        r = self.problem.time_ns - pred
+        return float(np.sum((self.weight * r) ** 2)), float(np.sqrt(np.mean(r**2)))
+
+    def model(self, slowness, tau, fwd=None) -> _Model:
+        fwd = self.forward(slowness) if fwd is None else fwd
+        value, rms = self.misfit(self.predicted(fwd, tau))
+        return _Model(slowness, tau, fwd, value, rms)
+
+    def history_entry(self, iteration, rays, state: _Model, lambda_smooth=None, step=None) -> dict:
+        return dict(iteration=iteration, rays=rays, rms_ns=state.rms_ns,
+                    chi2=state.misfit if self.problem.sigma_given else None, lambda_smooth=lambda_smooth,
+                    step=step, rays_not_reaching_source=int((~state.forward.reached).sum()))
+
+    def starting_point(self, straight_result):
+        """Start from the straight-ray model unless the reference model (rock and air)
+        explains the data better through bent rays: where air waves arrive first,
+        straight rays force absurd velocities that bent rays need not undo."""
+        problem = self.problem
+        state = self.model(straight_result.slowness_ns_per_m.copy(), straight_result.time_zero_ns.copy())
+        start_name = "straight-ray model"
+        reference = problem.reference_slowness_ns_per_m
+        fwd_ref = self.forward(reference)
+        tau_ref = estimate_time_zero(problem.time_zero_columns, self.weight,
+                                     problem.time_ns - fwd_ref.time_ns[self.pick_pair])
+        from_reference = self.model(reference.copy(), tau_ref, fwd_ref)
+        rms_straight_model = state.rms_ns
+        if from_reference.misfit < state.misfit:
+            state, start_name = from_reference, "reference model"
+        self.say(f"bent-ray iteration 0, the starting model: RMS misfit {state.rms_ns:.3f} ns through bent rays "
+                 f"(the straight-ray model gives {rms_straight_model:.3f} ns, the site's rock velocity "
+                 f"{from_reference.rms_ns:.3f} ns; the lower one is the start)")
+        return state, [self.history_entry(0, f"bent rays through the {start_name}", state)]
+
+    def iterate(self, iteration, state: _Model, lambda_floor):
+        """One Gauss-Newton step from ``state``, halved (up to three times) until
+        the misfit falls. Returns (inversion result, new state, history entry),
+        or (None, None, None) when no step lowers the misfit."""
+        problem = self.problem
+        options = problem.options
+        G = state.forward.operator[self.pick_pair]
+        t_eff = problem.time_ns - state.forward.time_ns[self.pick_pair] + G @ state.slowness
+        step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
+        trial = solve_inverse_problem(dataclasses.replace(problem, time_ns=t_eff, options=step_options), G,
+                                      progress=solver_progress(self.progress))
+        step = 1.0
+        while True:
+            candidate = self.model(state.slowness + step * (trial.slowness_ns_per_m - state.slowness),
+                                   state.tau + step * (trial.time_zero_ns - state.tau))
+            if candidate.misfit < state.misfit or step <= 0.125:
+                break
+            step *= 0.5
+            self.say(f"bent-ray iteration {iteration}: the misfit rose to RMS {candidate.rms_ns:.3f} ns; "
+                     f"trying a step of {step:g}")
+        if candidate.misfit >= state.misfit:
+            self.say(f"bent-ray iteration {iteration}: no step lowers the misfit; keeping the previous model")
+            return None, None, None
+        self.say(f"bent-ray iteration {iteration} of {self.bent.max_iterations}: RMS misfit "
+                 f"{candidate.rms_ns:.3f} ns (was {state.rms_ns:.3f} ns), "
+                 + ("full step" if step == 1 else f"step {step:g}")
+                 + f", smoothing weight {trial.lambda_smooth:.3g}")
+        return trial, candidate, self.history_entry(iteration, "bent", candidate, trial.lambda_smooth, step)
+
+    def final_run(self, start: TomographyRun, state: _Model, result, history) -> TomographyRun:
+        """The run of the last accepted model, with rays when kept."""
+        final = state.forward
+        if self.bent.keep_rays:
+            final = self.forward(state.slowness, keep=True)
+        pred = self.predicted(final, state.tau)
+        residual = self.problem.time_ns - pred
+        sigma = self.problem.sigma_ns
+        final_result = dataclasses.replace(
+            result, slowness_ns_per_m=state.slowness, time_zero_ns=state.tau, predicted_ns=pred,
+            residual_ns=residual, rms_ns=float(np.sqrt(np.mean(residual**2))),
+            chi2=float(np.sum((residual / sigma) ** 2)) if sigma is not None else None,
+        )
+        ray_length, ray_count = ray_coverage(final.operator[self.pick_pair], self.grid)
+        return dataclasses.replace(
+            start, result=final_result, ray_length_m=ray_length, ray_count=ray_count, rays="bent",
+            history=tuple(history),
+            polylines=None if final.polylines is None else [final.polylines[k] for k in self.pick_pair],
+        )

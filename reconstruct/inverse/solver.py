@@ -19,131 +19,28 @@ instrument delays instead (antenna, cable, trigger), added on both ends.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.linalg import LinearOperator, lsqr
 
-from reconstruct.inverse.robust import ROBUST_LOSSES, robust_scale, robust_weights
-from reconstruct.inverse.time_zero import TIME_ZERO_MODELS, estimate_time_zero, robust_time_zero, time_zero_matrix
-from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
+from reconstruct.inverse.options import InversionOptions
+from reconstruct.inverse.problem import InverseProblem
+from reconstruct.inverse.robust import robust_scale, robust_weights
+from reconstruct.inverse.time_zero import estimate_time_zero, robust_time_zero
 
 __all__ = [
     "InversionOptions",
     "InversionResult",
     "invert_travel_times",
+    "solve_inverse_problem",
 ]
 
 #: Damping of the time-zero unknowns relative to their data weight: small, so
 #: that the offsets are set by the data, but enough to fix the gauge of "clock".
 _TIME_ZERO_DAMPING = 1e-3
-
-
-@dataclass(frozen=True)
-class InversionOptions:
-    """Settings of one regularised inversion.
-
-    Parameters
-    ----------
-    velocity_min_m_per_ns, velocity_max_m_per_ns : float
-        Physical band; slowness is clipped into it after each solve.
-        Defaults 0.03 and 0.30 m/ns span water to air (Davis and Annan, 1989).
-    horizontal_weight, vertical_weight : float
-        Relative roughness weights along x/y and z.
-    smoothing : float or None
-        Smoothing weight ``lambda_s`` in the column-scaled system. None chooses it
-        (discrepancy principle when pick sigmas are given, else the L-curve corner).
-    damping_ratio : float
-        ``lambda_d / lambda_s``: damping towards the reference model.
-    time_zero : {"clock", "delay", "none"}
-        Time-zero model per node (see module notes).
-    lambda_min, lambda_max, n_lambda : float, float, int
-        Search range and number of trial values of ``lambda_s``.
-    max_iterations : int
-        LSQR iteration limit per solve.
-    tolerance : float
-        LSQR ``atol`` and ``btol`` of the final solve on the model grid. On the
-        demo quarry 1e-4 left velocities within 0.7 % of a solve to 1e-7.
-    search_tolerance : float
-        LSQR ``atol`` and ``btol`` of the trial solves on the coarse grid.
-    default_sigma_ns : float
-        Pick uncertainty assumed when the pick table has no ``sigma_ns``; it then
-        sets the weights only, and chi-square is not used to choose lambda.
-    robust : {"none", "huber", "tukey"}
-        Iteratively reweighted least squares against gross pick errors
-        (:mod:`reconstruct.inverse.robust`); "none" is plain least squares.
-        The processing (:mod:`reconstruct.pipeline`, the commands, the demo)
-        sets it by one rule, :func:`reconstruct.pipeline.robust_rule`: Huber
-        with straight rays, none with bent rays.
-    robust_iterations : int
-        Largest number of reweightings per IRLS pass.
-    robust_tolerance : float
-        IRLS stops when fewer than 1 % of the robust weights change by more than this.
-    rejection_weight : float
-        Picks whose final robust weight is below this are reported as rejected
-        and left out of the chi-square that chooses lambda.
-    """
-
-    velocity_min_m_per_ns: float = 0.03
-    velocity_max_m_per_ns: float = 0.30
-    horizontal_weight: float = 1.0
-    vertical_weight: float = 1.0
-    smoothing: float | None = None
-    damping_ratio: float = 0.1
-    time_zero: str = "clock"
-    lambda_min: float = 1e-5
-    lambda_max: float = 1e1
-    n_lambda: int = 13
-    max_iterations: int = 400
-    tolerance: float = 1e-4
-    search_tolerance: float = 1e-3
-    default_sigma_ns: float = 1.0
-    robust: str = "none"
-    robust_iterations: int = 8
-    robust_tolerance: float = 0.02
-    rejection_weight: float = 0.1
-
-    def __post_init__(self):
-        problems = []
-        if not 0 < self.velocity_min_m_per_ns < self.velocity_max_m_per_ns:
-            problems.append(
-                "velocity band must satisfy 0 < min < max "
-                f"(got {self.velocity_min_m_per_ns} to {self.velocity_max_m_per_ns} m/ns)"
-            )
-        if self.velocity_max_m_per_ns > 0.30:
-            problems.append(
-                f"velocity_max_m_per_ns {self.velocity_max_m_per_ns} is faster than light "
-                f"({AIR_VELOCITY_M_PER_NS:.4f} m/ns); use at most 0.30"
-            )
-        if self.horizontal_weight < 0 or self.vertical_weight < 0:
-            problems.append("smoothing weights must be >= 0")
-        if self.smoothing is not None and not self.smoothing > 0:
-            problems.append(f"smoothing must be > 0 (got {self.smoothing})")
-        if not self.damping_ratio >= 0:
-            problems.append(f"damping_ratio must be >= 0 (got {self.damping_ratio})")
-        if self.time_zero not in TIME_ZERO_MODELS:
-            problems.append(
-                f"time_zero must be one of {', '.join(TIME_ZERO_MODELS)} (got {self.time_zero!r})"
-            )
-        if not 0 < self.lambda_min < self.lambda_max or self.n_lambda < 3:
-            problems.append("need 0 < lambda_min < lambda_max and n_lambda >= 3")
-        if self.max_iterations < 1 or not self.tolerance > 0 or not self.search_tolerance > 0:
-            problems.append("max_iterations must be >= 1 and tolerance > 0")
-        if not self.default_sigma_ns > 0:
-            problems.append("default_sigma_ns must be > 0")
-        if self.robust not in ROBUST_LOSSES:
-            problems.append(f"robust must be one of {', '.join(ROBUST_LOSSES)} (got {self.robust!r})")
-        if not 0 < self.robust_tolerance < 1:
-            problems.append(f"robust_tolerance must be between 0 and 1 (got {self.robust_tolerance})")
-        if self.robust_iterations < 1:
-            problems.append(f"robust_iterations must be >= 1 (got {self.robust_iterations})")
-        if not 0 < self.rejection_weight < 1:
-            problems.append(f"rejection_weight must be between 0 and 1 (got {self.rejection_weight})")
-        if problems:
-            from reconstruct.errors import InputError
-
-            raise InputError(problems, source="inversion options")
 
 
 @dataclass(frozen=True)
@@ -333,6 +230,10 @@ class _ScaledProblem:
         )
 
 
+#: The grid levels of the weight search, in words.
+_GRID_WORDS = {"coarse": "coarse grid", "fine": "model grid"}
+
+
 def _l_curve_corner(log_rho: np.ndarray, log_eta: np.ndarray) -> int:
     """Index of the corner of a sampled L-curve, traversed from large to small lambda.
 
@@ -356,17 +257,26 @@ def _l_curve_corner(log_rho: np.ndarray, log_eta: np.ndarray) -> int:
     return int(np.argmin(turn)) + 1
 
 
-#: The grid levels of the weight search, in words.
-_GRID_WORDS = {"coarse": "coarse grid", "fine": "model grid"}
+class _SolveLog:
+    """Every solve of one inversion (``search``, returned as
+    ``InversionResult.lambda_search``) and the progress messages."""
+
+    def __init__(self, n_picks: int, progress=None):
+        self.search: list = []
+        self.n_picks = n_picks
+        self.progress = progress
+
+    def record(self, level, lam, sol):
+        self.search.append(dict(level=level, lambda_smooth=float(lam), chi2=sol.misfit**2,
+                                rms_weighted=sol.misfit / np.sqrt(self.n_picks),
+                                roughness=sol.roughness, iterations=sol.iterations))
+
+    def say(self, message):
+        if self.progress:
+            self.progress(message)
 
 
-def _record(search, level, lam, sol, n_picks):
-    search.append(dict(level=level, lambda_smooth=float(lam), chi2=sol.misfit**2,
-                       rms_weighted=sol.misfit / np.sqrt(n_picks),
-                       roughness=sol.roughness, iterations=sol.iterations))
-
-
-def _sweep(problem, options, n_picks, stop_below, progress, level, search, tolerance, x_start, lambdas=None):
+def _sweep(problem, options, log, stop_below, level, tolerance, x_start, lambdas=None):
     """Solve for lambda from large to small, each warm-started from the last.
 
     Stops early once chi^2 <= ``stop_below`` (None: never), or once chi^2 falls
@@ -382,10 +292,9 @@ def _sweep(problem, options, n_picks, stop_below, progress, level, search, toler
         sol = problem.solve(lam, ratio * lam, y0, options.max_iterations, tolerance)
         y0 = sol.y
         trials.append((float(lam), sol))
-        _record(search, level, lam, sol, n_picks)
-        if progress:
-            progress(f"smoothing weight, trial {k + 1} of up to {lambdas.size} on the {_GRID_WORDS[level]}: "
-                     f"{lam:.3g} gives chi-square {sol.misfit**2:.4g} ({sol.iterations} LSQR iterations)")
+        log.record(level, lam, sol)
+        log.say(f"smoothing weight, trial {k + 1} of up to {lambdas.size} on the {_GRID_WORDS[level]}: "
+                f"{lam:.3g} gives chi-square {sol.misfit**2:.4g} ({sol.iterations} LSQR iterations)")
         if stop_below is not None and sol.misfit**2 <= stop_below:
             break
         if len(trials) >= 4 and sol.misfit**2 > 0.98 * trials[-2][1].misfit ** 2:
@@ -408,7 +317,7 @@ def _log_slope(trials, k):
     return float((np.log(c_hi) - np.log(c_lo)) / (np.log(trials[hi][0]) - np.log(trials[lo][0])))
 
 
-def _discrepancy_root(problem, options, start, target, progress, level, search, n_picks, *,
+def _discrepancy_root(problem, options, start, target, log, level, *,
                       slope=1.0, tolerance=0.03, max_solves=6):
     """Find lambda with chi^2 = target, starting from ``start = (lambda, _Solve)``.
 
@@ -442,11 +351,10 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
         lam = float(np.exp(log_lam))
         nearest = min(points, key=lambda p: abs(p[0] - log_lam))[2]
         sol = problem.solve(lam, ratio * lam, nearest.y, options.max_iterations, options.search_tolerance)
-        _record(search, level, lam, sol, n_picks)
+        log.record(level, lam, sol)
         g = g_of(sol)
-        if progress:
-            progress(f"smoothing weight {lam:.4g} on the {_GRID_WORDS[level]}: chi-square {sol.misfit**2:.5g}, "
-                     f"aiming at {target:.5g}, the number of picks ({sol.iterations} LSQR iterations)")
+        log.say(f"smoothing weight {lam:.4g} on the {_GRID_WORDS[level]}: chi-square {sol.misfit**2:.5g}, "
+                f"aiming at {target:.5g}, the number of picks ({sol.iterations} LSQR iterations)")
         if abs(g) < tolerance:
             return lam, sol, True
         point = [log_lam, g, sol]
@@ -476,8 +384,7 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
     return float(np.exp(best[0])), best[2], abs(best[1]) < 0.1
 
 
-def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_picks, exempt=None,
-          max_reweightings=None):
+def _irls(problem, options, lam, sol, loss, trust_sigma, log, exempt=None, max_reweightings=None):
     """Iteratively reweighted least squares at a fixed lambda.
 
     Residuals are standardised by the pick sigmas (``trust_sigma``: picks carry
@@ -511,10 +418,9 @@ def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_pic
         sol = problem.solve(lam, ratio * lam, sol.y, options.max_iterations,
                             min(options.search_tolerance, 10 * options.tolerance))
         count += 1
-        _record(search, "fine", lam, sol, n_picks)
-        if progress:
-            progress(f"robust weighting ({loss}), pass {count}: {int(np.sum(omega < options.rejection_weight))} "
-                     f"picks below weight {options.rejection_weight:g}, {sol.iterations} iterations")
+        log.record("fine", lam, sol)
+        log.say(f"robust weighting ({loss}), pass {count}: {int(np.sum(omega < options.rejection_weight))} "
+                f"picks below weight {options.rejection_weight:g}, {sol.iterations} iterations")
     return sol, omega, scale, count
 
 
@@ -536,6 +442,10 @@ def invert_travel_times(
     robust_exempt=None,
 ) -> InversionResult:
     """Invert travel times for ground slowness and node time-zeros.
+
+    Many parameters because this is the array-level entry kept for existing
+    callers: it builds an :class:`reconstruct.inverse.problem.InverseProblem`
+    from them and calls :func:`solve_inverse_problem`.
 
     Parameters
     ----------
@@ -567,6 +477,113 @@ def invert_travel_times(
         Picks that keep full weight in the robust reweighting (for example
         picks confirmed by an agreeing reciprocal pick: a picking error would
         not repeat in the other direction, a true travel-time anomaly does).
+
+    Returns
+    -------
+    InversionResult
+
+    Notes
+    -----
+    See :func:`solve_inverse_problem` for the equations and references.
+    """
+    problem = InverseProblem(
+        time_ns=time_ns, tx=tx, rx=rx, n_nodes=n_nodes, ground_flat=ground_flat,
+        reference_slowness_ns_per_m=reference_slowness_ns_per_m, smoothing_operator=smoothing_operator,
+        cell_m=cell_m, sigma_ns=sigma_ns, options=options, coarse=coarse, robust_exempt=robust_exempt,
+    )
+    return solve_inverse_problem(problem, operator, progress=progress)
+
+
+@dataclass(frozen=True)
+class _Levels:
+    """The column-scaled problem on the model grid and how to make it on the coarse grid."""
+
+    problem: InverseProblem
+    fine: _ScaledProblem
+    operator_ground: sp.csr_matrix  # G restricted to the ground columns
+    residual_ref: np.ndarray  # t - G s_ref
+    kappa_damp: float
+    kappa_smooth: float
+    tau_start: np.ndarray
+
+    def start(self, n_cells_level: int) -> np.ndarray:
+        """Physical start vector: no slowness change, the time-zeros fitted alone."""
+        return np.concatenate([np.zeros(n_cells_level), self.tau_start])
+
+    def coarse_problem(self) -> _ScaledProblem:
+        coarse = self.problem.coarse
+        P = coarse.prolongation
+        return _ScaledProblem(
+            _weighted_blocks(self.problem, (self.operator_ground @ P).tocsr()),
+            self.problem.weight * self.residual_ref, coarse.smoothing_operator, P.shape[1],
+            coarse.grid.cell_m, self.kappa_damp, self.kappa_smooth,
+        )
+
+
+@dataclass(frozen=True)
+class _Choice:
+    """The regularisation weight chosen and the solve at it."""
+
+    lam: float
+    sol: _Solve
+    method: str
+    note: str
+    slope: float = 1.0  # d log chi^2 / d log lambda near the choice
+
+
+def _weighted_blocks(problem: InverseProblem, operator_ground) -> sp.csr_matrix:
+    """``W [G_g C]`` (``W [G_g]`` without time-zero terms)."""
+    blocks = [operator_ground] if problem.options.time_zero == "none" else [operator_ground,
+                                                                            problem.time_zero_columns]
+    return (sp.diags(problem.weight) @ sp.hstack(blocks)).tocsr()
+
+
+def _scaled_levels(problem: InverseProblem, G: sp.csr_matrix) -> _Levels:
+    """Column scaling, the normalisations shared by both grid levels (see
+    :class:`_ScaledProblem`) and the time-zeros that start every solve."""
+    ground_cols = problem.ground_columns
+    n_slowness = ground_cols.size
+    residual_ref = problem.time_ns - G @ problem.reference_slowness_ns_per_m
+    Gg = G[:, ground_cols].tocsr()
+    weight = problem.weight
+    ground_length = np.asarray(Gg.sum(axis=1)).ravel()
+    cell = np.asarray(problem.cell_m, dtype=float)
+    ground_volume = n_slowness * float(np.prod(cell))
+    kappa_damp = float(np.sqrt(np.sum((weight * ground_length) ** 2) / ground_volume))
+    positive_length = ground_length[ground_length > 0]
+    ell = float(np.median(positive_length)) if positive_length.size else float(np.mean(cell))
+    kappa_smooth = kappa_damp * ell
+    if kappa_damp == 0:
+        raise ValueError("no ray passes through a ground cell")
+    # Time-zeros first, with the reference model held fixed: a small problem
+    # (one unknown per node) whose answer starts every solve. Without it LSQR
+    # creeps towards large offsets, since a slowness change around a node
+    # mimics part of a time-zero term.
+    C = problem.time_zero_columns
+    if problem.options.time_zero == "none":
+        tau_start = np.zeros(0)
+    elif problem.options.robust == "none":
+        tau_start = estimate_time_zero(C, weight, residual_ref)
+    else:
+        tau_start = robust_time_zero(C, weight, residual_ref, loss="huber")[0]
+    fine = _ScaledProblem(_weighted_blocks(problem, Gg), weight * residual_ref, problem.smoothing_operator,
+                          n_slowness, cell, kappa_damp, kappa_smooth)
+    return _Levels(problem=problem, fine=fine, operator_ground=Gg, residual_ref=residual_ref,
+                   kappa_damp=kappa_damp, kappa_smooth=kappa_smooth, tau_start=tau_start)
+
+
+def solve_inverse_problem(problem: InverseProblem, operator, *, progress=None) -> InversionResult:
+    """Invert the travel times of ``problem`` through ``operator`` for ground
+    slowness and node time-zeros.
+
+    Parameters
+    ----------
+    problem : reconstruct.inverse.problem.InverseProblem
+    operator : scipy.sparse matrix, shape (n_picks, n_cells)
+        Path lengths in metres of each pick's ray in every cell (air included),
+        from any forward model.
+    progress : callable, optional
+        ``progress(message)`` after each solve.
 
     Returns
     -------
@@ -615,210 +632,185 @@ def invert_travel_times(
        Theory and Methods 6(9), 813-827.
     """
     G = sp.csr_matrix(operator)
-    t = np.asarray(time_ns, dtype=float)
-    tx = np.asarray(tx, dtype=np.int64)
-    rx = np.asarray(rx, dtype=np.int64)
-    ground_flat = np.asarray(ground_flat, dtype=bool)
-    s_ref = np.asarray(reference_slowness_ns_per_m, dtype=float)
     n_picks, n_cells = G.shape
-    if t.shape != (n_picks,) or tx.shape != (n_picks,) or rx.shape != (n_picks,):
+    if problem.n_picks != n_picks:
         raise ValueError("time_ns, tx and rx must have one entry per operator row")
-    if ground_flat.shape != (n_cells,) or s_ref.shape != (n_cells,):
+    if problem.ground_flat.shape != (n_cells,):
         raise ValueError("ground_flat and reference slowness must have one entry per cell")
-    if not np.all(np.isfinite(t)):
-        raise ValueError("time_ns holds NaN or infinite values")
-    if n_picks == 0:
-        raise ValueError("no picks to invert")
-    if np.any((tx < 0) | (tx >= n_nodes) | (rx < 0) | (rx >= n_nodes)):
-        raise ValueError(f"tx and rx must be node numbers from 0 to {n_nodes - 1}")
-    exempt = None
-    if robust_exempt is not None:
-        exempt = np.asarray(robust_exempt, dtype=bool)
-        if exempt.shape != (n_picks,):
-            raise ValueError("robust_exempt must have one entry per pick")
-    if sigma_ns is None:
-        sigma = np.full(n_picks, options.default_sigma_ns)
-        have_sigma = False
+    levels = _scaled_levels(problem, G)
+    log = _SolveLog(problem.n_picks, progress)
+    if problem.options.smoothing is not None:
+        choice = _user_lambda(levels, log)
     else:
-        sigma = np.asarray(sigma_ns, dtype=float)
-        if sigma.shape != (n_picks,) or not np.all(sigma > 0):
-            raise ValueError("sigma_ns must be positive, one per pick")
-        have_sigma = True
-    weight = 1.0 / sigma
+        choice = _automatic_lambda(levels, log)
+    choice, robust = _robust_pass(levels, choice, log)
+    return _assembled_result(problem, G, levels.fine, choice, robust, log.search)
 
-    ground_cols = np.flatnonzero(ground_flat)
-    n_slowness = ground_cols.size
-    if n_slowness == 0:
-        raise ValueError("no ground cells: nothing to invert")
-    if smoothing_operator.shape[1] != n_slowness:
-        raise ValueError(
-            f"smoothing_operator has {smoothing_operator.shape[1]} columns, "
-            f"expected one per ground cell ({n_slowness})"
-        )
-    residual_ref = t - G @ s_ref
-    Gg = G[:, ground_cols].tocsr()
-    C = time_zero_matrix(tx, rx, n_nodes, options.time_zero)
-    weighted = sp.diags(weight)
 
-    def assemble(G_ground):
-        blocks = [G_ground] if options.time_zero == "none" else [G_ground, C]
-        return (weighted @ sp.hstack(blocks)).tocsr()
+def _user_lambda(levels: _Levels, log: _SolveLog) -> _Choice:
+    options = levels.problem.options
+    fine = levels.fine
+    lam = float(options.smoothing)
+    sol = fine.solve(lam, options.damping_ratio * lam, levels.start(fine.n_slowness) * fine.scale,
+                     options.max_iterations, options.tolerance)
+    log.record("fine", lam, sol)
+    return _Choice(lam, sol, "user", "set by the user")
 
-    # normalisations shared by every grid level (see _ScaledProblem)
-    ground_length = np.asarray(Gg.sum(axis=1)).ravel()
-    cell = np.asarray(cell_m, dtype=float)
-    ground_volume = n_slowness * float(np.prod(cell))
-    kappa_damp = float(np.sqrt(np.sum((weight * ground_length) ** 2) / ground_volume))
-    positive_length = ground_length[ground_length > 0]
-    ell = float(np.median(positive_length)) if positive_length.size else float(np.mean(cell))
-    kappa_smooth = kappa_damp * ell
-    if kappa_damp == 0:
-        raise ValueError("no ray passes through a ground cell")
 
-    # Time-zeros first, with the reference model held fixed: a small problem
-    # (one unknown per node) whose answer starts every solve. Without it LSQR
-    # creeps towards large offsets, since a slowness change around a node
-    # mimics part of a time-zero term.
-    if options.time_zero == "none":
-        tau_start = np.zeros(0)
-    elif options.robust == "none":
-        tau_start = estimate_time_zero(C, weight, residual_ref)
+def _automatic_lambda(levels: _Levels, log: _SolveLog) -> _Choice:
+    """Lambda by the discrepancy principle (sigmas given) or the L-curve corner,
+    searched on the coarse level when there is one, then on the model grid."""
+    problem, fine = levels.problem, levels.fine
+    options, coarse, n_picks = problem.options, problem.coarse, problem.n_picks
+    target = float(n_picks)
+    if coarse is None:
+        level_problem, level = fine, "fine"
     else:
-        tau_start = robust_time_zero(C, weight, residual_ref, loss="huber")[0]
+        level_problem, level = levels.coarse_problem(), "coarse"
+    trials = _sweep(level_problem, options, log,
+                    (2.0 if coarse is not None else 1.0) * target if problem.sigma_given else None,
+                    level, options.search_tolerance if coarse is not None else options.tolerance,
+                    levels.start(level_problem.n_slowness))
+    method = "discrepancy" if problem.sigma_given else "l-curve"
+    k = _first_trial_choice(trials, method, target, coarse is not None, options.damping_ratio)
+    lam, sol = trials[k]
+    # near chi^2 = N the log-log slope measured on model grids has been 0.8 to 2;
+    # the coarse curve is flatter where it nears its floor
+    slope = max(_log_slope(trials, k), 1.0)
+    if coarse is not None:
+        lam, sol, trials, k = _refine_on_model_grid(levels, level_problem, method, (lam, sol), (trials, k), log)
+    if method == "discrepancy":
+        choice = _discrepancy_choice(levels, (lam, sol), trials, slope, log)
+    else:
+        choice = _Choice(lam, sol, method, f"L-curve corner at lambda {lam:.4g} (trial {k + 1} of {len(trials)})",
+                         slope)
+    if coarse is not None:
+        choice = dataclasses.replace(
+            choice, note=choice.note + f"; lambda searched on a coarse grid of {coarse.factor}^3-cell blocks, "
+                                       "then on the model grid")
+    return choice
 
-    def start(n_cells_level):
-        return np.concatenate([np.zeros(n_cells_level), tau_start])
 
-    fine = _ScaledProblem(assemble(Gg), weight * residual_ref, smoothing_operator, n_slowness,
-                          cell, kappa_damp, kappa_smooth)
+def _first_trial_choice(trials, method, target, on_coarse, ratio) -> int:
+    """Index of the sweep trial the search continues from."""
+    if method == "l-curve":
+        return _l_curve_choice(trials, ratio)
+    chi2s = np.array([t[1].misfit ** 2 for t in trials])
+    if not on_coarse:
+        below = np.flatnonzero(chi2s <= target)
+        return int(below[0]) if below.size else len(trials) - 1
+    # chi^2 on the model grid is at or below the coarse grid's (finer cells
+    # fit more), so start the model-grid search where the coarse curve
+    # reaches 2N, or, if it never does, where it levels off near its floor
+    below = np.flatnonzero(chi2s <= 2.0 * target)
+    return int(below[0]) if below.size else int(np.flatnonzero(chi2s <= 1.1 * chi2s.min())[0])
+
+
+def _refine_on_model_grid(levels, level_problem, method, start, sweep, log):
+    """Carry the coarse choice to the model grid: one solve there (discrepancy),
+    or a new L-curve sweep from there downwards. Returns (lambda, solve, trials, k)."""
+    fine, options, coarse = levels.fine, levels.problem.options, levels.problem.coarse
+    (lam, start_sol), (trials, k) = start, sweep
+    ratio = options.damping_ratio
+    x_coarse = start_sol.y / level_problem.scale
+    n_c = coarse.prolongation.shape[1]
+    x0 = np.concatenate([coarse.prolongation @ x_coarse[:n_c], x_coarse[n_c:]])
+    if method == "discrepancy":
+        sol = fine.solve(lam, ratio * lam, x0 * fine.scale, options.max_iterations, options.search_tolerance)
+        log.record("fine", lam, sol)
+        log.say(f"smoothing weight {lam:.4g} on the model grid: chi-square {sol.misfit**2:.5g} "
+                f"({sol.iterations} LSQR iterations)")
+        return lam, sol, trials, k
+    # The coarse curve levels off early (its cells cannot fit small
+    # bodies), which moves its corner to larger lambda: trace the
+    # L-curve again on the model grid from there downwards.
+    fine_lambdas = lam * np.geomspace(10**0.5, 10**-2.5, 7)
+    fine_trials = _sweep(fine, options, log, None, "fine", options.tolerance, x0, lambdas=fine_lambdas)
+    k = _l_curve_choice(fine_trials, ratio) if len(fine_trials) >= 3 else len(fine_trials) - 1
+    lam, sol = fine_trials[k]
+    return lam, sol, fine_trials, k
+
+
+def _discrepancy_choice(levels, start, trials, slope, log) -> _Choice:
+    """chi^2 = N by regula falsi from ``(lam, sol)``, the L-curve corner when the
+    data cannot be fit to their sigmas, and a polishing solve."""
+    fine, options, n_picks = levels.fine, levels.problem.options, levels.problem.n_picks
     ratio = options.damping_ratio
     target = float(n_picks)
-    search: list = []
-    slope = 1.0
-    if options.smoothing is not None:
-        lam = float(options.smoothing)
-        sol = fine.solve(lam, ratio * lam, start(n_slowness) * fine.scale, options.max_iterations,
-                         options.tolerance)
-        _record(search, "fine", lam, sol, n_picks)
-        method, note = "user", "set by the user"
+    lam, sol, reached = _discrepancy_root(fine, options, start, target, log, "fine", slope=slope)
+    fallback = ""
+    if not reached and sol.misfit**2 > target:
+        # the data cannot be fit to their sigmas (forward-model error, outliers or
+        # sigmas too small): rougher models only chase the misfit floor, so
+        # take the L-curve corner of the sweep instead of the smallest lambda
+        corner = trials[_l_curve_choice(trials, ratio)][0] if len(trials) >= 3 else lam
+        if corner > lam:
+            lam = corner
+            fallback = f"; fell back to the L-curve corner, lambda {lam:.4g}"
+    # the search solves stop at the looser search tolerance: polish the last one
+    sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
+    log.record("fine", lam, sol)
+    log.say(f"final solve at smoothing weight {lam:.4g}: chi-square {sol.misfit**2:.5g} "
+            f"({sol.iterations} LSQR iterations)")
+    if reached:
+        note = f"chi^2 = {sol.misfit**2:.5g} for N = {n_picks} picks"
     else:
-        if coarse is None:
-            level_problem, level = fine, "fine"
-        else:
-            level = "coarse"
-            P = coarse.prolongation
-            level_problem = _ScaledProblem(
-                assemble((Gg @ P).tocsr()), weight * residual_ref, coarse.smoothing_operator,
-                P.shape[1], coarse.grid.cell_m, kappa_damp, kappa_smooth,
-            )
-        trials = _sweep(level_problem, options, n_picks,
-                        (2.0 if coarse is not None else 1.0) * target if have_sigma else None, progress,
-                        level, search, options.search_tolerance if coarse is not None else options.tolerance,
-                        start(level_problem.n_slowness))
-        chi2s = np.array([t[1].misfit ** 2 for t in trials])
-        if have_sigma:
-            method = "discrepancy"
-            # chi^2 on the model grid is at or below the coarse grid's (finer cells
-            # fit more), so start the model-grid search where the coarse curve
-            # reaches 2N, or, if it never does, where it levels off near its floor
-            below = np.flatnonzero(chi2s <= 2.0 * target)
-            k = int(below[0]) if below.size else int(np.flatnonzero(chi2s <= 1.1 * chi2s.min())[0])
-            if coarse is None:
-                below = np.flatnonzero(chi2s <= target)
-                k = int(below[0]) if below.size else len(trials) - 1
-        else:
-            method = "l-curve"
-            k = _l_curve_choice(trials, ratio)
-        lam, start_sol = trials[k]
-        # near chi^2 = N the log-log slope measured on model grids has been 0.8 to 2;
-        # the coarse curve is flatter where it nears its floor
-        slope = max(_log_slope(trials, k), 1.0)
-        if coarse is not None:
-            x_coarse = start_sol.y / level_problem.scale
-            n_c = coarse.prolongation.shape[1]
-            x0 = np.concatenate([coarse.prolongation @ x_coarse[:n_c], x_coarse[n_c:]])
-            if method == "discrepancy":
-                sol = fine.solve(lam, ratio * lam, x0 * fine.scale, options.max_iterations,
-                                 options.search_tolerance)
-                _record(search, "fine", lam, sol, n_picks)
-                if progress:
-                    progress(f"smoothing weight {lam:.4g} on the model grid: chi-square {sol.misfit**2:.5g} "
-                             f"({sol.iterations} LSQR iterations)")
-            else:
-                # The coarse curve levels off early (its cells cannot fit small
-                # bodies), which moves its corner to larger lambda: trace the
-                # L-curve again on the model grid from there downwards.
-                fine_lambdas = lam * np.geomspace(10**0.5, 10**-2.5, 7)
-                fine_trials = _sweep(fine, options, n_picks, None, progress, "fine", search,
-                                     options.tolerance, x0, lambdas=fine_lambdas)
-                k = _l_curve_choice(fine_trials, ratio) if len(fine_trials) >= 3 else len(fine_trials) - 1
-                lam, sol = fine_trials[k]
-                trials = fine_trials
-        else:
-            sol = start_sol
-        if method == "discrepancy":
-            lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), target, progress, "fine",
-                                                  search, n_picks, slope=slope)
-            fallback = ""
-            if not reached and sol.misfit**2 > target:
-                # the data cannot be fit to their sigmas (forward-model error, outliers or
-                # sigmas too small): rougher models only chase the misfit floor, so
-                # take the L-curve corner of the sweep instead of the smallest lambda
-                corner = trials[_l_curve_choice(trials, ratio)][0] if len(trials) >= 3 else lam
-                if corner > lam:
-                    lam = corner
-                    fallback = f"; fell back to the L-curve corner, lambda {lam:.4g}"
-            # the search solves stop at the looser search tolerance: polish the last one
-            sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
-            _record(search, "fine", lam, sol, n_picks)
-            if progress:
-                progress(f"final solve at smoothing weight {lam:.4g}: chi-square {sol.misfit**2:.5g} "
-                         f"({sol.iterations} LSQR iterations)")
-            if reached:
-                note = f"chi^2 = {sol.misfit**2:.5g} for N = {n_picks} picks"
-            else:
-                note = (f"chi^2 = N not reached (chi^2 {sol.misfit**2:.5g}, N = {n_picks}) within lambda "
-                        f"{options.lambda_min:g} to {options.lambda_max:g}; the sigmas may be too small, or "
-                        "outliers or forward-model error remain" + fallback)
-        else:
-            note = f"L-curve corner at lambda {lam:.4g} (trial {k + 1} of {len(trials)})"
-        if coarse is not None:
-            note += f"; lambda searched on a coarse grid of {coarse.factor}^3-cell blocks, then on the model grid"
+        note = (f"chi^2 = N not reached (chi^2 {sol.misfit**2:.5g}, N = {n_picks}) within lambda "
+                f"{options.lambda_min:g} to {options.lambda_max:g}; the sigmas may be too small, or "
+                "outliers or forward-model error remain" + fallback)
+    return _Choice(lam, sol, "discrepancy", note, slope)
 
-    omega = None
-    scale_used = 1.0
-    n_reweightings = 0
-    if options.robust != "none":
-        # IRLS at the chosen lambda (Huber first: Tukey's loss is not convex and
-        # needs a good start), then, with the discrepancy principle, lambda is
-        # chosen again with chi^2 counted over the picks that keep their weight.
-        sol, omega, scale_used, n = _irls(fine, options, lam, sol, "huber", have_sigma, progress, search,
-                                         n_picks, exempt)
+
+@dataclass(frozen=True)
+class _RobustOutcome:
+    weight: np.ndarray | None = None  # final IRLS weight per pick
+    scale: float = 1.0
+    reweightings: int = 0
+
+
+def _robust_pass(levels: _Levels, choice: _Choice, log: _SolveLog):
+    """IRLS at the chosen lambda (Huber first: Tukey's loss is not convex and
+    needs a good start), then, with the discrepancy principle, lambda is
+    chosen again with chi^2 counted over the picks that keep their weight.
+    Returns the (possibly new) choice and the robust weights."""
+    problem, fine = levels.problem, levels.fine
+    options, n_picks, exempt = problem.options, problem.n_picks, problem.robust_exempt
+    if options.robust == "none":
+        return choice, _RobustOutcome()
+    lam, sol, note = choice.lam, choice.sol, choice.note
+    have_sigma = problem.sigma_given
+    sol, omega, scale_used, n_reweightings = _irls(fine, options, lam, sol, "huber", have_sigma, log, exempt)
+    if n_reweightings == 0:
+        pass  # every weight is 1: the plain solution is the robust one
+    elif choice.method == "discrepancy":
+        counted = omega >= options.rejection_weight
+        lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), float(counted.sum()), log, "fine",
+                                              slope=choice.slope)
+        sol, omega, scale_used, n = _irls(fine, options, lam, sol, options.robust, have_sigma, log, exempt,
+                                         max_reweightings=max(3, options.robust_iterations // 2))
         n_reweightings += n
-        if n == 0:
-            pass  # every weight is 1: the plain solution is the robust one
-        elif method == "discrepancy":
-            counted = omega >= options.rejection_weight
-            lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), float(counted.sum()), progress,
-                                                  "fine", search, n_picks, slope=slope)
-            sol, omega, scale_used, n = _irls(fine, options, lam, sol, options.robust, have_sigma, progress,
-                                             search, n_picks, exempt,
-                                             max_reweightings=max(3, options.robust_iterations // 2))
-            n_reweightings += n
-            counted = omega >= options.rejection_weight
-            note = (f"chi^2 = {sol.misfit**2:.5g} over the N = {int(counted.sum())} picks not rejected by the "
-                    f"robust weights ({n_picks - int(counted.sum())} rejected)"
-                    + ("" if reached else "; chi^2 = N not reached within the search range"))
-        elif options.robust == "tukey":
-            sol, omega, scale_used, n = _irls(fine, options, lam, sol, "tukey", have_sigma, progress, search,
-                                             n_picks, exempt)
-            n_reweightings += n
-        if n_reweightings:
-            sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
-            _record(search, "fine", lam, sol, n_picks)
+        counted = omega >= options.rejection_weight
+        note = (f"chi^2 = {sol.misfit**2:.5g} over the N = {int(counted.sum())} picks not rejected by the "
+                f"robust weights ({n_picks - int(counted.sum())} rejected)"
+                + ("" if reached else "; chi^2 = N not reached within the search range"))
+    elif options.robust == "tukey":
+        sol, omega, scale_used, n = _irls(fine, options, lam, sol, "tukey", have_sigma, log, exempt)
+        n_reweightings += n
+    if n_reweightings:
+        sol = fine.solve(lam, options.damping_ratio * lam, sol.y, options.max_iterations, options.tolerance)
+        log.record("fine", lam, sol)
+    return (dataclasses.replace(choice, lam=lam, sol=sol, note=note),
+            _RobustOutcome(weight=omega, scale=scale_used, reweightings=n_reweightings))
 
-    x = sol.y / fine.scale
-    slowness = s_ref.copy()
+
+def _assembled_result(problem: InverseProblem, G, fine: _ScaledProblem, choice: _Choice,
+                      robust: _RobustOutcome, search: list) -> InversionResult:
+    """Physical unknowns from the scaled solution, time-zeros in their gauge,
+    slowness clipped into the velocity band, predicted times and the record."""
+    options, ground_cols = problem.options, problem.ground_columns
+    n_slowness, n_nodes = ground_cols.size, problem.n_nodes
+    x = choice.sol.y / fine.scale
+    slowness = problem.reference_slowness_ns_per_m.copy()
     slowness[ground_cols] += x[:n_slowness]
     if options.time_zero == "none":
         tau = np.zeros(n_nodes)
@@ -826,20 +818,19 @@ def invert_travel_times(
         tau = x[n_slowness:].copy()
         if options.time_zero == "clock":
             used = np.zeros(n_nodes, dtype=bool)
-            used[tx] = True
-            used[rx] = True
+            used[problem.tx] = True
+            used[problem.rx] = True
             tau[used] -= tau[used].mean()  # the gauge: a common shift changes no time
-    # 0.30 m/ns is the customary round figure; nothing travels faster than c
-    s_min = 1.0 / min(options.velocity_max_m_per_ns, AIR_VELOCITY_M_PER_NS)
-    s_max = 1.0 / options.velocity_min_m_per_ns
+    s_min, s_max = problem.slowness_bounds_ns_per_m
     ground_s = slowness[ground_cols]
     n_fast = int(np.sum(ground_s < s_min))
     n_slow = int(np.sum(ground_s > s_max))
     slowness[ground_cols] = np.clip(ground_s, s_min, s_max)
 
-    predicted = G @ slowness + C @ tau
-    residual = t - predicted
-    chi2 = float(np.sum((residual / sigma) ** 2)) if have_sigma else None
+    predicted = G @ slowness + problem.time_zero_columns @ tau
+    residual = problem.time_ns - predicted
+    chi2 = float(np.sum((residual / problem.sigma_used_ns) ** 2)) if problem.sigma_given else None
+    sol, omega = choice.sol, robust.weight
     return InversionResult(
         slowness_ns_per_m=slowness,
         time_zero_ns=tau,
@@ -847,11 +838,11 @@ def invert_travel_times(
         residual_ns=residual,
         rms_ns=float(np.sqrt(np.mean(residual**2))),
         chi2=chi2,
-        n_picks=n_picks,
-        lambda_smooth=float(lam),
-        lambda_damp=float(ratio * lam),
-        lambda_method=method,
-        lambda_note=note,
+        n_picks=problem.n_picks,
+        lambda_smooth=float(choice.lam),
+        lambda_damp=float(options.damping_ratio * choice.lam),
+        lambda_method=choice.method,
+        lambda_note=choice.note,
         lambda_search=tuple(search),
         iterations=int(sol.iterations),
         stop_code=int(sol.stop_code),
@@ -861,6 +852,6 @@ def invert_travel_times(
         robust_loss=options.robust,
         robust_weight=omega,
         rejected=None if omega is None else omega < options.rejection_weight,
-        robust_scale=float(scale_used),
-        robust_reweightings=n_reweightings,
+        robust_scale=float(robust.scale),
+        robust_reweightings=robust.reweightings,
     )

@@ -11,17 +11,15 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from reconstruct.model.grid import Grid
-from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
-from reconstruct.inverse.solver import InversionOptions, InversionResult, invert_travel_times
-from reconstruct.inverse.multilevel import choose_coarsening_factor, coarse_level
+from reconstruct.inverse.problem import InverseProblem, build_inverse_problem
+from reconstruct.inverse.solver import InversionOptions, InversionResult, solve_inverse_problem
 from reconstruct.model.placement import NodePlacement, place_nodes
-from reconstruct.inverse.regularization import first_difference_operator
 from reconstruct.io.site import Site, model_grid
 from reconstruct.forward.straight_rays import ray_coverage
 from reconstruct.forward.straight_rays import straight_ray_matrix
 from reconstruct.io.tables import ExcludedPick, Nodes, Picks
 
-__all__ = ["TomographyRun", "straight_ray_tomography", "run_summary", "solver_progress"]
+__all__ = ["TomographyRun", "straight_ray_tomography", "run_summary"]
 
 
 @dataclass(frozen=True)
@@ -44,6 +42,7 @@ class TomographyRun:
     notes: tuple = field(default=())
     history: tuple = field(default=())  # per-iteration misfits of bent-ray runs
     polylines: list | None = None  # rays per inverted pick, when kept
+    problem: InverseProblem | None = None  # the inverse problem solved (straight-ray times)
 
 
 
@@ -123,34 +122,27 @@ def straight_ray_tomography(
     G = straight_ray_matrix(grid, xyz[picks.tx[used]], xyz[picks.rx[used]], progress=ray_progress)
     _say(progress, f"operator: {G.shape[0]:,} rays, {G.nnz:,} non-zeros")
 
-    ground_flat = ground.ravel()
-    reference = np.where(ground_flat, 1.0 / site.rock.velocity_m_per_ns, 1.0 / AIR_VELOCITY_M_PER_NS)
-    D = first_difference_operator(
-        grid, ground, horizontal_weight=options.horizontal_weight, vertical_weight=options.vertical_weight
+    problem = build_inverse_problem(
+        grid, ground, site.rock.velocity_m_per_ns, picks.time_ns[used], picks.tx[used], picks.rx[used],
+        len(nodes), sigma_ns=None if picks.sigma_ns is None else picks.sigma_ns[used], options=options,
+        robust_exempt=None if robust_exempt is None else np.asarray(robust_exempt, dtype=bool)[used],
     )
-    sigma = None if picks.sigma_ns is None else picks.sigma_ns[used]
-    coarse = None
-    factor = choose_coarsening_factor(int(ground.sum()))
-    if options.smoothing is None and factor > 1:
-        coarse = coarse_level(grid, ground, factor, horizontal_weight=options.horizontal_weight,
-                              vertical_weight=options.vertical_weight)
+    if problem.coarse is not None:
+        factor = problem.coarse.factor
         _say(progress, f"lambda search on a coarse grid of {factor} x {factor} x {factor} blocks "
-                       f"({int(coarse.ground.sum()):,} unknowns)")
+                       f"({int(problem.coarse.ground.sum()):,} unknowns)")
     _say(progress, "solving for the straight-ray model" + (
         "; the smoothing weight is chosen by trial solves (tens of seconds each on a large grid)"
         if options.smoothing is None else ""))
-    result = invert_travel_times(
-        G, picks.time_ns[used], picks.tx[used], picks.rx[used], len(nodes), ground_flat, reference, D,
-        cell_m=grid.cell_m, sigma_ns=sigma, options=options, coarse=coarse, progress=solver_progress(progress),
-        robust_exempt=None if robust_exempt is None else np.asarray(robust_exempt, dtype=bool)[used],
-    )
-    _say(progress, f"straight-ray model: RMS misfit {result.rms_ns:.3f} ns over {used.size:,} picks; "
-                   f"smoothing weight {result.lambda_smooth:.3g} ({_METHOD_WORDS.get(result.lambda_method, result.lambda_method)})")
+    result = solve_inverse_problem(problem, G, progress=solver_progress(progress))
+    _say(progress, f"straight-ray model: RMS misfit {result.rms_ns:.3f} ns over {used.size:,} picks; smoothing "
+                   f"weight {result.lambda_smooth:.3g} "
+                   f"({_METHOD_WORDS.get(result.lambda_method, result.lambda_method)})")
     ray_length, ray_count = ray_coverage(G, grid)
     return TomographyRun(
         site=site, grid=grid, ground=ground, nodes=nodes, placement=placement, picks=picks,
         used=used, excluded=tuple(excluded), ray_length_m=ray_length, ray_count=ray_count,
-        result=result, options=options,
+        result=result, options=options, problem=problem,
     )
 
 

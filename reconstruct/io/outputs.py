@@ -81,14 +81,19 @@ def make_output_folder(out_dir) -> Path:
     return out
 
 
-def write_text_atomic(path, text: str) -> Path:
-    """Write ``text`` (UTF-8) to ``path`` atomically."""
+def write_bytes_atomic(path, data: bytes) -> Path:
+    """Write ``data`` to ``path`` atomically (flushed to disk before the move)."""
     with atomic_path(path) as tmp:
-        with open(tmp, "w", encoding="utf-8", newline="") as handle:
-            handle.write(text)
+        with open(tmp, "wb") as handle:
+            handle.write(data)
             handle.flush()
             os.fsync(handle.fileno())
     return Path(path)
+
+
+def write_text_atomic(path, text: str) -> Path:
+    """Write ``text`` (UTF-8, line ends as given) to ``path`` atomically."""
+    return write_bytes_atomic(path, text.encode("utf-8"))
 
 
 def _json_default(value):

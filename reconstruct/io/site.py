@@ -1008,6 +1008,17 @@ _MAX_CSV_PROBLEMS = 10
 
 def _read_height_grid(path: Path, chk: _Checker):
     """Read and check a height-grid CSV; returns (xs, ys, z[nx, ny]) or None."""
+    text = _read_height_text(path, chk)
+    if text is None:
+        return None
+    rows = _height_rows(text, str(path), chk)
+    if rows is None:
+        return None
+    return _height_lattice(rows, str(path), chk)
+
+
+def _read_height_text(path: Path, chk: _Checker):
+    """The text of a height-grid CSV, or None (the problem added to ``chk``)."""
     where = str(path)
     try:
         text = path.read_text(encoding="utf-8-sig")
@@ -1022,6 +1033,11 @@ def _read_height_grid(path: Path, chk: _Checker):
         chk.add(f"ground.height_grid_csv: cannot read {where} ({exc.strerror}); "
                 "check the path and its permissions")
         return None
+    return text
+
+
+def _height_rows(text: str, where: str, chk: _Checker):
+    """Rows ``(line, x, y, z)`` of a height-grid CSV, each point once, or None."""
     columns = ("x_m", "y_m", "z_m")
     found: list[str] = []
     header, index, rows = None, None, []
@@ -1084,6 +1100,11 @@ def _read_height_grid(path: Path, chk: _Checker):
         for msg in found[:_MAX_CSV_PROBLEMS]:
             chk.add(msg)
         return None
+    return rows
+
+
+def _height_lattice(rows, where: str, chk: _Checker):
+    """The rows as a full lattice ``(xs, ys, z[nx, ny])``, or None (a point missing)."""
     data = np.array([r[1:] for r in rows], dtype=float).reshape(-1, 3)
     lines = np.array([r[0] for r in rows], dtype=int)
     xs, ys = np.unique(data[:, 0]), np.unique(data[:, 1])

@@ -99,17 +99,18 @@ and the generated hash would fail on arrays.
 from __future__ import annotations
 
 import csv
+import errno
 import io
 import math
 import os
 import re
-import uuid
 from dataclasses import dataclass, replace
 from functools import cached_property
 
 import numpy as np
 
 from reconstruct.errors import InputError
+from reconstruct.io.outputs import write_text_atomic
 
 __all__ = [
     "Nodes",
@@ -616,6 +617,53 @@ def _node_index(nodes: Nodes, column: str, node_id: str, line: int, problems: li
     return None
 
 
+def _pick_time(time_text: str, line: int, problems: list[str]):
+    """``(time_ns, reason)`` of a pick's time cell: NaN and a reason to leave the row
+    out for a missing pick; NaN and a problem added for bad text."""
+    if time_text.lower() in _MISSING_TIME:
+        return math.nan, EXCLUDED_NO_PICK
+    value = _number(time_text)
+    if value is None:
+        problems.append(
+            f"line {line}, column time_ns: '{time_text}' is not a number; write the time in "
+            "nanoseconds as a plain number such as 12.3, or leave it blank for a missing pick"
+        )
+    elif not math.isfinite(value):
+        problems.append(
+            f"line {line}, column time_ns: '{time_text}' is not finite; give the time in "
+            "nanoseconds, or leave it blank for a missing pick"
+        )
+    else:
+        return value, None
+    return math.nan, None
+
+
+def _pick_sigma(text: str, line: int, problems: list[str]):
+    """The pick's sigma_ns (None, with a problem added, when it is not a finite number > 0)."""
+    sigma = _number(text) if text else None
+    if not text:
+        problems.append(
+            f"line {line}, column sigma_ns: blank; give a value or remove the column"
+        )
+    elif sigma is None or not math.isfinite(sigma) or sigma <= 0:
+        problems.append(
+            f"line {line}, column sigma_ns: '{text}' must be a finite number > 0 "
+            "(the standard deviation of the pick in ns)"
+        )
+    return sigma
+
+
+def _pick_amplitude(text: str, line: int, problems: list[str]):
+    """The pick's amplitude (NaN when blank; None, with a problem added, when not finite)."""
+    amp = _number(text) if text else math.nan
+    if amp is None or math.isinf(amp):
+        problems.append(
+            f"line {line}, column amplitude: '{text}' is not a finite number; "
+            "write a number or leave it blank"
+        )
+    return amp
+
+
 def read_picks(path, nodes: Nodes) -> Picks:
     """Read a pick table against a node table (see the module docstring).
 
@@ -649,24 +697,7 @@ def read_picks(path, nodes: Nodes) -> Picks:
         tx_id, rx_id, time_text = cell["tx"], cell["rx"], cell["time_ns"]
         tx = _node_index(nodes, "tx", tx_id, line, problems)
         rx = _node_index(nodes, "rx", rx_id, line, problems)
-        reason = None
-        time_ns = math.nan
-        if time_text.lower() in _MISSING_TIME:
-            reason = EXCLUDED_NO_PICK
-        else:
-            value = _number(time_text)
-            if value is None:
-                problems.append(
-                    f"line {line}, column time_ns: '{time_text}' is not a number; write the time in "
-                    "nanoseconds as a plain number such as 12.3, or leave it blank for a missing pick"
-                )
-            elif not math.isfinite(value):
-                problems.append(
-                    f"line {line}, column time_ns: '{time_text}' is not finite; give the time in "
-                    "nanoseconds, or leave it blank for a missing pick"
-                )
-            else:
-                time_ns = value
+        time_ns, reason = _pick_time(time_text, line, problems)
         if len(problems) > n_before:
             continue
         if reason is None and tx == rx:
@@ -676,27 +707,8 @@ def read_picks(path, nodes: Nodes) -> Picks:
         if reason is not None:
             excluded.append(ExcludedPick(line, tx_id, rx_id, time_text, reason))
             continue
-        sigma = amp = math.nan
-        if has_sigma:
-            text = cell["sigma_ns"]
-            sigma = _number(text) if text else None
-            if not text:
-                problems.append(
-                    f"line {line}, column sigma_ns: blank; give a value or remove the column"
-                )
-            elif sigma is None or not math.isfinite(sigma) or sigma <= 0:
-                problems.append(
-                    f"line {line}, column sigma_ns: '{text}' must be a finite number > 0 "
-                    "(the standard deviation of the pick in ns)"
-                )
-        if has_amp:
-            text = cell["amplitude"]
-            amp = _number(text) if text else math.nan
-            if amp is None or math.isinf(amp):
-                problems.append(
-                    f"line {line}, column amplitude: '{text}' is not a finite number; "
-                    "write a number or leave it blank"
-                )
+        sigma = _pick_sigma(cell["sigma_ns"], line, problems) if has_sigma else math.nan
+        amp = _pick_amplitude(cell["amplitude"], line, problems) if has_amp else math.nan
         pair = (tx, rx)
         if pair in first_line:
             problems.append(
@@ -758,19 +770,14 @@ def write_excluded_csv(excluded, path_or_buffer) -> None:
         _write_excluded_rows(excluded, path_or_buffer)
         return
     path = os.fspath(path_or_buffer)
-    folder = os.path.dirname(os.path.abspath(path))
-    # Created with open(..., "x") rather than mkstemp so the file gets the
-    # user's usual permissions (mkstemp makes it private, 0600).
-    tmp = os.path.join(folder, f".{os.path.basename(path)}.{uuid.uuid4().hex}.tmp")
+    buffer = io.StringIO()
+    _write_excluded_rows(excluded, buffer)
     try:
-        with open(tmp, "x", encoding="utf-8", newline="") as f:
-            _write_excluded_rows(excluded, f)
-        os.replace(tmp, path)
+        if not os.path.isdir(os.path.dirname(os.path.abspath(path))):
+            # the one atomic writer would create the folder; here a missing one is the user's mistake
+            raise FileNotFoundError(errno.ENOENT, os.strerror(errno.ENOENT))
+        write_text_atomic(path, buffer.getvalue())
     except OSError as exc:
-        try:
-            os.remove(tmp)
-        except OSError:
-            pass
         raise InputError(
             f"{path}: cannot write the excluded-picks table ({exc.strerror or exc}); "
             "check that the folder exists and is writable",

@@ -287,7 +287,11 @@ def write_qc(picks: Picks, nodes: Nodes, checks: PickChecks, problems, out_dir, 
              inputs: dict, parameters: dict, started: str, command: str, rays: str = "straight",
              keep_flagged=()) -> dict:
     """Write ``qc.csv``, ``node_clocks.csv``, ``qc.json``, ``qc.html`` and, last,
-    ``manifest.json`` into ``out_dir``; returns the summary."""
+    ``manifest.json`` into ``out_dir``; returns the summary.
+
+    Many parameters because the manifest records the command, inputs and
+    parameters of the run beside the data; kept while the command line is rewritten.
+    """
     out = make_output_folder(out_dir)
     excluding = excluded_flags(rays, keep_flagged)
     summary = qc_summary(picks, nodes, checks, problems, rays=rays, keep_flagged=keep_flagged)

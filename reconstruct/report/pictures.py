@@ -375,9 +375,7 @@ def save_mesh(path, mesh):
 
 def write_png_atomic(path, png_bytes: bytes):
     """Write PNG bytes to ``path`` atomically. Returns the path."""
-    from reconstruct.io.outputs import atomic_path
+    from reconstruct.io.outputs import write_bytes_atomic
 
-    with atomic_path(path, suffix=".png") as tmp:
-        with open(tmp, "wb") as handle:
-            handle.write(png_bytes)
+    write_bytes_atomic(path, png_bytes)
     return path

@@ -93,10 +93,10 @@ def _cmd_simulate(args) -> int:
         write_csv_atomic(args.outliers_out, ["tx", "rx", "error_ns"],
                          ([ids[survey.tx[k]], ids[survey.rx[k]], f"{survey.outlier_error_ns[k]:.3f}"] for k in bad))
     if args.clock_out:
-        write_csv_atomic(args.clock_out, ["node_id", "clock_offset_ns"],
-                         ([ids[k], f"{survey.clock_offset_ns[k]:.4f}"] for k in range(len(ids))))
+        write_csv_atomic(args.clock_out, ["node_id", "time_zero_ns"],
+                         ([ids[k], f"{survey.time_zero_ns[k]:.4f}"] for k in range(len(ids))))
     print(f"{survey.tx.size} synthetic picks written to {Path(args.out)} "
-          f"(noise {truth.noise_sigma_ns:g} ns, clock offsets sd {truth.clock_offset_sigma_ns:g} ns, "
+          f"(noise {truth.noise_sigma_ns:g} ns, time-zero offsets sd {truth.time_zero_sigma_ns:g} ns, "
           + (f"{int(survey.outlier.sum())} gross outliers, " if survey.outlier.any() else "")
           + f"times {np.min(survey.time_ns):.1f} to {np.max(survey.time_ns):.1f} ns){missed_note}")
     return 0
@@ -235,8 +235,8 @@ def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
         lo, hi = lb["rule_of_thumb_range_m"]
         print(f"pairs: {p['heard']} of {p['total']} heard ({100 * p['heard_fraction']:.0f} %), "
               f"{p['heard_air_flagged']} of them flagged (first arrival may be the air wave); degree "
-              f"{d['min']:g} to {d['max']:g}, mean {d['mean']:.1f}; deaf stations: "
-              f"{len(summary['deaf_stations'])}")
+              f"{d['min']:g} to {d['max']:g}, mean {d['mean']:.1f}; deaf nodes: "
+              f"{len(summary['deaf_nodes'])}")
         print(f"link range: {lb['computed_range_m']:.1f} m by the link budget "
               f"({lb['attenuation_db_per_m']:.3f} dB/m exact, {lb['attenuation_low_loss_db_per_m']:.3f} dB/m "
               f"low-loss form); rule of thumb {lo:.1f} to {hi:.1f} m (10 to 15 wavelengths in resistive rock)")

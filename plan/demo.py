@@ -11,7 +11,7 @@ by calling the library:
    rays (eikonal fields, air included) on the simulation grid, node clock
    offsets and Gaussian pick noise (:func:`plan.synthetic.simulate.simulate_picks`);
    pairs the link budget does not hear are left out -> ``OUT/picks.csv``;
-4. **QC** of the picks (:func:`reconstruct.checks.picks.check_site_picks`) -> ``OUT/qc/``;
+4. **pick checks** (:func:`reconstruct.checks.picks.check_site_picks`) -> ``OUT/pick_checks/``;
 5. **bent-ray inversion** (:func:`reconstruct.inverse.bent.bent_ray_tomography`)
    -> ``OUT/model/`` (``velocity.vti``, ``summary.json``, ``rays.vtp``, ...);
 6. **voids**: bodies, screening, meshes, pictures -> ``OUT/model/``;
@@ -60,7 +60,7 @@ from reconstruct.errors import InputError, is_whole_number
 __all__ = ["ChainSettings", "ChainResult", "STAGES", "run_demo", "closing_lines", "main"]
 
 #: The stages in order, as printed and recorded in the manifest.
-STAGES = ("plan layout", "plan report", "simulate picks", "QC", "bent-ray inversion", "voids", "report")
+STAGES = ("plan layout", "plan report", "simulate picks", "pick checks", "bent-ray inversion", "voids", "report")
 
 
 @dataclass(frozen=True)
@@ -257,24 +257,25 @@ def _simulate(site, nodes, truth, pairs, settings: ChainSettings, executor, out:
 
 
 def _qc(site_path, site, nodes, nodes_path, picks_path, qc_dir: Path, truth_path, say):
-    """Pick checks and ``qc/``; returns (picks, checks, summary). Unusable picks stop the chain."""
+    """Pick checks and ``pick_checks/``; returns (picks, checks, summary). Unusable picks stop the chain."""
     from reconstruct.io.outputs import utc_now_iso
     from reconstruct.checks.picks import check_site_picks, usability_problems
-    from reconstruct.report.pick_checks import write_qc
+    from reconstruct.report.pick_checks import write_pick_checks
     from reconstruct.io.tables import read_picks
 
     started = utc_now_iso()
     picks = read_picks(picks_path, nodes)
     placement, checks = check_site_picks(site, nodes, picks)
     problems = usability_problems(picks, checks)
-    summary = write_qc(picks, nodes, checks, problems, qc_dir, xyz_m=placement.xyz_m, site_name=site.name,
-                       inputs={"site": site_path, "nodes": nodes_path, "picks": picks_path},
-                       parameters={"rays": "bent"}, started=started, command="voidcube demo (QC)", rays="bent")
+    summary = write_pick_checks(picks, nodes, checks, problems, qc_dir, xyz_m=placement.xyz_m, site_name=site.name,
+                                inputs={"site": site_path, "nodes": nodes_path, "picks": picks_path},
+                                parameters={"rays": "bent"}, started=started, command="voidcube demo (pick checks)",
+                                rays="bent")
     counts = summary["picks"]["flag_counts"]
     say("flags: " + (", ".join(f"{n} {f}" for f, n in counts.items() if n) or "none"))
     if problems:
         raise InputError(f"{truth_path}: the simulated picks are not usable as they stand ({'; '.join(problems)}); "
-                         f"see {qc_dir / 'qc.html'} and lower noise.sigma_ns or noise.outlier_fraction")
+                         f"see {qc_dir / 'pick_checks.html'} and lower noise.sigma_ns or noise.outlier_fraction")
     return picks, checks, summary
 
 
@@ -297,7 +298,7 @@ def _invert(site, site_path, nodes, nodes_path, picks, picks_path, checks, qc_su
     summary = write_tomography(
         run, model_dir, inputs={"site": site_path, "nodes": nodes_path, "picks": picks_path},
         parameters=parameters, started=started, command="voidcube demo (bent-ray inversion)",
-        extra_summary={"qc": {"flag_counts": qc_summary["picks"]["flag_counts"],
+        extra_summary={"pick_checks": {"flag_counts": qc_summary["picks"]["flag_counts"],
                               "sigma_source": checks.sigma_source,
                               "pick_noise_from_reciprocity_ns": checks.noise_sigma_ns}})
     steps = ", ".join(f"{h['rms_ns']:.3f}" for h in summary["iterations"])
@@ -312,10 +313,10 @@ def _voids(model_dir: Path, site_path, pictures: bool, say):
 
     started = utc_now_iso()
     data = load_inversion_folder(model_dir, site_path)
-    analysis, hazard = screen_folder(data)
-    content = write_void_outputs(data, analysis, hazard, pictures=pictures, started=started, progress=say,
+    analysis, screening = screen_folder(data)
+    content = write_void_outputs(data, analysis, screening, pictures=pictures, started=started, progress=say,
                                  parameters={"site": str(site_path), "pictures": pictures})
-    say(f"{content['counts']['voids']} voids, {content['counts']['unresolved_indications']} unresolved "
+    say(f"{content['counts']['resolved']} voids, {content['counts']['unresolved']} unresolved "
         f"indications; {content['rendering']}")
     return data, analysis
 
@@ -361,7 +362,7 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
 
         start_offscreen_probe()  # runs in the background while the chain computes
     executor = Executor(kind="processes", workers=settings.workers)
-    plan_dir, qc_dir, model_dir = root / "plan", root / "qc", root / "model"
+    plan_dir, qc_dir, model_dir = root / "plan", root / "pick_checks", root / "model"
     plan_dir.mkdir(exist_ok=True)
 
     stages.begin("plan layout")
@@ -379,7 +380,7 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     stages.begin("simulate picks")
     picks_path, survey, fine = _simulate(site, nodes, truth, pairs, settings, executor, root, say)
     stages.end()
-    stages.begin("QC")
+    stages.begin("pick checks")
     picks, checks, qc_summary = _qc(site_path, site, nodes, nodes_path, picks_path, qc_dir, truth_path, say)
     stages.end()
     stages.begin("bent-ray inversion")
@@ -404,14 +405,14 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
         "model_grid": {"cell_m": list(grid.cell_m), "shape": list(grid.shape)},
         "simulation": {"rays": "bent (eikonal first arrivals, air included)", "refine": truth.refine,
                        "cell_m": list(fine.cell_m), "shape": list(fine.shape),
-                       "noise_sigma_ns": truth.noise_sigma_ns, "clock_offset_sigma_ns": truth.clock_offset_sigma_ns,
+                       "noise_sigma_ns": truth.noise_sigma_ns, "time_zero_sigma_ns": truth.time_zero_sigma_ns,
                        "seed": truth.seed, "picks": int(survey.tx.size)},
         "executor": {"kind": executor.kind, "workers": executor.n_workers},
     }
     manifest = build_manifest(
         command="voidcube demo " + " ".join(map(str, (folder, "--out", out))),
         inputs={"site": site_path, "truth": truth_path}, parameters=parameters,
-        outputs=["plan/", "picks.csv", "qc/", "model/", "manifest.json"], started=started, finished=utc_now_iso())
+        outputs=["plan/", "picks.csv", "pick_checks/", "model/", "manifest.json"], started=started, finished=utc_now_iso())
     manifest["stages"] = [{"stage": name, "seconds": stages.seconds[name]} for name in STAGES]
     manifest["total_seconds"] = round(time.perf_counter() - stages.start, 2)
     manifest["misfit_rms_ns_per_iteration"] = [h["rms_ns"] for h in summary["iterations"]]
@@ -449,7 +450,7 @@ def build_parser() -> argparse.ArgumentParser:
         "demo", help="run the whole chain on a demo folder (site.yaml and truth.yaml)",
         description="Plan a layout, simulate picks through the truth model, check them, invert them with "
                     "bent rays, find the voids and write the report; then compare the voids found with "
-                    "the truth. Writes OUT/plan/, OUT/picks.csv, OUT/qc/, OUT/model/ and OUT/manifest.json.")
+                    "the truth. Writes OUT/plan/, OUT/picks.csv, OUT/pick_checks/, OUT/model/ and OUT/manifest.json.")
     p.add_argument("folder", metavar="FOLDER", help="folder holding site.yaml and truth.yaml (e.g. demo_site)")
     p.add_argument("--out", required=True, help="output folder (created if missing)")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")

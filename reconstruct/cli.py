@@ -167,7 +167,7 @@ def _cmd_invert(args) -> int:
         parameters["executor"] = executor.kind  # as used: --scheduler implies dask
     summary = write_tomography(
         run, args.out, inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
-        parameters=parameters, started=started, command="reconstruct invert", extra_summary={"qc": qc_summary},
+        parameters=parameters, started=started, command="reconstruct invert", extra_summary={"pick_checks": qc_summary},
     )
     m, lam, v = summary["misfit"], summary["lambda"], summary["velocity_m_per_ns"]
     chi = "" if m["chi2"] is None else f", chi^2/N {m['chi2_per_pick']:.3f}"
@@ -223,7 +223,7 @@ def _checked_picks(args, site, nodes, picks, say):
 def _cmd_qc(args) -> int:
     from reconstruct.io.outputs import utc_now_iso
     from reconstruct.checks.picks import check_site_picks, picks_for_inversion, usability_problems
-    from reconstruct.report.pick_checks import write_qc
+    from reconstruct.report.pick_checks import write_pick_checks
     from reconstruct.io.site import load_site
     from reconstruct.io.tables import read_nodes, read_picks
 
@@ -237,10 +237,10 @@ def _cmd_qc(args) -> int:
     picks_for_inversion(picks, nodes, checks, rays=args.rays, keep_flagged=keep)  # checks the flag names
     problems = usability_problems(picks, checks)
     parameters = {k: v for k, v in vars(args).items() if k not in ("func",)}
-    summary = write_qc(picks, nodes, checks, problems, args.out, xyz_m=placement.xyz_m, site_name=site.name,
-                       inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
-                       parameters=parameters, started=started, command="reconstruct qc", rays=args.rays,
-                       keep_flagged=keep)
+    summary = write_pick_checks(picks, nodes, checks, problems, args.out, xyz_m=placement.xyz_m,
+                                site_name=site.name, inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
+                                parameters=parameters, started=started, command="reconstruct qc", rays=args.rays,
+                                keep_flagged=keep)
     counts = summary["picks"]["flag_counts"]
     print(f"site: {site.name}")
     print(f"picks checked: {len(picks)} ({len(picks.excluded)} excluded on reading); flagged: "
@@ -248,7 +248,7 @@ def _cmd_qc(args) -> int:
     noise = "" if checks.noise_sigma_ns is None else f"; pick noise from reciprocity {checks.noise_sigma_ns:.3f} ns"
     print(f"reciprocal pairs: {checks.n_reciprocal_pairs} ({checks.reciprocity['mismatched_pairs']} mismatched)"
           f"{noise}; sigma from {checks.sigma_source}")
-    fast = summary["picks"]["faster_than_air_lines"]
+    fast = summary["picks"]["faster_than_air_input_lines"]
     if fast:
         print(f"faster than air (impossible): {len(fast)} picks, lines {', '.join(map(str, fast[:20]))}"
               + (", ..." if len(fast) > 20 else ""))
@@ -283,7 +283,7 @@ def _cmd_check(args) -> int:
 
 
 def _cmd_voids(args) -> int:
-    from reconstruct.interpret.screening import HazardOptions
+    from reconstruct.interpret.screening import ScreeningOptions
     from reconstruct.interpret.folder import load_inversion_folder, screen_folder
     from reconstruct.report.folders import write_void_outputs
     from reconstruct.io.outputs import utc_now_iso
@@ -294,31 +294,31 @@ def _cmd_voids(args) -> int:
     if args.max_pictures < 0:
         raise InputError(f"--max-pictures must be >= 0 (got {args.max_pictures})")
     void_options = VoidOptions(sigmas=args.sigmas, false_alarm=args.false_alarm)
-    hazard_options = HazardOptions(specific_gravity=args.specific_gravity, dip_deg=args.dip,
-                                   rock_mass_q=args.rock_mass_q)
+    screening_options = ScreeningOptions(specific_gravity=args.specific_gravity, dip_deg=args.dip,
+                                         rock_mass_q=args.rock_mass_q)
     if not args.no_pictures:
         from reconstruct.report.pictures import start_offscreen_probe
 
         start_offscreen_probe()  # runs while the cube is read and searched
     data = load_inversion_folder(args.folder, args.site)
     say(f"cube {data.grid.shape[0]} x {data.grid.shape[1]} x {data.grid.shape[2]} cells, site {data.site_path}")
-    analysis, hazard = screen_folder(data, void_options, hazard_options)
+    analysis, screening = screen_folder(data, void_options, screening_options)
     parameters = {"sigmas": args.sigmas, "false_alarm": args.false_alarm, "site": str(data.site_path), "pictures": not args.no_pictures,
                   "max_pictures": args.max_pictures,
-                  "hazard": {"specific_gravity": args.specific_gravity, "dip_deg": args.dip,
+                  "screening": {"specific_gravity": args.specific_gravity, "dip_deg": args.dip,
                              "rock_mass_q": args.rock_mass_q}}
-    content = write_void_outputs(data, analysis, hazard, pictures=not args.no_pictures,
+    content = write_void_outputs(data, analysis, screening, pictures=not args.no_pictures,
                                  max_pictures=args.max_pictures, parameters=parameters, started=started,
                                  progress=say)
     counts = content["counts"]
     print(f"site: {content['site']}")
-    print(f"voids: {counts['voids']}, unresolved indications: {counts['unresolved_indications']} "
+    print(f"voids: {counts['resolved']}, unresolved indications: {counts['unresolved']} "
           f"(threshold {content['method']['sigmas']:.2f} robust sigmas; see voids.json)")
-    for entry in content["hazard"]["ranked"][:5]:
-        print(f"  {entry['rank']}. body {entry['id']} ({entry['status']}, confidence {entry['confidence']}): "
+    for entry in content["screening"]["ranked"][:5]:
+        print(f"  {entry['rank']}. body {entry['body_id']} ({entry['status']}, confidence {entry['confidence']}): "
               f"{entry['reasons']}")
     print(f"pictures: {content['rendering']}")
-    print(f"output: {Path(args.folder)} (voids.csv, voids.json, hazard.csv, interpretation.vti, voids.vtp, "
+    print(f"output: {Path(args.folder)} (voids.csv, voids.json, screening.csv, interpretation.vti, voids.vtp, "
           "ground.vtp, pictures/)")
     print("screening aid, not a design: confirm by probe drilling; a null result does not prove no void")
     return 0
@@ -363,7 +363,7 @@ def build_parser() -> argparse.ArgumentParser:
         "qc", help="check picks: reciprocity, node clocks, velocity band, air waves; writes a report",
         description="Check every pick before inverting: reciprocal pairs, node clock (time-zero) estimates "
                     "as transmitter and receiver, apparent velocity against 0.03-0.30 m/ns, direct and "
-                    "refracted air waves. Writes qc.csv, node_clocks.csv, qc.json, qc.html and "
+                    "refracted air waves. Writes pick_checks.csv, node_time_zero.csv, pick_checks.json, pick_checks.html and "
                     "manifest.json into OUT. The pick table is never changed.",
         epilog=_EPILOG_UNITS)
     _add_input_arguments(p)
@@ -391,7 +391,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Find void bodies in the velocity cube of an inversion folder (robust background per "
                     "depth slab, threshold from the misfit and the resolution), rank them by roof "
                     "thickness, span and stand-off from planned works, and write voids.csv, voids.json, "
-                    "hazard.csv, interpretation.vti, voids.vtp, ground.vtp and pictures/ into FOLDER. "
+                    "screening.csv, interpretation.vti, voids.vtp, ground.vtp and pictures/ into FOLDER. "
                     "A screening aid, not a design.",
         epilog=_EPILOG_UNITS)
     p.add_argument("folder", metavar="FOLDER", help="output folder of 'reconstruct invert'")

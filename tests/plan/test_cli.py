@@ -42,7 +42,7 @@ TRUTH_YAML = """\
 # invented truth model
 bodies:
   - {name: fast box, shape: box, centre_m: [10, 5, 10], size_m: [4, 4, 4], fill: air}
-noise: {sigma_ns: 0.3, clock_offset_sigma_ns: 1.0, seed: 3}
+noise: {sigma_ns: 0.3, time_zero_sigma_ns: 1.0, seed: 3}
 refine: 2
 """
 
@@ -101,7 +101,7 @@ def test_simulate_writes_a_pick_table_that_reconstruct_reads(files, tmp_path):
     with open(out, newline="", encoding="utf-8") as f:
         assert next(csv.reader(f)) == ["tx", "rx", "time_ns", "sigma_ns"]
     assert stdout.strip() == (
-        f"{N_NODES * (N_NODES - 1)} synthetic picks written to {out} (noise 0.3 ns, clock offsets "
+        f"{N_NODES * (N_NODES - 1)} synthetic picks written to {out} (noise 0.3 ns, time-zero offsets "
         f"sd 1 ns, times {picks.time_ns.min():.1f} to {picks.time_ns.max():.1f} ns)")
     assert "simulating 272 picks on a 40 x 20 x 40 grid" in stderr
     assert {k: p.read_bytes() for k, p in files.items()} == before
@@ -118,7 +118,7 @@ def test_simulate_one_way_quiet_and_clock_out(files, tmp_path):
     with open(clock, newline="", encoding="utf-8") as f:
         rows = list(csv.DictReader(f))
     assert [r["node_id"] for r in rows] == list(read_nodes(files["nodes"]).ids)
-    tau = np.array([float(r["clock_offset_ns"]) for r in rows])
+    tau = np.array([float(r["time_zero_ns"]) for r in rows])
     assert abs(tau.mean()) < 1e-3  # mean zero, written to 1e-4 ns
     assert tau.std() > 0.2
 
@@ -272,7 +272,7 @@ def test_design_writes_every_file_and_a_manifest(files, tmp_path):
     assert sorted(manifest["outputs"]) == sorted(DESIGN_FILES)
     assert manifest["inputs"]["site"]["sha256"]
     pairs = json.loads((out / "pairs_summary.json").read_text())
-    assert pairs["stations"] == len(nodes)
+    assert pairs["nodes"] == len(nodes)
     mesh = json.loads((out / "mesh_summary.json").read_text())
     assert mesh["stations"]["node"] == len(nodes)
     schedule = json.loads((out / "schedule_summary.json").read_text())

@@ -69,8 +69,9 @@ def test_reduced_chain_finds_the_air_cavity_within_two_cells(reduced_run):
     # fill class: an air-filled void is fast (Davis and Annan 1989)
     assert match.expected_fill == FILL_AIR
     rows = (result.out / "model" / "voids.csv").read_text(encoding="utf-8").splitlines()
-    row = next(r for r in rows[1:] if r.split(",")[0] == str(match.void_id))
-    assert FILL_AIR in row
+    assert rows[0].split(",")[:3] == ["body_id", "status", "fill"]
+    row = next(r.split(",") for r in rows[1:] if r.split(",")[0] == str(match.body_id))
+    assert row[2] == FILL_AIR
 
 
 @pytest.mark.slow
@@ -78,7 +79,7 @@ def test_reduced_chain_writes_the_output_layout_and_leaves_inputs_alone(reduced_
     folder, before, result = reduced_run
     out = result.out
     for name in ("plan/nodes.csv", "plan/pairs.csv", "plan/mesh.graphml", "plan/schedule.csv",
-                 "plan/plan_report.html", "picks.csv", "qc/qc.html", "model/velocity.vti", "model/summary.json",
+                 "plan/plan_report.html", "picks.csv", "pick_checks/pick_checks.html", "model/velocity.vti", "model/summary.json",
                  "model/rays.vtp", "model/voids.csv", "model/voids.vtp", "model/report.html", "manifest.json"):
         assert (out / name).is_file() and (out / name).stat().st_size > 0, name
     assert result.report_path == out / "model" / "report.html"

@@ -122,7 +122,9 @@ def test_report_shows_other_planning_outputs_and_keeps_earlier_manifests(files):
     for caution in CAUTIONS:
         assert escape(caution) in page
     assert "report &lt;box&gt;" in page and "<box>" not in page  # input text is escaped
-    assert "heard_pairs" in page and "degree.max" in page and "&lt;S9&gt;" in page
+    # figures in words with their units, never the raw key paths
+    assert "heard pairs" in page and "most nodes heard by one node" in page and "&lt;S9&gt;" in page
+    assert "heard_pairs" not in page and "degree.max" not in page
     assert "mesh_summary.json could not be read" in page
     assert "BH1-02" in page  # schedule.csv rows
     assert page.count("data:image/png;base64,") >= 3

@@ -54,7 +54,7 @@ def test_graph_measures_agree_with_networkx_and_the_far_node_is_deaf(site, tmp_p
     summary = pair_graph_summary(pairs)
     degrees = [d for _, d in nx.degree(g)]
     assert summary["degree"]["max"] == max(degrees) and summary["degree"]["mean"] == pytest.approx(np.mean(degrees))
-    assert summary["deaf_stations"] == [n for n in g if g.degree(n) == 0] == ["FAR"]
+    assert summary["deaf_nodes"] == [n for n in g if g.degree(n) == 0] == ["FAR"]
     assert summary["components"] == nx.number_connected_components(g)
     assert summary["pairs"]["heard"] == g.number_of_edges() == int(pairs.links.heard.sum())
     # nodes in one vertical hole sit on each other's dipole axis: the null, not heard

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import csv
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -28,7 +29,7 @@ from reconstruct.report.html import escape, figure_png, html_document, png_img_h
 
 from plan.assess.coverage import Coverage
 
-__all__ = ["plan_report_html", "flatten_summary", "summary_rows", "read_mesh_links", "OTHER_SUMMARIES", "OTHER_TABLES",
+__all__ = ["plan_report_html", "flatten_summary", "summary_rows", "find_label", "unlabelled_keys", "read_mesh_links", "OTHER_SUMMARIES", "OTHER_TABLES",
            "PAIR_GRAPH_LABELS", "MESH_LABELS", "SCHEDULE_LABELS", "OPTIMISE_LABELS"]
 
 _PERCENT = "percent"  # a fraction 0..1 shown as a percentage
@@ -83,8 +84,10 @@ MESH_LABELS = {
     "hops.max": "radio hops to the gateway, most",
     "hops.mean": "radio hops to the gateway, mean",
     "hops.per_node": "radio hops to the gateway, per node",
+    "articulation_points": "single points of failure (radios whose loss cuts nodes off)",
     "articulation_points[*].station": "single point of failure {1}: radio",
     "articulation_points[*].nodes_cut_off": "single point of failure {1}: nodes its loss cuts off",
+    "suggested_relays": "suggested relays",
     "suggested_relays[*].id": "suggested relay {1}",
     "suggested_relays[*].xyz_m": "suggested relay {1}: position x, y, z (m)",
     "suggested_relays[*].joins": "suggested relay {1}: joins",
@@ -352,6 +355,15 @@ def _csv_head(path: Path):
     return (header, shown, len(body)), None
 
 
+def _csv_cell(column: str, cell: str) -> str:
+    """A cell of a planning table as the page shows it: yes/no for 0/1 flags, lists readable, no -0."""
+    if column in _YES_NO_COLUMNS:
+        return {"1": "yes", "0": "no"}.get(cell, cell)
+    if re.fullmatch(r"-0(\.0*)?", cell):
+        return cell[1:]  # a negative zero is rounding noise
+    return cell.replace(";", "; ") if ";" in cell else cell
+
+
 def _key_value_table(data, caption, labels):
     return table_html(["figure", "value"], summary_rows(data, labels), caption=caption)
 
@@ -394,14 +406,14 @@ def _fmt(value, digits: int = 3):
             return "n/a"
         if abs(value) < _NOISE:
             return "0"
+        if abs(value) >= 10 ** digits:  # no exponent for large figures: 16,200 rather than 1.62e+04
+            return f"{value:,.0f}"
         return f"{value:.{digits}g}"
     return value
 
 
 def _words(key_path: str) -> str:
     """Words for a key path that has no label: ``a.b_c_m`` -> ``a: b c (m)``, ``x[2]`` -> ``x 3``."""
-    import re
-
     parts = []
     for part in key_path.split("."):
         part = re.sub(r"\[(\d+)\]", lambda m: f" {int(m.group(1)) + 1}", part)
@@ -411,11 +423,9 @@ def _words(key_path: str) -> str:
     return ": ".join(p for p in parts if p)
 
 
-def _label(key_path: str, labels: dict):
-    """``(words, how)`` for a key path: its label (``*`` matching any one key or list position), or
-    words made from the key names; ``how`` is ``"percent"`` or None."""
-    import re
-
+def find_label(key_path: str, labels: dict):
+    """``(words, how)`` of the label of a key path (``*`` matching any one key or list position), or
+    None when ``labels`` has none; ``how`` is ``"percent"`` or None."""
     for pattern, label in labels.items():
         regex = "^" + re.escape(pattern).replace(r"\*", r"([^.\[\]]+)") + "$"
         match = re.match(regex, key_path)
@@ -423,7 +433,12 @@ def _label(key_path: str, labels: dict):
             words, how = (label, None) if isinstance(label, str) else label
             found = [str(int(g) + 1) if g.isdigit() else g.replace("_", " ") for g in match.groups()]
             return words.format(None, *found), how
-    return _words(key_path), None
+    return None
+
+
+def _label(key_path: str, labels: dict):
+    """The label of a key path, or words made from the key names when it has none."""
+    return find_label(key_path, labels) or (_words(key_path), None)
 
 
 def _value_text(value, how=None) -> str:
@@ -455,13 +470,18 @@ def summary_rows(data, labels: dict) -> list[tuple[str, str]]:
     return rows
 
 
+def unlabelled_keys(data, labels: dict) -> list[str]:
+    """Key paths of a summary that ``labels`` does not cover (shown with words made from their names)."""
+    return [k for k, _ in flatten_summary(_compact_per_node(data)) if find_label(k, labels) is None]
+
+
 def _compact_per_node(data):
     """The same JSON with every ``per_node`` mapping turned into one text: ``id value; id value``."""
     if isinstance(data, dict):
         out = {}
         for key, value in data.items():
             if key == "per_node" and isinstance(value, dict):
-                out[key] = "; ".join(f"{k} {_fmt(v, 4) if isinstance(v, (int, float)) else v}"
+                out[key] = "; ".join(f"{k}: {_fmt(v, 4) if isinstance(v, (int, float)) else v}"
                                      for k, v in value.items())
             else:
                 out[key] = _compact_per_node(value)
@@ -554,10 +574,7 @@ def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> t
                 body.append(f"<p>{escape(problem)}</p>")
             else:
                 header, rows, total = head
-                yes_no = [k for k, column in enumerate(header) if column in _YES_NO_COLUMNS]
-                for row in rows:
-                    for k in yes_no:
-                        row[k] = {"1": "yes", "0": "no"}.get(row[k], row[k])
+                rows = [[_csv_cell(column, cell) for column, cell in zip(header, row)] for row in rows]
                 body.append(table_html([words.get(c, _words(c)) for c in header], rows,
                                        caption=f"first {len(rows)} of {total} rows"))
             used.append(name)

@@ -623,10 +623,12 @@ def find_voids(
         "sigma_model_ns_per_m": sigma_model, "rms_ns": float(rms_ns),
         "path_length_m": float(path_length_m), "frequency_mhz": float(frequency_mhz),
         "connectivity": "faces, edges and corners (26 neighbours)",
-        "threshold_rule": "sigmas * max(sigma_model, rms_ns / resolution) per depth slab",
-        "extent_rule": "each component cut at half its peak anomaly",
-        "resolution_rule": "max(first Fresnel zone width, min_cells_for_resolution cells); a body whose "
-                           "largest extent (horizontal span or height) is below it is unresolved",
+        "threshold_rule": ("per depth slab, the threshold in robust standard deviations times the larger "
+                           "of the anomaly's robust spread and the RMS misfit over the resolution"),
+        "extent_rule": "each group of cells beyond the threshold cut at half its peak anomaly",
+        "resolution_rule": (f"the wider of the first Fresnel zone and {options.min_cells_for_resolution:g} cells; "
+                            "a body whose largest extent (horizontal span or height) is below it is "
+                            "unresolved"),
         "covered_ground_cells": int(covered.sum()), "ground_cells": int(ground.sum()),
     }
     notes = []

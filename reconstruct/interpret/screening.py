@@ -200,7 +200,7 @@ def screen_voids(bodies, options: ScreeningOptions = ScreeningOptions()) -> list
         reasons, concerns = [], 0
         kind = ("air-filled (faster than the rock)" if b.fill == FILL_AIR
                 else "water- or clay-filled (slower than the rock)")
-        where = (f"{kind} body of about {b.volume_m3:.0f} m^3 whose roof lies {b.roof_thickness_m:.1f} m "
+        where = (f"{kind} body of about {b.volume_m3:.0f} m³ whose roof lies {b.roof_thickness_m:.1f} m "
                  f"below the ground surface, {width:.1f} m wide and {b.length_m:.1f} m long")
         reasons.append(where)
         if thickness <= 0:

@@ -309,7 +309,8 @@ def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
     flagged = [r for r in pick_check_rows(picks, nodes, checks) if r[-2]][:500]
     parts.append(f"<h2>Flagged picks (first {len(flagged)})</h2>"
                  + table_html(["input line", "transmitter", "receiver", "pick time (ns)", "flags"],
-                              [[r[0], r[1], r[2], r[3], r[-2].replace(";", ", ")] for r in flagged]))
+                              [[r[0], r[1], r[2], r[3], "; ".join(FLAG_WORDS.get(f, f) for f in r[-2].split(";"))]
+                               for r in flagged]))
     parts.append(f"<p>{escape(summary['put_back'])}.</p>")
     return html_document(f"Pick checks: {site_name}", "".join(parts))
 

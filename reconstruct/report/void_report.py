@@ -34,9 +34,12 @@ _VOID_COLUMNS = (
     ("roof_below_work_m", "roof below the planned work above (m)"), ("nearest_work", "nearest planned work"),
     ("standoff_m", "stand-off from it (m)"), ("span_m", "span (m)"),
     ("extreme_velocity_m_per_ns", "extreme velocity (m/ns)"),
-    ("ray_covered_fraction", "share of its cells crossed by rays"),
+    ("ray_covered_fraction", "its cells crossed by rays (%)"),
     ("confidence", "confidence"), ("confidence_reason", "why"),
 )
+
+#: Fractions (0..1) shown as percentages.
+_PERCENT_KEYS = ("ray_covered_fraction", "fraction_of_ground_with_rays")
 
 _SCREENING_COLUMNS = (
     ("rank", "rank"), ("body_id", "body"), ("fill", "likely fill"), ("confidence", "confidence"),
@@ -52,6 +55,8 @@ def _value(row: dict, key: str):
         return "-"
     if key == "fill":
         return FILL_WORDS.get(value, value)
+    if key in _PERCENT_KEYS and isinstance(value, (int, float)):
+        return 100.0 * value
     return value
 
 
@@ -64,6 +69,14 @@ def _text(value) -> str:
 
 def _rows(records, columns):
     return [[_value(r, key) for key, _ in columns] for r in records]
+
+
+def _table_or_none(columns, records, caption):
+    """The table of ``records``, or a line saying there are none."""
+    if not records:
+        return f"<p><b>{escape(caption)}:</b> none.</p>"
+    return table_html([label for _, label in columns], _rows(records, columns), float_format=".3g",
+                      caption=caption)
 
 
 def _quality_section(summary: dict, voids: dict) -> str:
@@ -80,7 +93,7 @@ def _quality_section(summary: dict, voids: dict) -> str:
         ["RMS misfit (ns)", _value(misfit, "rms_ns")],
         ["chi-square per pick (near 1 when sigmas are right)", "-" if chi is None else chi],
         ["smoothing lambda and how it was chosen", f"{_text(_value(lam, 'smoothing'))} ({_value(lam, 'method')})"],
-        ["ground cells crossed by rays", _value(coverage, "fraction_of_ground_with_rays")],
+        ["ground cells crossed by rays (%)", _value(coverage, "fraction_of_ground_with_rays")],
         ["ground velocity min / median / max (m/ns)",
          " / ".join(_text(_value(velocity, k)) for k in ("ground_min", "ground_median", "ground_max"))],
         ["cells clipped at the velocity band", f"{_value(velocity, 'cells_clipped_at_min')} slow, "
@@ -127,7 +140,6 @@ def build_report_html(folder) -> str:
     ]
     screening = voids.get("screening", {})
     ranked = screening.get("ranked", [])
-    labels = [label for _, label in _SCREENING_COLUMNS]
     resolved = [r for r in ranked if r.get("status") == STATUS_RESOLVED]
     unresolved = [r for r in ranked if r.get("status") != STATUS_RESOLVED]
     parts.append("<h2>Screening: which to check first</h2>"
@@ -135,17 +147,14 @@ def build_report_html(folder) -> str:
                  "<p>Thinnest roof: the rock above the body to the ground surface or to a planned work "
                  "over it, whichever is thinner. Width: across the body in plan; span: its largest "
                  "horizontal width; stand-off: its distance to the nearest planned work.</p>"
-                 + table_html(labels, _rows(resolved, _SCREENING_COLUMNS), float_format=".3g",
-                              caption="Voids (resolved bodies)")
+                 + _table_or_none(_SCREENING_COLUMNS, resolved, "Voids (resolved bodies)")
                  + "<p>Indications (unresolved bodies): smaller than the resolution at their depth, so their "
                    "size and contrast are not known; those near planned works still deserve a probe hole.</p>"
-                 + table_html(labels, _rows(unresolved, _SCREENING_COLUMNS), float_format=".3g",
-                              caption="Indications (unresolved bodies)"))
+                 + _table_or_none(_SCREENING_COLUMNS, unresolved, "Indications (unresolved bodies)"))
     parts.append("<h2>Void table</h2><p>Voids (resolved bodies) only; every body, with bounding boxes and "
                  "more columns, is in voids.csv.</p>"
-                 + table_html([label for _, label in _VOID_COLUMNS],
-                              _rows([b for b in voids.get("bodies", []) if b.get("status") == STATUS_RESOLVED],
-                                    _VOID_COLUMNS), float_format=".3g"))
+                 + _table_or_none(_VOID_COLUMNS, [b for b in voids.get("bodies", [])
+                                                  if b.get("status") == STATUS_RESOLVED], "Voids"))
     pictures = []
     for picture in voids.get("pictures", []):
         path = folder / str(picture.get("file", ""))

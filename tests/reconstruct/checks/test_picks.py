@@ -63,7 +63,7 @@ GROUND_M = 30.0
 
 def _site():
     return parse_site({
-        "name": "qc test box (invented)",
+        "name": "pick checks test box (invented)",
         "model": {"origin_m": [0, 0, 0], "size_m": [30, 10, 32], "cell_m": 1.0},
         "ground": {"flat_elevation_m": GROUND_M},
         "rock": {"velocity_m_per_ns": 0.12, "conductivity_ms_per_m": 1.0, "antenna_frequency_mhz": 100},
@@ -287,7 +287,7 @@ def test_refracted_air_wave_matches_the_worked_example():
 
 
 def _hand_picks(rows, velocity_m_per_ns):
-    """Picks on the qc test site from (tx id, rx id, time) rows, after exact rock
+    """Picks on the pick checks test site from (tx id, rx id, time) rows, after exact rock
     times between every other pair of borehole nodes (they pin the clocks at 0)."""
     nodes = _nodes()
     special = {(nodes.index_of(a), nodes.index_of(b)) for a, b, _ in rows}

@@ -313,7 +313,7 @@ def _cmd_voids(args) -> int:
     counts = content["counts"]
     print(f"site: {content['site']}")
     print(f"voids: {counts['resolved']}, unresolved indications: {counts['unresolved']} "
-          f"(threshold {content['method']['sigmas']:.2f} robust sigmas; see voids.json)")
+          f"(threshold {content['method']['threshold_sigmas']:.2f} robust sigmas; see voids.json)")
     for entry in content["screening"]["ranked"][:5]:
         print(f"  {entry['rank']}. body {entry['body_id']} ({entry['status']}, confidence {entry['confidence']}): "
               f"{entry['reasons']}")

@@ -614,9 +614,10 @@ def find_voids(
         for k in range(len(slab_bg))
     ]
     parameters = {
-        "sigmas": sigmas, "sigmas_rule": ("given" if options.sigmas is not None else
-                                          "expected Euler characteristic of a smooth Gaussian field "
-                                          "(Worsley et al. 1996): 2 E[chi](u) = false_alarm"),
+        "threshold_sigmas": sigmas,
+        "threshold_sigmas_rule": ("given" if options.sigmas is not None else
+                                  "expected Euler characteristic of a smooth Gaussian field "
+                                  "(Worsley et al. 1996): 2 E[chi](u) = false_alarm"),
         "false_alarm": options.false_alarm, "smoothness_fwhm_m": (fwhm * np.asarray(grid.cell_m)).tolist(),
         "resels": list(resels),
         "min_cells_for_resolution": options.min_cells_for_resolution,

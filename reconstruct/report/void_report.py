@@ -100,7 +100,7 @@ def _quality_section(summary: dict, voids: dict) -> str:
                                                f"{_value(velocity, 'cells_clipped_at_max')} fast"],
         ["detection threshold rule", _value(method, "threshold_rule")],
         ["robust spread of the anomaly (ns/m)", _value(method, "sigma_model_ns_per_m")],
-        ["threshold in robust standard deviations", _value(method, "sigmas")],
+        ["detection threshold in robust standard deviations", _value(method, "threshold_sigmas")],
         ["median transmitter-receiver distance (m)", _value(method, "path_length_m")],
         ["antenna frequency (MHz)", _value(method, "frequency_mhz")],
         ["resolution rule", _value(method, "resolution_rule")],

@@ -54,7 +54,7 @@ def test_voids_command_writes_the_table_meshes_and_manifest(make_inversion_folde
     assert float(void[0]["roof_below_work_m"]) == pytest.approx(7.0)
     assert void[0]["nearest_work"] == "haul road"
     content = json.loads((folder / "voids.json").read_text(encoding="utf-8"))
-    assert content["method"]["sigmas"] > 1.96 and content["depth_slabs"][0]["threshold_ns_per_m"] > 0
+    assert content["method"]["threshold_sigmas"] > 1.96 and content["depth_slabs"][0]["threshold_ns_per_m"] > 0
     assert any("probe drilling" in c for c in content["cautions"])
     assert any("soils" in c for c in content["cautions"])
     screening = _csv_rows(folder / "screening.csv")

@@ -237,8 +237,8 @@ def _cmd_qc(args) -> int:
     picks_for_inversion(picks, nodes, checks, rays=args.rays, keep_flagged=keep)  # checks the flag names
     problems = usability_problems(picks, checks)
     parameters = {k: v for k, v in vars(args).items() if k not in ("func",)}
-    summary = write_pick_checks(picks, nodes, checks, problems, args.out, xyz_m=placement.xyz_m,
-                                site_name=site.name, inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
+    summary = write_pick_checks(picks, nodes, checks, problems, args.out, xyz_m=placement.xyz_m, site_name=site.name,
+                                inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
                                 parameters=parameters, started=started, command="reconstruct qc", rays=args.rays,
                                 keep_flagged=keep)
     counts = summary["picks"]["flag_counts"]
@@ -306,7 +306,7 @@ def _cmd_voids(args) -> int:
     parameters = {"sigmas": args.sigmas, "false_alarm": args.false_alarm, "site": str(data.site_path), "pictures": not args.no_pictures,
                   "max_pictures": args.max_pictures,
                   "screening": {"specific_gravity": args.specific_gravity, "dip_deg": args.dip,
-                             "rock_mass_q": args.rock_mass_q}}
+                                "rock_mass_q": args.rock_mass_q}}
     content = write_void_outputs(data, analysis, screening, pictures=not args.no_pictures,
                                  max_pictures=args.max_pictures, parameters=parameters, started=started,
                                  progress=say)
@@ -363,8 +363,8 @@ def build_parser() -> argparse.ArgumentParser:
         "qc", help="check picks: reciprocity, node clocks, velocity band, air waves; writes a report",
         description="Check every pick before inverting: reciprocal pairs, node clock (time-zero) estimates "
                     "as transmitter and receiver, apparent velocity against 0.03-0.30 m/ns, direct and "
-                    "refracted air waves. Writes pick_checks.csv, node_time_zero.csv, pick_checks.json, pick_checks.html and "
-                    "manifest.json into OUT. The pick table is never changed.",
+                    "refracted air waves. Writes pick_checks.csv, node_time_zero.csv, pick_checks.json, "
+                    "pick_checks.html and manifest.json into OUT. The pick table is never changed.",
         epilog=_EPILOG_UNITS)
     _add_input_arguments(p)
     p.add_argument("--rays", choices=("straight", "bent"), default="bent",

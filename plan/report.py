@@ -155,7 +155,7 @@ OTHER_SUMMARIES = (
 )
 #: Column headings, in words, of the tables shown (first rows) when present.
 PAIRS_CSV_WORDS = {
-    "node_a": "node A", "node_b": "node B", "length_m": "distance (m)", "margin_db": "link margin (dB)",
+    "node_a": "node A", "node_b": "node B", "distance_m": "distance (m)", "margin_db": "link margin (dB)",
     "heard": "heard", "spreading_db": "spreading loss (dB)", "attenuation_db": "loss in the rock (dB)",
     "pattern_db": "antenna pattern loss (dB)", "crossing_db": "air-ground crossing loss (dB)",
     "air_length_m": "straight line in the air (m)", "crossings": "air-ground crossings",

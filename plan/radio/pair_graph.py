@@ -38,7 +38,7 @@ __all__ = ["MAX_NODES", "PairGraph", "check_nodes_in_site", "build_pair_graph", 
 MAX_NODES = 3000
 
 #: Columns of ``pairs.csv``.
-PAIRS_CSV_HEADER = ("node_a", "node_b", "length_m", "margin_db", "heard", "spreading_db", "attenuation_db",
+PAIRS_CSV_HEADER = ("node_a", "node_b", "distance_m", "margin_db", "heard", "spreading_db", "attenuation_db",
                     "pattern_db", "crossing_db", "air_length_m", "crossings", "air_wave_first", "air_flag",
                     "azimuth_deg", "inclination_deg")
 

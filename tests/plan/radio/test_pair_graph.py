@@ -77,6 +77,11 @@ def test_files_hold_every_pair_and_read_back(site, tmp_path):
         rows = list(csv.DictReader(handle))
     assert len(rows) == 7 * 6 // 2
     assert all((float(r["margin_db"]) >= 0) == (r["heard"] == "1") for r in rows)
+    # distance_m, as in every other table, is the straight distance between the two nodes (plain geometry)
+    where = {k: nodes.xyz_m[i] for i, k in enumerate(nodes.ids)}
+    for r in rows:
+        assert float(r["distance_m"]) == pytest.approx(np.linalg.norm(where[r["node_a"]] - where[r["node_b"]]),
+                                                       abs=1e-3)
     back = nx.read_graphml(tmp_path / "pairs.graphml")
     assert {frozenset(e) for e in back.edges} == {frozenset(e) for e in pairs.graph.edges}
     assert back.nodes["S1"]["kind"] == "surface"

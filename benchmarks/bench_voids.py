@@ -3,7 +3,7 @@
 An invented inversion folder over 200 x 60 x 70 one-metre cells (flat ground
 at 65 m): a smooth random velocity field around 0.115 m/ns with six smoothed
 ellipsoidal bodies (four fast, two slow), rays through the middle third of the
-box, two planned works. ``reconstruct voids`` (bodies, hazard ranking,
+box, two planned works. ``reconstruct voids`` (bodies, screening,
 interpretation cube, isosurfaces, ground mesh, 3D view and slices) and
 ``reconstruct report`` run on it as a user would run them.
 Target on 2 cores: voids + report <= 30 s.
@@ -80,7 +80,7 @@ def build_folder(folder: Path, scale: float) -> Path:
     write_json_atomic(folder / "summary.json", {
         "site": "benchmark quarry (invented)", "misfit": {"rms_ns": 0.5, "chi2": 19900.0, "chi2_per_pick": 1.0},
         "picks": {"rows_read": 19900, "inverted": 19900, "excluded": 0}})
-    write_csv_atomic(folder / "residuals.csv", ["line", "tx", "rx", "distance_m"],
+    write_csv_atomic(folder / "residuals.csv", ["input_line", "tx", "rx", "distance_m"],
                      ([k + 2, "T", "R", f"{d:.2f}"] for k, d in enumerate(rng.uniform(10, 120, 19900))))
     stamp = utc_now_iso()
     write_json_atomic(folder / "manifest.json", build_manifest(

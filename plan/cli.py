@@ -90,7 +90,7 @@ def _cmd_simulate(args) -> int:
     _write_manifest(out, "voidcube plan simulate", {"site": args.site, "nodes": args.nodes, "truth": args.truth},
                     args, written, started)
     print(f"{survey.tx.size} synthetic picks written to {out / 'picks.csv'} "
-          f"(noise {truth.noise_sigma_ns:g} ns, time-zero offsets sd {truth.clock_offset_sigma_ns:g} ns, "
+          f"(noise {truth.noise_sigma_ns:g} ns, time-zero offsets sd {truth.time_zero_sigma_ns:g} ns, "
           + (f"{int(survey.outlier.sum())} gross errors, " if survey.outlier.any() else "")
           + f"times {np.min(survey.time_ns):.1f} to {np.max(survey.time_ns):.1f} ns){missed_note}")
     return 0
@@ -108,7 +108,7 @@ def _write_survey(out: Path, ids, survey) -> list:
                          ([ids[a], ids[b], f"{t:.3f}", f"{s:.3f}"]
                           for a, b, t, s in zip(survey.tx, survey.rx, survey.time_ns, survey.sigma_ns))),
         write_csv_atomic(out / "true_time_zero.csv", ["node_id", "time_zero_ns"],
-                         ([ids[k], f"{survey.clock_offset_ns[k]:.4f}"] for k in range(len(ids)))),
+                         ([ids[k], f"{survey.time_zero_ns[k]:.4f}"] for k in range(len(ids)))),
         write_csv_atomic(out / "gross_errors.csv", ["tx", "rx", "error_ns"],
                          ([ids[survey.tx[k]], ids[survey.rx[k]], f"{survey.outlier_error_ns[k]:.3f}"] for k in bad)),
     ]
@@ -253,8 +253,8 @@ def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
         lo, hi = lb["rule_of_thumb_range_m"]
         print(f"pairs: {p['heard']} of {p['total']} heard ({100 * p['heard_fraction']:.0f} %), "
               f"{p['heard_air_flagged']} of them flagged (first arrival may be the air wave); degree "
-              f"{d['min']:g} to {d['max']:g}, mean {d['mean']:.1f}; deaf stations: "
-              f"{len(summary['deaf_stations'])}")
+              f"{d['min']:g} to {d['max']:g}, mean {d['mean']:.1f}; deaf nodes: "
+              f"{len(summary['deaf_nodes'])}")
         print(f"link range: {lb['computed_range_m']:.1f} m by the link budget "
               f"({lb['attenuation_db_per_m']:.3f} dB/m exact, {lb['attenuation_low_loss_db_per_m']:.3f} dB/m "
               f"low-loss form); rule of thumb {lo:.1f} to {hi:.1f} m (10 to 15 wavelengths in resistive rock)")

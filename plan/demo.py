@@ -279,14 +279,14 @@ def _pick_checks(site_path, site, nodes, nodes_path, picks_path, checks_dir: Pat
     """Pick checks written to ``checks_dir``; returns the picks. Unusable picks stop the chain."""
     from reconstruct.io.outputs import utc_now_iso
     from reconstruct.checks.picks import check_site_picks, usability_problems
-    from reconstruct.report.pick_checks import write_qc
+    from reconstruct.report.pick_checks import write_pick_checks
     from reconstruct.io.tables import read_picks
 
     started = utc_now_iso()
     picks = read_picks(picks_path, nodes)
     placement, checks = check_site_picks(site, nodes, picks)
     problems = usability_problems(picks, checks)
-    summary = write_qc(picks, nodes, checks, problems, checks_dir, xyz_m=placement.xyz_m, site_name=site.name,
+    summary = write_pick_checks(picks, nodes, checks, problems, checks_dir, xyz_m=placement.xyz_m, site_name=site.name,
                        inputs={"site": site_path, "nodes": nodes_path, "picks": picks_path},
                        parameters={"rays": "bent"}, started=started, command="voidcube demo (pick checks)",
                        rays="bent")
@@ -308,7 +308,7 @@ def _write_model(result, model_dir: Path, inputs: dict, pictures: bool, say) -> 
     summary, content = write_processing(result, model_dir, inputs=inputs, parameters=parameters,
                                         started=utc_now_iso(), command="voidcube demo (inversion and voids)",
                                         pictures=pictures, progress=say)
-    say(f"{content['counts']['voids']} voids, {content['counts']['unresolved_indications']} unresolved "
+    say(f"{content['counts']['resolved']} voids, {content['counts']['unresolved']} unresolved "
         f"indications; {content['rendering']}")
     return summary
 
@@ -397,7 +397,7 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
         "model_grid": {"cell_m": list(grid.cell_m), "shape": list(grid.shape)},
         "simulation": {"rays": "bent (eikonal first arrivals, air included)", "refine": truth.refine,
                        "cell_m": list(fine.cell_m), "shape": list(fine.shape),
-                       "noise_sigma_ns": truth.noise_sigma_ns, "clock_offset_sigma_ns": truth.clock_offset_sigma_ns,
+                       "noise_sigma_ns": truth.noise_sigma_ns, "time_zero_sigma_ns": truth.time_zero_sigma_ns,
                        "seed": truth.seed, "picks": int(survey.tx.size)},
         "executor": {"kind": executor.kind, "workers": executor.n_workers},
     }

@@ -7,8 +7,8 @@ figures, and whatever other planning results the folder holds: the recovery
 tests (``recovery_summary.json``), the layout optimisation
 (``optimise_summary.json``), the pair graph, radio mesh and shot schedule
 summaries (``pairs_summary.json``, ``mesh_summary.json``,
-``schedule_summary.json``, shown key by key) and the first rows of
-``pairs.csv`` and ``schedule.csv``.
+``schedule_summary.json``, each figure labelled in words with its unit) and
+the first rows of ``pairs.csv`` and ``schedule.csv`` (headed in words).
 
 Pictures are :class:`matplotlib.figure.Figure` objects drawn with the Agg
 canvas (no display, no pyplot); the page is built with
@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import csv
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -29,17 +30,156 @@ from reconstruct.report.html import escape, figure_png, html_document, png_img_h
 
 from plan.assess.coverage import Coverage
 
-__all__ = ["plan_report_html", "flatten_summary", "read_mesh_links", "OTHER_SUMMARIES", "OTHER_TABLES"]
+__all__ = ["plan_report_html", "flatten_summary", "summary_rows", "find_label", "unlabelled_keys", "read_mesh_links", "OTHER_SUMMARIES", "OTHER_TABLES",
+           "PAIR_GRAPH_LABELS", "MESH_LABELS", "SCHEDULE_LABELS", "OPTIMISE_LABELS"]
 
-#: Summaries of other planning steps shown key by key when present.
+_PERCENT = "percent"  # a fraction 0..1 shown as a percentage
+_BY_KIND = "degree.by_kind.*"
+
+#: Words, with units, for the figures of ``pairs_summary.json`` (key paths as
+#: :func:`flatten_summary` gives them; ``*`` stands for any one key or list
+#: position, ``{1}`` in the words for what it matched). A second item
+#: ``"percent"`` shows a fraction as a percentage.
+PAIR_GRAPH_LABELS = {
+    "nodes": "nodes",
+    "pairs.total": "pairs of nodes",
+    "pairs.heard": "pairs heard (link margin at least 0 dB)",
+    "pairs.heard_fraction": ("share of the pairs heard (%)", _PERCENT),
+    "pairs.heard_air_flagged": "heard pairs whose first arrival may be the air wave",
+    "pairs.heard_through_air": "heard pairs whose straight line runs partly through the air",
+    "pairs.heard_air_wave_first": "heard pairs where the air wave along the ground surface arrives first",
+    "pairs.margin_db_percentiles.5": "link margin of the heard pairs, 5th percentile (dB)",
+    "pairs.margin_db_percentiles.50": "link margin of the heard pairs, median (dB)",
+    "pairs.margin_db_percentiles.95": "link margin of the heard pairs, 95th percentile (dB)",
+    "pairs.longest_heard_m": "longest heard pair (m)",
+    "degree.min": "fewest nodes heard by one node",
+    "degree.mean": "nodes heard by one node, mean",
+    "degree.median": "nodes heard by one node, median",
+    "degree.max": "most nodes heard by one node",
+    _BY_KIND + ".nodes": "{1} nodes",
+    _BY_KIND + ".mean_degree": "nodes heard by one {1} node, mean",
+    "deaf_nodes": "nodes that hear no other node",
+    "components": "groups of nodes linked by heard pairs (1: all linked)",
+    "link_budget.system_performance_db": "system performance (dB)",
+    "link_budget.attenuation_db_per_m": "attenuation in the rock (dB/m)",
+    "link_budget.attenuation_low_loss_db_per_m": "attenuation in the rock, low-loss form (dB/m)",
+    "link_budget.wavelength_m": "wavelength in the rock (m)",
+    "link_budget.interface_loss_db": "loss at each air-ground crossing (dB)",
+    "link_budget.velocity_m_per_ns": "velocity in the rock (m/ns)",
+    "link_budget.computed_range_m": "range by the link budget (m)",
+    "link_budget.rule_of_thumb_range_m": "range by the rule of thumb, shortest and longest (m)",
+    "link_budget.rule_of_thumb_note": "rule of thumb",
+}
+#: Words, with units, for the figures of ``mesh_summary.json``.
+MESH_LABELS = {
+    "gateway.id": "gateway",
+    "gateway.xyz_m": "gateway position x, y, z (m)",
+    "range_m": "radio range (m)",
+    "stations.node": "radios on survey nodes",
+    "stations.collar": "radios at borehole collars",
+    "stations.gateway": "gateways",
+    "radio_links": "radio links",
+    "cable_links": "cable links (borehole node to its collar radio)",
+    "connected": "every node reaches the gateway",
+    "disconnected_nodes": "nodes cut off from the gateway",
+    "hops.max": "radio hops to the gateway, most",
+    "hops.mean": "radio hops to the gateway, mean",
+    "hops.per_node": "radio hops to the gateway, per node",
+    "articulation_points": "single points of failure (radios whose loss cuts nodes off)",
+    "articulation_points[*].station": "single point of failure {1}: radio",
+    "articulation_points[*].nodes_cut_off": "single point of failure {1}: nodes its loss cuts off",
+    "suggested_relays": "suggested relays",
+    "suggested_relays[*].id": "suggested relay {1}",
+    "suggested_relays[*].xyz_m": "suggested relay {1}: position x, y, z (m)",
+    "suggested_relays[*].joins": "suggested relay {1}: joins",
+    "suggested_relays[*].exclusion_zone": "suggested relay {1}: exclusion zone it had to avoid",
+    "note": "note",
+}
+#: Words, with units, for the figures of ``schedule_summary.json``.
+SCHEDULE_LABELS = {
+    "slots": "shot slots",
+    "transmitters": "nodes that transmit (all, or only those the coverage needs)",
+    "silent_nodes": "nodes that only listen",
+    "pairs_recorded": "pairs recorded",
+    "pairs_recorded_both_directions": "pairs recorded in both directions",
+    "record_length_ns": "record length (ns)",
+    "sample_interval_ns": "sample interval (ns)",
+    "samples_per_trace": "samples per trace",
+    "stacks": "stacks per trace",
+    "pulse_repetition_khz": "pulse repetition frequency (kHz)",
+    "sampling": "sampling (one sample per pulse, or a whole trace per pulse)",
+    "command_overhead_s": "radio command time per slot (s)",
+    "data_rate_kbps": "radio data rate (kbit/s)",
+    "bytes_per_sample": "bytes per sample",
+    "acquire_s_total": "acquisition, all slots (s)",
+    "upload_s_total": "upload of the traces, all slots (s)",
+    "radio_overhead_s_total": "radio commands, all slots (s)",
+    "survey_s": "survey time (s)",
+    "deploy_and_retrieve_s": "deployment and retrieval of the nodes (s)",
+    "time_on_site_hours": "time on site (h)",
+    "note": "note",
+}
+#: Words, with units, for the figures of ``optimise_summary.json``.
+OPTIMISE_LABELS = {
+    "budget": "nodes allowed",
+    "start_nodes": "nodes in the start layout",
+    "candidates": "candidate positions",
+    "pool_positions": "positions considered (start layout and candidates)",
+    "optimised_nodes": "nodes in the optimised layout",
+    "score_start": "coverage score of the start layout, sampled cells (0..1)",
+    "score_optimised": "coverage score of the optimised layout, sampled cells (0..1)",
+    "gain": "gain in coverage score",
+    "score_note": "how the score was sampled",
+    "model_grid.score_start": "coverage score of the start layout, every cell (0..1)",
+    "model_grid.score_optimised": "coverage score of the optimised layout, every cell (0..1)",
+    "model_grid.covered_fraction_start": ("target volume covered to the standard, start layout (%)", _PERCENT),
+    "model_grid.covered_fraction_optimised": ("target volume covered to the standard, optimised layout (%)",
+                                              _PERCENT),
+    "swaps": "swaps made",
+    "adds": "nodes added",
+    "stop_reason": "why the search stopped",
+    "seconds": "computing time (s)",
+    "candidate_pairs": "pairs examined",
+    "standard.min_rays": "standard: rays per cell, at least",
+    "standard.min_angular_coverage": "standard: angular coverage, at least (0..1)",
+    "standard.max_resolution_m": "standard: resolution floor, at most (m)",
+    "standard.depth_of_interest_m": "standard: depth of interest (m)",
+    "standard.works_buffer_m": "standard: buffer around the planned works (m)",
+    "standard.max_distance_m": "standard: longest pair counted (m)",
+}
+
+#: Summaries of other planning steps shown figure by figure, in words, when present.
 OTHER_SUMMARIES = (
-    ("pairs_summary.json", "Pair graph"),
-    ("mesh_summary.json", "Radio mesh"),
-    ("schedule_summary.json", "Shot schedule"),
+    ("pairs_summary.json", "Pair graph", PAIR_GRAPH_LABELS),
+    ("mesh_summary.json", "Radio mesh", MESH_LABELS),
+    ("schedule_summary.json", "Shot schedule", SCHEDULE_LABELS),
 )
+#: Column headings, in words, of the tables shown (first rows) when present.
+PAIRS_CSV_WORDS = {
+    "node_a": "node A", "node_b": "node B", "distance_m": "distance (m)", "margin_db": "link margin (dB)",
+    "heard": "heard", "spreading_db": "spreading loss (dB)", "attenuation_db": "loss in the rock (dB)",
+    "pattern_db": "antenna pattern loss (dB)", "crossing_db": "air-ground crossing loss (dB)",
+    "air_length_m": "straight line in the air (m)", "crossings": "air-ground crossings",
+    "air_wave_first": "air wave first", "air_flag": "first arrival may be the air wave",
+    "azimuth_deg": "azimuth (degrees)", "inclination_deg": "inclination (degrees)",
+}
+SCHEDULE_CSV_WORDS = {
+    "slot": "slot", "start_s": "start (s)", "duration_s": "duration (s)", "transmitter": "transmitter",
+    "n_listeners": "receivers", "listeners": "receiving nodes", "stacks": "stacks",
+    "record_length_ns": "record length (ns)", "samples_per_trace": "samples per trace",
+    "acquire_s": "acquisition (s)", "upload_s": "upload (s)",
+}
 #: Tables of other planning steps shown (first rows) when present.
-OTHER_TABLES = (("pairs.csv", "Pairs"), ("schedule.csv", "Schedule"))
+OTHER_TABLES = (("pairs.csv", "Pairs", PAIRS_CSV_WORDS), ("schedule.csv", "Shot schedule", SCHEDULE_CSV_WORDS))
+#: Columns holding 0 or 1, shown as no or yes.
+_YES_NO_COLUMNS = ("heard", "air_wave_first", "air_flag")
 _TABLE_ROWS = 25
+#: Smaller than this in size, a figure is floating-point noise and shown as 0.
+_NOISE = 1e-9
+#: Unit endings of key names and how the page writes them.
+_UNITS = (("_m_per_ns", "m/ns"), ("_db_per_m", "dB/m"), ("_ns_per_m", "ns/m"), ("_m3", "m³"), ("_kbps", "kbit/s"),
+          ("_khz", "kHz"), ("_mhz", "MHz"), ("_deg", "degrees"), ("_db", "dB"), ("_ns", "ns"),
+          ("_hours", "h"), ("_s", "s"), ("_m", "m"))
 
 
 def flatten_summary(data, prefix: str = "") -> list[tuple[str, object]]:
@@ -224,9 +364,17 @@ def _csv_head(path: Path):
     return (header, shown, len(body)), None
 
 
-def _key_value_table(data, caption):
-    return table_html(["key", "value"], [(k, v if isinstance(v, (int, float, str)) else str(v))
-                                         for k, v in flatten_summary(data)], float_format=".4g", caption=caption)
+def _csv_cell(column: str, cell: str) -> str:
+    """A cell of a planning table as the page shows it: yes/no for 0/1 flags, lists readable, no -0."""
+    if column in _YES_NO_COLUMNS:
+        return {"1": "yes", "0": "no"}.get(cell, cell)
+    if re.fullmatch(r"-0(\.0*)?", cell):
+        return cell[1:]  # a negative zero is rounding noise
+    return cell.replace(";", "; ") if ";" in cell else cell
+
+
+def _key_value_table(data, caption, labels):
+    return table_html(["figure", "value"], summary_rows(data, labels), caption=caption)
 
 
 def _recovery_html(recovery: dict) -> str:
@@ -256,12 +404,100 @@ def _recovery_html(recovery: dict) -> str:
     return "".join(parts)
 
 
-def _fmt(value):
+def _fmt(value, digits: int = 3):
+    """A figure for the page: ``digits`` significant digits, floating-point noise shown as 0."""
     if value is None:
         return "n/a"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
     if isinstance(value, float):
-        return f"{value:.3g}"
+        if not np.isfinite(value):
+            return "n/a"
+        if abs(value) < _NOISE:
+            return "0"
+        if abs(value) >= 10 ** digits:  # no exponent for large figures: 16,200 rather than 1.62e+04
+            return f"{value:,.0f}"
+        return f"{value:.{digits}g}"
     return value
+
+
+def _words(key_path: str) -> str:
+    """Words for a key path that has no label: ``a.b_c_m`` -> ``a: b c (m)``, ``x[2]`` -> ``x 3``."""
+    parts = []
+    for part in key_path.split("."):
+        part = re.sub(r"\[(\d+)\]", lambda m: f" {int(m.group(1)) + 1}", part)
+        ending, unit = next(((e, u) for e, u in _UNITS if part.endswith(e) and len(part) > len(e)), ("", None))
+        words = part[: len(part) - len(ending)].replace("_", " ").strip()
+        parts.append(f"{words} ({unit})" if unit else words)
+    return ": ".join(p for p in parts if p)
+
+
+def find_label(key_path: str, labels: dict):
+    """``(words, how)`` of the label of a key path (``*`` matching any one key or list position), or
+    None when ``labels`` has none; ``how`` is ``"percent"`` or None."""
+    for pattern, label in labels.items():
+        regex = "^" + re.escape(pattern).replace(r"\*", r"([^.\[\]]+)") + "$"
+        match = re.match(regex, key_path)
+        if match:
+            words, how = (label, None) if isinstance(label, str) else label
+            found = [str(int(g) + 1) if g.isdigit() else g.replace("_", " ") for g in match.groups()]
+            return words.format(None, *found), how
+    return None
+
+
+def _label(key_path: str, labels: dict):
+    """The label of a key path, or words made from the key names when it has none."""
+    return find_label(key_path, labels) or (_words(key_path), None)
+
+
+def _value_text(value, how=None) -> str:
+    if how == _PERCENT and isinstance(value, (int, float)) and not isinstance(value, bool):
+        return _fmt(100.0 * value, 3)
+    if isinstance(value, str) and ", " in value:  # a list joined by flatten_summary: format each number
+        items = []
+        for item in value.split(", "):
+            try:
+                items.append(str(_fmt(float(item), 4)) if item not in ("null",) else "none")
+            except ValueError:
+                items.append(item)
+        return ", ".join(items)
+    if value in ("null", ""):
+        return "none"
+    return str(_fmt(value, 4))
+
+
+def summary_rows(data, labels: dict) -> list[tuple[str, str]]:
+    """``(words, value)`` rows of a planning summary for the page (see :data:`PAIR_GRAPH_LABELS`).
+
+    A mapping of node id to value (``per_node``) becomes one row; figures are
+    rounded to four significant digits, floating-point noise shown as 0.
+    """
+    rows = []
+    for key_path, value in flatten_summary(_compact_per_node(data)):
+        words, how = _label(key_path, labels)
+        rows.append((words, _value_text(value, how)))
+    return rows
+
+
+def unlabelled_keys(data, labels: dict) -> list[str]:
+    """Key paths of a summary that ``labels`` does not cover (shown with words made from their names)."""
+    return [k for k, _ in flatten_summary(_compact_per_node(data)) if find_label(k, labels) is None]
+
+
+def _compact_per_node(data):
+    """The same JSON with every ``per_node`` mapping turned into one text: ``id value; id value``."""
+    if isinstance(data, dict):
+        out = {}
+        for key, value in data.items():
+            if key == "per_node" and isinstance(value, dict):
+                out[key] = "; ".join(f"{k}: {_fmt(v, 4) if isinstance(v, (int, float)) else v}"
+                                     for k, v in value.items())
+            else:
+                out[key] = _compact_per_node(value)
+        return out
+    if isinstance(data, list):
+        return [_compact_per_node(v) for v in data]
+    return data
 
 
 def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> tuple[str, list[str]]:
@@ -327,17 +563,18 @@ def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> t
     if optimise.is_file():
         data, problem = _read_json(optimise)
         body.append("<h2>Layout optimisation</h2>")
-        body.append(_key_value_table(data, "optimise_summary.json") if data is not None
+        body.append(_key_value_table(data, f"from {optimise.name}", OPTIMISE_LABELS) if data is not None
                     else f"<p>{escape(problem)}</p>")
         used.append(optimise.name)
-    for name, title in OTHER_SUMMARIES:
+    for name, title, labels in OTHER_SUMMARIES:
         path = plan_dir / name
         if path.is_file():
             data, problem = _read_json(path)
             body.append(f"<h2>{escape(title)}</h2>")
-            body.append(_key_value_table(data, name) if data is not None else f"<p>{escape(problem)}</p>")
+            body.append(_key_value_table(data, f"from {name}", labels) if data is not None
+                        else f"<p>{escape(problem)}</p>")
             used.append(name)
-    for name, title in OTHER_TABLES:
+    for name, title, words in OTHER_TABLES:
         path = plan_dir / name
         if path.is_file():
             head, problem = _csv_head(path)
@@ -346,6 +583,8 @@ def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> t
                 body.append(f"<p>{escape(problem)}</p>")
             else:
                 header, rows, total = head
-                body.append(table_html(header, rows, caption=f"first {len(rows)} of {total} rows"))
+                rows = [[_csv_cell(column, cell) for column, cell in zip(header, row)] for row in rows]
+                body.append(table_html([words.get(c, _words(c)) for c in header], rows,
+                                       caption=f"first {len(rows)} of {total} rows"))
             used.append(name)
     return html_document(f"Survey plan: {site.name}", "".join(body), generated_by="voidcube plan report"), used

@@ -227,7 +227,7 @@ def _print_inversion(summary: dict, out) -> None:
 def _cmd_check_picks(args) -> int:
     from reconstruct.io.outputs import utc_now_iso
     from reconstruct.checks.picks import check_site_picks, picks_for_inversion, usability_problems
-    from reconstruct.report.pick_checks import write_qc
+    from reconstruct.report.pick_checks import write_pick_checks
 
     started = utc_now_iso()
     _check_output_folder(args.out)
@@ -237,7 +237,7 @@ def _cmd_check_picks(args) -> int:
     picks_for_inversion(picks, nodes, checks, rays=args.rays, keep_flagged=keep)  # checks the flag names
     problems = usability_problems(picks, checks)
     parameters = {k: v for k, v in vars(args).items() if k not in ("func", "quiet")}
-    summary = write_qc(picks, nodes, checks, problems, args.out, xyz_m=placement.xyz_m, site_name=site.name,
+    summary = write_pick_checks(picks, nodes, checks, problems, args.out, xyz_m=placement.xyz_m, site_name=site.name,
                        inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
                        parameters=parameters, started=started, command="voidcube reconstruct check-picks",
                        rays=args.rays, keep_flagged=keep)
@@ -248,7 +248,7 @@ def _cmd_check_picks(args) -> int:
     noise = "" if checks.noise_sigma_ns is None else f"; pick noise from reciprocity {checks.noise_sigma_ns:.3f} ns"
     print(f"reciprocal pairs: {checks.n_reciprocal_pairs} ({checks.reciprocity['mismatched_pairs']} mismatched)"
           f"{noise}; sigma from {checks.sigma_source}")
-    fast = summary["picks"]["faster_than_air_lines"]
+    fast = summary["picks"]["faster_than_air_input_lines"]
     if fast:
         print(f"faster than air (impossible): {len(fast)} picks, lines {', '.join(map(str, fast[:20]))}"
               + (", ..." if len(fast) > 20 else ""))
@@ -283,14 +283,14 @@ def _cmd_check_inputs(args) -> int:
 
 def _void_settings(args):
     from reconstruct.interpret.bodies import VoidOptions
-    from reconstruct.interpret.screening import HazardOptions
+    from reconstruct.interpret.screening import ScreeningOptions
     from reconstruct.pipeline import ProcessingSettings
 
     if args.max_pictures < 0:
         raise InputError(f"--max-pictures must be >= 0 (got {args.max_pictures})")
     return ProcessingSettings(
         voids=VoidOptions(sigmas=args.threshold_sigmas, false_alarm=args.false_alarm),
-        screening=HazardOptions(specific_gravity=args.specific_gravity, dip_deg=args.wall_dip_deg,
+        screening=ScreeningOptions(specific_gravity=args.specific_gravity, dip_deg=args.wall_dip_deg,
                                 rock_mass_q=args.rock_mass_q))
 
 
@@ -313,14 +313,14 @@ def _cmd_voids(args) -> int:
                                    max_pictures=args.max_pictures, started=started, progress=say)
     counts = content["counts"]
     print(f"site: {content['site']}")
-    print(f"voids: {counts['voids']}, unresolved indications: {counts['unresolved_indications']} "
-          f"(threshold {content['method']['sigmas']:.2f} robust standard deviations of the anomaly; "
+    print(f"voids: {counts['resolved']}, unresolved indications: {counts['unresolved']} "
+          f"(threshold {content['method']['threshold_sigmas']:.2f} robust standard deviations of the anomaly; "
           "see voids.json)")
-    for entry in content["hazard"]["ranked"][:5]:
-        print(f"  {entry['rank']}. body {entry['id']} ({entry['status']}, confidence {entry['confidence']}): "
+    for entry in content["screening"]["ranked"][:5]:
+        print(f"  {entry['rank']}. body {entry['body_id']} ({entry['status']}, confidence {entry['confidence']}): "
               f"{entry['reasons']}")
     print(f"pictures: {content['rendering']}")
-    print(f"output: {Path(args.folder)} (voids.csv, voids.json, hazard.csv, interpretation.vti, voids.vtp, "
+    print(f"output: {Path(args.folder)} (voids.csv, voids.json, screening.csv, interpretation.vti, voids.vtp, "
           "ground.vtp, pictures/)")
     print("screening aid, not a design: confirm by probe drilling; a null result does not prove no void")
     return 0
@@ -359,8 +359,8 @@ def _add_check_parsers(sub):
         "check-picks", help="pick checks: reciprocity, time-zero offsets, velocity band, air waves; a report",
         description="Check every pick before inverting: reciprocal pairs, node time-zero offsets "
                     "as transmitter and receiver, apparent velocity against 0.03-0.30 m/ns, direct and "
-                    "refracted air waves. Writes the pick-check tables, an HTML page and manifest.json "
-                    "into OUT. The pick table is never changed.",
+                    "refracted air waves. Writes pick_checks.csv, node_time_zero.csv, pick_checks.json, "
+                    "pick_checks.html and manifest.json into OUT. The pick table is never changed.",
         epilog=_EPILOG_UNITS)
     _add_input_arguments(p)
     p.add_argument("--rays", choices=("straight", "bent"), default="bent",
@@ -386,15 +386,15 @@ def _add_check_parsers(sub):
 
 def _add_voids_parser(sub):
     from reconstruct.interpret.bodies import VoidOptions
-    from reconstruct.interpret.screening import HazardOptions
+    from reconstruct.interpret.screening import ScreeningOptions
 
-    v, h = VoidOptions(), HazardOptions()
+    v, h = VoidOptions(), ScreeningOptions()
     p = sub.add_parser(
         "voids", help="find void bodies in an inversion folder, screen them, write meshes and pictures",
         description="Find bodies in the velocity cube of an inversion folder (robust background per "
                     "depth slab, threshold from the misfit and the resolution), rank them by roof "
                     "thickness, span and stand-off from planned works, and write voids.csv, voids.json, "
-                    "hazard.csv, interpretation.vti, voids.vtp, ground.vtp and pictures/ into FOLDER. "
+                    "screening.csv, interpretation.vti, voids.vtp, ground.vtp and pictures/ into FOLDER. "
                     "A screening aid, not a design.",
         epilog=_EPILOG_UNITS)
     p.add_argument("folder", metavar="FOLDER", help="output folder of 'voidcube reconstruct invert'")

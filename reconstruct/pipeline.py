@@ -46,9 +46,9 @@ from reconstruct.checks.picks import (
     usability_problems,
 )
 from reconstruct.errors import InputError, is_whole_number
-from reconstruct.interpret.bodies import STATUS_VOID, VoidOptions
+from reconstruct.interpret.bodies import STATUS_RESOLVED, VoidOptions
 from reconstruct.interpret.folder import InversionFolder, inversion_from_run, screen_folder
-from reconstruct.interpret.screening import HazardOptions
+from reconstruct.interpret.screening import ScreeningOptions
 from reconstruct.inverse.solver import InversionOptions
 from reconstruct.inverse.straight import TomographyRun
 from reconstruct.parallel import Executor
@@ -100,7 +100,7 @@ class ProcessingSettings:
     voids : VoidOptions
         Detection threshold (robust standard deviations of the anomaly, or
         derived from the false-alarm chance).
-    screening : HazardOptions
+    screening : ScreeningOptions
         Rock over the voids and wall dip for the screening.
     """
 
@@ -114,7 +114,7 @@ class ProcessingSettings:
     keep_rays: bool = False
     find_bodies: bool = True
     voids: VoidOptions = field(default_factory=VoidOptions)
-    screening: HazardOptions = field(default_factory=HazardOptions)
+    screening: ScreeningOptions = field(default_factory=ScreeningOptions)
 
     def __post_init__(self):
         problems = []
@@ -226,7 +226,7 @@ def interpret_inversion(inversion: InversionFolder, settings: ProcessingSettings
     (a folder on disk). Returns ``(analysis, screening entries)``.
     """
     analysis, screening = screen_folder(inversion, settings.voids, settings.screening)
-    resolved = sum(b.status == STATUS_VOID for b in analysis.bodies)
+    resolved = sum(b.status == STATUS_RESOLVED for b in analysis.bodies)
     _say(progress, f"bodies: {len(analysis.bodies)} ({resolved} resolved, "
                    f"{len(analysis.bodies) - resolved} unresolved)")
     return analysis, tuple(screening)
@@ -312,6 +312,6 @@ def interpretation_parameters(settings: ProcessingSettings, site_path, pictures:
     """The parameters of the void search recorded in the manifest and ``voids.json``."""
     return {"threshold_sigmas": settings.voids.sigmas, "false_alarm": settings.voids.false_alarm,
             "site": str(site_path), "pictures": pictures, "max_pictures": max_pictures,
-            "hazard": {"specific_gravity": settings.screening.specific_gravity,
+            "screening": {"specific_gravity": settings.screening.specific_gravity,
                        "wall_dip_deg": settings.screening.dip_deg,
                        "rock_mass_q": settings.screening.rock_mass_q}}

@@ -8,7 +8,6 @@ general-purpose tool from the package registry, not written here.
 import os
 import shutil
 import subprocess
-import sys
 from pathlib import Path
 
 import pytest

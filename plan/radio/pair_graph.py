@@ -1,11 +1,11 @@
-"""The pair graph: which stations hear which, by the link budget (networkx).
+"""The pair graph: which nodes hear which, by the link budget (networkx).
 
-Nodes of the graph are the stations (node ids, with position, kind and
+The graph's vertices are the nodes (node ids, with position, kind and
 hole); edges are the heard pairs (margin >= 0 dB, :mod:`plan.radio.link_budget`)
 with their margin, length, azimuth and inclination and a flag for pairs whose
 first arrival may be the air wave (the straight line runs through air, or the
 wave refracted along the surface arrives first). Degree statistics and the
-deaf stations (hearing nobody) come from networkx.
+deaf nodes (hearing nobody) come from networkx.
 """
 
 from __future__ import annotations
@@ -38,7 +38,7 @@ __all__ = ["MAX_NODES", "PairGraph", "check_nodes_in_site", "build_pair_graph", 
 MAX_NODES = 3000
 
 #: Columns of ``pairs.csv``.
-PAIRS_CSV_HEADER = ("node_a", "node_b", "length_m", "margin_db", "heard", "spreading_db", "attenuation_db",
+PAIRS_CSV_HEADER = ("node_a", "node_b", "distance_m", "margin_db", "heard", "spreading_db", "attenuation_db",
                     "pattern_db", "crossing_db", "air_length_m", "crossings", "air_wave_first", "air_flag",
                     "azimuth_deg", "inclination_deg")
 
@@ -50,7 +50,7 @@ class PairGraph:
     Attributes
     ----------
     graph : networkx.Graph
-        Stations keyed by node id; edges are heard pairs.
+        Nodes keyed by node id; edges are heard pairs.
     links : PairLinks
         Every pair ``a < b`` of the node table, heard or not.
     ids : tuple of str
@@ -113,9 +113,9 @@ def build_pair_graph(site: Site, nodes: Nodes, budget: LinkBudget, *, progress=N
 def pair_graph_summary(pairs: PairGraph) -> dict:
     """Figures of the pair graph for ``pairs_summary.json``.
 
-    Keys: ``stations``, ``pairs`` (total, heard, heard fraction, heard and
+    Keys: ``nodes``, ``pairs`` (total, heard, heard fraction, heard and
     air-flagged, margin percentiles), ``degree`` (min, mean, median, max, by
-    kind), ``deaf_stations``, ``components``, ``link_budget`` (settings,
+    kind), ``deaf_nodes``, ``components``, ``link_budget`` (settings,
     computed range, rule-of-thumb range).
     """
     g, links, budget = pairs.graph, pairs.links, pairs.budget
@@ -124,12 +124,12 @@ def pair_graph_summary(pairs: PairGraph) -> dict:
     by_kind = {}
     for kind in sorted(set(kinds.values())):
         d = np.array([g.degree(n) for n, k in kinds.items() if k == kind], dtype=float)
-        by_kind[kind or "unspecified"] = {"stations": int(d.size), "mean_degree": float(d.mean())}
+        by_kind[kind or "unspecified"] = {"nodes": int(d.size), "mean_degree": float(d.mean())}
     heard = links.heard
     margins = links.margin_db[heard]
     lo, hi = rule_of_thumb_range_m(budget.wavelength_m)
     return {
-        "stations": g.number_of_nodes(),
+        "nodes": g.number_of_nodes(),
         "pairs": {
             "total": int(links.a.size),
             "heard": int(heard.sum()),
@@ -148,7 +148,7 @@ def pair_graph_summary(pairs: PairGraph) -> dict:
             "max": float(degree.max()) if degree.size else 0.0,
             "by_kind": by_kind,
         },
-        "deaf_stations": sorted(n for n, d in g.degree() if d == 0),
+        "deaf_nodes": sorted(n for n, d in g.degree() if d == 0),
         "components": nx.number_connected_components(g) if g.number_of_nodes() else 0,
         "link_budget": {
             "system_performance_db": budget.system_performance_db,

@@ -4,9 +4,9 @@ The times are first arrivals through the truth model voxelised on a grid
 ``refine`` times finer than the model grid (so that inverting them is not the
 exact inverse of the forward model): eikonal travel-time fields with the air
 included (``rays="bent"``, default), or straight-ray times (``rays="straight"``,
-for tests of the straight-ray inversion); plus node clock offsets
-``tau_rx - tau_tx``, Gaussian pick noise and, when the truth model asks for
-them, gross outliers.
+for tests of the straight-ray inversion); plus the nodes' time-zero offsets
+(clock offsets, ``time_zero_ns[rx] - time_zero_ns[tx]``), Gaussian pick
+noise and, when the truth model asks for them, gross outliers.
 
 Gross outliers stand for cycle skips and picks made on noise: a seeded share
 ``outlier_fraction`` of the picks (chosen at random, exactly
@@ -14,8 +14,8 @@ Gross outliers stand for cycle skips and picks made on noise: a seeded share
 drawn uniformly between 0.5 and 1.5 times ``outlier_size_ns``. An early error
 that would bring a time to 2 ns or less is made late instead, so every
 simulated time stays positive. The outliers are drawn from their own random
-stream (seeded by ``seed``), so switching them on does not change the clock
-offsets or the noise of the other picks.
+stream (seeded by ``seed``), so switching them on does not change the
+time-zero offsets or the noise of the other picks.
 """
 
 from __future__ import annotations
@@ -42,7 +42,7 @@ class SimulatedSurvey:
     time_ns: np.ndarray
     sigma_ns: np.ndarray
     true_travel_time_ns: np.ndarray
-    clock_offset_ns: np.ndarray  # per node, mean zero
+    time_zero_ns: np.ndarray  # per node: the true time-zero offset (clock offset), mean zero
     node_xyz_m: np.ndarray
     outlier_error_ns: np.ndarray | None = None  # per pick: the gross error added (0 for good picks)
 
@@ -122,7 +122,8 @@ def simulate_picks(
     else:
         raise ValueError(f"rays must be 'bent' or 'straight' (got {rays!r})")
     rng = np.random.default_rng(truth.seed)
-    offsets = rng.normal(0.0, truth.clock_offset_sigma_ns, len(nodes)) if truth.clock_offset_sigma_ns > 0 else np.zeros(len(nodes))
+    offsets = (rng.normal(0.0, truth.time_zero_sigma_ns, len(nodes)) if truth.time_zero_sigma_ns > 0
+               else np.zeros(len(nodes)))
     offsets -= offsets.mean()
     noise = rng.normal(0.0, truth.noise_sigma_ns, tx.size) if truth.noise_sigma_ns > 0 else np.zeros(tx.size)
     time_ns = travel + offsets[rx] - offsets[tx] + noise
@@ -180,5 +181,5 @@ def drop_missed_picks(survey: SimulatedSurvey, margin_db, *, fade_sigma_db: floa
     keep = ~missed
     error = None if survey.outlier_error_ns is None else survey.outlier_error_ns[keep]
     return SimulatedSurvey(survey.tx[keep], survey.rx[keep], survey.time_ns[keep], survey.sigma_ns[keep],
-                           survey.true_travel_time_ns[keep], survey.clock_offset_ns, survey.node_xyz_m,
+                           survey.true_travel_time_ns[keep], survey.time_zero_ns, survey.node_xyz_m,
                            error), missed

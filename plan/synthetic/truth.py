@@ -13,7 +13,7 @@ file (``yaml.safe_load`` only; unknown keys rejected; every problem listed)::
         velocity_m_per_ns: 0.2998         # optional; overrides the fill's velocity
     noise:
       sigma_ns: 0.5                       # Gaussian pick noise, ns
-      clock_offset_sigma_ns: 1.5          # spread of node clock offsets, ns
+      time_zero_sigma_ns: 1.5             # spread of the nodes' time-zero (clock) offsets, ns
       seed: 7
       outlier_fraction: 0.02              # share of picks made gross outliers (default 0)
       outlier_size_ns: 20                 # typical size of an outlier's error, ns (default 20)
@@ -69,7 +69,7 @@ class TruthModel:
     background_velocity_m_per_ns: float | None
     bodies: tuple[Body, ...]
     noise_sigma_ns: float
-    clock_offset_sigma_ns: float
+    time_zero_sigma_ns: float
     seed: int
     refine: int
     source: str = "truth"
@@ -167,10 +167,10 @@ def parse_truth(data, source: str = "truth") -> TruthModel:
     if not isinstance(noise, dict):
         problems.append("noise must be a mapping")
         noise = {}
-    _unknown(noise, ["sigma_ns", "clock_offset_sigma_ns", "seed", "outlier_fraction", "outlier_size_ns"],
+    _unknown(noise, ["sigma_ns", "time_zero_sigma_ns", "seed", "outlier_fraction", "outlier_size_ns"],
              "noise.", problems)
     sigma = _number(noise.get("sigma_ns", 0.5), "noise.sigma_ns", problems, minimum=0.0)
-    clock = _number(noise.get("clock_offset_sigma_ns", 0.0), "noise.clock_offset_sigma_ns", problems, minimum=0.0)
+    time_zero = _number(noise.get("time_zero_sigma_ns", 0.0), "noise.time_zero_sigma_ns", problems, minimum=0.0)
     outlier_fraction = _number(noise.get("outlier_fraction", 0.0), "noise.outlier_fraction", problems,
                                minimum=0.0)
     if outlier_fraction is not None and outlier_fraction > 0.5:
@@ -185,7 +185,7 @@ def parse_truth(data, source: str = "truth") -> TruthModel:
         problems.append(f"refine must be a whole number from 1 to 8 (got {refine!r})")
     if problems:
         raise InputError(problems, source=source)
-    return TruthModel(background, tuple(bodies), sigma, clock, int(seed), int(refine), source,
+    return TruthModel(background, tuple(bodies), sigma, time_zero, int(seed), int(refine), source,
                       outlier_fraction=outlier_fraction, outlier_size_ns=outlier_size)
 
 

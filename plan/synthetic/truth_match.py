@@ -4,8 +4,9 @@ Used by the demo chain (:mod:`plan.demo`) and its tests to say, honestly,
 which of the invented bodies the inversion found. The rule:
 
 1. **Fill class.** A truth body faster than the background rock (air) should
-   appear as a fast body (:data:`reconstruct.interpret.bodies.FILL_AIR`), a slower one
-   (clay, water) as a slow body (:data:`reconstruct.interpret.bodies.FILL_WATER_OR_CLAY`).
+   appear as a body of fill ``air`` (:data:`reconstruct.interpret.bodies.FILL_AIR`), a
+   slower one (clay, water) as one of fill ``water_or_clay``
+   (:data:`reconstruct.interpret.bodies.FILL_WATER_OR_CLAY`).
    Velocities of the fills: Davis and Annan (1989).
 2. **Position.** A found body is a candidate for a truth body when it has the
    right fill class and its centroid lies within ``reach`` of the truth
@@ -16,9 +17,9 @@ which of the invented bodies the inversion found. The rule:
    source).
 3. **One to one.** Pairs are taken nearest first; a found body matches at
    most one truth body and a truth body at most one found body.
-4. **Found or not.** A matched body with status ``void`` counts as found; a
-   matched *unresolved indication* (smaller than the resolution at its depth)
-   is reported as an indication, not as found. A body of the wrong fill class
+4. **Found or not.** A matched body with status ``resolved`` (a void) counts
+   as found; a matched body with status ``unresolved`` (smaller than the
+   resolution at its depth) is reported as an indication, not as found. A body of the wrong fill class
    near a truth body is named in the note but never counts.
 
 Whether a body was *expected* to be resolved is the caller's figure: the
@@ -42,11 +43,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from reconstruct.interpret.bodies import FILL_AIR, FILL_WATER_OR_CLAY, STATUS_VOID
+from reconstruct.interpret.bodies import FILL_AIR, FILL_WATER_OR_CLAY, STATUS_RESOLVED
 
 from plan.synthetic.truth import Body
 
 __all__ = ["TruthMatch", "expected_fill", "match_truth_bodies"]
+
+_FILL_WORDS = {FILL_AIR: "air-filled", FILL_WATER_OR_CLAY: "water- or clay-filled"}
 
 
 @dataclass(frozen=True)
@@ -63,7 +66,7 @@ class TruthMatch:
     truth_volume_m3: float
     reach_m: float
     outcome: str
-    void_id: int | None = None
+    body_id: int | None = None
     offset_m: float | None = None
     found_volume_m3: float | None = None
     found_centre_m: tuple | None = None
@@ -82,7 +85,7 @@ class TruthMatch:
                 text += ", as expected (smaller than the resolution at its depth)"
         else:
             word = "found" if self.outcome == "found" else "only an unresolved indication"
-            text = (f"{self.name}: {word} (body {self.void_id}), centre {self.offset_m:.1f} m off, "
+            text = (f"{self.name}: {word} (body {self.body_id}), centre {self.offset_m:.1f} m off, "
                     f"volume {self.found_volume_m3:.0f} vs {self.truth_volume_m3:.0f} m3")
             if self.outcome == "found" and self.expected_resolved is False:
                 text += " (found although smaller than the resolution at its depth)"
@@ -92,7 +95,7 @@ class TruthMatch:
         return {
             "name": self.name, "outcome": self.outcome, "expected_fill": self.expected_fill,
             "truth_centre_m": list(self.truth_centre_m), "truth_volume_m3": self.truth_volume_m3,
-            "reach_m": self.reach_m, "void_id": self.void_id, "offset_m": self.offset_m,
+            "reach_m": self.reach_m, "body_id": self.body_id, "offset_m": self.offset_m,
             "found_volume_m3": self.found_volume_m3,
             "found_centre_m": None if self.found_centre_m is None else list(self.found_centre_m),
             "expected_resolved": self.expected_resolved, "note": self.note, "summary": self.line(),
@@ -100,7 +103,7 @@ class TruthMatch:
 
 
 def expected_fill(body: Body, background_velocity_m_per_ns: float) -> str:
-    """The fill class a truth body should show: fast (air) or slow (water, clay)."""
+    """The fill class a truth body should show: ``air`` (faster than the background) or ``water_or_clay``."""
     return FILL_AIR if body.velocity_m_per_ns > background_velocity_m_per_ns else FILL_WATER_OR_CLAY
 
 
@@ -117,7 +120,7 @@ def match_truth_bodies(truth_bodies, found_rows, *, background_velocity_m_per_ns
     truth_bodies : sequence of plan.synthetic.truth.Body
     found_rows : sequence of mapping
         Rows of the void table (:func:`reconstruct.interpret.bodies.void_table_rows`, or
-        the ``bodies`` of ``voids.json``): keys ``id``, ``status``, ``fill``,
+        the ``bodies`` of ``voids.json``): keys ``body_id``, ``status``, ``fill``,
         ``volume_m3``, ``centroid_x_m``, ``centroid_y_m``, ``centroid_z_m``.
     background_velocity_m_per_ns : float
         Background rock velocity of the truth model (decides fast or slow).
@@ -160,17 +163,17 @@ def match_truth_bodies(truth_bodies, found_rows, *, background_velocity_m_per_ns
         if i in chosen:
             j = chosen[i]
             row = rows[j]
-            outcome = "found" if row["status"] == STATUS_VOID else "indication"
-            matches.append(TruthMatch(**common, outcome=outcome, void_id=int(row["id"]),
+            outcome = "found" if row["status"] == STATUS_RESOLVED else "indication"
+            matches.append(TruthMatch(**common, outcome=outcome, body_id=int(row["body_id"]),
                                       offset_m=float(distance[i, j]), found_volume_m3=float(row["volume_m3"]),
                                       found_centre_m=tuple(float(v) for v in centres[j])))
             continue
         wrong = [j for j in range(len(rows)) if rows[j]["fill"] != fills[i] and distance[i, j] <= reach[i]]
         if wrong:
             j = min(wrong, key=lambda k: distance[i, k])
-            note = (f"body {rows[j]['id']} lies {distance[i, j]:.1f} m from its centre but is "
-                    f"{rows[j]['fill']}, the wrong fill class")
+            note = (f"body {rows[j]['body_id']} lies {distance[i, j]:.1f} m from its centre but its fill is "
+                    f"{_FILL_WORDS.get(rows[j]['fill'], rows[j]['fill'])}, the wrong fill class")
         else:
-            note = f"no {fills[i]} body within {reach[i]:.1f} m of its centre"
+            note = f"no {_FILL_WORDS.get(fills[i], fills[i])} body within {reach[i]:.1f} m of its centre"
         matches.append(TruthMatch(**common, outcome="not found", note=note))
     return matches

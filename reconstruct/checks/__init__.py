@@ -1,9 +1,9 @@
-"""Checks of the picks before an inversion: reciprocity, node clock offsets,
+"""Checks of the picks before an inversion: reciprocity, node time-zero offsets,
 outliers, air-wave arrivals and whether the picks are usable at all.
 """
 
 from reconstruct.checks.picks import (
-    QCOptions,
+    PickCheckOptions,
     PickChecks,
     check_picks,
     check_site_picks,
@@ -14,7 +14,7 @@ from reconstruct.checks.picks import (
 )
 
 __all__ = [
-    "QCOptions",
+    "PickCheckOptions",
     "PickChecks",
     "check_picks",
     "check_site_picks",

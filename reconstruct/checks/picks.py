@@ -1,12 +1,12 @@
-"""Quality control of first-arrival picks before an inversion.
+"""Pick checks: flags on every first-arrival pick before an inversion.
 
 :func:`check_picks` looks at every pick and every node before any model is
 fitted, and returns a :class:`PickChecks` with flags per pick and estimates per
 node. Nothing is changed in the pick table: :func:`picks_for_inversion` makes
 a new selection and lists every pick it leaves out with the reason.
 
-Rules (the README's "Quality control" section says the same)
------------------------------------------------------------
+Rules (the README's "Pick checks" section says the same)
+--------------------------------------------------------
 Clock model. Cheap nodes keep their own clocks; a pick from ``a`` to ``b`` reads
 ``t_ab = T_ab + R_b - X_a`` with ``X`` the node's time-zero as transmitter and
 ``R`` as receiver. Writing ``R = tau + eta`` and ``X = tau - eta``:
@@ -32,7 +32,14 @@ rows go into one weighted least-squares fit
 to its mean over the nodes, like the inversion's time-zeros, which stay
 unknowns of the inversion.
 
-Pick noise. The clock-corrected reciprocal error is
+Names in the outputs (docs/glossary.md): a node's ``time_zero_ns`` is
+``tau`` (the ``clock`` model's time-zero offset) and its ``delay_ns`` is
+``eta`` (the ``delay`` model's term, half its receiving minus its
+transmitting time-zero); a pick's ``time_zero_correction_ns`` is
+``tau_rx - tau_tx``, the part of its pick time the clock terms explain,
+and ``corrected_time_ns`` is ``time_ns`` less it.
+
+Pick noise. The time-zero corrected reciprocal error is
 ``e_ab = (t_ab - t_ba) - 2 (tau_b - tau_a)``; with independent picks of equal
 noise its standard deviation is ``sqrt(2) sigma``, so the pick noise is
 estimated as ``1.4826 * median(|e|) / sqrt(2)`` (normalised median absolute
@@ -49,7 +56,7 @@ Flags (a pick can carry several):
     are combined for the report as the reciprocal mean ``(t_ab + t_ba) / 2``,
     which is free of the clock terms.
 ``faster_than_air``
-    the clock-corrected time is shorter than the straight distance at the
+    the time-zero corrected time is shorter than the straight distance at the
     speed of light by more than 3 sigma: impossible, excluded.
 ``slower_than_band``
     apparent velocity below the band's lowest velocity (0.03 m/ns, just under
@@ -109,7 +116,7 @@ from reconstruct.inverse.time_zero import robust_time_zero
 from reconstruct.io.tables import ExcludedPick, Nodes, Picks
 
 __all__ = [
-    "QCOptions",
+    "PickCheckOptions",
     "PickChecks",
     "check_picks",
     "picks_for_inversion",
@@ -138,10 +145,10 @@ FLAGS = (FLAG_RECIPROCAL, FLAG_FASTER_THAN_AIR, FLAG_SLOWER_THAN_BAND, FLAG_AIR_
 
 #: Why a flagged pick is left out of an inversion (flags not listed are kept).
 EXCLUSION_REASONS = {
-    FLAG_FASTER_THAN_AIR: "QC: faster than air (apparent velocity above c after the clock correction)",
-    FLAG_SLOWER_THAN_BAND: "QC: slower than the velocity band (apparent velocity below the band minimum)",
-    FLAG_AIR_DIRECT: "QC: direct air wave (straight rays cannot model it)",
-    FLAG_AIR_REFRACTED: "QC: refracted air wave along the ground surface (straight rays cannot model it)",
+    FLAG_FASTER_THAN_AIR: "pick checks: faster than air (apparent velocity above c after the time-zero correction)",
+    FLAG_SLOWER_THAN_BAND: "pick checks: slower than the velocity band (apparent velocity below the band minimum)",
+    FLAG_AIR_DIRECT: "pick checks: direct air wave (straight rays cannot model it)",
+    FLAG_AIR_REFRACTED: "pick checks: refracted air wave along the ground surface (straight rays cannot model it)",
 }
 _AIR_FLAGS = (FLAG_AIR_DIRECT, FLAG_AIR_REFRACTED)
 _MIN_RECIPROCAL_PAIRS = 10
@@ -151,7 +158,7 @@ _DELAY_PRIOR_NS = 2.0
 
 
 @dataclass(frozen=True)
-class QCOptions:
+class PickCheckOptions:
     """Thresholds of the pick checks (see the module notes).
 
     Parameters
@@ -197,7 +204,7 @@ class QCOptions:
             if not 0 <= getattr(self, name) <= 1:
                 problems.append(f"{name} must be between 0 and 1 (got {getattr(self, name)})")
         if problems:
-            raise InputError(problems, source="QC options")
+            raise InputError(problems, source="pick check options")
 
 
 @dataclass(frozen=True)
@@ -210,20 +217,19 @@ class PickChecks:
     # per pick
     distance_m: np.ndarray
     sigma_ns: np.ndarray  # the sigma used: from the table, from reciprocity or the default
-    clock_correction_ns: np.ndarray  # tau_rx - tau_tx
-    corrected_time_ns: np.ndarray  # time_ns - clock_correction_ns
+    time_zero_correction_ns: np.ndarray  # time_zero_ns[rx] - time_zero_ns[tx], subtracted from the pick time
+    corrected_time_ns: np.ndarray  # time_ns - time_zero_correction_ns
     apparent_velocity_m_per_ns: np.ndarray  # distance / corrected time
     reciprocal: np.ndarray  # index of the reverse pick, -1 when none
-    reciprocal_error_ns: np.ndarray  # clock-corrected t_ab - t_ba (NaN without a partner)
+    reciprocal_error_ns: np.ndarray  # time-zero corrected t_ab - t_ba (NaN without a partner)
     reciprocal_mean_ns: np.ndarray  # (t_ab + t_ba) / 2 for agreeing pairs, else NaN
     air_time_ns: np.ndarray  # travel time of the air wave (direct or refracted), NaN where none
-    reference_ns: np.ndarray  # travel time of the reference: air wave when flagged, else d * slowness_fit
-    residual_ns: np.ndarray  # corrected time minus reference
+    reference_time_ns: np.ndarray  # travel time of the reference: air wave when flagged, else d * slowness_fit
+    residual_ns: np.ndarray  # corrected time minus reference time
     flags: tuple  # tuple of tuples of flag names
     # per node
-    clock_ns: np.ndarray
-    tx_time_zero_ns: np.ndarray
-    rx_time_zero_ns: np.ndarray
+    time_zero_ns: np.ndarray  # tau: the clock term, relative to its mean over the nodes with picks (NaN: no pick)
+    delay_ns: np.ndarray  # eta: the delay term, half the node's receiving minus transmitting time-zero
     depth_m: np.ndarray
     # overall
     sigma_source: str  # "table", "reciprocity" or "default"
@@ -232,7 +238,7 @@ class PickChecks:
     reciprocity: dict
     fitted_velocity_m_per_ns: float
     rock_velocity_m_per_ns: float
-    options: QCOptions
+    options: PickCheckOptions
 
     def has(self, flag: str) -> np.ndarray:
         """Boolean mask of the picks carrying ``flag``."""
@@ -359,8 +365,8 @@ def _fit_clocks(tx, rx, time_ns, travel_ns, sigma, partner, n_nodes, velocity_fr
 
 
 def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velocity_m_per_ns: float, *,
-                cell_m=(1.0, 1.0, 1.0), options: QCOptions = QCOptions()) -> PickChecks:
-    """Check every pick against reciprocity, node clocks, the velocity band and air waves.
+                cell_m=(1.0, 1.0, 1.0), options: PickCheckOptions = PickCheckOptions()) -> PickChecks:
+    """Check every pick against reciprocity, node time-zero offsets, the velocity band and air waves.
 
     Long because the checks run in a fixed order, each on the flags of the ones
     before; kept whole while the pick-check vocabulary is being renamed.
@@ -378,7 +384,7 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
         The site's rock velocity, m/ns.
     cell_m : tuple of 3 float
         Model cell size; a node within one cell (or 0.5 m) of the surface counts as at the surface.
-    options : QCOptions
+    options : PickCheckOptions
 
     Returns
     -------
@@ -480,20 +486,20 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
         "mismatched_pairs": int(mismatch.sum()),
         "mismatch_threshold_sigmas": options.reciprocal_sigmas,
         "raw_difference_ns": _stats(t[first] - t[second]),
-        "clock_corrected_error_ns": _stats(rec_error_pairs),
+        "time_zero_corrected_error_ns": _stats(rec_error_pairs),
         "pick_noise_sigma_ns": noise,
-        "rule": ("pairs whose clock-corrected difference exceeds the threshold are flagged "
+        "rule": ("pairs whose time-zero corrected difference exceeds the threshold are flagged "
                  "reciprocal_mismatch (both picks, both kept for the robust inversion); pairs that agree "
                  "are combined as the reciprocal mean (t_ab + t_ba) / 2, free of clock terms"),
     }
     eta_used = np.where(used, eta, np.nan)
     tau_used = np.where(used, tau, np.nan)
     return PickChecks(
-        distance_m=distance, sigma_ns=sigma, clock_correction_ns=correction, corrected_time_ns=corrected,
+        distance_m=distance, sigma_ns=sigma, time_zero_correction_ns=correction, corrected_time_ns=corrected,
         apparent_velocity_m_per_ns=apparent, reciprocal=partner, reciprocal_error_ns=rec_error,
-        reciprocal_mean_ns=rec_mean, air_time_ns=np.where(air_first, air, np.nan), reference_ns=reference,
+        reciprocal_mean_ns=rec_mean, air_time_ns=np.where(air_first, air, np.nan), reference_time_ns=reference,
         residual_ns=residual, flags=tuple(tuple(f) for f in flags),
-        clock_ns=tau_used, tx_time_zero_ns=tau_used - eta_used, rx_time_zero_ns=tau_used + eta_used,
+        time_zero_ns=tau_used, delay_ns=eta_used,
         depth_m=depth, sigma_source=source, noise_sigma_ns=noise, n_reciprocal_pairs=int(first.size),
         reciprocity=reciprocity, fitted_velocity_m_per_ns=1.0 / slowness_fit,
         rock_velocity_m_per_ns=v_rock, options=options,
@@ -551,7 +557,7 @@ def picks_for_inversion(picks: Picks, nodes: Nodes, checks: PickChecks, *, rays:
     return dataclasses.replace(chosen, excluded=tuple(picks.excluded) + tuple(extra))
 
 
-def check_site_picks(site, nodes: Nodes, picks: Picks, *, snap_tolerance_m=None, options: QCOptions = QCOptions()):
+def check_site_picks(site, nodes: Nodes, picks: Picks, *, snap_tolerance_m=None, options: PickCheckOptions = PickCheckOptions()):
     """Place the nodes in the site's model and check the picks.
 
     Returns ``(placement, checks)``; see :func:`check_picks`.
@@ -590,7 +596,7 @@ def usability_problems(picks: Picks, checks: PickChecks) -> list[str]:
         lines = ", ".join(str(int(picks.lines[k])) for k in np.flatnonzero(bad)[:5])
         problems.append(
             f"{picks.source}: {int(bad.sum())} of {m} picks ({bad.mean():.1%}) have apparent velocities outside "
-            f"{o.velocity_min_m_per_ns:g}-{o.velocity_max_m_per_ns:g} m/ns after the clock correction "
+            f"{o.velocity_min_m_per_ns:g}-{o.velocity_max_m_per_ns:g} m/ns after the time-zero correction "
             f"(lines {lines}{', ...' if bad.sum() > 5 else ''}); check the time unit (ns), the time-zero and "
             "the node coordinates")
     pairs = checks.n_reciprocal_pairs
@@ -598,7 +604,7 @@ def usability_problems(picks: Picks, checks: PickChecks) -> list[str]:
     if pairs and mism > o.max_mismatch_fraction * pairs:
         problems.append(
             f"{picks.source}: {mism} of {pairs} reciprocal pairs ({mism / pairs:.1%}) disagree by more than "
-            f"{o.reciprocal_sigmas:g} sigma after the clock correction; check the picking and the node ids")
+            f"{o.reciprocal_sigmas:g} sigma after the time-zero correction; check the picking and the node ids")
     if checks.sigma_source == "table" and checks.noise_sigma_ns is not None:
         typical = float(np.median(picks.sigma_ns))
         if checks.noise_sigma_ns > o.max_noise_ratio * typical:

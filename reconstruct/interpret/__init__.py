@@ -10,7 +10,7 @@ from reconstruct.interpret.bodies import (
     find_voids,
     void_table_rows,
 )
-from reconstruct.interpret.screening import HazardOptions, HazardEntry, screen_voids
+from reconstruct.interpret.screening import ScreeningOptions, ScreeningEntry, screen_voids
 from reconstruct.interpret.folder import InversionFolder, load_inversion_folder, screen_folder
 
 __all__ = [
@@ -19,8 +19,8 @@ __all__ = [
     "VoidAnalysis",
     "find_voids",
     "void_table_rows",
-    "HazardOptions",
-    "HazardEntry",
+    "ScreeningOptions",
+    "ScreeningEntry",
     "screen_voids",
     "InversionFolder",
     "load_inversion_folder",

@@ -10,8 +10,8 @@ Method
    less than half of a slab does not shift it. A slab without rays takes the
    median of its ground cells, and an empty one the median of the whole cube.
 2. **Anomaly** ``a = s - s_background`` in ns/m: negative is faster than the
-   background (air-filled void candidates), positive slower (water- or
-   clay-filled candidates).
+   background (candidates of fill ``air``), positive slower (fill
+   ``water_or_clay``).
 3. **Threshold**, per depth slab, from the data rather than a fixed number:
    ``k * max(sigma_model, rms_ns / w)``. ``sigma_model`` is the robust spread
    of the anomaly over the cells crossed by rays (1.4826 times the median
@@ -33,7 +33,8 @@ Method
 6. **Resolved or not.** A body whose largest extent (the larger of its
    largest horizontal span and its height) is below the resolution at its
    depth is smaller than the resolution in every direction: it is an
-   *unresolved indication*, not a void.
+   *unresolved* (an indication only), not a void: status ``unresolved``;
+   the others are ``resolved``.
 
 Every number behind the threshold is returned (and written to ``voids.json``)
 so that a reader can redo the decision.
@@ -67,7 +68,7 @@ from reconstruct.io.site import PlannedWork, points_in_polygon
 __all__ = [
     "FILL_AIR",
     "FILL_WATER_OR_CLAY",
-    "STATUS_VOID",
+    "STATUS_RESOLVED",
     "STATUS_UNRESOLVED",
     "VoidOptions",
     "VoidBody",
@@ -82,10 +83,12 @@ __all__ = [
     "void_table_rows",
 ]
 
-FILL_AIR = "air-filled (fast)"
-FILL_WATER_OR_CLAY = "water- or clay-filled (slow)"
-STATUS_VOID = "void"
-STATUS_UNRESOLVED = "unresolved indication"
+#: Fill classes (column ``fill``): faster than the background rock, or slower.
+FILL_AIR = "air"
+FILL_WATER_OR_CLAY = "water_or_clay"
+#: Statuses (column ``status``): larger than the resolution (a void), or an indication only.
+STATUS_RESOLVED = "resolved"
+STATUS_UNRESOLVED = "unresolved"
 
 #: 1.4826 * MAD estimates the standard deviation of Gaussian noise
 #: (1 / Phi^-1(3/4); Rousseeuw and Croux 1993, Alternatives to the median
@@ -228,9 +231,19 @@ def detection_sigmas(resels, false_alarm: float) -> float:
 
 @dataclass(frozen=True)
 class VoidBody:
-    """One body found in the cube; lengths in m, velocities in m/ns."""
+    """One body found in the cube; lengths in m, velocities in m/ns.
 
-    id: int
+    ``roof_thickness_m`` is the rock between the top of the body and the
+    ground surface; ``roof_below_work_m`` the rock between it and the planned
+    work above it (``roof_below_work_name``), infinite when no work lies over
+    it in plan. ``span_m`` is the largest horizontal width; ``width_m`` and
+    ``length_m`` the plan extents across and along its principal axes.
+    ``standoff_m`` is the shortest distance, in 3D, between the body's cells
+    and the nearest planned work (``nearest_work``), infinite when the site
+    has none.
+    """
+
+    body_id: int
     status: str
     fill: str
     n_cells: int
@@ -240,12 +253,12 @@ class VoidBody:
     bbox_max_m: tuple
     roof_elevation_m: float
     roof_depth_m: float
-    roof_to_ground_m: float
+    roof_thickness_m: float
     nearest_work: str | None
-    standoff_to_work_m: float
+    standoff_m: float
     roof_below_work_m: float
     roof_below_work_name: str | None
-    largest_span_m: float
+    span_m: float
     width_m: float
     length_m: float
     equivalent_diameter_m: float
@@ -266,7 +279,7 @@ class VoidAnalysis:
     """Result of :func:`find_voids`."""
 
     grid: Grid
-    labels: np.ndarray  # (nx, ny, nz) int32: body id, 0 for none
+    labels: np.ndarray  # (nx, ny, nz) int32: body_id, 0 for none
     background_slowness_ns_per_m: np.ndarray  # (nx, ny, nz)
     anomaly_ns_per_m: np.ndarray  # (nx, ny, nz), NaN outside ground
     bodies: tuple
@@ -486,7 +499,7 @@ def find_voids(
     Returns
     -------
     VoidAnalysis
-        Bodies sorted by kind (voids first), then by volume.
+        Bodies sorted by status (resolved first), then by volume (largest first).
 
     Notes
     -----
@@ -557,7 +570,7 @@ def find_voids(
         peak_at = int(np.argmax(magnitude))
         body_slab = int(slab[tuple(a[peak_at] for a in ijk)])
         tops = _column_tops_m(grid, ijk)
-        roof_to_ground = min(surface_m[c] - top for c, top in tops.items())
+        roof_thickness = min(surface_m[c] - top for c, top in tops.items())
         roof = max(tops.values())
         roof_column = max(tops, key=lambda c: tops[c])
         span, width, length = _plan_extent(grid, list(tops))
@@ -565,7 +578,7 @@ def find_voids(
         diameter = (6.0 * volume / math.pi) ** (1.0 / 3.0)
         height = (ijk[2].max() - ijk[2].min() + 1) * grid.cell_m[2]
         extent = max(span, height)
-        status = STATUS_VOID if extent >= resolution[body_slab] else STATUS_UNRESOLVED
+        status = STATUS_RESOLVED if extent >= resolution[body_slab] else STATUS_UNRESOLVED
         nearest, standoff, below_name, below = _work_relations(grid, ijk, tops, works_points)
         covered_fraction = float(covered[ijk].mean())
         contrast = float(magnitude[peak_at] / threshold[tuple(a[peak_at] for a in ijk)])
@@ -577,10 +590,10 @@ def find_voids(
             bbox_max_m=tuple(float(v) for v in centres.max(axis=0) + cell / 2),
             roof_elevation_m=float(roof),
             roof_depth_m=float(max(surface_m[roof_column] - roof, 0.0)),
-            roof_to_ground_m=float(max(roof_to_ground, 0.0)),
-            nearest_work=nearest, standoff_to_work_m=float(standoff),
+            roof_thickness_m=float(max(roof_thickness, 0.0)),
+            nearest_work=nearest, standoff_m=float(standoff),
             roof_below_work_m=float(below), roof_below_work_name=below_name,
-            largest_span_m=span, width_m=width, length_m=length,
+            span_m=span, width_m=width, length_m=length,
             equivalent_diameter_m=float(diameter), resolution_m=float(resolution[body_slab]),
             mean_velocity_m_per_ns=float(values.mean()),
             extreme_velocity_m_per_ns=float(values.max() if fill == FILL_AIR else values.min()),
@@ -590,11 +603,11 @@ def find_voids(
             ray_covered_fraction=covered_fraction, mean_ray_count=float(rays[ijk].mean()),
             confidence=grade, confidence_reason=reason, _ijk=ijk,
         ))
-    drafts.sort(key=lambda d: (d["status"] != STATUS_VOID, -d["volume_m3"]))
+    drafts.sort(key=lambda d: (d["status"] != STATUS_RESOLVED, -d["volume_m3"]))
     bodies = []
     for body_id, d in enumerate(drafts, start=1):
         labels[d.pop("_ijk")] = body_id
-        bodies.append(VoidBody(id=body_id, **d))
+        bodies.append(VoidBody(body_id=body_id, **d))
 
     slabs = [
         {"depth_from_m": k * grid.cell_m[2], "depth_to_m": (k + 1) * grid.cell_m[2],
@@ -605,19 +618,22 @@ def find_voids(
         for k in range(len(slab_bg))
     ]
     parameters = {
-        "sigmas": sigmas, "sigmas_rule": ("given" if options.sigmas is not None else
-                                          "expected Euler characteristic of a smooth Gaussian field "
-                                          "(Worsley et al. 1996): 2 E[chi](u) = false_alarm"),
+        "threshold_sigmas": sigmas,
+        "threshold_sigmas_rule": ("given" if options.sigmas is not None else
+                                  "expected Euler characteristic of a smooth Gaussian field "
+                                  "(Worsley et al. 1996): 2 E[chi](u) = false_alarm"),
         "false_alarm": options.false_alarm, "smoothness_fwhm_m": (fwhm * np.asarray(grid.cell_m)).tolist(),
         "resels": list(resels),
         "min_cells_for_resolution": options.min_cells_for_resolution,
         "sigma_model_ns_per_m": sigma_model, "rms_ns": float(rms_ns),
         "path_length_m": float(path_length_m), "frequency_mhz": float(frequency_mhz),
         "connectivity": "faces, edges and corners (26 neighbours)",
-        "threshold_rule": "sigmas * max(sigma_model, rms_ns / resolution) per depth slab",
-        "extent_rule": "each component cut at half its peak anomaly",
-        "resolution_rule": "max(first Fresnel zone width, min_cells_for_resolution cells); a body whose "
-                           "largest extent (horizontal span or height) is below it is unresolved",
+        "threshold_rule": ("per depth slab, the threshold in robust standard deviations times the larger "
+                           "of the anomaly's robust spread and the RMS misfit over the resolution"),
+        "extent_rule": "each group of cells beyond the threshold cut at half its peak anomaly",
+        "resolution_rule": (f"the wider of the first Fresnel zone and {options.min_cells_for_resolution:g} cells; "
+                            "a body whose largest extent (horizontal span or height) is below it is "
+                            "unresolved"),
         "covered_ground_cells": int(covered.sum()), "ground_cells": int(ground.sum()),
     }
     notes = []
@@ -630,10 +646,10 @@ def find_voids(
 
 #: Columns of ``voids.csv`` (the same keys in ``voids.json``).
 VOID_TABLE_COLUMNS = (
-    "id", "status", "fill", "volume_m3", "centroid_x_m", "centroid_y_m", "centroid_z_m",
+    "body_id", "status", "fill", "volume_m3", "centroid_x_m", "centroid_y_m", "centroid_z_m",
     "bbox_min_x_m", "bbox_min_y_m", "bbox_min_z_m", "bbox_max_x_m", "bbox_max_y_m", "bbox_max_z_m",
-    "roof_elevation_m", "roof_depth_m", "roof_to_ground_m", "nearest_work", "standoff_to_work_m",
-    "roof_below_work_m", "roof_below_work_name", "largest_span_m", "width_m", "length_m",
+    "roof_elevation_m", "roof_depth_m", "roof_thickness_m", "nearest_work", "standoff_m",
+    "roof_below_work_m", "roof_below_work_name", "span_m", "width_m", "length_m",
     "equivalent_diameter_m", "resolution_m", "mean_velocity_m_per_ns", "extreme_velocity_m_per_ns",
     "background_velocity_m_per_ns", "peak_anomaly_ns_per_m", "threshold_ns_per_m",
     "ray_covered_fraction", "mean_ray_count", "confidence", "confidence_reason",
@@ -648,7 +664,7 @@ def void_table_rows(bodies) -> list[dict]:
     """
     rows = []
     for b in bodies:
-        row = {"id": b.id, "status": b.status, "fill": b.fill, "volume_m3": b.volume_m3}
+        row = {"body_id": b.body_id, "status": b.status, "fill": b.fill, "volume_m3": b.volume_m3}
         for prefix, values in (("centroid", b.centroid_m), ("bbox_min", b.bbox_min_m),
                                ("bbox_max", b.bbox_max_m)):
             for axis, value in zip("xyz", values):

@@ -7,15 +7,16 @@ folder:
 
 ============================  ==================================================
 ``voids.csv``, ``voids.json``  the void table (``voids.json`` also holds the
-                               threshold and resolution per depth, the hazard
-                               ranking, the cautions and the rendering note)
-``hazard.csv``                 the ranked screening list with reasons
+                               threshold and resolution per depth, the
+                               screening, the cautions and the rendering note)
+``screening.csv``              the ranked screening list with reasons
 ``interpretation.vti``         the cube with petrophysics, background, anomaly
                                and body ids
 ``voids.vtp``, ``ground.vtp``  isosurfaces of the bodies (cell array
                                ``body_id``) and the ground surface
 ``pictures/*.png``             oblique 3D view (when off-screen rendering
                                works) and plan and section slices per void
+                               (``body_N_slices.png``)
 ============================  ==================================================
 
 and appends the run to ``manifest.json``. Inputs are never modified; pictures
@@ -51,7 +52,7 @@ import numpy as np
 
 from reconstruct.errors import InputError
 from reconstruct.model.grid import Grid
-from reconstruct.interpret.screening import HazardOptions, screen_voids
+from reconstruct.interpret.screening import ScreeningOptions, screen_voids
 from reconstruct.io.outputs import (
     read_cell_arrays_vti,
     sha256_of_file,
@@ -252,13 +253,13 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
         rms_ns=float(rms), nodes_xyz_m=_read_nodes_used(folder / "nodes_used.csv"), notes=tuple(notes))
 
 
-def screen_folder(data: InversionFolder, void_options=VoidOptions(), hazard_options=HazardOptions()):
-    """Find the bodies and rank them (no files written). Returns (analysis, hazard entries)."""
+def screen_folder(data: InversionFolder, void_options=VoidOptions(), screening_options=ScreeningOptions()):
+    """Find the bodies and rank them (no files written). Returns (analysis, screening entries)."""
     analysis = find_voids(
         data.grid, data.velocity_m_per_ns, data.ground, data.ray_count, data.surface_m,
         frequency_mhz=data.site.rock.antenna_frequency_mhz, path_length_m=data.path_length_m,
         rms_ns=data.rms_ns, planned_works=data.site.planned_works, options=void_options)
-    return analysis, screen_voids(analysis.bodies, hazard_options)
+    return analysis, screen_voids(analysis.bodies, screening_options)
 
 
 

@@ -1,4 +1,4 @@
-"""Hazard screening of void bodies: scaled span of the roof, stand-off from planned works.
+"""Screening of the bodies: roof thickness, span and stand-off against planned works.
 
 A SCREENING AID, NOT A DESIGN. It ranks the bodies found in the cube so that a
 person knows which to look at first; the decision belongs to the site's
@@ -21,6 +21,16 @@ is used only when the user gives ``Q``. Voids seen by radar are not the
 steep-walled stopes the method was built on, so the dip defaults to 0
 degrees, which gives the largest ``C_s`` (the cautious choice).
 
+Names (docs/glossary.md)
+------------------------
+``roof_thickness_m`` is the rock between the top of the body and the ground
+surface, ``roof_below_work_m`` the rock between it and a planned work above
+it; the thinner of the two, ``thinnest_roof_m``, is the ``T`` of the scaled
+span. ``span_m`` is the body's largest horizontal width; the scaled span
+takes ``width_m`` (across its principal plan axis) as ``S`` and
+``length_m`` (along it) as ``L``. ``standoff_m`` is its distance to the
+nearest planned work.
+
 References
 ----------
 Carter, T. G. (1992). A new approach to surface crown pillar design.
@@ -36,16 +46,16 @@ import math
 from dataclasses import dataclass
 
 from reconstruct.errors import InputError
-from reconstruct.interpret.bodies import FILL_AIR, STATUS_VOID
+from reconstruct.interpret.bodies import FILL_AIR, STATUS_RESOLVED
 
 __all__ = [
     "SCREENING_NOTE",
-    "HazardOptions",
-    "HazardEntry",
+    "ScreeningOptions",
+    "ScreeningEntry",
     "scaled_span_m",
     "critical_span_m",
     "screen_voids",
-    "HAZARD_COLUMNS",
+    "SCREENING_COLUMNS",
 ]
 
 SCREENING_NOTE = (
@@ -54,18 +64,18 @@ SCREENING_NOTE = (
     "assess every void near people, plant or planned works."
 )
 
-#: Thickness-to-span ratio under which a roof is called thin. Rule of thumb:
+#: Roof-thickness-to-width ratio under which a roof is called thin. Rule of thumb:
 #: a roof thinner than the opening it spans needs a look (common practice, no
 #: published source).
 THIN_ROOF_RATIO = 1.0
 
-#: A body nearer to a planned work than its own largest span is called close
+#: A body nearer to a planned work than its own span (largest horizontal width) is called close
 #: (common practice, no published source).
 CLOSE_STANDOFF_SPANS = 1.0
 
 
 @dataclass(frozen=True)
-class HazardOptions:
+class ScreeningOptions:
     """Settings of the screening.
 
     Parameters
@@ -136,20 +146,24 @@ def critical_span_m(rock_mass_q: float) -> float:
 
 
 @dataclass(frozen=True)
-class HazardEntry:
-    """One ranked line of the screening."""
+class ScreeningEntry:
+    """One ranked line of the screening; lengths in m, None where there is no planned work."""
 
     rank: int
-    id: int
+    body_id: int
     status: str
     fill: str
     confidence: str
-    thickness_m: float
+    roof_thickness_m: float
+    roof_below_work_m: float | None
+    thinnest_roof_m: float
     span_m: float
+    width_m: float
+    length_m: float
+    thinnest_roof_to_width: float
     scaled_span_m: float
     critical_span_m: float | None
-    thickness_to_span: float
-    standoff_to_work_m: float | None
+    standoff_m: float | None
     nearest_work: str | None
     concerns: int
     reasons: str
@@ -159,39 +173,42 @@ def _finite(value):
     return value is not None and math.isfinite(value)
 
 
-def screen_voids(bodies, options: HazardOptions = HazardOptions()) -> list[HazardEntry]:
+def screen_voids(bodies, options: ScreeningOptions = ScreeningOptions()) -> list[ScreeningEntry]:
     """Rank bodies by concern, with plain-language reasons.
 
-    Order: voids before unresolved indications; then the number of concerns
-    (roof thinner than its span, scaled span above the critical span when Q
-    is given, close to or under a planned work, void reaching the surface or
-    the work); then the scaled span (largest first).
+    Order: resolved bodies (voids) before unresolved ones (indications);
+    then the number of concerns (roof thinner than the body is wide, scaled
+    span above the critical span when Q is given, close to or under a planned
+    work, body reaching the surface or the work); then the scaled span
+    (largest first).
 
-    The thickness is the thinner of the rock to the ground surface and the
-    rock between a planned work over the body and its roof.
+    The roof that counts, ``thinnest_roof_m``, is the thinner of the roof
+    thickness (rock to the ground surface) and the rock between a planned
+    work over the body and its roof.
     """
     drafts = []
     for b in bodies:
-        thickness = b.roof_to_ground_m
+        thickness = b.roof_thickness_m
         under_work = _finite(b.roof_below_work_m)
         if under_work:
             thickness = min(thickness, b.roof_below_work_m)
         cs = scaled_span_m(b.width_m, thickness, max(b.length_m, b.width_m),
                            options.specific_gravity, options.dip_deg)
         sc = critical_span_m(options.rock_mass_q) if options.rock_mass_q is not None else None
-        span = b.width_m
-        ratio = thickness / span if span > 0 else math.inf
+        width = b.width_m
+        ratio = thickness / width if width > 0 else math.inf
         reasons, concerns = [], 0
-        kind = "air-filled" if b.fill == FILL_AIR else "water- or clay-filled"
-        where = (f"{kind} body of about {b.volume_m3:.0f} m^3 whose roof lies {b.roof_to_ground_m:.1f} m "
-                 f"below the ground surface, spanning {span:.1f} m across and {b.length_m:.1f} m along")
+        kind = ("air-filled (faster than the rock)" if b.fill == FILL_AIR
+                else "water- or clay-filled (slower than the rock)")
+        where = (f"{kind} body of about {b.volume_m3:.0f} m³ whose roof lies {b.roof_thickness_m:.1f} m "
+                 f"below the ground surface, {width:.1f} m wide and {b.length_m:.1f} m long")
         reasons.append(where)
         if thickness <= 0:
             concerns += 2
             reasons.append("it reaches the ground surface or a planned work")
         elif ratio < THIN_ROOF_RATIO:
             concerns += 1
-            reasons.append(f"its roof ({thickness:.1f} m) is thinner than its span")
+            reasons.append(f"its roof ({thickness:.1f} m) is thinner than the body is wide")
         if sc is not None and cs > sc:
             concerns += 1
             reasons.append(f"scaled span {cs:.1f} m exceeds the critical span {sc:.1f} m for Q = "
@@ -200,24 +217,27 @@ def screen_voids(bodies, options: HazardOptions = HazardOptions()) -> list[Hazar
             concerns += 1
             reasons.append(f"it lies under '{b.roof_below_work_name}', {max(b.roof_below_work_m, 0):.1f} m "
                            "below the planned work")
-        elif _finite(b.standoff_to_work_m) and b.standoff_to_work_m < CLOSE_STANDOFF_SPANS * b.largest_span_m:
+        elif _finite(b.standoff_m) and b.standoff_m < CLOSE_STANDOFF_SPANS * b.span_m:
             concerns += 1
-            reasons.append(f"it is {b.standoff_to_work_m:.1f} m from '{b.nearest_work}', closer than "
+            reasons.append(f"it is {b.standoff_m:.1f} m from '{b.nearest_work}', closer than "
                            "its own span")
-        if b.status != STATUS_VOID:
+        if b.status != STATUS_RESOLVED:
             reasons.append("below the resolution at its depth: confirm or rule out by drilling if "
                            "near works")
         reasons.append(f"confidence {b.confidence}")
         drafts.append(dict(
-            id=b.id, status=b.status, fill=b.fill, confidence=b.confidence, thickness_m=thickness,
-            span_m=span, scaled_span_m=cs, critical_span_m=sc, thickness_to_span=ratio,
-            standoff_to_work_m=b.standoff_to_work_m if _finite(b.standoff_to_work_m) else None,
+            body_id=b.body_id, status=b.status, fill=b.fill, confidence=b.confidence,
+            roof_thickness_m=b.roof_thickness_m,
+            roof_below_work_m=b.roof_below_work_m if under_work else None, thinnest_roof_m=thickness,
+            span_m=b.span_m, width_m=width, length_m=b.length_m, thinnest_roof_to_width=ratio,
+            scaled_span_m=cs, critical_span_m=sc,
+            standoff_m=b.standoff_m if _finite(b.standoff_m) else None,
             nearest_work=b.nearest_work, concerns=concerns, reasons="; ".join(reasons)))
-    drafts.sort(key=lambda d: (d["status"] != STATUS_VOID, -d["concerns"], -d["scaled_span_m"], d["id"]))
-    return [HazardEntry(rank=i, **d) for i, d in enumerate(drafts, start=1)]
+    drafts.sort(key=lambda d: (d["status"] != STATUS_RESOLVED, -d["concerns"], -d["scaled_span_m"], d["body_id"]))
+    return [ScreeningEntry(rank=i, **d) for i, d in enumerate(drafts, start=1)]
 
 
-#: Columns of ``hazard.csv``.
-HAZARD_COLUMNS = ("rank", "id", "status", "fill", "confidence", "thickness_m", "span_m",
-                  "scaled_span_m", "critical_span_m", "thickness_to_span", "standoff_to_work_m",
-                  "nearest_work", "concerns", "reasons")
+#: Columns of ``screening.csv`` (the same keys in ``voids.json``, ``screening.ranked``).
+SCREENING_COLUMNS = ("rank", "body_id", "status", "fill", "confidence", "roof_thickness_m", "roof_below_work_m",
+                     "thinnest_roof_m", "span_m", "width_m", "length_m", "thinnest_roof_to_width",
+                     "scaled_span_m", "critical_span_m", "standoff_m", "nearest_work", "concerns", "reasons")

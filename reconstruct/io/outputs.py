@@ -242,7 +242,8 @@ def _string_array(name, values):
     return array
 
 
-def write_rays_vtp(path, polylines, *, tx_ids, rx_ids, observed_ns=None, predicted_ns=None, lines=None) -> Path:
+def write_rays_vtp(path, polylines, *, tx_ids, rx_ids, time_ns=None, predicted_time_ns=None,
+                   input_lines=None) -> Path:
     """Write ray paths as VTK XML poly data (``.vtp``), one polyline per ray, atomically.
 
     Parameters
@@ -253,11 +254,11 @@ def write_rays_vtp(path, polylines, *, tx_ids, rx_ids, observed_ns=None, predict
     tx_ids, rx_ids : sequence of str, length n_rays
         Transmitter and receiver node ids, written as the string cell arrays
         ``tx`` and ``rx`` (UTF-8).
-    observed_ns, predicted_ns : sequence of float, length n_rays, optional
-        Picked and modelled travel times in ns (NaN allowed), written as cell
-        arrays of the same names.
-    lines : sequence of int, length n_rays, optional
-        Line of each pick in the pick table, written as cell array ``line``.
+    time_ns, predicted_time_ns : sequence of float, length n_rays, optional
+        Pick times and the times the model predicts, ns (NaN allowed),
+        written as cell arrays of the same names.
+    input_lines : sequence of int, length n_rays, optional
+        Line of each pick in the pick table, written as cell array ``input_line``.
 
     Notes
     -----
@@ -280,15 +281,15 @@ def write_rays_vtp(path, polylines, *, tx_ids, rx_ids, observed_ns=None, predict
             raise ValueError(f"{name} has {len(values)} entries, expected one per polyline ({n_rays})")
     numbers = {}
     for name, values, dtype in (
-        ("observed_ns", observed_ns, np.float64),
-        ("predicted_ns", predicted_ns, np.float64),
-        ("line", lines, np.int64),
+        ("time_ns", time_ns, np.float64),
+        ("predicted_time_ns", predicted_time_ns, np.float64),
+        ("input_line", input_lines, np.int64),
     ):
         if values is None:
             continue
         values = np.asarray(values, dtype=dtype)
         if values.shape != (n_rays,):
-            argument = "lines" if name == "line" else name
+            argument = "input_lines" if name == "input_line" else name
             raise ValueError(f"{argument} has shape {values.shape}, expected ({n_rays},)")
         numbers[name] = values
 

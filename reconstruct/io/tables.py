@@ -242,7 +242,8 @@ class Nodes:
 class ExcludedPick:
     """A pick row that was read but left out, with the reason.
 
-    ``time_text`` is the time cell exactly as written (trimmed).
+    ``line`` is the row's input line in the pick table (written as column
+    ``input_line``); ``time_text`` is the time cell exactly as written (trimmed).
     """
 
     line: int
@@ -742,15 +743,16 @@ def read_picks(path, nodes: Nodes) -> Picks:
 
 def _write_excluded_rows(excluded, f) -> None:
     writer = csv.writer(f, lineterminator="\n")
-    writer.writerow(["line", "tx", "rx", "time_ns", "reason"])
+    writer.writerow(["input_line", "tx", "rx", "time_ns", "reason"])
     for e in excluded:
         writer.writerow([e.line, e.tx, e.rx, e.time_text, e.reason])
 
 
 def write_excluded_csv(excluded, path_or_buffer) -> None:
-    """Write excluded pick rows as CSV with columns ``line,tx,rx,time_ns,reason``.
+    """Write excluded pick rows as CSV with columns ``input_line,tx,rx,time_ns,reason``.
 
-    ``time_ns`` holds the time cell as it was written in the pick table.
+    ``input_line`` is the row's line in the pick table; ``time_ns`` holds the
+    time cell as it was written there.
 
     Parameters
     ----------

@@ -5,14 +5,14 @@ The only layer of ``reconstruct`` that draws (matplotlib, pyvista).
 """
 
 from reconstruct.report.html import CAUTIONS, html_document
-from reconstruct.report.pick_checks import write_qc
+from reconstruct.report.pick_checks import write_pick_checks
 from reconstruct.report.void_report import build_report_html, write_report
 from reconstruct.report.folders import write_tomography, write_void_outputs
 
 __all__ = [
     "CAUTIONS",
     "html_document",
-    "write_qc",
+    "write_pick_checks",
     "build_report_html",
     "write_report",
     "write_tomography",

@@ -12,9 +12,9 @@ from pathlib import Path
 
 import numpy as np
 
-from reconstruct.interpret.bodies import STATUS_VOID, VOID_TABLE_COLUMNS, void_table_rows
+from reconstruct.interpret.bodies import STATUS_RESOLVED, VOID_TABLE_COLUMNS, void_table_rows
 from reconstruct.interpret.folder import InversionFolder
-from reconstruct.interpret.screening import HAZARD_COLUMNS, SCREENING_NOTE
+from reconstruct.interpret.screening import SCREENING_COLUMNS, SCREENING_NOTE
 from reconstruct.inverse.straight import TomographyRun, run_summary
 from reconstruct.io.outputs import (
     build_manifest,
@@ -63,7 +63,7 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
     robust = r.robust_weight is not None
     written.append(write_csv_atomic(
         out / "residuals.csv",
-        ["line", "tx", "rx", "distance_m", "observed_ns", "predicted_ns", "residual_ns", "sigma_ns"]
+        ["input_line", "tx", "rx", "distance_m", "time_ns", "predicted_time_ns", "residual_ns", "sigma_ns"]
         + (["robust_weight"] if robust else []),
         (
             [int(picks.lines[k]), ids[picks.tx[k]], ids[picks.rx[k]], f"{dist[i]:.3f}",
@@ -76,7 +76,7 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
     if robust:
         written.append(write_csv_atomic(
             out / "rejected_picks.csv",
-            ["line", "tx", "rx", "observed_ns", "residual_ns", "sigma_ns", "robust_weight", "reason"],
+            ["input_line", "tx", "rx", "time_ns", "residual_ns", "sigma_ns", "robust_weight", "reason"],
             ([int(picks.lines[k]), ids[picks.tx[k]], ids[picks.rx[k]], f"{picks.time_ns[k]:.4f}",
               f"{r.residual_ns[i]:.4f}", "" if not np.isfinite(sigma[i]) else f"{sigma[i]:.4f}",
               f"{r.robust_weight[i]:.4f}",
@@ -94,12 +94,12 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
     shift = run.placement.shift_m
     written.append(write_csv_atomic(
         out / "nodes_used.csv",
-        ["node_id", "x_m", "y_m", "z_m", "shift_x_m", "shift_y_m", "shift_z_m", "kind", "line"],
+        ["node_id", "x_m", "y_m", "z_m", "shift_x_m", "shift_y_m", "shift_z_m", "kind", "input_line"],
         ([ids[k], *(f"{v:.4f}" for v in xyz[k]), *(f"{v:.4f}" for v in shift[k]),
           run.nodes.kinds[k] or "", int(run.nodes.lines[k])] for k in range(len(ids))),
     ))
     written.append(write_csv_atomic(
-        out / "excluded_picks.csv", ["line", "tx", "rx", "time_ns", "reason"],
+        out / "excluded_picks.csv", ["input_line", "tx", "rx", "time_ns", "reason"],
         ([e.line, e.tx, e.rx, e.time_text, e.reason] for e in run.excluded),
     ))
     if run.polylines is not None:
@@ -107,8 +107,8 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
 
         written.append(write_rays_vtp(
             out / "rays.vtp", run.polylines, tx_ids=[ids[picks.tx[k]] for k in u],
-            rx_ids=[ids[picks.rx[k]] for k in u], observed_ns=picks.time_ns[u], predicted_ns=r.predicted_ns,
-            lines=picks.lines[u]))
+            rx_ids=[ids[picks.rx[k]] for k in u], time_ns=picks.time_ns[u], predicted_time_ns=r.predicted_ns,
+            input_lines=picks.lines[u]))
     summary = run_summary(run)
     if robust:
         summary["robust"] = {
@@ -140,11 +140,11 @@ def _remove_stale_pictures(folder: Path, keep) -> None:
     if not folder.is_dir():
         return
     for path in folder.glob("*.png"):
-        if path not in keep and re.fullmatch(r"view_3d\.png|void_\d+_slices\.png", path.name):
+        if path not in keep and re.fullmatch(r"view_3d\.png|body_\d+_slices\.png", path.name):
             path.unlink()
 
 
-def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: bool = True,
+def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: bool = True,
                        max_pictures: int = 20, parameters: dict, started: str, progress=None) -> dict:
     """Write the void outputs into the inversion folder; returns the content of ``voids.json``."""
     def say(message):
@@ -156,9 +156,9 @@ def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: boo
     rows = void_table_rows(analysis.bodies)
     written.append(write_csv_atomic(out / "voids.csv", VOID_TABLE_COLUMNS,
                                     ([_csv_value(r[c]) for c in VOID_TABLE_COLUMNS] for r in rows)))
-    hazard_rows = [{c: getattr(h, c) for c in HAZARD_COLUMNS} for h in hazard]
-    written.append(write_csv_atomic(out / "hazard.csv", HAZARD_COLUMNS,
-                                    ([_csv_value(r[c]) for c in HAZARD_COLUMNS] for r in hazard_rows)))
+    screening_rows = [{c: getattr(e, c) for c in SCREENING_COLUMNS} for e in screening]
+    written.append(write_csv_atomic(out / "screening.csv", SCREENING_COLUMNS,
+                                    ([_csv_value(r[c]) for c in SCREENING_COLUMNS] for r in screening_rows)))
     petro = petrophysics_arrays(data.velocity_m_per_ns, data.ground)
     written.append(write_cell_arrays_vti(out / "interpretation.vti", data.grid, {
         "velocity_m_per_ns": data.velocity_m_per_ns,
@@ -187,17 +187,17 @@ def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: boo
             written.append(path)
             picture_list.append({"file": "pictures/view_3d.png", "body_id": None,
                                  "caption": "Oblique view from above: ground surface (grey), bodies "
-                                            "(orange fast, blue slow), nodes (black), planned works "
-                                            "(reddish purple)"})
-        voids_only = [b for b in analysis.bodies if b.status == STATUS_VOID]
+                                            "(orange: air-filled, faster than the rock; blue: water- or "
+                                            "clay-filled, slower), nodes (black), planned works (reddish purple)"})
+        voids_only = [b for b in analysis.bodies if b.status == STATUS_RESOLVED]
         for body in voids_only[:max_pictures]:
-            say(f"slices through body {body.id}")
+            say(f"slices through body {body.body_id}")
             png = render.slice_pictures(data.grid, data.velocity_m_per_ns, data.ground, data.ray_count,
                                         analysis.labels, data.surface_m, body)
-            name = f"pictures/void_{body.id}_slices.png"
+            name = f"pictures/body_{body.body_id}_slices.png"
             written.append(render.write_png_atomic(out / name, png))
-            picture_list.append({"file": name, "body_id": body.id,
-                                 "caption": f"Body {body.id}: plan (top) and east-west section (bottom) "
+            picture_list.append({"file": name, "body_id": body.body_id,
+                                 "caption": f"Body {body.body_id}: plan (top) and east-west section (bottom) "
                                             "through its centroid; velocity (cividis), body outline "
                                             "(in the colour of its fill), cells without rays hatched"})
         if len(voids_only) > max_pictures:
@@ -212,13 +212,13 @@ def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: boo
         "site_file": str(data.site_path),
         "cautions": list(CAUTIONS) + [SCREENING_NOTE, SOIL_FIT_CAUTION],
         "counts": {
-            "voids": sum(b.status == STATUS_VOID for b in analysis.bodies),
-            "unresolved_indications": sum(b.status != STATUS_VOID for b in analysis.bodies),
+            "resolved": sum(b.status == STATUS_RESOLVED for b in analysis.bodies),
+            "unresolved": sum(b.status != STATUS_RESOLVED for b in analysis.bodies),
         },
         "method": analysis.parameters,
         "depth_slabs": analysis.slabs,
         "bodies": rows,
-        "hazard": {"note": SCREENING_NOTE, "options": parameters.get("hazard", {}), "ranked": hazard_rows},
+        "screening": {"note": SCREENING_NOTE, "options": parameters.get("screening", {}), "ranked": screening_rows},
         "petrophysics": {
             "relation": "K = (c/v)^2 (low-loss); theta by Topp et al. (1980)",
             "caution": SOIL_FIT_CAUTION,

@@ -1,7 +1,9 @@
-"""Writing the pick checks: ``qc.csv``, ``node_clocks.csv``, ``qc.json``, ``qc.html``.
+"""Writing the pick checks: ``pick_checks.csv``, ``node_time_zero.csv``,
+``pick_checks.json``, ``pick_checks.html``.
 
-:func:`qc_summary` and :func:`qc_rows` decide what is written (pure);
-:func:`write_qc` writes the folder, manifest last. The figures are drawn with
+:func:`pick_checks_summary`, :func:`pick_check_rows` and
+:func:`node_time_zero_rows` decide what is written (pure);
+:func:`write_pick_checks` writes the folder, manifest last. The figures are drawn with
 :class:`matplotlib.figure.Figure` (no pyplot, no display) and embedded in the
 page by :mod:`reconstruct.report.html`, which also puts the cautions at its top.
 """
@@ -34,21 +36,25 @@ from reconstruct.checks.picks import (
 )
 from reconstruct.io.tables import Nodes, Picks
 
-__all__ = ["QC_COLUMNS", "NODE_CLOCK_COLUMNS", "qc_rows", "node_clock_rows", "qc_summary", "write_qc"]
+__all__ = ["PICK_CHECK_COLUMNS", "NODE_TIME_ZERO_COLUMNS", "pick_check_rows", "node_time_zero_rows",
+           "pick_checks_summary", "write_pick_checks"]
 
-QC_COLUMNS = ["line", "tx", "rx", "time_ns", "sigma_ns", "distance_m", "clock_correction_ns",
-              "corrected_time_ns", "apparent_velocity_m_per_ns", "reciprocal_line", "reciprocal_error_ns",
-              "reciprocal_mean_ns", "air_time_ns", "reference_ns", "residual_ns", "flags", "action"]
-NODE_CLOCK_COLUMNS = ["node_id", "clock_ns", "tx_time_zero_ns", "rx_time_zero_ns", "depth_m", "picks_as_tx",
-                      "picks_as_rx", "reciprocal_pairs", "median_residual_ns"]
+#: Columns of ``pick_checks.csv``: one row per pick read.
+PICK_CHECK_COLUMNS = ["input_line", "tx", "rx", "time_ns", "sigma_ns", "distance_m", "time_zero_correction_ns",
+                      "corrected_time_ns", "apparent_velocity_m_per_ns", "reciprocal_input_line",
+                      "reciprocal_error_ns", "reciprocal_mean_ns", "air_time_ns", "reference_time_ns",
+                      "residual_ns", "flags", "action"]
+#: Columns of ``node_time_zero.csv``: one row per node.
+NODE_TIME_ZERO_COLUMNS = ["node_id", "time_zero_ns", "delay_ns", "depth_m", "picks_as_tx", "picks_as_rx",
+                          "reciprocal_pairs", "median_residual_ns"]
 
 
 def _f(value, digits=4) -> str:
     return "" if value is None or not np.isfinite(value) else f"{value:.{digits}f}"
 
 
-def qc_rows(picks: Picks, nodes: Nodes, checks: PickChecks, excluding=()):
-    """Rows of ``qc.csv``: every pick read, checked picks first, then the rows
+def pick_check_rows(picks: Picks, nodes: Nodes, checks: PickChecks, excluding=()):
+    """Rows of ``pick_checks.csv``: every pick read, checked picks first, then the rows
     excluded on reading (with their reason as the flag)."""
     ids = nodes.ids
     excluding = set(excluding)
@@ -57,10 +63,10 @@ def qc_rows(picks: Picks, nodes: Nodes, checks: PickChecks, excluding=()):
         flags = checks.flags[k]
         action = "excluded" if excluding.intersection(flags) else "kept"
         yield [int(picks.lines[k]), ids[picks.tx[k]], ids[picks.rx[k]], f"{picks.time_ns[k]:.4f}",
-               _f(checks.sigma_ns[k]), _f(checks.distance_m[k], 3), _f(checks.clock_correction_ns[k]),
+               _f(checks.sigma_ns[k]), _f(checks.distance_m[k], 3), _f(checks.time_zero_correction_ns[k]),
                _f(checks.corrected_time_ns[k]), _f(checks.apparent_velocity_m_per_ns[k], 5),
                "" if partner < 0 else int(picks.lines[partner]), _f(checks.reciprocal_error_ns[k]),
-               _f(checks.reciprocal_mean_ns[k]), _f(checks.air_time_ns[k]), _f(checks.reference_ns[k]),
+               _f(checks.reciprocal_mean_ns[k]), _f(checks.air_time_ns[k]), _f(checks.reference_time_ns[k]),
                _f(checks.residual_ns[k]), ";".join(flags), action]
     for e in picks.excluded:
         yield [e.line, e.tx, e.rx, e.time_text, "", "", "", "", "", "", "", "", "", "", "", e.reason, "excluded"]
@@ -80,8 +86,8 @@ def _node_residuals(picks: Picks, checks: PickChecks, n_nodes: int) -> np.ndarra
     return median
 
 
-def node_clock_rows(picks: Picks, nodes: Nodes, checks: PickChecks):
-    """Rows of ``node_clocks.csv``: one per node."""
+def node_time_zero_rows(picks: Picks, nodes: Nodes, checks: PickChecks):
+    """Rows of ``node_time_zero.csv``: one per node."""
     n = len(nodes)
     n_tx = np.bincount(picks.tx, minlength=n)
     n_rx = np.bincount(picks.rx, minlength=n)
@@ -89,17 +95,18 @@ def node_clock_rows(picks: Picks, nodes: Nodes, checks: PickChecks):
     n_rec = np.bincount(picks.tx[has_partner], minlength=n)
     median = _node_residuals(picks, checks, n)
     for k in range(n):
-        yield [nodes.ids[k], _f(checks.clock_ns[k]), _f(checks.tx_time_zero_ns[k]), _f(checks.rx_time_zero_ns[k]),
+        yield [nodes.ids[k], _f(checks.time_zero_ns[k]), _f(checks.delay_ns[k]),
                _f(checks.depth_m[k], 3), int(n_tx[k]), int(n_rx[k]), int(n_rec[k]), _f(median[k])]
 
 
-def qc_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems, *, rays: str = "straight",
-               keep_flagged=()) -> dict:
-    """Content of ``qc.json``."""
+def pick_checks_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems, *, rays: str = "straight",
+                        keep_flagged=()) -> dict:
+    """Content of ``pick_checks.json``."""
     o = checks.options
     excluding = excluded_flags(rays, keep_flagged)
     flagged_out = np.array([bool(set(excluding).intersection(f)) for f in checks.flags], dtype=bool)
-    clock = checks.clock_ns
+    time_zero = checks.time_zero_ns
+    known = np.isfinite(time_zero)
     return {
         "picks": {
             "rows_read": picks.n_rows, "checked": len(picks), "excluded_on_reading": len(picks.excluded),
@@ -107,7 +114,7 @@ def qc_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems, *, rays
             "excluded_by_flags": int(flagged_out.sum()),
             "flags_that_exclude": list(excluding),
             "kept": int(len(picks) - flagged_out.sum()),
-            "faster_than_air_lines": [int(k) for k in picks.lines[checks.has(FLAG_FASTER_THAN_AIR)]],
+            "faster_than_air_input_lines": [int(k) for k in picks.lines[checks.has(FLAG_FASTER_THAN_AIR)]],
         },
         "sigma": {
             "source": checks.sigma_source,
@@ -115,14 +122,14 @@ def qc_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems, *, rays
             "pick_noise_from_reciprocity_ns": checks.noise_sigma_ns,
         },
         "reciprocity": checks.reciprocity,
-        "clocks": {
-            "model": "t_ab = T_ab + rx_time_zero_b - tx_time_zero_a; clock = mean of the two, relative to the "
-                     "mean over the nodes",
-            "largest_abs_clock_ns": float(np.nanmax(np.abs(clock))) if np.isfinite(clock).any() else None,
-            "largest_tx_rx_difference_ns": (float(np.nanmax(np.abs(checks.tx_time_zero_ns - checks.rx_time_zero_ns)))
-                                            if np.isfinite(clock).any() else None),
-            "per_node": {nodes.ids[k]: {"clock_ns": clock[k], "tx_time_zero_ns": checks.tx_time_zero_ns[k],
-                                        "rx_time_zero_ns": checks.rx_time_zero_ns[k]} for k in range(len(nodes))},
+        "time_zero": {
+            "model": "t_ab = T_ab + (time_zero_b - time_zero_a) + (delay_a + delay_b): time_zero_ns is the "
+                     "clock term, relative to its mean over the nodes; delay_ns half the node's receiving "
+                     "minus its transmitting time-zero",
+            "largest_abs_time_zero_ns": float(np.nanmax(np.abs(time_zero))) if known.any() else None,
+            "largest_abs_delay_ns": float(np.nanmax(np.abs(checks.delay_ns))) if known.any() else None,
+            "per_node": {nodes.ids[k]: {"time_zero_ns": time_zero[k], "delay_ns": checks.delay_ns[k]}
+                         for k in range(len(nodes))},
         },
         "velocity_m_per_ns": {
             "band": [o.velocity_min_m_per_ns, o.velocity_max_m_per_ns],
@@ -185,7 +192,7 @@ def _time_distance_png(checks: PickChecks) -> bytes:
     tmax = float(np.nanmax(t)) if t.size else 1.0
     ax.set_ylim(0, 1.05 * max(tmax, 1.0))
     ax.set_xlabel("distance between nodes (m)")
-    ax.set_ylabel("clock-corrected time (ns)")
+    ax.set_ylabel("pick time less the time-zero correction (ns)")
     ax.legend(fontsize=7, loc="upper left")
     ax.grid(alpha=0.3)
     return figure_png(fig)
@@ -245,6 +252,24 @@ def _node_map_png(picks: Picks, nodes: Nodes, checks: PickChecks, xyz_m) -> byte
     return figure_png(fig)
 
 
+#: Each flag in words, for the page (the flag's own name is what --keep-flagged takes).
+FLAG_WORDS = {
+    FLAG_RECIPROCAL: "reciprocal picks disagree",
+    FLAG_FASTER_THAN_AIR: "faster than air (impossible)",
+    FLAG_SLOWER_THAN_BAND: "slower than the velocity band",
+    FLAG_AIR_DIRECT: "direct air wave",
+    FLAG_AIR_REFRACTED: "refracted air wave",
+}
+_SIGMA_SOURCE_WORDS = {
+    "table": "the pick table's sigma_ns column",
+    "reciprocity": "the spread of the reciprocal pairs",
+    "default": "the default (too few reciprocal pairs to estimate it)",
+}
+_NODE_TIME_ZERO_HEADINGS = ["node", "time-zero offset (ns)", "delay (ns)", "depth below ground (m)",
+                            "picks as transmitter", "picks as receiver", "reciprocal pairs",
+                            "median residual (ns)"]
+
+
 def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
     parts = []
     if summary["problems"]:
@@ -256,17 +281,19 @@ def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
     counts = summary["picks"]["flag_counts"]
     rows = [["rows read", summary["picks"]["rows_read"]], ["picks checked", summary["picks"]["checked"]],
             ["excluded on reading", summary["picks"]["excluded_on_reading"]]]
-    rows += [[f"flag {f}", counts[f]] for f in FLAGS]
+    rows += [[f"flagged: {FLAG_WORDS[f]} ({f})", counts[f]] for f in FLAGS]
     rows += [["left out of the inversion by flags", summary["picks"]["excluded_by_flags"]],
-             ["sigma source", checks.sigma_source],
-             ["pick noise from reciprocity (ns)", "" if checks.noise_sigma_ns is None else f"{checks.noise_sigma_ns:.3f}"],
+             ["pick uncertainty taken from", _SIGMA_SOURCE_WORDS.get(checks.sigma_source, checks.sigma_source)],
+             ["pick noise from reciprocal pairs (ns)",
+              "-" if checks.noise_sigma_ns is None else f"{checks.noise_sigma_ns:.3f}"],
              ["reciprocal pairs", checks.n_reciprocal_pairs],
              ["site rock velocity (m/ns)", f"{checks.rock_velocity_m_per_ns:.4f}"],
              ["velocity fitted to the picks (m/ns)", f"{checks.fitted_velocity_m_per_ns:.4f}"]]
     parts.append("<h2>Summary</h2>" + table_html(["item", "value"], [[str(a), str(b)] for a, b in rows]))
     parts.append("<h2>Plots</h2>")
     parts.append(png_img_html(_time_distance_png(checks), "time against distance",
-                              "Clock-corrected time against distance, with lines of constant velocity."))
+                              "Pick time corrected for the time-zero offsets against distance, with lines of "
+                              "constant velocity."))
     parts.append(png_img_html(_reciprocity_png(picks, checks), "reciprocity scatter",
                               "Reciprocal pairs: time one way against time the other way."))
     parts.append(png_img_html(_histogram_png(checks), "residual histogram",
@@ -274,32 +301,39 @@ def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
                               "segments at c), or the air-wave time for air-wave picks."))
     parts.append(png_img_html(_node_map_png(picks, nodes, checks, xyz_m), "residual per node",
                               "Plan map of the nodes coloured by the median residual of their picks."))
-    node_rows = list(node_clock_rows(picks, nodes, checks))
-    parts.append("<h2>Node clocks</h2>" + table_html(NODE_CLOCK_COLUMNS, node_rows))
-    flagged = [r for r in qc_rows(picks, nodes, checks) if r[-2]][:500]
+    node_rows = [["-" if v == "" else v for v in row] for row in node_time_zero_rows(picks, nodes, checks)]
+    parts.append("<h2>Node time-zero offsets</h2><p>Time-zero offset: the node's clock term, relative to the "
+                 "mean over the nodes; delay: half the difference between its receiving and transmitting "
+                 "time-zero. A pick from A to B is corrected by the offset of B less that of A.</p>"
+                 + table_html(_NODE_TIME_ZERO_HEADINGS, node_rows))
+    flagged = [r for r in pick_check_rows(picks, nodes, checks) if r[-2]][:500]
     parts.append(f"<h2>Flagged picks (first {len(flagged)})</h2>"
-                 + table_html(["line", "tx", "rx", "time_ns", "flags"], [[r[0], r[1], r[2], r[3], r[-2]] for r in flagged]))
+                 + table_html(["input line", "transmitter", "receiver", "pick time (ns)", "flags"],
+                              [[r[0], r[1], r[2], r[3], "; ".join(FLAG_WORDS.get(f, f) for f in r[-2].split(";"))]
+                               for r in flagged]))
     parts.append(f"<p>{escape(summary['put_back'])}.</p>")
-    return html_document(f"Pick quality control: {site_name}", "".join(parts))
+    return html_document(f"Pick checks: {site_name}", "".join(parts))
 
 
-def write_qc(picks: Picks, nodes: Nodes, checks: PickChecks, problems, out_dir, *, xyz_m, site_name: str,
-             inputs: dict, parameters: dict, started: str, command: str, rays: str = "straight",
-             keep_flagged=()) -> dict:
-    """Write ``qc.csv``, ``node_clocks.csv``, ``qc.json``, ``qc.html`` and, last,
-    ``manifest.json`` into ``out_dir``; returns the summary.
+def write_pick_checks(picks: Picks, nodes: Nodes, checks: PickChecks, problems, out_dir, *, xyz_m, site_name: str,
+                      inputs: dict, parameters: dict, started: str, command: str, rays: str = "straight",
+                      keep_flagged=()) -> dict:
+    """Write ``pick_checks.csv``, ``node_time_zero.csv``, ``pick_checks.json``,
+    ``pick_checks.html`` and, last, ``manifest.json`` into ``out_dir``; returns the summary.
 
     Many parameters because the manifest records the command, inputs and
-    parameters of the run beside the data; kept while the command line is rewritten.
+    parameters of the run beside the data.
     """
     out = make_output_folder(out_dir)
     excluding = excluded_flags(rays, keep_flagged)
-    summary = qc_summary(picks, nodes, checks, problems, rays=rays, keep_flagged=keep_flagged)
+    summary = pick_checks_summary(picks, nodes, checks, problems, rays=rays, keep_flagged=keep_flagged)
     written = [
-        write_csv_atomic(out / "qc.csv", QC_COLUMNS, qc_rows(picks, nodes, checks, excluding)),
-        write_csv_atomic(out / "node_clocks.csv", NODE_CLOCK_COLUMNS, node_clock_rows(picks, nodes, checks)),
-        write_json_atomic(out / "qc.json", summary),
-        write_text_atomic(out / "qc.html", _html(picks, nodes, checks, summary, xyz_m, site_name)),
+        write_csv_atomic(out / "pick_checks.csv", PICK_CHECK_COLUMNS,
+                         pick_check_rows(picks, nodes, checks, excluding)),
+        write_csv_atomic(out / "node_time_zero.csv", NODE_TIME_ZERO_COLUMNS,
+                         node_time_zero_rows(picks, nodes, checks)),
+        write_json_atomic(out / "pick_checks.json", summary),
+        write_text_atomic(out / "pick_checks.html", _html(picks, nodes, checks, summary, xyz_m, site_name)),
     ]
     manifest = build_manifest(command=command, inputs=inputs, parameters=parameters,
                               outputs=[p.name for p in written] + ["manifest.json"], started=started,

@@ -67,7 +67,7 @@ print("ok")
 """
 
 _VIEW_KEY = "   ".join(f"{colours.COLOUR_NAMES[colour]}: {meaning}" for colour, meaning in (
-    (FAST_COLOUR, "fast (air-filled) bodies"), (SLOW_COLOUR, "slow bodies"), (WORK_COLOUR, "planned works"),
+    (FAST_COLOUR, "air-filled bodies (faster than the rock)"), (SLOW_COLOUR, "water- or clay-filled bodies (slower)"), (WORK_COLOUR, "planned works"),
     (NODE_COLOUR, "nodes")))
 
 _BACKENDS = ("vtkEGLRenderWindow", "vtkOSOpenGLRenderWindow", "vtkXOpenGLRenderWindow")
@@ -146,7 +146,8 @@ def _image(grid: Grid, cell_arrays: dict):
 
 
 def void_surfaces(grid: Grid, labels, anomaly_ns_per_m, bodies):
-    """Isosurface of every body as one mesh, with cell arrays ``body_id`` and ``fast``.
+    """Isosurface of every body as one mesh, with cell arrays ``body_id`` and ``fill_is_air``
+    (1 for fill ``air``, 0 for ``water_or_clay``).
 
     Each body's surface is the contour, at the body's cut level (half its peak
     anomaly), of its anomaly field interpolated to the cell corners; cells of
@@ -172,13 +173,13 @@ def void_surfaces(grid: Grid, labels, anomaly_ns_per_m, bodies):
     pieces = []
     boxes = {i + 1: box for i, box in enumerate(_find_objects(labels))}
     for body in bodies:
-        box = boxes.get(body.id)
+        box = boxes.get(body.body_id)
         if box is None:
             continue
         padded = tuple(slice(max(s.start - 1, 0), min(s.stop + 1, n)) for s, n in zip(box, grid.shape))
         sub_labels = labels[padded]
         sign = -1.0 if body.fill == FILL_AIR else 1.0
-        field = np.where((sub_labels == 0) | (sub_labels == body.id), sign * anomaly[padded], 0.0)
+        field = np.where((sub_labels == 0) | (sub_labels == body.body_id), sign * anomaly[padded], 0.0)
         level = 0.5 * abs(body.peak_anomaly_ns_per_m)
         # a band of zeros around the box keeps the surface closed where the body touches the edge
         field = np.pad(np.where(field > 0, field, 0.0), 1)
@@ -190,13 +191,13 @@ def void_surfaces(grid: Grid, labels, anomaly_ns_per_m, bodies):
             continue
         surface = surface.extract_surface(algorithm=None).triangulate()
         surface.clear_data()
-        surface.cell_data["body_id"] = np.full(surface.n_cells, body.id, dtype=np.int32)
-        surface.cell_data["fast"] = np.full(surface.n_cells, int(body.fill == FILL_AIR), dtype=np.uint8)
+        surface.cell_data["body_id"] = np.full(surface.n_cells, body.body_id, dtype=np.int32)
+        surface.cell_data["fill_is_air"] = np.full(surface.n_cells, int(body.fill == FILL_AIR), dtype=np.uint8)
         pieces.append(surface)
     if not pieces:
         mesh = pyvista.PolyData()
         mesh.cell_data["body_id"] = np.zeros(0, dtype=np.int32)
-        mesh.cell_data["fast"] = np.zeros(0, dtype=np.uint8)
+        mesh.cell_data["fill_is_air"] = np.zeros(0, dtype=np.uint8)
         return mesh
     return pyvista.merge(pieces, merge_points=False)
 
@@ -235,7 +236,7 @@ def render_oblique_view(path, ground_mesh, voids_mesh, *, nodes_xyz_m=None, work
         plotter.set_background(colours.BACKGROUND_COLOUR)
         plotter.add_mesh(ground_mesh, color=colours.GROUND_SURFACE_COLOUR, opacity=0.35, show_edges=False)
         if voids_mesh.n_cells:
-            fast = np.asarray(voids_mesh.cell_data["fast"]).astype(bool)
+            fast = np.asarray(voids_mesh.cell_data["fill_is_air"]).astype(bool)
             for mask, colour in ((fast, FAST_COLOUR), (~fast, SLOW_COLOUR)):
                 if mask.any():
                     plotter.add_mesh(voids_mesh.extract_cells(np.flatnonzero(mask)), color=colour,
@@ -349,18 +350,18 @@ def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, sur
     ground_v = velocity[np.isfinite(velocity)]
     v_range = (float(ground_v.min()), float(ground_v.max())) if ground_v.size else (0.0, 0.3)
     edges = [grid.edges_m(a) for a in range(3)]
-    inside = labels == body.id
+    inside = labels == body.body_id
     outline = FAST_COLOUR if body.fill == FILL_AIR else SLOW_COLOUR
     figure = Figure(figsize=(7.5, 7.5), layout="constrained")
     plan_axes, section_axes = figure.subplots(2, 1)
     _draw_slice(figure, plan_axes, velocity[:, :, iz], covered[:, :, iz], inside[:, :, iz],
                 (edges[0][0], edges[0][-1], edges[1][0], edges[1][-1]),
-                ("x east (m)", "y north (m)", f"Body {body.id}: plan at z = {grid.centres_m(2)[iz]:.1f} m"),
+                ("x east (m)", "y north (m)", f"Body {body.body_id}: plan at z = {grid.centres_m(2)[iz]:.1f} m"),
                 v_range, outline_colour=outline)
     _draw_slice(figure, section_axes, velocity[:, iy, :], covered[:, iy, :], inside[:, iy, :],
                 (edges[0][0], edges[0][-1], edges[2][0], edges[2][-1]),
                 ("x east (m)", "z elevation (m)",
-                 f"Body {body.id}: section along x at y = {grid.centres_m(1)[iy]:.1f} m"),
+                 f"Body {body.body_id}: section along x at y = {grid.centres_m(1)[iy]:.1f} m"),
                 v_range, ground_line=(grid.centres_m(0), np.asarray(surface_m)[:, iy]), outline_colour=outline)
     return figure_png(figure)
 

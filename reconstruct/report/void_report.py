@@ -17,25 +17,35 @@ from pathlib import Path
 
 from reconstruct.errors import InputError
 from reconstruct.report.html import escape, html_document, png_img_html, table_html
+from reconstruct.interpret.bodies import FILL_AIR, FILL_WATER_OR_CLAY, STATUS_RESOLVED
 from reconstruct.interpret.folder import read_json_object
 from reconstruct.io.outputs import extend_manifest, utc_now_iso, write_text_atomic
 
 __all__ = ["build_report_html", "write_report"]
 
+#: Words for the fill classes (column ``fill``) on the page.
+FILL_WORDS = {FILL_AIR: "air-filled (faster than the rock)",
+              FILL_WATER_OR_CLAY: "water- or clay-filled (slower than the rock)"}
+
 _VOID_COLUMNS = (
-    ("id", "id"), ("fill", "fill"), ("volume_m3", "volume (m^3)"),
-    ("centroid_x_m", "x (m)"), ("centroid_y_m", "y (m)"), ("centroid_z_m", "z (m)"),
-    ("roof_depth_m", "roof depth (m)"), ("roof_to_ground_m", "rock to ground (m)"),
-    ("roof_below_work_m", "rock to work above (m)"), ("nearest_work", "nearest planned work"),
-    ("standoff_to_work_m", "stand-off (m)"), ("largest_span_m", "largest span (m)"),
-    ("extreme_velocity_m_per_ns", "extreme v (m/ns)"), ("ray_covered_fraction", "cells with rays"),
+    ("body_id", "body"), ("fill", "likely fill"), ("volume_m3", "volume (m³)"),
+    ("centroid_x_m", "centre x (m)"), ("centroid_y_m", "centre y (m)"), ("centroid_z_m", "centre z (m)"),
+    ("roof_depth_m", "roof depth (m)"), ("roof_thickness_m", "roof thickness to the ground (m)"),
+    ("roof_below_work_m", "roof below the planned work above (m)"), ("nearest_work", "nearest planned work"),
+    ("standoff_m", "stand-off from it (m)"), ("span_m", "span (m)"),
+    ("extreme_velocity_m_per_ns", "extreme velocity (m/ns)"),
+    ("ray_covered_fraction", "its cells crossed by rays (%)"),
     ("confidence", "confidence"), ("confidence_reason", "why"),
 )
 
-_HAZARD_COLUMNS = (
-    ("rank", "rank"), ("id", "body"), ("status", "status"), ("confidence", "confidence"),
-    ("thickness_m", "roof rock (m)"), ("span_m", "span across (m)"), ("scaled_span_m", "scaled span (m)"),
-    ("critical_span_m", "critical span (m)"), ("reasons", "plain-language reasons"),
+#: Fractions (0..1) shown as percentages.
+_PERCENT_KEYS = ("ray_covered_fraction", "fraction_of_ground_with_rays")
+
+_SCREENING_COLUMNS = (
+    ("rank", "rank"), ("body_id", "body"), ("fill", "likely fill"), ("confidence", "confidence"),
+    ("thinnest_roof_m", "thinnest roof (m)"), ("width_m", "width (m)"), ("span_m", "span (m)"),
+    ("standoff_m", "stand-off (m)"), ("scaled_span_m", "scaled span (m)"),
+    ("critical_span_m", "critical span (m)"), ("reasons", "reasons"),
 )
 
 
@@ -43,6 +53,10 @@ def _value(row: dict, key: str):
     value = row.get(key)
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "-"
+    if key == "fill":
+        return FILL_WORDS.get(value, value)
+    if key in _PERCENT_KEYS and isinstance(value, (int, float)):
+        return 100.0 * value
     return value
 
 
@@ -55,6 +69,14 @@ def _text(value) -> str:
 
 def _rows(records, columns):
     return [[_value(r, key) for key, _ in columns] for r in records]
+
+
+def _table_or_none(columns, records, caption):
+    """The table of ``records``, or a line saying there are none."""
+    if not records:
+        return f"<p><b>{escape(caption)}:</b> none.</p>"
+    return table_html([label for _, label in columns], _rows(records, columns), float_format=".3g",
+                      caption=caption)
 
 
 def _quality_section(summary: dict, voids: dict) -> str:
@@ -71,14 +93,14 @@ def _quality_section(summary: dict, voids: dict) -> str:
         ["RMS misfit (ns)", _value(misfit, "rms_ns")],
         ["chi-square per pick (near 1 when sigmas are right)", "-" if chi is None else chi],
         ["smoothing lambda and how it was chosen", f"{_text(_value(lam, 'smoothing'))} ({_value(lam, 'method')})"],
-        ["ground cells crossed by rays", _value(coverage, "fraction_of_ground_with_rays")],
+        ["ground cells crossed by rays (%)", _value(coverage, "fraction_of_ground_with_rays")],
         ["ground velocity min / median / max (m/ns)",
          " / ".join(_text(_value(velocity, k)) for k in ("ground_min", "ground_median", "ground_max"))],
         ["cells clipped at the velocity band", f"{_value(velocity, 'cells_clipped_at_min')} slow, "
                                                f"{_value(velocity, 'cells_clipped_at_max')} fast"],
         ["detection threshold rule", _value(method, "threshold_rule")],
         ["robust spread of the anomaly (ns/m)", _value(method, "sigma_model_ns_per_m")],
-        ["threshold in robust standard deviations", _value(method, "sigmas")],
+        ["detection threshold in robust standard deviations", _value(method, "threshold_sigmas")],
         ["median transmitter-receiver distance (m)", _value(method, "path_length_m")],
         ["antenna frequency (MHz)", _value(method, "frequency_mhz")],
         ["resolution rule", _value(method, "resolution_rule")],
@@ -119,27 +141,29 @@ def build_report_html(folder, *, summary: dict | None = None, voids: dict | None
     parts = [
         f"<p><b>Site:</b> {escape(voids.get('site', summary.get('site', '-')))}<br>"
         f"<b>Folder:</b> {escape(folder)}<br><b>Written:</b> {escape(utc_now_iso())}</p>",
-        f"<h2>Summary</h2><p>{int(counts.get('voids', 0))} void(s) and "
-        f"{int(counts.get('unresolved_indications', 0))} unresolved indication(s) (bodies smaller than the "
-        "resolution at their depth). A void here is a body of cells whose velocity departs from the "
-        "background by more than the threshold; it is a place to drill, not a proven cavity.</p>",
+        f"<h2>Summary</h2><p>{int(counts.get('resolved', 0))} void(s) (resolved bodies) and "
+        f"{int(counts.get('unresolved', 0))} indication(s) (unresolved bodies: smaller than the "
+        "resolution at their depth). A body is a group of cells whose velocity departs from the "
+        "background by more than the detection threshold; a void is a place to drill, not a proven "
+        "cavity.</p>",
     ]
-    hazard = voids.get("hazard", {})
-    ranked = hazard.get("ranked", [])
-    labels = [label for _, label in _HAZARD_COLUMNS]
+    screening = voids.get("screening", {})
+    ranked = screening.get("ranked", [])
+    resolved = [r for r in ranked if r.get("status") == STATUS_RESOLVED]
+    unresolved = [r for r in ranked if r.get("status") != STATUS_RESOLVED]
     parts.append("<h2>Screening: which to check first</h2>"
-                 f"<p>{escape(hazard.get('note', ''))}</p>"
-                 + table_html(labels, _rows([r for r in ranked if r.get("status") == "void"], _HAZARD_COLUMNS),
-                              float_format=".3g", caption="Voids")
-                 + "<p>Unresolved indications: smaller than the resolution at their depth, so their size "
-                   "and contrast are not known; those near planned works still deserve a probe hole.</p>"
-                 + table_html(labels, _rows([r for r in ranked if r.get("status") != "void"], _HAZARD_COLUMNS),
-                              float_format=".3g", caption="Unresolved indications"))
-    parts.append("<h2>Void table</h2><p>Voids only; every body, with bounding boxes and more columns, "
-                 "is in voids.csv.</p>"
-                 + table_html([label for _, label in _VOID_COLUMNS],
-                              _rows([b for b in voids.get("bodies", []) if b.get("status") == "void"],
-                                    _VOID_COLUMNS), float_format=".3g"))
+                 f"<p>{escape(screening.get('note', ''))}</p>"
+                 "<p>Thinnest roof: the rock above the body to the ground surface or to a planned work "
+                 "over it, whichever is thinner. Width: across the body in plan; span: its largest "
+                 "horizontal width; stand-off: its distance to the nearest planned work.</p>"
+                 + _table_or_none(_SCREENING_COLUMNS, resolved, "Voids (resolved bodies)")
+                 + "<p>Indications (unresolved bodies): smaller than the resolution at their depth, so their "
+                   "size and contrast are not known; those near planned works still deserve a probe hole.</p>"
+                 + _table_or_none(_SCREENING_COLUMNS, unresolved, "Indications (unresolved bodies)"))
+    parts.append("<h2>Void table</h2><p>Voids (resolved bodies) only; every body, with bounding boxes and "
+                 "more columns, is in voids.csv.</p>"
+                 + _table_or_none(_VOID_COLUMNS, [b for b in voids.get("bodies", [])
+                                                  if b.get("status") == STATUS_RESOLVED], "Voids"))
     pictures = []
     for picture in voids.get("pictures", []):
         path = folder / str(picture.get("file", ""))

@@ -42,7 +42,7 @@ TRUTH_YAML = """\
 # invented truth model
 bodies:
   - {name: fast box, shape: box, centre_m: [10, 5, 10], size_m: [4, 4, 4], fill: air}
-noise: {sigma_ns: 0.3, clock_offset_sigma_ns: 1.0, seed: 3}
+noise: {sigma_ns: 0.3, time_zero_sigma_ns: 1.0, seed: 3}
 refine: 2
 """
 
@@ -277,7 +277,7 @@ def test_design_writes_every_file_and_a_manifest(files, tmp_path):
     assert sorted(manifest["outputs"]) == sorted(DESIGN_FILES)
     assert manifest["inputs"]["site"]["sha256"]
     pairs = json.loads((out / "pairs_summary.json").read_text())
-    assert pairs["stations"] == len(nodes)
+    assert pairs["nodes"] == len(nodes)
     mesh = json.loads((out / "mesh_summary.json").read_text())
     assert mesh["stations"]["node"] == len(nodes)
     schedule = json.loads((out / "schedule_summary.json").read_text())

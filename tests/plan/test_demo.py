@@ -83,8 +83,9 @@ def test_reduced_chain_finds_the_air_cavity_within_two_cells(reduced_run):
     # fill class: an air-filled void is fast (Davis and Annan 1989)
     assert match.expected_fill == FILL_AIR
     rows = (result.out / "model" / "voids.csv").read_text(encoding="utf-8").splitlines()
-    row = next(r for r in rows[1:] if r.split(",")[0] == str(match.void_id))
-    assert FILL_AIR in row
+    assert rows[0].split(",")[:3] == ["body_id", "status", "fill"]
+    row = next(r.split(",") for r in rows[1:] if r.split(",")[0] == str(match.body_id))
+    assert row[2] == FILL_AIR
 
 
 @pytest.mark.slow

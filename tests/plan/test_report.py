@@ -16,7 +16,16 @@ import numpy as np
 import pytest
 
 from plan.cli import main
-from plan.report import flatten_summary, read_mesh_links
+from plan.report import (
+    MESH_LABELS,
+    OPTIMISE_LABELS,
+    PAIR_GRAPH_LABELS,
+    SCHEDULE_LABELS,
+    flatten_summary,
+    read_mesh_links,
+    summary_rows,
+    unlabelled_keys,
+)
 from reconstruct.report.html import CAUTIONS, escape
 from tests.cli_helpers import run_main
 
@@ -66,6 +75,37 @@ def _run(argv):
 def test_flatten_summary_gives_key_paths():
     rows = dict(flatten_summary({"a": {"b": 1, "c": [1, 2]}, "d": [{"e": None}], "f": "x"}))
     assert rows == {"a.b": 1, "a.c": "1, 2", "d[0].e": "null", "f": "x"}
+
+
+def test_summary_rows_in_words_rounded_and_without_floating_noise():
+    rows = dict(summary_rows({"pairs": {"heard_fraction": 0.4567, "margin_db_percentiles": {"50": 1.67e-16}},
+                              "degree": {"by_kind": {"face": {"nodes": 4}}}, "deaf_nodes": [],
+                              "link_budget": {"rule_of_thumb_range_m": [11.5, 17.25]},
+                              "odd_extra_db_per_m": 0.123456}, PAIR_GRAPH_LABELS))
+    assert rows["share of the pairs heard (%)"] == "45.7"
+    assert rows["link margin of the heard pairs, median (dB)"] == "0"  # 1.67e-16 is floating-point noise
+    assert rows["face nodes"] == "4" and rows["nodes that hear no other node"] == "none"
+    assert rows["range by the rule of thumb, shortest and longest (m)"] == "11.5, 17.25"
+    assert rows["odd extra (dB/m)"] == "0.1235"  # a key without a label still reads as words
+    assert dict(summary_rows({"deploy_and_retrieve_s": 16200.0}, SCHEDULE_LABELS)) == {
+        "deployment and retrieval of the nodes (s)": "16,200"}
+
+
+def test_every_figure_of_the_planning_summaries_has_words(files):
+    folder, site, _ = files
+    site.write_text(SITE_YAML + "radio: {range_m: 15, gateway_m: [0, 5, 19]}\n", encoding="utf-8")
+    out = folder / "design"
+    code, _, err = _run(["design", "--site", site, "--budget", "15", "--out", out, "--quiet"])
+    assert code == 0, err
+    for name, labels in (("pairs_summary.json", PAIR_GRAPH_LABELS), ("mesh_summary.json", MESH_LABELS),
+                         ("schedule_summary.json", SCHEDULE_LABELS)):
+        data = json.loads((out / name).read_text(encoding="utf-8"))
+        assert unlabelled_keys(data, labels) == [], name
+    code, _, err = _run(["report", out, "--site", site, "--quiet"])
+    assert code == 0, err
+    page = (out / "plan_report.html").read_text(encoding="utf-8")
+    for identifier in ("heard_fraction", "by_kind", "mean_degree", "deaf_nodes", "record_length_ns", "node_a"):
+        assert identifier not in page, identifier
 
 
 def test_mesh_links_from_graphml_written_by_networkx(tmp_path):
@@ -122,7 +162,9 @@ def test_report_shows_other_planning_outputs_and_keeps_earlier_manifests(files):
     for caution in CAUTIONS:
         assert escape(caution) in page
     assert "report &lt;box&gt;" in page and "<box>" not in page  # input text is escaped
-    assert "heard_pairs" in page and "degree.max" in page and "&lt;S9&gt;" in page
+    # figures in words with their units, never the raw key paths
+    assert "heard pairs" in page and "most nodes heard by one node" in page and "&lt;S9&gt;" in page
+    assert "heard_pairs" not in page and "degree.max" not in page
     assert "mesh_summary.json could not be read" in page
     assert "BH1-02" in page  # schedule.csv rows
     assert page.count("data:image/png;base64,") >= 3
@@ -145,6 +187,7 @@ def test_optimise_command_writes_a_node_table_that_scores_no_lower(files):
     assert code == 0, err
     summary = json.loads((folder / "opt" / "optimise_summary.json").read_text())
     assert summary["score_optimised"] >= summary["score_start"]
+    assert unlabelled_keys(summary, OPTIMISE_LABELS) == []
     with open(folder / "opt" / "nodes_optimised.csv", newline="") as handle:
         table = list(csv.DictReader(handle))
     assert 13 <= len(table) <= 15

@@ -61,12 +61,12 @@ def make_inversion_folder(tmp_path):
         (folder / "summary.json").write_text(json.dumps(summary), encoding="utf-8")
         with open(folder / "residuals.csv", "w", newline="", encoding="utf-8") as handle:
             writer = csv.writer(handle)
-            writer.writerow(["line", "tx", "rx", "distance_m", "observed_ns", "predicted_ns", "residual_ns",
+            writer.writerow(["input_line", "tx", "rx", "distance_m", "time_ns", "predicted_time_ns", "residual_ns",
                              "sigma_ns"])
             for i in range(100):
                 writer.writerow([i + 2, "A", "B", f"{20 + 0.2 * i:.3f}", "200", "200", "0", "0.5"])
         with open(folder / "nodes_used.csv", "w", newline="", encoding="utf-8") as handle:
-            handle.write("node_id,x_m,y_m,z_m,shift_x_m,shift_y_m,shift_z_m,kind,line\n"
+            handle.write("node_id,x_m,y_m,z_m,shift_x_m,shift_y_m,shift_z_m,kind,input_line\n"
                          "A,2,2,20,0,0,0,surface,2\nB,28,18,20,0,0,0,surface,3\n")
         now = utc_now_iso()
         manifest = build_manifest(command="voidcube reconstruct invert", inputs={"site": site_path}, parameters={},

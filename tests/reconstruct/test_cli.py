@@ -88,7 +88,7 @@ def _write_inputs(folder: Path, *, node_rows=None):
     truth = parse_truth({
         "bodies": [{"name": "fast box", "shape": "box", "centre_m": [10, 5, 10],
                     "size_m": [4, 4, 4], "fill": "air"}],
-        "noise": {"sigma_ns": 0.3, "clock_offset_sigma_ns": 1.0, "seed": 3},
+        "noise": {"sigma_ns": 0.3, "time_zero_sigma_ns": 1.0, "seed": 3},
         "refine": 2,
     })
     table = read_nodes(nodes)
@@ -355,7 +355,7 @@ def test_nan_and_zero_times_are_excluded_and_counted(inputs, tmp_path):
     assert summary["picks"]["excluded_by_reason"] == {EXCLUDED_NO_PICK: 1, EXCLUDED_NOT_POSITIVE: 1}
     assert "no pick" in EXCLUDED_NO_PICK and "time <= 0" in EXCLUDED_NOT_POSITIVE
     rows = _read_csv(out_dir / "excluded_picks.csv")
-    assert [(r["line"], r["tx"], r["rx"], r["time_ns"], r["reason"]) for r in rows] == [
+    assert [(r["input_line"], r["tx"], r["rx"], r["time_ns"], r["reason"]) for r in rows] == [
         ("2", *nan_pair, "NaN", EXCLUDED_NO_PICK),
         ("3", *zero_pair, "0", EXCLUDED_NOT_POSITIVE),
     ]
@@ -520,7 +520,7 @@ def test_bent_rays_through_the_command_line_write_iterations_and_rays(inputs, tm
     rays = pyvista.read(str(out / "rays.vtp"))
     residuals = _read_csv(out / "residuals.csv")
     assert rays.n_cells == len(residuals)  # one polyline per inverted pick
-    assert {"tx", "rx", "observed_ns", "predicted_ns", "pair_index", "line"} <= set(rays.cell_data.keys())
+    assert {"tx", "rx", "time_ns", "predicted_time_ns", "pair_index", "input_line"} <= set(rays.cell_data.keys())
     assert "rays: bent" in stdout and "0 is the starting model" in stdout
     # the progress says in words what iteration 0 is, and each iteration is one short line
     assert "bent-ray iteration 0, the starting model: RMS misfit" in stderr

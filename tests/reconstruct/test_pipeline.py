@@ -72,7 +72,7 @@ def _write_inputs(folder: Path, *, cell: float, rays: str) -> dict:
     truth = parse_truth({
         "bodies": [{"name": "air box", "shape": "box", "centre_m": list(BOX_CENTRE_M), "size_m": [6, 6, 6],
                     "fill": "air"}],
-        "noise": {"sigma_ns": 0.3, "clock_offset_sigma_ns": 1.0, "seed": 5},
+        "noise": {"sigma_ns": 0.3, "time_zero_sigma_ns": 1.0, "seed": 5},
         "refine": 2,
     })
     nodes = read_nodes(paths["nodes"])

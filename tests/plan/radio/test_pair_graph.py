@@ -54,7 +54,7 @@ def test_graph_measures_agree_with_networkx_and_the_far_node_is_deaf(site, tmp_p
     summary = pair_graph_summary(pairs)
     degrees = [d for _, d in nx.degree(g)]
     assert summary["degree"]["max"] == max(degrees) and summary["degree"]["mean"] == pytest.approx(np.mean(degrees))
-    assert summary["deaf_stations"] == [n for n in g if g.degree(n) == 0] == ["FAR"]
+    assert summary["deaf_nodes"] == [n for n in g if g.degree(n) == 0] == ["FAR"]
     assert summary["components"] == nx.number_connected_components(g)
     assert summary["pairs"]["heard"] == g.number_of_edges() == int(pairs.links.heard.sum())
     # nodes in one vertical hole sit on each other's dipole axis: the null, not heard
@@ -77,6 +77,11 @@ def test_files_hold_every_pair_and_read_back(site, tmp_path):
         rows = list(csv.DictReader(handle))
     assert len(rows) == 7 * 6 // 2
     assert all((float(r["margin_db"]) >= 0) == (r["heard"] == "1") for r in rows)
+    # distance_m, as in every other table, is the straight distance between the two nodes (plain geometry)
+    where = {k: nodes.xyz_m[i] for i, k in enumerate(nodes.ids)}
+    for r in rows:
+        assert float(r["distance_m"]) == pytest.approx(np.linalg.norm(where[r["node_a"]] - where[r["node_b"]]),
+                                                       abs=1e-3)
     back = nx.read_graphml(tmp_path / "pairs.graphml")
     assert {frozenset(e) for e in back.edges} == {frozenset(e) for e in pairs.graph.edges}
     assert back.nodes["S1"]["kind"] == "surface"

@@ -49,7 +49,7 @@ def _rock_nodes(n=12, seed=5):
 
 
 def _quiet(**changes):
-    data = {"noise": {"sigma_ns": 0, "clock_offset_sigma_ns": 0, "seed": 1}, "refine": 2}
+    data = {"noise": {"sigma_ns": 0, "time_zero_sigma_ns": 0, "seed": 1}, "refine": 2}
     data.update(changes)
     return parse_truth(data)
 
@@ -64,7 +64,7 @@ def test_no_bodies_no_noise_gives_distance_over_velocity():
     distance = np.linalg.norm(nodes.xyz_m[survey.rx] - nodes.xyz_m[survey.tx], axis=1)
     np.testing.assert_allclose(survey.time_ns, distance / ROCK_M_PER_NS, rtol=1e-10)
     np.testing.assert_allclose(survey.true_travel_time_ns, survey.time_ns, rtol=0, atol=0)
-    np.testing.assert_array_equal(survey.clock_offset_ns, np.zeros(len(nodes)))
+    np.testing.assert_array_equal(survey.time_zero_ns, np.zeros(len(nodes)))
 
 
 def test_background_velocity_of_the_truth_replaces_the_rock_velocity():
@@ -87,10 +87,10 @@ def test_clock_offsets_cancel_in_reciprocal_pairs():
     nodes = _rock_nodes()
     truth = parse_truth({
         "bodies": [{"shape": "ellipsoid", "centre_m": [10, 5, 9], "semi_axes_m": [3, 2, 2], "fill": "water"}],
-        "noise": {"sigma_ns": 0, "clock_offset_sigma_ns": 2.0, "seed": 11},
+        "noise": {"sigma_ns": 0, "time_zero_sigma_ns": 2.0, "seed": 11},
     })
     survey = simulate_picks(_site(), nodes, truth, rays="straight")
-    tau = survey.clock_offset_ns
+    tau = survey.time_zero_ns
     assert np.std(tau) > 0.5
     # offsets are reported relative to their mean
     assert abs(np.mean(tau)) < 1e-12
@@ -136,11 +136,11 @@ def test_max_distance_keeps_only_near_pairs():
 
 def test_seed_makes_runs_repeatable():
     nodes = _rock_nodes()
-    noisy = {"noise": {"sigma_ns": 0.5, "clock_offset_sigma_ns": 1.0, "seed": 42}}
+    noisy = {"noise": {"sigma_ns": 0.5, "time_zero_sigma_ns": 1.0, "seed": 42}}
     a = simulate_picks(_site(), nodes, parse_truth(noisy), rays="straight")
     b = simulate_picks(_site(), nodes, parse_truth(noisy), rays="straight")
     np.testing.assert_array_equal(a.time_ns, b.time_ns)
-    np.testing.assert_array_equal(a.clock_offset_ns, b.clock_offset_ns)
+    np.testing.assert_array_equal(a.time_zero_ns, b.time_zero_ns)
     c = simulate_picks(_site(), nodes, parse_truth({"noise": {**noisy["noise"], "seed": 43}}), rays="straight")
     assert not np.array_equal(a.time_ns, c.time_ns)
     np.testing.assert_array_equal(a.true_travel_time_ns, c.true_travel_time_ns)
@@ -221,7 +221,7 @@ def test_gross_errors_share_size_sign_and_seed():
 def test_outliers_leave_the_other_picks_unchanged():
     site = _site()
     nodes = _nodes([[4, 5, 2], [4, 5, 8], [4, 5, 14], [16, 5, 2], [16, 5, 8], [16, 5, 14]])
-    noise = {"sigma_ns": 0.3, "clock_offset_sigma_ns": 1.0, "seed": 5}
+    noise = {"sigma_ns": 0.3, "time_zero_sigma_ns": 1.0, "seed": 5}
     clean = simulate_picks(site, nodes, parse_truth({"noise": noise, "refine": 1}), rays="straight")
     dirty = simulate_picks(site, nodes, parse_truth({"noise": {**noise, "outlier_fraction": 0.1}, "refine": 1}),
                            rays="straight")

@@ -31,7 +31,7 @@ def _truth(**changes):
         "background_velocity_m_per_ns": 0.115,
         "bodies": [{"name": "cavity", "shape": "ellipsoid", "centre_m": [40, 22, 101],
                     "semi_axes_m": [5, 4, 2.5], "fill": "air"}],
-        "noise": {"sigma_ns": 0.5, "clock_offset_sigma_ns": 1.5, "seed": 7},
+        "noise": {"sigma_ns": 0.5, "time_zero_sigma_ns": 1.5, "seed": 7},
         "refine": 2,
     }
     data.update(changes)
@@ -56,7 +56,7 @@ def test_docstring_example_parses():
     truth = parse_truth(_truth(), source="truth.yaml")
     assert isinstance(truth, TruthModel)
     assert truth.background_velocity_m_per_ns == 0.115
-    assert truth.noise_sigma_ns == 0.5 and truth.clock_offset_sigma_ns == 1.5
+    assert truth.noise_sigma_ns == 0.5 and truth.time_zero_sigma_ns == 1.5
     assert truth.seed == 7 and truth.refine == 2 and truth.source == "truth.yaml"
     (body,) = truth.bodies
     assert body.shape == "ellipsoid"
@@ -68,7 +68,7 @@ def test_defaults():
     truth = parse_truth({})
     assert truth.background_velocity_m_per_ns is None  # the site's rock velocity is used
     assert truth.bodies == ()
-    assert (truth.noise_sigma_ns, truth.clock_offset_sigma_ns, truth.seed, truth.refine) == (0.5, 0.0, 0, 2)
+    assert (truth.noise_sigma_ns, truth.time_zero_sigma_ns, truth.seed, truth.refine) == (0.5, 0.0, 0, 2)
 
 
 def test_box_size_is_halved_into_half_edges():

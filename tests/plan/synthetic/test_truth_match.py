@@ -15,7 +15,7 @@ import pytest
 
 from plan.synthetic.truth import FILL_VELOCITY_M_PER_NS, Body
 from plan.synthetic.truth_match import expected_fill, match_truth_bodies
-from reconstruct.interpret.bodies import FILL_AIR, FILL_WATER_OR_CLAY, STATUS_UNRESOLVED, STATUS_VOID
+from reconstruct.interpret.bodies import FILL_AIR, FILL_WATER_OR_CLAY, STATUS_UNRESOLVED, STATUS_RESOLVED
 
 ROCK = 0.115
 
@@ -24,9 +24,9 @@ def _body(name, centre, half, fill):
     return Body(name, "ellipsoid", tuple(centre), tuple(half), fill, FILL_VELOCITY_M_PER_NS[fill])
 
 
-def _row(body_id, centre, fill, volume=100.0, status=STATUS_VOID):
+def _row(body_id, centre, fill, volume=100.0, status=STATUS_RESOLVED):
     x, y, z = centre
-    return {"id": body_id, "status": status, "fill": fill, "volume_m3": volume,
+    return {"body_id": body_id, "status": status, "fill": fill, "volume_m3": volume,
             "centroid_x_m": x, "centroid_y_m": y, "centroid_z_m": z}
 
 
@@ -45,7 +45,7 @@ def test_found_void_reports_offset_and_volumes():
     found = (43.0, 15.0, 89.0)
     [match] = match_truth_bodies([AIR], [_row(1, found, FILL_AIR, volume=180.0)], background_velocity_m_per_ns=ROCK,
                                  tolerance_m=4.0)
-    assert match.found and match.void_id == 1
+    assert match.found and match.body_id == 1
     assert match.offset_m == pytest.approx(np.linalg.norm(np.subtract(found, AIR.centre_m)))
     assert match.truth_volume_m3 == pytest.approx(4 / 3 * math.pi * 4 * 3.5 * 2.5)
     assert match.reach_m == pytest.approx(4.0 + 4.0)

@@ -41,7 +41,7 @@ from reconstruct.checks.picks import (
     FLAG_FASTER_THAN_AIR,
     FLAG_RECIPROCAL,
     FLAG_SLOWER_THAN_BAND,
-    QCOptions,
+    PickCheckOptions,
     air_wave_times,
     check_picks,
     check_site_picks,
@@ -63,7 +63,7 @@ GROUND_M = 30.0
 
 def _site():
     return parse_site({
-        "name": "qc test box (invented)",
+        "name": "pick checks test box (invented)",
         "model": {"origin_m": [0, 0, 0], "size_m": [30, 10, 32], "cell_m": 1.0},
         "ground": {"flat_elevation_m": GROUND_M},
         "rock": {"velocity_m_per_ns": 0.12, "conductivity_ms_per_m": 1.0, "antenna_frequency_mhz": 100},
@@ -91,7 +91,7 @@ def _survey(both_directions=True, outlier_fraction=0.02, seed=11, bodies=True):
     truth = parse_truth({
         "bodies": [{"name": "fast box", "shape": "box", "centre_m": [15, 5, 16], "size_m": [4, 4, 3],
                     "fill": "air"}] if bodies else [],
-        "noise": {"sigma_ns": 0.3, "clock_offset_sigma_ns": 1.5, "seed": seed,
+        "noise": {"sigma_ns": 0.3, "time_zero_sigma_ns": 1.5, "seed": seed,
                   "outlier_fraction": outlier_fraction, "outlier_size_ns": 20.0},
         "refine": 1,
     })
@@ -121,11 +121,11 @@ def test_clock_offsets_recovered_within_0_3_ns(two_way):
     site, nodes, picks, survey = two_way
     placement, checks = check_site_picks(site, nodes, picks)
     # reciprocity: (t_ab - t_ba) / 2 holds only tau_b - tau_a (and noise), whatever the rock
-    truth = survey.clock_offset_ns - survey.clock_offset_ns.mean()
-    assert np.max(np.abs(checks.clock_ns - truth)) < 0.3
+    truth = survey.time_zero_ns - survey.time_zero_ns.mean()
+    assert np.max(np.abs(checks.time_zero_ns - truth)) < 0.3
 
 
-def test_transmit_delay_of_one_node_shows_in_its_tx_time_zero():
+def test_transmit_delay_of_one_node_shows_in_its_delay():
     # homogeneous rock at the site's velocity: the straight-path times are exact
     site, nodes, picks, survey = _survey(outlier_fraction=0.0, bodies=False)
     import dataclasses
@@ -133,15 +133,16 @@ def test_transmit_delay_of_one_node_shows_in_its_tx_time_zero():
     k = nodes.index_of("B1-05")
     delayed = dataclasses.replace(picks, time_ns=picks.time_ns + 3.0 * (picks.tx == k))
     _, checks = check_site_picks(site, nodes, delayed)
-    truth = survey.clock_offset_ns - survey.clock_offset_ns.mean()
-    # t_ab = T_ab + rx_time_zero_b - tx_time_zero_a: firing 3 ns late lowers tx_time_zero by 3 ns
-    split = checks.tx_time_zero_ns - checks.rx_time_zero_ns
+    truth = survey.time_zero_ns - survey.time_zero_ns.mean()
+    # t_ab = T_ab + rx_time_zero_b - tx_time_zero_a: firing 3 ns late lowers tx_time_zero by 3 ns;
+    # tx_time_zero - rx_time_zero = (time_zero - delay) - (time_zero + delay) = -2 delay
+    split = -2.0 * checks.delay_ns
     assert split[k] == pytest.approx(-3.0, abs=0.3)
     others = np.arange(len(nodes)) != k
     assert np.max(np.abs(split[others])) < 0.5  # a few effective rows per node: noise of 0.3 ns picks
     # the clock (mean of the two) of the other nodes is still the injected one
-    shift = np.mean((checks.clock_ns - truth)[others])
-    assert np.max(np.abs((checks.clock_ns - truth - shift)[others])) < 0.3
+    shift = np.mean((checks.time_zero_ns - truth)[others])
+    assert np.max(np.abs((checks.time_zero_ns - truth - shift)[others])) < 0.3
 
 
 def test_pick_noise_from_reciprocity_and_outliers_flagged(two_way):
@@ -286,7 +287,7 @@ def test_refracted_air_wave_matches_the_worked_example():
 
 
 def _hand_picks(rows, velocity_m_per_ns):
-    """Picks on the qc test site from (tx id, rx id, time) rows, after exact rock
+    """Picks on the pick checks test site from (tx id, rx id, time) rows, after exact rock
     times between every other pair of borehole nodes (they pin the clocks at 0)."""
     nodes = _nodes()
     special = {(nodes.index_of(a), nodes.index_of(b)) for a, b, _ in rows}
@@ -328,10 +329,10 @@ def test_air_wave_and_band_flags_on_hand_made_picks():
     assert checks.flags[4] == (FLAG_SLOWER_THAN_BAND,)
     assert checks.flags[5] == (FLAG_FASTER_THAN_AIR,)
     assert not any(checks.flags[6:])
-    assert QCOptions().velocity_min_m_per_ns <= 0.033 and QCOptions().velocity_max_m_per_ns == 0.30
+    assert PickCheckOptions().velocity_min_m_per_ns <= 0.033 and PickCheckOptions().velocity_max_m_per_ns == 0.30
     assert usability_problems(picks, checks) == []  # 2 implausible picks of many: under 1 %
     strict = check_picks(nodes, picks, xyz, site.ground.elevation_m, v,
-                         options=QCOptions(max_implausible_fraction=0.0))
+                         options=PickCheckOptions(max_implausible_fraction=0.0))
     problems = usability_problems(picks, strict)
     assert len(problems) == 1 and "lines 6, 7" in problems[0] and problems[0].startswith("hand.csv")
     straight = picks_for_inversion(picks, nodes, checks, rays="straight")

@@ -21,7 +21,7 @@ from reconstruct.interpret.bodies import (
     FILL_AIR,
     FILL_WATER_OR_CLAY,
     STATUS_UNRESOLVED,
-    STATUS_VOID,
+    STATUS_RESOLVED,
     VOID_TABLE_COLUMNS,
     VoidOptions,
     detection_sigmas,
@@ -62,7 +62,7 @@ def test_ellipsoid_volume_and_centroid():
     inside = (((grid.cell_centres_m() - centre) / semi_axes) ** 2).sum(axis=-1) <= 1.0
     slowness = np.where(inside, 1.0 / 0.25, slowness)
     analysis = _find(grid, slowness, ground, surface)
-    voids = [b for b in analysis.bodies if b.status == STATUS_VOID]
+    voids = [b for b in analysis.bodies if b.status == STATUS_RESOLVED]
     assert len(voids) == 1
     body = voids[0]
     exact = 4.0 / 3.0 * math.pi * semi_axes.prod()  # volume of an ellipsoid
@@ -83,7 +83,7 @@ def test_smoothed_ellipsoid_is_cut_smaller_than_it_is():
     semi_axes = np.array([6.0, 4.0, 3.0])
     inside = (((grid.cell_centres_m() - centre) / semi_axes) ** 2).sum(axis=-1) <= 1.0
     slowness = slowness + ndimage.gaussian_filter(np.where(inside, 1.0 / 0.25 - 1.0 / ROCK, 0.0), 1.0)
-    body = [b for b in _find(grid, slowness, ground, surface).bodies if b.status == STATUS_VOID][0]
+    body = [b for b in _find(grid, slowness, ground, surface).bodies if b.status == STATUS_RESOLVED][0]
     exact = 4.0 / 3.0 * math.pi * semi_axes.prod()
     assert 0.70 * exact < body.volume_m3 < exact
     assert np.all(np.abs(np.asarray(body.centroid_m) - centre) <= 1.0)
@@ -94,7 +94,7 @@ def test_noise_only_cube_yields_no_void(seed, smooth_cells):
     # noise five times the misfit floor, so the threshold comes from the cube's own spread
     grid, ground, slowness, surface = _cube((40, 30, 30), (0, 0, 0), 28.0, 0.4, seed, smooth_cells)
     analysis = _find(grid, slowness, ground, surface)
-    assert [b for b in analysis.bodies if b.status == STATUS_VOID] == []
+    assert [b for b in analysis.bodies if b.status == STATUS_RESOLVED] == []
     assert analysis.parameters["sigma_model_ns_per_m"] == pytest.approx(0.4, rel=0.1)
 
 
@@ -108,22 +108,22 @@ def test_box_void_under_flat_ground_roof_thickness_and_work_distances():
     )
     analysis = _find(grid, slowness, ground, surface, planned_works=works[1:])
     body = analysis.bodies[0]
-    assert body.status == STATUS_VOID and body.n_cells == 6 * 4 * 5
+    assert body.status == STATUS_RESOLVED and body.n_cells == 6 * 4 * 5
     assert body.roof_elevation_m == pytest.approx(85.0)
-    assert body.roof_to_ground_m == pytest.approx(100.0 - 85.0)  # geometry: ground 100, roof 85
+    assert body.roof_thickness_m == pytest.approx(100.0 - 85.0)  # geometry: ground 100, roof 85
     assert body.roof_depth_m == pytest.approx(15.0)
     assert body.bbox_min_m == pytest.approx((10.0, 8.0, 80.0))
     assert body.bbox_max_m == pytest.approx((16.0, 12.0, 85.0))
-    assert body.largest_span_m == pytest.approx(math.hypot(6.0, 4.0))  # plan diagonal
+    assert body.span_m == pytest.approx(math.hypot(6.0, 4.0))  # plan diagonal
     assert (body.width_m, body.length_m) == pytest.approx((4.0, 6.0))
     # the northern road passes 8 m north of the box and 15 m above its roof
     assert body.nearest_work == "road to the north"
-    assert body.standoff_to_work_m == pytest.approx(math.hypot(20.0 - 12.0, 100.0 - 85.0), abs=1e-6)
+    assert body.standoff_m == pytest.approx(math.hypot(20.0 - 12.0, 100.0 - 85.0), abs=1e-6)
     assert math.isinf(body.roof_below_work_m)
     over = _find(grid, slowness, ground, surface, planned_works=works).bodies[0]
     assert over.nearest_work == "road over it" and over.roof_below_work_name == "road over it"
     assert over.roof_below_work_m == pytest.approx(15.0)
-    assert over.standoff_to_work_m == pytest.approx(15.0)
+    assert over.standoff_m == pytest.approx(15.0)
 
 
 def test_slow_body_is_water_or_clay_and_a_small_one_is_unresolved():
@@ -133,13 +133,13 @@ def test_slow_body_is_water_or_clay_and_a_small_one_is_unresolved():
     analysis = _find(grid, slowness, ground, surface)
     by_fill = {b.fill: b for b in analysis.bodies}
     slow, small = by_fill[FILL_WATER_OR_CLAY], by_fill[FILL_AIR]
-    assert slow.status == STATUS_VOID and slow.n_cells == 8 * 7 * 6
+    assert slow.status == STATUS_RESOLVED and slow.n_cells == 8 * 7 * 6
     assert slow.extreme_velocity_m_per_ns == pytest.approx(0.06, rel=0.01)
     assert slow.confidence != "high"  # first arrivals avoid slow bodies
     assert small.status == STATUS_UNRESOLVED and small.n_cells == 8
-    assert small.resolution_m > small.largest_span_m
-    assert analysis.bodies[0].status == STATUS_VOID  # voids listed first
-    assert analysis.labels[6, 6, 10] == slow.id and analysis.labels[0, 0, 0] == 0
+    assert small.resolution_m > small.span_m
+    assert analysis.bodies[0].status == STATUS_RESOLVED  # voids listed first
+    assert analysis.labels[6, 6, 10] == slow.body_id and analysis.labels[0, 0, 0] == 0
 
 
 def test_background_is_the_rock_and_uncovered_bodies_get_low_confidence():

@@ -38,25 +38,33 @@ def test_voids_command_writes_the_table_meshes_and_manifest(make_inversion_folde
     assert main(["voids", str(folder), "--no-pictures", "--quiet"]) == 0
     out = capsys.readouterr().out
     assert "voids: 1," in out and "not a design" in out
-    for name in ("voids.csv", "voids.json", "hazard.csv", "interpretation.vti", "voids.vtp", "ground.vtp"):
+    for name in ("voids.csv", "voids.json", "screening.csv", "interpretation.vti", "voids.vtp", "ground.vtp"):
         assert (folder / name).is_file(), name
     # inputs untouched (the manifest is extended, not an input)
     after = _hashes(folder)
     for name in ("velocity.vti", "summary.json", "residuals.csv", "nodes_used.csv"):
         assert after[name] == before[name]
     rows = _csv_rows(folder / "voids.csv")
-    void = [r for r in rows if r["status"] == "void"]
+    assert list(rows[0])[:3] == ["body_id", "status", "fill"]
+    void = [r for r in rows if r["status"] == "resolved"]
     assert len(void) == 1
     assert float(void[0]["volume_m3"]) == pytest.approx(7 * 5 * 5)
-    assert float(void[0]["roof_to_ground_m"]) == pytest.approx(20.0 - 13.0)
+    assert void[0]["fill"] == "air"
+    assert float(void[0]["roof_thickness_m"]) == pytest.approx(20.0 - 13.0)
     assert float(void[0]["roof_below_work_m"]) == pytest.approx(7.0)
     assert void[0]["nearest_work"] == "haul road"
     content = json.loads((folder / "voids.json").read_text(encoding="utf-8"))
-    assert content["method"]["sigmas"] > 1.96 and content["depth_slabs"][0]["threshold_ns_per_m"] > 0
+    assert content["method"]["threshold_sigmas"] > 1.96 and content["depth_slabs"][0]["threshold_ns_per_m"] > 0
     assert any("probe drilling" in c for c in content["cautions"])
     assert any("soils" in c for c in content["cautions"])
-    hazard = _csv_rows(folder / "hazard.csv")
-    assert hazard[0]["rank"] == "1" and "haul road" in hazard[0]["reasons"]
+    screening = _csv_rows(folder / "screening.csv")
+    assert screening[0]["rank"] == "1" and "haul road" in screening[0]["reasons"]
+    assert screening[0]["body_id"] == void[0]["body_id"]
+    # one name per quantity in every table (docs/glossary.md)
+    for key in ("roof_thickness_m", "roof_below_work_m", "span_m", "standoff_m"):
+        assert screening[0][key] == void[0][key], key
+    assert content["screening"]["ranked"][0]["body_id"] == int(void[0]["body_id"])
+    assert content["counts"] == {"resolved": 1, "unresolved": content["counts"]["unresolved"]}
     manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
     assert manifest["command"] == "voidcube reconstruct invert"
     assert manifest["later_runs"][-1]["command"] == "voidcube reconstruct voids"

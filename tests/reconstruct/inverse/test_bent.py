@@ -159,7 +159,7 @@ def test_bent_iterations_lower_the_misfit_below_the_straight_ray_start():
                   boreholes=(None,) * n, lines=np.arange(2, n + 2), source="nodes.csv")
     truth = parse_truth({
         "bodies": [{"shape": "ellipsoid", "centre_m": [10, 4.5, 9], "semi_axes_m": [3, 3, 3], "fill": "air"}],
-        "noise": {"sigma_ns": 0.3, "clock_offset_sigma_ns": 0.0, "seed": 3}, "refine": 2,
+        "noise": {"sigma_ns": 0.3, "time_zero_sigma_ns": 0.0, "seed": 3}, "refine": 2,
     })
     survey = simulate_picks(site, nodes, truth, rays="bent", executor=Executor(kind="serial"))
     m = survey.tx.size

@@ -39,9 +39,9 @@ def test_round_trip_of_cells_points_and_arrays(tmp_path):
         rays,
         tx_ids=["T1", "T1", "B2-07"],
         rx_ids=["R4", "R5", "T1"],
-        observed_ns=[101.5, np.nan, 33.0],
-        predicted_ns=[100.25, 80.0, 33.5],
-        lines=[2, 3, 7],
+        time_ns=[101.5, np.nan, 33.0],
+        predicted_time_ns=[100.25, 80.0, 33.5],
+        input_lines=[2, 3, 7],
     )
     assert path == tmp_path / "out" / "rays.vtp"
     assert os.listdir(path.parent) == ["rays.vtp"]
@@ -53,13 +53,13 @@ def test_round_trip_of_cells_points_and_arrays(tmp_path):
         assert mesh.get_cell(i).type == expected
         assert np.array_equal(_polyline(mesh, i), ray)
     data = mesh.cell_data
-    assert set(data.keys()) == {"pair_index", "tx", "rx", "observed_ns", "predicted_ns", "line"}
+    assert set(data.keys()) == {"pair_index", "tx", "rx", "time_ns", "predicted_time_ns", "input_line"}
     assert np.array_equal(data["pair_index"], [0, 1, 2])
     assert list(data["tx"]) == ["T1", "T1", "B2-07"]
     assert list(data["rx"]) == ["R4", "R5", "T1"]
-    assert np.array_equal(data["observed_ns"], [101.5, np.nan, 33.0], equal_nan=True)
-    assert np.array_equal(data["predicted_ns"], [100.25, 80.0, 33.5])
-    assert np.array_equal(data["line"], [2, 3, 7])
+    assert np.array_equal(data["time_ns"], [101.5, np.nan, 33.0], equal_nan=True)
+    assert np.array_equal(data["predicted_time_ns"], [100.25, 80.0, 33.5])
+    assert np.array_equal(data["input_line"], [2, 3, 7])
 
 
 def test_optional_arrays_are_left_out_when_not_given(tmp_path):
@@ -85,16 +85,16 @@ def test_node_ids_beyond_ascii_survive(tmp_path):
 def test_no_rays_give_an_empty_file(tmp_path):
     import pyvista
 
-    mesh = pyvista.read(write_rays_vtp(tmp_path / "rays.vtp", [], tx_ids=[], rx_ids=[], observed_ns=[]))
+    mesh = pyvista.read(write_rays_vtp(tmp_path / "rays.vtp", [], tx_ids=[], rx_ids=[], time_ns=[]))
     assert mesh.n_cells == 0
-    assert len(mesh.cell_data["observed_ns"]) == 0
+    assert len(mesh.cell_data["time_ns"]) == 0
 
 
 def test_inputs_are_not_modified(tmp_path):
     rays = _rays()
     copies = [r.copy() for r in rays]
     observed = np.array([1.0, 2.0, 3.0])
-    write_rays_vtp(tmp_path / "rays.vtp", rays, tx_ids=["a", "b", "c"], rx_ids=["d", "e", "f"], observed_ns=observed)
+    write_rays_vtp(tmp_path / "rays.vtp", rays, tx_ids=["a", "b", "c"], rx_ids=["d", "e", "f"], time_ns=observed)
     assert all(np.array_equal(r, c) for r, c in zip(rays, copies))
     assert np.array_equal(observed, [1.0, 2.0, 3.0])
 
@@ -106,8 +106,8 @@ def test_inputs_are_not_modified(tmp_path):
         ([np.zeros((2, 2))], {}, r"polylines\[0\] has shape \(2, 2\); expected \(k, 3\) with k >= 2"),
         ([np.array([[0, 0, 0], [np.nan, 0, 0]])], {}, r"polylines\[0\] has non-finite coordinates"),
         ([np.zeros((2, 3))], {"tx_ids": []}, r"tx_ids has 0 entries, expected one per polyline \(1\)"),
-        ([np.zeros((2, 3))], {"lines": [1, 2]}, r"lines has shape \(2,\), expected \(1,\)"),
-        ([np.zeros((2, 3))], {"predicted_ns": [[1.0]]}, r"predicted_ns has shape \(1, 1\), expected \(1,\)"),
+        ([np.zeros((2, 3))], {"input_lines": [1, 2]}, r"input_lines has shape \(2,\), expected \(1,\)"),
+        ([np.zeros((2, 3))], {"predicted_time_ns": [[1.0]]}, r"predicted_time_ns has shape \(1, 1\), expected \(1,\)"),
     ],
 )
 def test_wrong_arguments_are_named_and_nothing_is_written(tmp_path, polylines, kwargs, message):

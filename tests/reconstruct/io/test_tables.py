@@ -325,8 +325,8 @@ def test_write_excluded_csv_path_and_buffer(tmp_path, nodes):
     assert os.listdir(out.parent) == ["excluded.csv"]  # no temporary file left behind
     with open(out, newline="", encoding="utf-8") as f:
         rows = list(csv.DictReader(f))
-    assert list(rows[0]) == ["line", "tx", "rx", "time_ns", "reason"]
-    assert [(r["line"], r["tx"], r["rx"], r["time_ns"], r["reason"]) for r in rows] == [
+    assert list(rows[0]) == ["input_line", "tx", "rx", "time_ns", "reason"]
+    assert [(r["input_line"], r["tx"], r["rx"], r["time_ns"], r["reason"]) for r in rows] == [
         ("2", "T1", "T1", "5", EXCLUDED_SAME_NODE), ("3", "T1", "R1", "", EXCLUDED_NO_PICK),
         ("4", "T2", "R2", "-1", EXCLUDED_NOT_POSITIVE)]
     buffer = io.StringIO()

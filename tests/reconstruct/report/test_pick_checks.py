@@ -16,6 +16,7 @@ import hashlib
 import html
 import html.parser
 import json
+import re
 
 import numpy as np
 import pytest
@@ -32,7 +33,7 @@ from tests.cli_helpers import run_main
 SPEED_OF_LIGHT_M_PER_NS = scipy.constants.c * 1e-9
 
 SITE = """\
-name: qc report box (invented)
+name: pick checks box (invented)
 model: {origin_m: [0, 0, 0], size_m: [24, 8, 24], cell_m: 1.0}
 ground: {flat_elevation_m: 22}
 rock: {velocity_m_per_ns: 0.12, conductivity_ms_per_m: 1.0, antenna_frequency_mhz: 100}
@@ -53,7 +54,7 @@ def _inputs(folder):
     site, nodes, picks = folder / "site.yaml", folder / "nodes.csv", folder / "picks.csv"
     site.write_text(SITE, encoding="utf-8")
     nodes.write_text("\n".join(rows) + "\n", encoding="utf-8")
-    truth = parse_truth({"noise": {"sigma_ns": 0.3, "clock_offset_sigma_ns": 1.0, "seed": 4,
+    truth = parse_truth({"noise": {"sigma_ns": 0.3, "time_zero_sigma_ns": 1.0, "seed": 4,
                                    "outlier_fraction": 0.02, "outlier_size_ns": 20}, "refine": 1})
     table = read_nodes(nodes)
     survey = simulate_picks(load_site(site), table, truth, rays="straight")
@@ -97,40 +98,46 @@ class _Images(html.parser.HTMLParser):
             self.images += 1
 
 
-def test_qc_writes_every_output_and_flags_lines(tmp_path):
+def test_pick_checks_write_every_output_and_flag_input_lines(tmp_path):
     site, nodes, picks, xyz = _inputs(tmp_path / "in")
     _plant_faster_than_air(picks, xyz, [5])
     before = _sha(picks)
     out = tmp_path / "qc"
     code, stdout, stderr = _run(["check-picks", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out])
     assert code == 0, stderr
-    assert sorted(p.name for p in out.iterdir()) == ["manifest.json", "node_clocks.csv", "qc.csv", "qc.html",
-                                                     "qc.json"]
+    assert sorted(p.name for p in out.iterdir()) == ["manifest.json", "node_time_zero.csv", "pick_checks.csv",
+                                                     "pick_checks.html", "pick_checks.json"]
     assert _sha(picks) == before  # the pick table is never changed
-    rows = _read_csv(out / "qc.csv")
+    rows = _read_csv(out / "pick_checks.csv")
     n_picks = len(picks.read_text().splitlines()) - 1
     assert len(rows) == n_picks
-    by_line = {int(r["line"]): r for r in rows}
+    by_line = {int(r["input_line"]): r for r in rows}
     assert "faster_than_air" in by_line[5]["flags"].split(";") and by_line[5]["action"] == "excluded"
-    assert by_line[5]["reciprocal_line"] != ""  # every pair was measured both ways
-    summary = json.loads((out / "qc.json").read_text())
+    assert by_line[5]["reciprocal_input_line"] != ""  # every pair was measured both ways
+    summary = json.loads((out / "pick_checks.json").read_text())
     assert summary["picks"]["flag_counts"]["faster_than_air"] >= 1
     assert summary["usable"] is True  # one impossible pick of 552 is under 1 %
     assert summary["reciprocity"]["pairs"] == n_picks // 2
     assert summary["sigma"]["pick_noise_from_reciprocity_ns"] == pytest.approx(0.3, rel=0.25)
-    assert set(summary["clocks"]["per_node"]) == set(xyz)
-    clocks = _read_csv(out / "node_clocks.csv")
-    assert [r["node_id"] for r in clocks] == list(xyz)
-    page = (out / "qc.html").read_text(encoding="utf-8")
+    assert set(summary["time_zero"]["per_node"]) == set(xyz)
+    time_zero = _read_csv(out / "node_time_zero.csv")
+    assert [r["node_id"] for r in time_zero] == list(xyz)
+    assert list(time_zero[0]) == ["node_id", "time_zero_ns", "delay_ns", "depth_m", "picks_as_tx", "picks_as_rx",
+                                  "reciprocal_pairs", "median_residual_ns"]
+    page = (out / "pick_checks.html").read_text(encoding="utf-8")
+    text = re.sub(r"data:image/png;base64,[A-Za-z0-9+/=]+", "", page)
+    assert "QC" not in text and "quality control" not in text.lower()  # docs/glossary.md: "pick checks"
+    assert "Node time-zero offsets" in page and "input line" in page
     assert all(html.escape(c, quote=True) in page for c in CAUTIONS)
     parser = _Images()
     parser.feed(page)
     assert parser.images == 4  # time-distance, reciprocity, histogram, node map
     manifest = json.loads((out / "manifest.json").read_text())
-    assert set(manifest["outputs"]) == {"manifest.json", "node_clocks.csv", "qc.csv", "qc.html", "qc.json"}
+    assert set(manifest["outputs"]) == {"manifest.json", "node_time_zero.csv", "pick_checks.csv", "pick_checks.html",
+                                        "pick_checks.json"}
     assert {k for k in manifest["inputs"]} == {"site", "nodes", "picks"}
     assert "flagged: " in stdout and "verdict: usable" in stdout
-    assert 5 in summary["picks"]["faster_than_air_lines"]
+    assert 5 in summary["picks"]["faster_than_air_input_lines"]
     assert "faster than air (impossible)" in stdout and "lines 5" in stdout
 
 
@@ -153,7 +160,7 @@ def test_invert_refuses_unusable_picks_then_accepts_with_the_flag(tmp_path):
     assert code == 0, stderr
     excluded = _read_csv(out / "excluded_picks.csv")
     # the planted lines, and perhaps an early gross outlier of the simulation
-    assert set(planted) <= {int(r["line"]) for r in excluded if "faster than air" in r["reason"]}
+    assert set(planted) <= {int(r["input_line"]) for r in excluded if "faster than air" in r["reason"]}
     summary = json.loads((out / "summary.json").read_text())
     assert summary["pick_checks"]["inverted_despite_problems"] is True
     assert summary["picks"]["inverted"] == len(picks.read_text().splitlines()) - 1 - len(excluded)

@@ -49,7 +49,11 @@ def test_report_is_self_contained_escaped_and_cautious(make_inversion_folder, ca
         assert 0 < page.index(caution.split(";")[0].replace("'", "&#x27;")) < first_table
     assert "probe drilling" in page[:first_table] and "not a design" in page[:first_table]
     assert "Void table" in page and "Data quality and resolution" in page and "Manifest" in page
-    assert re.search(r"<td>1</td><td class=\"text\">air-filled \(fast\)</td>", page)  # void table row
+    # void table row: body 1, its fill in words (docs/glossary.md: fill air, shown as words)
+    assert re.search(r"<td>1</td><td class=\"text\">air-filled \(faster than the rock\)</td>", page)
+    text = re.sub(r"data:image/png;base64,[A-Za-z0-9+/=]+", "", page.split("<h2>Manifest</h2>")[0])
+    for identifier in ("roof_thickness_m", "standoff_m", "span_m", "body_id", "water_or_clay", "hazard"):
+        assert identifier not in text, identifier  # words, not code identifiers, before the manifest
     manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
     assert [r["command"] for r in manifest["later_runs"]] == ["voidcube reconstruct voids", "voidcube reconstruct report"]
 

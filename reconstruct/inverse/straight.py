@@ -59,6 +59,15 @@ _METHOD_WORDS = {"discrepancy": "chosen so that the misfit matches the pick unce
                  "l-curve": "chosen at the corner of the L-curve", "user": "as given"}
 
 
+def _weight_words(result) -> str:
+    """How the smoothing weight was chosen, and whether the target misfit was reached, in words."""
+    words = _METHOD_WORDS.get(result.lambda_method, result.lambda_method)
+    if "not reached" in (result.lambda_note or ""):
+        words = ("the misfit could not be brought down to the pick uncertainties: "
+                 + result.lambda_note.replace("chi^2", "chi-square"))
+    return words
+
+
 def solver_progress(progress):
     """The solver's per-solve messages, marked as detail (``solver: ...``).
 
@@ -136,8 +145,7 @@ def straight_ray_tomography(
         if options.smoothing is None else ""))
     result = solve_inverse_problem(problem, G, progress=solver_progress(progress))
     _say(progress, f"straight-ray model: RMS misfit {result.rms_ns:.3f} ns over {used.size:,} picks; smoothing "
-                   f"weight {result.lambda_smooth:.3g} "
-                   f"({_METHOD_WORDS.get(result.lambda_method, result.lambda_method)})")
+                   f"weight {result.lambda_smooth:.3g} ({_weight_words(result)})")
     ray_length, ray_count = ray_coverage(G, grid)
     return TomographyRun(
         site=site, grid=grid, ground=ground, nodes=nodes, placement=placement, picks=picks,

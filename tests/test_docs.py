@@ -190,11 +190,23 @@ def test_relative_links_point_to_files(page):
     text = page.read_text(encoding="utf-8")
     broken = []
     for target in re.findall(r"\]\(([^)\s]+)\)", text):
-        if re.match(r"[a-z]+:", target) or target.startswith("#"):
-            continue  # a web address or an anchor in the same page
-        if not (page.parent / target.split("#")[0]).exists():
+        if re.match(r"[a-z]+:", target):
+            continue  # a web address
+        path, _, anchor = target.partition("#")
+        linked = (page.parent / path) if path else page
+        if not linked.exists():
             broken.append(target)
-    assert not broken, f"{page.relative_to(REPO)}: links to missing files: {broken}"
+        elif anchor and linked.suffix == ".md" and anchor not in _anchors(linked):
+            broken.append(target)
+    assert not broken, f"{page.relative_to(REPO)}: links to missing files or headings: {broken}"
+
+
+def _anchors(page: Path) -> set[str]:
+    """The anchors of a Markdown page's headings, as GitHub makes them
+    (lower case, punctuation dropped, spaces to hyphens)."""
+    text = re.sub(r"^```.*?^```", "", page.read_text(encoding="utf-8"), flags=re.M | re.S)
+    headings = re.findall(r"^#{1,6}\s+(.*?)\s*$", text, re.M)
+    return {re.sub(r"[^\w\- ]", "", h.lower().replace("`", "")).replace(" ", "-") for h in headings}
 
 
 def test_demo_figures_page_is_generated():

@@ -13,7 +13,7 @@ What is checked, and why:
 
 The command tree is read from the argparse parsers themselves (their
 ``_actions``, and ``choices`` of each sub-parser action), not from a list
-kept by hand. To point the walk at another parser, edit ``COMMAND_PARSERS``.
+kept by hand. To point the walk at another parser, edit ``GROUP_PARSERS``.
 """
 
 from __future__ import annotations
@@ -28,14 +28,33 @@ import pytest
 REPO = Path(__file__).resolve().parents[1]
 DOCS = REPO / "docs"
 
-#: The parsers whose commands and options must be documented: (program name,
-#: "module:function" returning an argparse.ArgumentParser). When the single
-#: ``voidcube`` parser holds every group, this list shrinks to that one entry.
-COMMAND_PARSERS = [
+#: The parsers whose commands and options must be documented: (command words,
+#: "module:function" returning an argparse.ArgumentParser). With one
+#: ``voidcube`` command (plan/voidcube.py) each group has its own parser;
+#: before it, three console scripts had theirs. To point the walk at another
+#: parser, edit these lists.
+GROUP_PARSERS = [
+    ("voidcube plan", "plan.cli:build_parser"),
+    ("voidcube reconstruct", "reconstruct.cli:build_parser"),
+    ("voidcube demo", "plan.demo:build_parser"),
+]
+OLD_PARSERS = [
     ("voidcube", "plan.demo:build_parser"),
     ("reconstruct", "reconstruct.cli:build_parser"),
     ("plan", "plan.cli:build_parser"),
 ]
+
+
+def command_parsers():
+    """The parsers to walk: the groups of ``voidcube`` when it exists, else the old scripts."""
+    try:
+        groups = importlib.import_module("plan.voidcube").GROUPS
+    except ImportError:
+        return OLD_PARSERS
+    assert set(groups) == {words.split()[1] for words, _ in GROUP_PARSERS}, (
+        f"voidcube has the groups {sorted(groups)}: add the new group's parser to GROUP_PARSERS")
+    return GROUP_PARSERS
+
 
 #: Options every argparse parser has; they need no documentation of their own.
 GENERIC_OPTIONS = {"-h", "--help"}
@@ -80,10 +99,10 @@ def walk_parser(parser: argparse.ArgumentParser, path: tuple[str, ...]):
 
 
 def command_tree():
-    """Every (command path, option) of every parser in COMMAND_PARSERS."""
+    """Every (command path, option) of every parser of :func:`command_parsers`."""
     items = []
-    for program, target in COMMAND_PARSERS:
-        items.extend(walk_parser(_load_parser(target), (program,)))
+    for words, target in command_parsers():
+        items.extend(walk_parser(_load_parser(target), tuple(words.split())))
     return items
 
 

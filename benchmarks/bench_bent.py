@@ -6,7 +6,7 @@ z = 65 m, air above and an air-filled void. One iteration computes a
 travel-time field per source node (about 199 fields cover the 19,900 pairs)
 and traces every pair's ray back through it.
 
-Targets (issue): one iteration <= 60 s for 200 nodes on 2 cores. The script
+Target: one iteration <= 60 s for 200 nodes on 2 cores. The script
 times one field alone, then the whole forward with the serial engine, the local
 process pool and a Dask LocalCluster of 2 workers, checks that the three
 give the same times, and times the regularised solve with the traced rays

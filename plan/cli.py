@@ -1,4 +1,4 @@
-"""The ``plan`` command: survey design before fieldwork.
+"""The ``voidcube plan`` commands: survey design before fieldwork.
 
 Thin layer: parse, call the library, write files, print a summary.
 """
@@ -9,7 +9,7 @@ import argparse
 from pathlib import Path
 
 from reconstruct import __version__
-from reconstruct.cli import _progress_printer, run_command
+from reconstruct.cli import add_executor_arguments, executor_from_args, progress_printer, run_command
 from reconstruct.errors import InputError
 
 __all__ = ["main"]
@@ -43,27 +43,31 @@ def _cmd_describe(args) -> int:
     return 0
 
 
+#: Files 'voidcube plan simulate' writes into its --out folder.
+SIMULATE_FILES = ("picks.csv", "true_time_zero.csv", "gross_errors.csv", "manifest.json")
+
+
 def _cmd_simulate(args) -> int:
     import numpy as np
 
-    from reconstruct.io.outputs import write_csv_atomic
+    from reconstruct.io.outputs import utc_now_iso
     from reconstruct.io.site import load_site
     from reconstruct.io.tables import read_nodes
 
     from plan.synthetic.simulate import simulate_picks
     from plan.synthetic.truth import load_truth
 
-    say = _progress_printer(args.quiet)
+    started = utc_now_iso()
+    say = progress_printer(args.quiet)
     if not (np.isfinite(args.fade_sigma) and args.fade_sigma >= 0):
         raise InputError(f"--fade-sigma must be a number >= 0 in dB (got {args.fade_sigma:g})")
     if args.fade_sigma and not args.link_budget:
         raise InputError("--fade-sigma needs --link-budget; add it or drop --fade-sigma")
+    executor = executor_from_args(args)
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
     truth = load_truth(args.truth)
-    from reconstruct.parallel import executor_from_options
-
-    executor = executor_from_options(args.executor, args.workers, None)
+    out = _output_folder(args.out)
     survey = simulate_picks(site, nodes, truth, both_directions=not args.one_way,
                             max_distance_m=args.max_distance, rays=args.rays, executor=executor,
                             progress=say)
@@ -82,24 +86,32 @@ def _cmd_simulate(args) -> int:
             f"no transmitter-receiver pair to simulate ({len(nodes)} nodes"
             + (f", none within --max-distance {args.max_distance:g} m" if args.max_distance is not None else "")
             + "); give more nodes or a larger --max-distance")
-    ids = nodes.ids
-    write_csv_atomic(
-        args.out, ["tx", "rx", "time_ns", "sigma_ns"],
-        ([ids[a], ids[b], f"{t:.3f}", f"{s:.3f}"]
-         for a, b, t, s in zip(survey.tx, survey.rx, survey.time_ns, survey.sigma_ns)),
-    )
-    if args.outliers_out:
-        bad = np.flatnonzero(survey.outlier)
-        write_csv_atomic(args.outliers_out, ["tx", "rx", "error_ns"],
-                         ([ids[survey.tx[k]], ids[survey.rx[k]], f"{survey.outlier_error_ns[k]:.3f}"] for k in bad))
-    if args.clock_out:
-        write_csv_atomic(args.clock_out, ["node_id", "clock_offset_ns"],
-                         ([ids[k], f"{survey.clock_offset_ns[k]:.4f}"] for k in range(len(ids))))
-    print(f"{survey.tx.size} synthetic picks written to {Path(args.out)} "
-          f"(noise {truth.noise_sigma_ns:g} ns, clock offsets sd {truth.clock_offset_sigma_ns:g} ns, "
-          + (f"{int(survey.outlier.sum())} gross outliers, " if survey.outlier.any() else "")
+    written = _write_survey(out, nodes.ids, survey)
+    _write_manifest(out, "voidcube plan simulate", {"site": args.site, "nodes": args.nodes, "truth": args.truth},
+                    args, written, started)
+    print(f"{survey.tx.size} synthetic picks written to {out / 'picks.csv'} "
+          f"(noise {truth.noise_sigma_ns:g} ns, time-zero offsets sd {truth.clock_offset_sigma_ns:g} ns, "
+          + (f"{int(survey.outlier.sum())} gross errors, " if survey.outlier.any() else "")
           + f"times {np.min(survey.time_ns):.1f} to {np.max(survey.time_ns):.1f} ns){missed_note}")
     return 0
+
+
+def _write_survey(out: Path, ids, survey) -> list:
+    """picks.csv, true_time_zero.csv and gross_errors.csv of a simulated survey; returns the paths."""
+    import numpy as np
+
+    from reconstruct.io.outputs import write_csv_atomic
+
+    bad = np.flatnonzero(survey.outlier)
+    return [
+        write_csv_atomic(out / "picks.csv", ["tx", "rx", "time_ns", "sigma_ns"],
+                         ([ids[a], ids[b], f"{t:.3f}", f"{s:.3f}"]
+                          for a, b, t, s in zip(survey.tx, survey.rx, survey.time_ns, survey.sigma_ns))),
+        write_csv_atomic(out / "true_time_zero.csv", ["node_id", "time_zero_ns"],
+                         ([ids[k], f"{survey.clock_offset_ns[k]:.4f}"] for k in range(len(ids)))),
+        write_csv_atomic(out / "gross_errors.csv", ["tx", "rx", "error_ns"],
+                         ([ids[survey.tx[k]], ids[survey.rx[k]], f"{survey.outlier_error_ns[k]:.3f}"] for k in bad)),
+    ]
 
 
 def _float_list(text: str):
@@ -113,18 +125,24 @@ def _float_list(text: str):
 
 
 def _add_standard_arguments(p: argparse.ArgumentParser):
+    from plan.assess.coverage import CoverageStandard
+
+    d = CoverageStandard()
     g = p.add_argument_group("coverage standard and target volume")
-    g.add_argument("--min-rays", type=int, default=5, metavar="N",
-                   help="rays that must cross a target cell (default 5)")
-    g.add_argument("--min-angular", type=float, default=0.3, metavar="A",
-                   help="lowest angular coverage of a target cell, 0..1 (default 0.3)")
-    g.add_argument("--max-resolution", type=float, default=None, metavar="M",
+    g.add_argument("--min-rays", type=int, default=d.min_rays, metavar="N",
+                   help=f"rays that must cross a target cell (default {d.min_rays})")
+    g.add_argument("--min-angular", type=float, default=d.min_angular_coverage, metavar="A",
+                   help=f"lowest angular coverage of a target cell, 0..1 (dimensionless; default "
+                        f"{d.min_angular_coverage:g})")
+    g.add_argument("--max-resolution", type=float, default=d.max_resolution_m, metavar="M",
                    help="widest acceptable resolution floor (first Fresnel zone width), metres (default: not used)")
-    g.add_argument("--depth-of-interest", type=float, default=30.0, metavar="M",
-                   help="depth below the ground or the planned work down to which the target reaches (default 30 m)")
-    g.add_argument("--works-buffer", type=float, default=5.0, metavar="M",
-                   help="plan-view margin around planned works, and half-width of haul roads (default 5 m)")
-    g.add_argument("--max-distance", type=float, default=None, metavar="M",
+    g.add_argument("--depth-of-interest", type=float, default=d.depth_of_interest_m, metavar="M",
+                   help="depth below the ground or the planned work down to which the target reaches, metres "
+                        f"(default {d.depth_of_interest_m:g} m)")
+    g.add_argument("--works-buffer", type=float, default=d.works_buffer_m, metavar="M",
+                   help="plan-view margin around planned works, and half-width of haul roads, metres "
+                        f"(default {d.works_buffer_m:g} m)")
+    g.add_argument("--max-distance", type=float, default=d.max_distance_m, metavar="M",
                    help="pairs further apart are not recorded (link range), metres (default: every pair)")
 
 
@@ -173,7 +191,7 @@ def _write_manifest(out: Path, command: str, inputs: dict, args, written, starte
             earlier = json.loads(earlier_path.read_text(encoding="utf-8"))
         except (OSError, ValueError):
             earlier = None
-        if isinstance(earlier, dict) and str(earlier.get("command", "")).startswith("plan"):
+        if isinstance(earlier, dict) and str(earlier.get("command", "")).startswith(("voidcube plan", "plan")):
             manifest["earlier_runs"] = earlier.pop("earlier_runs", []) + [earlier]
     write_json_atomic(earlier_path, manifest)
 
@@ -291,8 +309,8 @@ def _start(args):
 
 def _cmd_layout(args) -> int:
     started, site, out = _start(args)
-    written, _ = _run_layout(site, args, out, _progress_printer(args.quiet))
-    _write_manifest(out, "plan layout", {"site": args.site}, args, written, started)
+    written, _ = _run_layout(site, args, out, progress_printer(args.quiet))
+    _write_manifest(out, "voidcube plan layout", {"site": args.site}, args, written, started)
     print(f"output: {out}")
     return 0
 
@@ -301,8 +319,8 @@ def _cmd_pairs(args) -> int:
     from reconstruct.io.tables import read_nodes
 
     started, site, out = _start(args)
-    _, written = _run_pairs(site, read_nodes(args.nodes), args, out, _progress_printer(args.quiet))
-    _write_manifest(out, "plan pairs", {"site": args.site, "nodes": args.nodes}, args, written, started)
+    _, written = _run_pairs(site, read_nodes(args.nodes), args, out, progress_printer(args.quiet))
+    _write_manifest(out, "voidcube plan pairs", {"site": args.site, "nodes": args.nodes}, args, written, started)
     print(f"output: {out}")
     return 0
 
@@ -312,7 +330,7 @@ def _cmd_mesh(args) -> int:
 
     started, site, out = _start(args)
     _, written = _run_mesh(site, read_nodes(args.nodes), args, out)
-    _write_manifest(out, "plan mesh", {"site": args.site, "nodes": args.nodes}, args, written, started)
+    _write_manifest(out, "voidcube plan mesh", {"site": args.site, "nodes": args.nodes}, args, written, started)
     print(f"output: {out}")
     return 0
 
@@ -322,10 +340,10 @@ def _cmd_schedule(args) -> int:
 
     started, site, out = _start(args)
     nodes = read_nodes(args.nodes)
-    pairs, _ = _run_pairs(site, nodes, args, out, _progress_printer(args.quiet), write=False)
+    pairs, _ = _run_pairs(site, nodes, args, out, progress_printer(args.quiet), write=False)
     mesh = _run_mesh(site, nodes, args, out, write=False)[0] if site.radio.gateway_m is not None else None
     written = _run_schedule(site, pairs, mesh, args, out)
-    _write_manifest(out, "plan schedule", {"site": args.site, "nodes": args.nodes}, args, written, started)
+    _write_manifest(out, "voidcube plan schedule", {"site": args.site, "nodes": args.nodes}, args, written, started)
     print(f"output: {out}")
     return 0
 
@@ -334,7 +352,7 @@ def _cmd_design(args) -> int:
     from reconstruct.io.tables import read_nodes
 
     started, site, out = _start(args)
-    say = _progress_printer(args.quiet)
+    say = progress_printer(args.quiet)
     written, nodes_path = _run_layout(site, args, out, say)
     nodes = read_nodes(nodes_path)
     pairs, more = _run_pairs(site, nodes, args, out, say)
@@ -346,7 +364,7 @@ def _cmd_design(args) -> int:
     else:
         print("radio mesh: skipped, the site gives no radio.gateway_m")
     written += _run_schedule(site, pairs, mesh, args, out)
-    _write_manifest(out, "plan design", {"site": args.site}, args, written, started)
+    _write_manifest(out, "voidcube plan design", {"site": args.site}, args, written, started)
     print(f"output: {out}")
     return 0
 
@@ -355,7 +373,7 @@ def _cmd_design(args) -> int:
 
 
 def _heard_pairs(path, nodes, say):
-    """The pairs of ``path`` (a pairs.csv of 'plan pairs') that the link budget hears."""
+    """The pairs of ``path`` (a pairs.csv of 'voidcube plan pairs') that the link budget hears."""
     from plan.radio.pair_graph import read_heard_pairs
 
     pairs = read_heard_pairs(path, nodes.ids)
@@ -372,7 +390,7 @@ def _cmd_coverage(args) -> int:
 
     started = utc_now_iso()
     out = _output_folder(args.out)
-    say = _progress_printer(args.quiet)
+    say = progress_printer(args.quiet)
     standard = _standard_from(args)
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
@@ -384,7 +402,7 @@ def _cmd_coverage(args) -> int:
     coverage = compute_coverage(site, _placed(site, nodes), standard, pairs=pairs, progress=say)
     written = [write_cell_arrays_vti(out / "coverage.vti", coverage.grid, coverage_cell_arrays(coverage)),
                write_json_atomic(out / "coverage_summary.json", coverage.summary())]
-    _write_manifest(out, "plan coverage", inputs, args, written, started)
+    _write_manifest(out, "voidcube plan coverage", inputs, args, written, started)
     _print_coverage(coverage, out)
     return 0
 
@@ -403,7 +421,6 @@ def _print_coverage(coverage, out):
 
 def _cmd_recover(args) -> int:
     from reconstruct.io.outputs import utc_now_iso, write_csv_atomic, write_json_atomic
-    from reconstruct.parallel import executor_from_options
     from reconstruct.io.site import load_site
     from reconstruct.io.tables import read_nodes
 
@@ -411,14 +428,14 @@ def _cmd_recover(args) -> int:
 
     started = utc_now_iso()
     out = _output_folder(args.out)
-    say = _progress_printer(args.quiet)
+    say = progress_printer(args.quiet)
     standard = _standard_from(args)
     options = RecoveryOptions(void_sizes_m=args.void_sizes or (), depths_m=args.depths or (),
                               fills=tuple(args.fills.split(",")), noise_sigma_ns=args.noise,
                               max_cells=args.max_cells, checker_size_m=args.checker_size, seed=args.seed)
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
-    executor = executor_from_options(args.executor, args.workers, None)
+    executor = executor_from_args(args)
     result = run_recovery_tests(site, nodes, standard, options, executor=executor, progress=say)
     columns = ["fill", "velocity_m_per_ns", "depth_m", "diameter_m", "largest_time_change_ns",
                "pairs_changed_beyond_2_sigma", "seen_in_data", "recovered_change_m_per_ns",
@@ -429,7 +446,7 @@ def _cmd_recover(args) -> int:
         write_csv_atomic(out / "recovery.csv", columns,
                          ([("" if v.get(c) is None else v.get(c)) for c in columns] for v in result.voids)),
     ]
-    _write_manifest(out, "plan recover", {"site": args.site, "nodes": args.nodes}, args, written, started)
+    _write_manifest(out, "voidcube plan recover", {"site": args.site, "nodes": args.nodes}, args, written, started)
     c = result.checkerboard
     corr = "n/a" if c["correlation"] is None else f"{c['correlation']:.3f}"
     print(f"recovery grid: cells of {result.grid.cell_m[0]:g} m; {result.n_pairs:,} pairs")
@@ -470,17 +487,17 @@ def _add_layout_arguments(p):
 
 def _add_pairs_arguments(p):
     p.add_argument("--system-performance", type=float, default=None, metavar="DB",
-                   help="overrides radar.system_performance_db of the site")
+                   help="system performance in dB; overrides radar.system_performance_db of the site")
 
 
 def _add_mesh_arguments(p):
     p.add_argument("--radio-range", type=float, default=None, metavar="M",
-                   help="overrides radio.range_m of the site")
+                   help="radio range in metres; overrides radio.range_m of the site")
 
 
 def _add_schedule_arguments(p):
     g = p.add_argument_group("schedule")
-    g.add_argument("--stacks", type=int, default=32, help="traces stacked per record (default 32)")
+    g.add_argument("--stacks", type=int, default=32, metavar="N", help="traces stacked per record (default 32)")
     g.add_argument("--prf", type=float, default=100.0, metavar="KHZ",
                    help="pulse repetition frequency, kHz (default 100)")
     g.add_argument("--sampling", choices=("sequential", "real_time"), default="sequential",
@@ -504,10 +521,10 @@ def _add_schedule_arguments(p):
 
 def _design_parser(sub, name, *, help, description, func, nodes=True, quiet=True, groups=()):
     p = sub.add_parser(name, help=help, description=description, epilog=_UNITS)
-    p.add_argument("site", help="site description (YAML)")
+    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
     if nodes:
         p.add_argument("--nodes", required=True, help="node table (CSV)")
-    p.add_argument("--out", required=True, help="output folder (created if missing)")
+    p.add_argument("--out", required=True, metavar="FOLDER", help="output folder (created if missing)")
     if quiet:
         p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     for add in groups:
@@ -555,7 +572,7 @@ def _cmd_optimise(args) -> int:
 
     started = utc_now_iso()
     out = _output_folder(args.out)
-    say = _progress_printer(args.quiet)
+    say = progress_printer(args.quiet)
     standard = _standard_from(args)
     site = load_site(args.site)
     candidates = read_nodes(args.candidates)
@@ -606,7 +623,7 @@ def _cmd_optimise(args) -> int:
         write_csv_atomic(out / "nodes_optimised.csv", ["node_id", "x_m", "y_m", "z_m", "kind", "borehole"], rows),
         write_json_atomic(out / "optimise_summary.json", summary),
     ]
-    _write_manifest(out, "plan optimise", {"site": args.site, "candidates": args.candidates, "nodes": args.nodes},
+    _write_manifest(out, "voidcube plan optimise", {"site": args.site, "candidates": args.candidates, "nodes": args.nodes},
                     args, written, started)
     print(f"score: start layout {result.start_score:.4f}, optimised {result.score:.4f} "
           f"(gain {result.gain:+.4f}; {summary['swaps']} swaps, {summary['adds']} adds; {result.stop_reason})")
@@ -636,7 +653,7 @@ def _cmd_report(args) -> int:
     nodes_path = args.nodes or folder / "nodes.csv"
     if not Path(nodes_path).is_file():
         raise InputError(f"{nodes_path}: no node table; give --nodes NODES.csv or put nodes.csv in {args.dir}")
-    say = _progress_printer(args.quiet)
+    say = progress_printer(args.quiet)
     standard = _standard_from(args)
     site = load_site(args.site)
     nodes = read_nodes(nodes_path)
@@ -650,38 +667,27 @@ def _cmd_report(args) -> int:
                write_text_atomic(folder / "plan_report.html", page)]
     inputs = {"site": args.site, "nodes": str(nodes_path)}
     inputs.update({name: str(folder / name) for name in used})
-    _write_manifest(folder, "plan report", inputs, args, written, started)
+    _write_manifest(folder, "voidcube plan report", inputs, args, written, started)
     _print_coverage(coverage, folder)
     print(f"report: {folder / 'plan_report.html'}" + (f" (also shows {', '.join(used)})" if used else ""))
     return 0
 
 
-def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="plan", description="Design a radar tomography survey before fieldwork.",
-                                     epilog=_UNITS)
-    parser.add_argument("--version", action="version", version=f"voidcube {__version__}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-
-    p = sub.add_parser("describe", help="summarise a site's model grid, ground and rock",
-                       description="Load a site description and print its grid, ground and rock figures.",
-                       epilog=_UNITS)
-    p.add_argument("site", help="site description (YAML)")
-    p.set_defaults(func=_cmd_describe)
-
+def _add_simulate_parser(sub):
     p = sub.add_parser(
         "simulate",
         help="synthetic picks from a truth model (first arrivals through bent or straight rays, clock offsets, noise)",
         description="Simulate first-arrival picks for every transmitter-receiver pair of a node table "
                     "through a truth model (background rock with air-, water- or clay-filled bodies), "
                     "on a grid finer than the model grid, adding node clock offsets and Gaussian "
-                    "pick noise. Writes a pick table (CSV: tx,rx,time_ns,sigma_ns).",
+                    "pick noise. Writes into OUT the pick table picks.csv (CSV: tx,rx,time_ns,sigma_ns), "
+                    "the true time-zero offset per node (true_time_zero.csv: node_id,time_zero_ns), the picks "
+                    "given gross errors (gross_errors.csv: tx,rx,error_ns) and manifest.json.",
         epilog=_UNITS)
-    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
     p.add_argument("--nodes", required=True, help="node table (CSV)")
-    p.add_argument("--truth", required=True, help="truth model (YAML, see plan/truth.py)")
-    p.add_argument("--out", required=True, help="pick table to write (CSV)")
-    p.add_argument("--clock-out", help="also write the true clock offset per node (CSV), ns")
-    p.add_argument("--outliers-out", help="also write the picks made gross outliers (CSV: tx,rx,error_ns)")
+    p.add_argument("--truth", required=True, help="truth model (YAML, see plan/synthetic/truth.py)")
+    p.add_argument("--out", required=True, metavar="FOLDER", help="output folder (created if missing)")
     p.add_argument("--one-way", action="store_true", help="one pick per pair instead of both directions")
     p.add_argument("--max-distance", type=float, default=None, metavar="M",
                    help="leave out pairs further apart than M metres")
@@ -689,10 +695,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="'bent' (default): true first arrivals from eikonal travel-time fields, air "
                         "included (air waves, rays drawn into fast voids); 'straight': slowness "
                         "integrated along straight lines, for straight-ray tests only")
-    p.add_argument("--executor", choices=("serial", "processes"), default="processes",
-                   help="where the travel-time fields are computed (default: a local process pool)")
-    p.add_argument("--workers", type=int, default=None, metavar="N",
-                   help="number of worker processes (default: all cores)")
+    add_executor_arguments(p)
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     p.add_argument("--link-budget", action="store_true",
                    help="leave out the pairs whose link-budget margin is below 0 dB (missed picks)")
@@ -700,8 +703,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="with --link-budget: random fade added to every margin, standard deviation in dB "
                         "(seeded by the truth model's seed; default 0)")
     p.set_defaults(func=_cmd_simulate)
-    _add_design_parsers(sub)
 
+
+def _add_assess_parsers(sub):
     p = sub.add_parser(
         "coverage", help="ray coverage, angular coverage and resolution floor of a layout",
         description="Ray count and length, angular coverage (direction tensor) and resolution floor (first "
@@ -709,10 +713,10 @@ def build_parser() -> argparse.ArgumentParser:
                     "of the target volume (under the planned works) covered to a stated standard. Writes "
                     "coverage.vti, coverage_summary.json and manifest.json into OUT.",
         epilog=_UNITS)
-    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
     p.add_argument("--nodes", required=True, help="node table (CSV) of the layout")
     p.add_argument("--pairs", default=None,
-                   help="pairs.csv of 'plan pairs': only the pairs heard by the link budget count "
+                   help="pairs.csv of 'voidcube plan pairs': only the pairs heard by the link budget count "
                         "(default: every pair within --max-distance)")
     p.add_argument("--out", required=True, help="plan folder (created if missing)")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
@@ -726,7 +730,7 @@ def build_parser() -> argparse.ArgumentParser:
                     "report the smallest void resolved at each depth and the voids no first arrival can "
                     "show. Writes recovery_summary.json, recovery.csv and manifest.json into OUT.",
         epilog=_UNITS)
-    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
     p.add_argument("--nodes", required=True, help="node table (CSV) of the layout")
     p.add_argument("--out", required=True, help="plan folder (created if missing)")
     p.add_argument("--void-sizes", type=_float_list, default=None, metavar="D1,D2,...",
@@ -742,10 +746,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--checker-size", type=float, default=None, metavar="M",
                    help="checkerboard cube edge, metres (default 4 recovery cells)")
     p.add_argument("--seed", type=int, default=0, help="seed of the noise (default 0)")
-    p.add_argument("--executor", choices=("serial", "processes"), default="processes",
-                   help="where the travel-time fields are computed (default: a local process pool)")
-    p.add_argument("--workers", type=int, default=None, metavar="N",
-                   help="number of worker processes (default: all cores)")
+    add_executor_arguments(p)
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     _add_standard_arguments(p)
     p.set_defaults(func=_cmd_recover)
@@ -757,7 +758,7 @@ def build_parser() -> argparse.ArgumentParser:
                     "returns a lower score than the start. Writes nodes_optimised.csv, "
                     "optimise_summary.json and manifest.json into OUT.",
         epilog=_UNITS)
-    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
     p.add_argument("--candidates", required=True, help="candidate positions (CSV, node table format)")
     p.add_argument("--nodes", required=True, help="start layout (CSV, node table format)")
     p.add_argument("--out", required=True, help="plan folder (created if missing)")
@@ -778,12 +779,29 @@ def build_parser() -> argparse.ArgumentParser:
                     "coverage.vti, coverage_summary.json and plan_report.html into DIR, with plan-view maps, "
                     "coverage slices, and the other planning results found in DIR.",
         epilog=_UNITS)
-    p.add_argument("dir", help="plan folder")
-    p.add_argument("--site", required=True, help="site description (YAML)")
+    p.add_argument("dir", metavar="FOLDER", help="plan folder (written into)")
+    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
     p.add_argument("--nodes", default=None, help="node table (CSV); default DIR/nodes.csv")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     _add_standard_arguments(p)
     p.set_defaults(func=_cmd_report)
+
+
+def build_parser(prog: str = "voidcube plan") -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog=prog, description="Design a radar tomography survey before fieldwork.",
+                                     epilog=_UNITS)
+    parser.add_argument("--version", action="version", version=f"voidcube {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser("describe", help="summarise a site's model grid, ground and rock",
+                       description="Load a site description and print its grid, ground and rock figures.",
+                       epilog=_UNITS)
+    p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
+    p.set_defaults(func=_cmd_describe)
+
+    _add_simulate_parser(sub)
+    _add_design_parsers(sub)
+    _add_assess_parsers(sub)
     return parser
 
 

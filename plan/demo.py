@@ -11,11 +11,13 @@ by calling the library:
    rays (eikonal fields, air included) on the simulation grid, node clock
    offsets and Gaussian pick noise (:func:`plan.synthetic.simulate.simulate_picks`);
    pairs the link budget does not hear are left out -> ``OUT/picks.csv``;
-4. **QC** of the picks (:func:`reconstruct.checks.picks.check_site_picks`) -> ``OUT/qc/``;
-5. **bent-ray inversion** (:func:`reconstruct.inverse.bent.bent_ray_tomography`)
-   -> ``OUT/model/`` (``velocity.vti``, ``summary.json``, ``rays.vtp``, ...);
-6. **voids**: bodies, screening, meshes, pictures -> ``OUT/model/``;
-7. **report**: ``OUT/model/report.html``;
+4. **pick checks** (:func:`reconstruct.checks.picks.check_site_picks`) -> ``OUT/pick_checks/``;
+5. **inversion, bodies and screening**: one call of
+   :func:`reconstruct.pipeline.process_survey` with bent rays, the rules and
+   defaults of the library (what ``voidcube reconstruct invert`` and ``voids`` run);
+6. **writing** the model folder (:func:`reconstruct.pipeline.write_processing`:
+   ``velocity.vti``, ``summary.json``, ``rays.vtp``, voids, meshes, pictures)
+   and the report ``OUT/model/report.html``;
 
 then compares the voids found with the truth bodies
 (:func:`plan.synthetic.truth_match.match_truth_bodies`) and writes ``OUT/manifest.json``
@@ -60,7 +62,8 @@ from reconstruct.errors import InputError, is_whole_number
 __all__ = ["ChainSettings", "ChainResult", "STAGES", "run_demo", "closing_lines", "main"]
 
 #: The stages in order, as printed and recorded in the manifest.
-STAGES = ("plan layout", "plan report", "simulate picks", "QC", "bent-ray inversion", "voids", "report")
+STAGES = ("plan layout", "plan report", "simulate picks", "pick checks", "inversion, bodies and screening",
+          "writing the model folder and report")
 
 
 @dataclass(frozen=True)
@@ -74,7 +77,8 @@ class ChainSettings:
     hole_share, face_share : float
         Largest fractions of the budget put in holes and on bench faces.
     bent_iterations : int
-        Bent-ray iterations after the straight-ray start.
+        Bent-ray iterations after the straight-ray start (3, one fewer than the
+        library's :data:`reconstruct.pipeline.DEFAULT_BENT_ITERATIONS`, to stay within 5 minutes).
     link_budget : bool
         Leave out the picks of pairs the link budget does not hear.
     pictures : bool
@@ -104,6 +108,13 @@ class ChainSettings:
         if problems:
             raise InputError(problems, source="chain settings")
 
+    def processing(self):
+        """The processing settings of the demo: the library's defaults (:mod:`reconstruct.pipeline`)
+        with bent rays, ``bent_iterations`` iterations and the final rays kept for ``rays.vtp``."""
+        from reconstruct.pipeline import ProcessingSettings
+
+        return ProcessingSettings(rays="bent", bent_iterations=self.bent_iterations, keep_rays=True)
+
 
 @dataclass(frozen=True)
 class ChainResult:
@@ -124,15 +135,23 @@ class _Stages:
         self.start = time.perf_counter()
         self.seconds: dict[str, float] = {}
         self._stage_start = self.start
+        self._last_print = self.start
         self._name = None
 
     def say(self, message: str) -> None:
-        if not self.quiet:
-            print(f"[{time.perf_counter() - self.start:6.1f} s]   {message}", file=sys.stderr, flush=True)
+        """Library progress; counters and solver details only to break a silence (as the commands)."""
+        from reconstruct.cli import HEARTBEAT_S, is_detail_message
+
+        now = time.perf_counter()
+        if self.quiet or (is_detail_message(message) and now - self._last_print < HEARTBEAT_S):
+            return
+        self._last_print = now
+        text = message[len("solver: "):] if message.startswith("solver: ") else message
+        print(f"[{now - self.start:6.1f} s]   {text}", file=sys.stderr, flush=True)
 
     def begin(self, name: str) -> None:
         self._name = name
-        self._stage_start = time.perf_counter()
+        self._stage_start = self._last_print = time.perf_counter()
         if not self.quiet:
             print(f"[{self._stage_start - self.start:6.1f} s] stage {STAGES.index(name) + 1}/{len(STAGES)}: {name}",
                   file=sys.stderr, flush=True)
@@ -256,8 +275,8 @@ def _simulate(site, nodes, truth, pairs, settings: ChainSettings, executor, out:
     return path, survey, refined_grid(site.grid(), truth.refine)
 
 
-def _qc(site_path, site, nodes, nodes_path, picks_path, qc_dir: Path, truth_path, say):
-    """Pick checks and ``qc/``; returns (picks, checks, summary). Unusable picks stop the chain."""
+def _pick_checks(site_path, site, nodes, nodes_path, picks_path, checks_dir: Path, truth_path, say):
+    """Pick checks written to ``checks_dir``; returns the picks. Unusable picks stop the chain."""
     from reconstruct.io.outputs import utc_now_iso
     from reconstruct.checks.picks import check_site_picks, usability_problems
     from reconstruct.report.pick_checks import write_qc
@@ -267,57 +286,31 @@ def _qc(site_path, site, nodes, nodes_path, picks_path, qc_dir: Path, truth_path
     picks = read_picks(picks_path, nodes)
     placement, checks = check_site_picks(site, nodes, picks)
     problems = usability_problems(picks, checks)
-    summary = write_qc(picks, nodes, checks, problems, qc_dir, xyz_m=placement.xyz_m, site_name=site.name,
+    summary = write_qc(picks, nodes, checks, problems, checks_dir, xyz_m=placement.xyz_m, site_name=site.name,
                        inputs={"site": site_path, "nodes": nodes_path, "picks": picks_path},
-                       parameters={"rays": "bent"}, started=started, command="voidcube demo (QC)", rays="bent")
+                       parameters={"rays": "bent"}, started=started, command="voidcube demo (pick checks)",
+                       rays="bent")
     counts = summary["picks"]["flag_counts"]
     say("flags: " + (", ".join(f"{n} {f}" for f, n in counts.items() if n) or "none"))
     if problems:
         raise InputError(f"{truth_path}: the simulated picks are not usable as they stand ({'; '.join(problems)}); "
-                         f"see {qc_dir / 'qc.html'} and lower noise.sigma_ns or noise.outlier_fraction")
-    return picks, checks, summary
+                         f"see the pick-check page in {checks_dir} and lower noise.sigma_ns or "
+                         "noise.outlier_fraction")
+    return picks
 
 
-def _invert(site, site_path, nodes, nodes_path, picks, picks_path, checks, qc_summary, settings, executor,
-            model_dir: Path, say):
-    """Bent-ray inversion written to ``model/``; returns the summary."""
-    from reconstruct.inverse.bent import BentOptions, bent_ray_tomography
-    from reconstruct.inverse.solver import InversionOptions
+def _write_model(result, model_dir: Path, inputs: dict, pictures: bool, say) -> dict:
+    """The inversion and void outputs into ``model/``; returns the summary."""
     from reconstruct.io.outputs import utc_now_iso
-    from reconstruct.checks.picks import picks_for_inversion
-    from reconstruct.report.folders import write_tomography
+    from reconstruct.pipeline import write_processing
 
-    started = utc_now_iso()
-    chosen = picks_for_inversion(picks, nodes, checks, rays="bent")
-    options = InversionOptions(robust="none")  # the bent-ray steps are judged by the plain misfit
-    bent = BentOptions(max_iterations=settings.bent_iterations, keep_rays=True)
-    run = bent_ray_tomography(site, nodes, chosen, options, bent=bent, executor=executor, progress=say)
-    parameters = {"rays": "bent", "iterations": settings.bent_iterations, "robust": "none",
-                  "inversion": dataclasses.asdict(options)}
-    summary = write_tomography(
-        run, model_dir, inputs={"site": site_path, "nodes": nodes_path, "picks": picks_path},
-        parameters=parameters, started=started, command="voidcube demo (bent-ray inversion)",
-        extra_summary={"qc": {"flag_counts": qc_summary["picks"]["flag_counts"],
-                              "sigma_source": checks.sigma_source,
-                              "pick_noise_from_reciprocity_ns": checks.noise_sigma_ns}})
-    steps = ", ".join(f"{h['rms_ns']:.3f}" for h in summary["iterations"])
-    say(f"RMS misfit per iteration (ns): {steps}")
-    return summary
-
-
-def _voids(model_dir: Path, site_path, pictures: bool, say):
-    from reconstruct.interpret.folder import load_inversion_folder, screen_folder
-    from reconstruct.report.folders import write_void_outputs
-    from reconstruct.io.outputs import utc_now_iso
-
-    started = utc_now_iso()
-    data = load_inversion_folder(model_dir, site_path)
-    analysis, hazard = screen_folder(data)
-    content = write_void_outputs(data, analysis, hazard, pictures=pictures, started=started, progress=say,
-                                 parameters={"site": str(site_path), "pictures": pictures})
+    parameters = {"settings": result.settings.as_dict()}
+    summary, content = write_processing(result, model_dir, inputs=inputs, parameters=parameters,
+                                        started=utc_now_iso(), command="voidcube demo (inversion and voids)",
+                                        pictures=pictures, progress=say)
     say(f"{content['counts']['voids']} voids, {content['counts']['unresolved_indications']} unresolved "
         f"indications; {content['rendering']}")
-    return data, analysis
+    return summary
 
 
 def _expected_resolved(truth, data, analysis) -> list[bool | None]:
@@ -342,6 +335,7 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     """
     from reconstruct.io.outputs import build_manifest, utc_now_iso, write_json_atomic
     from reconstruct.parallel import Executor
+    from reconstruct.pipeline import process_survey
     from reconstruct.report.void_report import write_report
     from reconstruct.io.site import load_site
     from reconstruct.interpret.bodies import void_table_rows
@@ -361,7 +355,7 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
 
         start_offscreen_probe()  # runs in the background while the chain computes
     executor = Executor(kind="processes", workers=settings.workers)
-    plan_dir, qc_dir, model_dir = root / "plan", root / "qc", root / "model"
+    plan_dir, checks_dir, model_dir = root / "plan", root / "pick_checks", root / "model"
     plan_dir.mkdir(exist_ok=True)
 
     stages.begin("plan layout")
@@ -379,19 +373,18 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     stages.begin("simulate picks")
     picks_path, survey, fine = _simulate(site, nodes, truth, pairs, settings, executor, root, say)
     stages.end()
-    stages.begin("QC")
-    picks, checks, qc_summary = _qc(site_path, site, nodes, nodes_path, picks_path, qc_dir, truth_path, say)
+    stages.begin("pick checks")
+    picks = _pick_checks(site_path, site, nodes, nodes_path, picks_path, checks_dir, truth_path, say)
     stages.end()
-    stages.begin("bent-ray inversion")
-    summary = _invert(site, site_path, nodes, nodes_path, picks, picks_path, checks, qc_summary, settings,
-                      executor, model_dir, say)
+    stages.begin("inversion, bodies and screening")
+    result = process_survey(site, nodes, picks, settings.processing(), executor=executor, progress=say)
     stages.end()
-    stages.begin("voids")
-    data, analysis = _voids(model_dir, site_path, settings.pictures, say)
-    stages.end()
-    stages.begin("report")
+    stages.begin("writing the model folder and report")
+    summary = _write_model(result, model_dir, {"site": site_path, "nodes": nodes_path, "picks": picks_path},
+                           settings.pictures, say)
     report_path = write_report(model_dir)
     stages.end()
+    data, analysis = result.inversion, result.analysis
 
     background = truth.background_velocity_m_per_ns or site.rock.velocity_m_per_ns
     matches = match_truth_bodies(
@@ -411,7 +404,7 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     manifest = build_manifest(
         command="voidcube demo " + " ".join(map(str, (folder, "--out", out))),
         inputs={"site": site_path, "truth": truth_path}, parameters=parameters,
-        outputs=["plan/", "picks.csv", "qc/", "model/", "manifest.json"], started=started, finished=utc_now_iso())
+        outputs=["plan/", "picks.csv", "pick_checks/", "model/", "manifest.json"], started=started, finished=utc_now_iso())
     manifest["stages"] = [{"stage": name, "seconds": stages.seconds[name]} for name in STAGES]
     manifest["total_seconds"] = round(time.perf_counter() - stages.start, 2)
     manifest["misfit_rms_ns_per_iteration"] = [h["rms_ns"] for h in summary["iterations"]]
@@ -439,25 +432,24 @@ def _cmd_demo(args) -> int:
     return 0
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(prog: str = "voidcube demo") -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="voidcube", description="Radar tomography for voids, from survey plan to void report.",
-        epilog="Units: metres (m), nanoseconds (ns), velocities in m/ns.")
-    parser.add_argument("--version", action="version", version=f"voidcube {__version__}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    p = sub.add_parser(
-        "demo", help="run the whole chain on a demo folder (site.yaml and truth.yaml)",
+        prog=prog,
         description="Plan a layout, simulate picks through the truth model, check them, invert them with "
                     "bent rays, find the voids and write the report; then compare the voids found with "
-                    "the truth. Writes OUT/plan/, OUT/picks.csv, OUT/qc/, OUT/model/ and OUT/manifest.json.")
-    p.add_argument("folder", metavar="FOLDER", help="folder holding site.yaml and truth.yaml (e.g. demo_site)")
-    p.add_argument("--out", required=True, help="output folder (created if missing)")
-    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
-    p.set_defaults(func=_cmd_demo)
+                    "the truth. Writes OUT/plan/, OUT/picks.csv, OUT/pick_checks/, OUT/model/ and "
+                    "OUT/manifest.json.",
+        epilog="Units: metres (m), nanoseconds (ns), velocities in m/ns.")
+    parser.add_argument("--version", action="version", version=f"voidcube {__version__}")
+    parser.add_argument("folder", metavar="FOLDER", help="folder holding site.yaml and truth.yaml (e.g. demo_site)")
+    parser.add_argument("--out", required=True, metavar="FOLDER", help="output folder (created if missing)")
+    parser.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    parser.set_defaults(func=_cmd_demo)
     return parser
 
 
 def main(argv=None) -> int:
+    """``voidcube demo FOLDER --out OUT``; returns the exit code."""
     from reconstruct.cli import run_command
 
     return run_command(build_parser(), argv, memory_hint="use larger cells (model.cell_m) or a smaller refine "

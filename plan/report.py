@@ -24,6 +24,7 @@ from pathlib import Path
 import numpy as np
 
 from reconstruct.model.grid import ground_top_m
+from reconstruct.report import colours
 from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
 
 from plan.assess.coverage import Coverage
@@ -109,11 +110,11 @@ def _draw_site_outlines(ax, site):
         pts = np.asarray(work.points_m)[:, :2]
         if work.geometry == "polygon":
             pts = np.vstack([pts, pts[:1]])
-        ax.plot(pts[:, 0], pts[:, 1], color="#7b2d26", lw=1.6, ls="-")
+        ax.plot(pts[:, 0], pts[:, 1], color=colours.PLANNED_WORK_COLOUR, lw=1.6, ls="-")
     for zone in site.exclusion_zones:
         pts = np.asarray(zone.polygon_xy_m)
         pts = np.vstack([pts, pts[:1]])
-        ax.plot(pts[:, 0], pts[:, 1], color="#555555", lw=1.2, ls="--")
+        ax.plot(pts[:, 0], pts[:, 1], color=colours.EXCLUSION_ZONE_COLOUR, lw=1.2, ls="--")
 
 
 def _layout_map(site, coverage: Coverage, ids, xyz, kinds, links):
@@ -121,30 +122,40 @@ def _layout_map(site, coverage: Coverage, ids, xyz, kinds, links):
     top = ground_top_m(grid, coverage.ground)
     fig = _new_figure()
     ax = fig.add_subplot()
-    image = ax.imshow(top.T, origin="lower", extent=_extent(grid), cmap="Greys", alpha=0.55, aspect="equal")
+    image = ax.imshow(top.T, origin="lower", extent=_extent(grid), cmap=colours.ELEVATION_MAP, alpha=0.55,
+                      aspect="equal")
     fig.colorbar(image, ax=ax, label="ground top (m elevation)", shrink=0.8)
     if links is not None and len(links):
         for segment in links:
-            ax.plot(segment[:, 0], segment[:, 1], color="#2b6cb0", lw=0.6, alpha=0.7)
+            ax.plot(segment[:, 0], segment[:, 1], color=colours.MESH_LINK_COLOUR, lw=0.6,
+                    alpha=colours.MESH_LINK_ALPHA)
     _draw_site_outlines(ax, site)
-    styles = {"surface": ("o", "#1a7f37"), "face": ("s", "#9a6700"), "borehole": ("v", "#8250df")}
+    styles = {kind: (marker, colours.NODE_KIND_COLOURS[kind])
+              for kind, marker in (("surface", "o"), ("face", "s"), ("borehole", "v"))}
     for kind, (marker, colour) in styles.items():
         pick = np.array([k == kind for k in kinds])
         if pick.any():
             ax.scatter(xyz[pick, 0], xyz[pick, 1], s=14, marker=marker, color=colour, label=f"{kind} ({pick.sum()})",
-                       zorder=3)
+                       zorder=3, edgecolors=colours.REFERENCE_LINE_COLOUR, linewidths=0.4)
     other = np.array([k not in styles for k in kinds])
     if other.any():
-        ax.scatter(xyz[other, 0], xyz[other, 1], s=14, marker="x", color="black", label=f"unspecified ({other.sum()})",
-                   zorder=3)
+        ax.scatter(xyz[other, 0], xyz[other, 1], s=14, marker="x", label=f"unspecified ({other.sum()})",
+                   zorder=3, color=colours.UNSPECIFIED_KIND_COLOUR)
     ax.set_xlim(grid.origin_m[0], grid.end_m[0])
     ax.set_ylim(grid.origin_m[1], grid.end_m[1])
     ax.set_xlabel("x east (m)")
     ax.set_ylabel("y north (m)")
     ax.legend(loc="upper right", fontsize=7)
     ax.set_title("Layout: nodes, planned works (solid), exclusion zones (dashed)" +
-                 (", mesh links (blue)" if links is not None and len(links) else ""), fontsize=9)
+                 (", mesh links (thin grey)" if links is not None and len(links) else ""), fontsize=9)
     return fig
+
+
+def _target_outline(ax, x_m, y_m, target):
+    """The outline of the target volume: white on a dark halo, legible on both ends of the coverage map."""
+    values = np.asarray(target, dtype=float)
+    ax.contour(x_m, y_m, values, levels=[0.5], colors=[colours.TARGET_OUTLINE_HALO], linewidths=1.8)
+    ax.contour(x_m, y_m, values, levels=[0.5], colors=[colours.TARGET_OUTLINE_COLOUR], linewidths=0.8)
 
 
 def _coverage_slices(coverage: Coverage, depths_m):
@@ -160,12 +171,11 @@ def _coverage_slices(coverage: Coverage, depths_m):
         iz = np.where(np.isfinite(iz), iz, 0).astype(int)
         layer = np.take_along_axis(quality, iz[:, :, None], axis=2)[:, :, 0]
         layer = np.where(np.isfinite(top) & (top - depth > z[0] - grid.cell_m[2] / 2), layer, np.nan)
-        image = ax.imshow(layer.T, origin="lower", extent=_extent(grid), cmap="viridis", vmin=0, vmax=1,
+        image = ax.imshow(layer.T, origin="lower", extent=_extent(grid), cmap=colours.COVERAGE_MAP, vmin=0, vmax=1,
                           aspect="equal")
         target = np.take_along_axis(coverage.target, iz[:, :, None], axis=2)[:, :, 0]
         if target.any() and not target.all():
-            ax.contour(grid.centres_m(0), grid.centres_m(1), target.T.astype(float), levels=[0.5],
-                       colors="white", linewidths=0.8)
+            _target_outline(ax, grid.centres_m(0), grid.centres_m(1), target.T)
         ax.set_title(f"coverage quality {depth:g} m below ground (white: target volume)", fontsize=9)
         ax.set_ylabel("y (m)")
         fig.colorbar(image, ax=ax, shrink=0.85, label="quality (1 = meets standard)")
@@ -180,13 +190,12 @@ def _coverage_section(coverage: Coverage):
     section = np.where(coverage.ground[:, iy, :], coverage.ray_count[:, iy, :].astype(float), np.nan)
     fig = _new_figure(7.5, 3.2)
     ax = fig.add_subplot()
-    image = ax.imshow(section.T, origin="lower", cmap="magma",
+    image = ax.imshow(section.T, origin="lower", cmap=colours.COVERAGE_MAP,
                       extent=(grid.origin_m[0], grid.end_m[0], grid.origin_m[2], grid.end_m[2]), aspect="equal")
     if coverage.target[:, iy, :].any():
-        ax.contour(grid.centres_m(0), grid.centres_m(2), coverage.target[:, iy, :].T.astype(float), levels=[0.5],
-                   colors="cyan", linewidths=0.8)
+        _target_outline(ax, grid.centres_m(0), grid.centres_m(2), coverage.target[:, iy, :].T)
     y = grid.centres_m(1)[iy]
-    ax.set_title(f"rays per cell, vertical section at y = {y:g} m (cyan: target volume)", fontsize=9)
+    ax.set_title(f"rays per cell, vertical section at y = {y:g} m (white: target volume)", fontsize=9)
     ax.set_xlabel("x east (m)")
     ax.set_ylabel("z elevation (m)")
     fig.colorbar(image, ax=ax, shrink=0.85, label="rays crossing the cell")

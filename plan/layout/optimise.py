@@ -9,7 +9,7 @@ counts and direction tensors are exact on the sampled cells, so the sampled
 score is an unbiased estimate of the full one. The resolution condition of
 the standard (``max_resolution_m``) is left out of the search (a minimum over
 rays cannot be updated when a node is removed); it is still reported by
-``plan coverage``.
+``voidcube plan coverage``.
 
 Search, starting from a given layout (normally the regular grid of the same
 number of nodes):

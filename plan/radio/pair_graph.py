@@ -209,7 +209,7 @@ def read_heard_pairs(path, ids):
             missing = [c for c in ("node_a", "node_b", "heard") if c not in (reader.fieldnames or [])]
             if missing:
                 raise InputError(f"{path}: missing column(s) {', '.join(missing)}; "
-                                 "give the pairs.csv written by 'plan pairs'")
+                                 "give the pairs.csv written by 'voidcube plan pairs'")
             for line, row in enumerate(reader, start=2):
                 if row["heard"] not in ("0", "1"):
                     raise InputError(f"{path}, line {line}: heard must be 0 or 1 (got {row['heard']!r})")

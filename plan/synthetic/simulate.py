@@ -100,21 +100,24 @@ def simulate_picks(
         progress(f"simulating {tx.size:,} picks on a {fine.shape[0]} x {fine.shape[1]} x {fine.shape[2]} grid")
     if rays == "straight":
         G = straight_ray_matrix(fine, xyz[tx], xyz[rx],
-                                progress=(lambda d, n: progress(f"rays {d:,}/{n:,}")) if progress else None)
+                                progress=(lambda d, n: progress(f"straight rays: {d:,}/{n:,}")) if progress else None)
         travel = G @ (1.0 / velocity).ravel()
     elif rays == "bent":
         from reconstruct.forward.first_arrivals import first_arrival_times, unique_pairs
         from reconstruct.parallel import Executor
 
         from reconstruct.forward.eikonal import EikonalOptions
+        from reconstruct.forward.kernels import COMPILING_MESSAGE, kernels_need_compiling
 
+        if progress and kernels_need_compiling():
+            progress(COMPILING_MESSAGE)
         pair_a, pair_b, pick_pair = unique_pairs(tx, rx)
         # every fast body (voids, the air) gets its own factor: Fermat's
         # principle holds however the truth bodies lie (see EikonalOptions)
         pair_times = first_arrival_times(
             fine, 1.0 / velocity, xyz, pair_a, pair_b, eikonal_options=EikonalOptions(fast_bodies="all"),
             executor=executor if executor is not None else Executor(kind="processes"),
-            progress=(lambda d, n: progress(f"fields {d}/{n}")) if progress else None)
+            progress=(lambda d, n: progress(f"travel-time fields: {d}/{n}")) if progress else None)
         travel = pair_times[pick_pair]
     else:
         raise ValueError(f"rays must be 'bent' or 'straight' (got {rays!r})")

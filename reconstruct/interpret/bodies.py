@@ -496,7 +496,7 @@ def find_voids(
             raise ValueError(f"{name} has shape {array.shape}, expected {grid.shape}")
     if not np.all(np.isfinite(velocity[ground])) or np.any(velocity[ground] <= 0):
         raise InputError("velocity_m_per_ns: the cube holds NaN, infinite or non-positive "
-                         "velocities in ground cells; write it again with 'reconstruct invert'")
+                         "velocities in ground cells; write it again with 'voidcube reconstruct invert'")
     for name, value in (("frequency_mhz", frequency_mhz), ("path_length_m", path_length_m),
                         ("rms_ns", rms_ns)):
         if not math.isfinite(value) or value <= 0:

@@ -1,6 +1,6 @@
 """From an inversion folder to the void screening: load the folder, find bodies, screen them.
 
-``reconstruct voids DIR`` reads the folder written by ``reconstruct invert``
+``voidcube reconstruct voids DIR`` reads the folder written by ``voidcube reconstruct invert``
 (``velocity.vti``, ``summary.json``, ``residuals.csv``, ``nodes_used.csv``,
 ``manifest.json``) and the site description, then writes into the same
 folder:
@@ -62,14 +62,15 @@ from reconstruct.interpret.bodies import (
     find_voids,
 )
 
-__all__ = ["InversionFolder", "load_inversion_folder", "screen_folder", "read_json_object"]
+__all__ = ["InversionFolder", "load_inversion_folder", "inversion_from_run", "screen_folder", "read_json_object"]
 
 _CUBE_ARRAYS = ("velocity_m_per_ns", "ray_length_m", "ray_count", "ground")
 
 
 @dataclass(frozen=True)
 class InversionFolder:
-    """The pieces of an inversion folder that the void screening needs."""
+    """The pieces of an inversion that the void screening needs: read from a folder
+    (:func:`load_inversion_folder`) or taken from a result in memory (:func:`inversion_from_run`)."""
 
     path: Path
     grid: Grid
@@ -127,22 +128,65 @@ def _median_path_length_m(path: Path) -> float:
             rows = csv.DictReader(handle)
             if rows.fieldnames is None or "distance_m" not in rows.fieldnames:
                 raise InputError(f"{path}: no distance_m column; write the folder again with "
-                                 "'reconstruct invert'")
+                                 "'voidcube reconstruct invert'")
             lengths = []
             for line, row in enumerate(rows, start=2):
                 try:
                     lengths.append(float(row["distance_m"]))
                 except (TypeError, ValueError):
                     raise InputError(f"{path}: line {line}: distance_m {row['distance_m']!r} is not a "
-                                     "number; write the folder again with 'reconstruct invert'") from None
+                                     "number; write the folder again with 'voidcube reconstruct invert'") from None
     except FileNotFoundError:
-        raise InputError(f"{path}: file not found; give the folder written by 'reconstruct invert'") from None
+        raise InputError(f"{path}: file not found; give the folder written by 'voidcube reconstruct invert'") from None
     lengths = np.asarray(lengths)
     lengths = lengths[np.isfinite(lengths) & (lengths > 0)]
     if lengths.size == 0:
         raise InputError(f"{path}: no pick with a positive distance; the void screening needs the "
                          "residuals of an inversion")
     return float(np.median(lengths))
+
+
+def _surface_m(grid: Grid, site: Site) -> np.ndarray:
+    """Ground elevation (m) at the centres of the grid's columns, shape (nx, ny)."""
+    x, y = np.meshgrid(grid.centres_m(0), grid.centres_m(1), indexing="ij")
+    return np.broadcast_to(np.asarray(site.ground.elevation_m(x, y), dtype=float), x.shape).copy()
+
+
+def inversion_from_run(run, *, path=None, site_path=None) -> InversionFolder:
+    """The pieces the void screening needs, from an inversion in memory (no file read).
+
+    Parameters
+    ----------
+    run : reconstruct.inverse.straight.TomographyRun
+        A finished inversion.
+    path : path-like, optional
+        The folder the outputs will go to (default: the current folder).
+    site_path : path-like, optional
+        The site file, for the records (default: the site's ``source_path``).
+
+    Notes
+    -----
+    The median transmitter-receiver distance is taken to the millimetre, as
+    ``residuals.csv`` holds it, so that a result in memory and its folder
+    give the same detection threshold.
+    """
+    from reconstruct.inverse.straight import run_summary
+
+    xyz = run.placement.xyz_m
+    tx, rx = run.picks.tx[run.used], run.picks.rx[run.used]
+    lengths = np.round(np.linalg.norm(xyz[rx] - xyz[tx], axis=1), 3)
+    lengths = lengths[lengths > 0]
+    if lengths.size == 0:
+        raise InputError(f"{run.picks.source}: no pick with a positive distance; the void screening needs "
+                         "the residuals of an inversion")
+    grid, site = run.grid, run.site
+    surface = _surface_m(grid, site)
+    velocity = (1.0 / run.result.slowness_ns_per_m).reshape(grid.shape)
+    return InversionFolder(
+        path=Path(path or "."), grid=grid, velocity_m_per_ns=velocity, ray_count=run.ray_count,
+        ray_length_m=run.ray_length_m, ground=run.ground, surface_m=surface, summary=run_summary(run),
+        site=site, site_path=Path(site_path or site.source_path or "site"),
+        path_length_m=float(np.median(lengths)), rms_ns=float(run.result.rms_ns), nodes_xyz_m=xyz, notes=())
 
 
 def _read_nodes_used(path: Path):
@@ -167,8 +211,8 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
     """
     folder = Path(folder)
     if not folder.is_dir():
-        raise InputError(f"{folder}: not a folder; give the output folder of 'reconstruct invert'")
-    hint = "give the output folder of 'reconstruct invert'"
+        raise InputError(f"{folder}: not a folder; give the output folder of 'voidcube reconstruct invert'")
+    hint = "give the output folder of 'voidcube reconstruct invert'"
     summary = read_json_object(folder / "summary.json", hint)
     manifest_path = folder / "manifest.json"
     manifest = read_json_object(manifest_path, hint) if manifest_path.is_file() else None
@@ -195,13 +239,12 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
     bad = ground & ~(np.isfinite(velocity) & (velocity > 0))
     if bad.any():
         raise InputError(f"{folder / 'velocity.vti'}: {int(bad.sum())} ground cells hold NaN, infinite or "
-                         "non-positive velocities; write the cube again with 'reconstruct invert'")
+                         "non-positive velocities; write the cube again with 'voidcube reconstruct invert'")
     rms = (summary.get("misfit") or {}).get("rms_ns")
     if not isinstance(rms, (int, float)) or not math.isfinite(rms) or rms <= 0:
         raise InputError(f"{folder / 'summary.json'}: misfit.rms_ns missing or not > 0; the threshold "
                          "needs the RMS misfit of the inversion; write the folder again")
-    x, y = np.meshgrid(grid.centres_m(0), grid.centres_m(1), indexing="ij")
-    surface = np.broadcast_to(np.asarray(site.ground.elevation_m(x, y), dtype=float), x.shape).copy()
+    surface = _surface_m(grid, site)
     return InversionFolder(
         path=folder, grid=grid, velocity_m_per_ns=velocity, ray_count=arrays["ray_count"],
         ray_length_m=arrays["ray_length_m"], ground=ground, surface_m=surface, summary=summary,

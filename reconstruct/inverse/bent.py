@@ -30,13 +30,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from reconstruct.forward.first_arrivals import bent_ray_forward, unique_pairs
+from reconstruct.forward.kernels import COMPILING_MESSAGE, kernels_need_compiling
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 from reconstruct.inverse.solver import InversionOptions, invert_travel_times
 from reconstruct.inverse.time_zero import estimate_time_zero, time_zero_matrix
 from reconstruct.inverse.multilevel import choose_coarsening_factor, coarse_level
 from reconstruct.parallel import Executor
 from reconstruct.inverse.regularization import first_difference_operator
-from reconstruct.inverse.straight import TomographyRun, straight_ray_tomography
+from reconstruct.inverse.straight import TomographyRun, solver_progress, straight_ray_tomography
 from reconstruct.forward.straight_rays import ray_coverage
 
 __all__ = ["BentOptions", "bent_ray_tomography"]
@@ -93,6 +94,31 @@ class BentOptions:
 
 
 
+def _starting_model(start, reference, forward, misfit, C, weight, t_obs, pick_pair, say):
+    """The start of the bent-ray iterations: the straight-ray model, or the reference model
+    (rock and air) when it explains the picks better through bent rays. Where air waves arrive
+    first, straight rays force absurd velocities that bent rays need not undo.
+
+    Returns (slowness, time-zero offsets, forward result, weighted misfit, RMS ns, name).
+    """
+    model = start.result.slowness_ns_per_m.copy()
+    tau = start.result.time_zero_ns.copy()
+    fwd = forward(model)
+    current, rms = misfit(fwd.time_ns[pick_pair] + C @ tau)
+    start_name = "straight-ray model"
+    fwd_ref = forward(reference)
+    tau_ref = estimate_time_zero(C, weight, t_obs - fwd_ref.time_ns[pick_pair])
+    value_ref, rms_ref = misfit(fwd_ref.time_ns[pick_pair] + C @ tau_ref)
+    rms_straight_model = rms
+    if value_ref < current:
+        model, tau, fwd, current, rms = reference.copy(), tau_ref, fwd_ref, value_ref, rms_ref
+        start_name = "reference model"
+    say(f"bent-ray iteration 0, the starting model: RMS misfit {rms:.3f} ns through bent rays (the "
+        f"straight-ray model gives {rms_straight_model:.3f} ns, the site's rock velocity {rms_ref:.3f} ns; "
+        "the lower one is the start)")
+    return model, tau, fwd, current, rms, start_name
+
+
 def bent_ray_tomography(site, nodes, picks, options: InversionOptions = InversionOptions(), *,
                         bent: BentOptions = BentOptions(), executor: Executor = Executor(kind="serial"),
                         snap_tolerance_m=None, memory_limit_bytes=None, progress=None) -> TomographyRun:
@@ -130,7 +156,7 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
     def forward(model, keep=False):
         def fw_progress(done, total):
             if done == total or done % max(1, total // 10) == 0:
-                say(f"bent rays: field {done}/{total}")
+                say(f"travel-time fields: {done}/{total}")
         return bent_ray_forward(grid, model.reshape(grid.shape), xyz, pair_a, pair_b, executor=executor,
                                 eikonal_options=bent.eikonal, keep_rays=keep, progress=fw_progress)
 
@@ -138,22 +164,10 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         r = t_obs - pred
         return float(np.sum((weight * r) ** 2)), float(np.sqrt(np.mean(r**2)))
 
-    # Start from the straight-ray model unless the reference model (rock and air)
-    # explains the data better through bent rays: where air waves arrive first,
-    # straight rays force absurd velocities that bent rays need not undo.
-    model = start.result.slowness_ns_per_m.copy()
-    tau = start.result.time_zero_ns.copy()
-    fwd = forward(model)
-    current, rms = misfit(fwd.time_ns[pick_pair] + C @ tau)
-    start_name = "straight-ray model"
-    fwd_ref = forward(reference)
-    tau_ref = estimate_time_zero(C, weight, t_obs - fwd_ref.time_ns[pick_pair])
-    value_ref, rms_ref = misfit(fwd_ref.time_ns[pick_pair] + C @ tau_ref)
-    say(f"iteration 0: RMS through bent rays {rms:.3f} ns from the straight-ray model, "
-        f"{rms_ref:.3f} ns from the reference model")
-    if value_ref < current:
-        model, tau, fwd, current, rms = reference.copy(), tau_ref, fwd_ref, value_ref, rms_ref
-        start_name = "reference model"
+    if kernels_need_compiling():
+        say(COMPILING_MESSAGE)
+    model, tau, fwd, current, rms, start_name = _starting_model(start, reference, forward, misfit, C, weight,
+                                                                t_obs, pick_pair, say)
     history = [dict(iteration=0, rays=f"bent rays through the {start_name}", rms_ns=rms,
                     chi2=current if sigma is not None else None, lambda_smooth=None,
                     step=None, rays_not_reaching_source=int((~fwd.reached).sum()))]
@@ -165,7 +179,7 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
         trial = invert_travel_times(G, t_eff, tx, rx, len(nodes), ground_flat, reference, D,
                                     cell_m=grid.cell_m, sigma_ns=sigma, options=step_options, coarse=coarse,
-                                    progress=progress)
+                                    progress=solver_progress(progress))
         step = 1.0
         while True:
             candidate = model + step * (trial.slowness_ns_per_m - model)
@@ -176,10 +190,11 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
             if value < current or step <= 0.125:
                 break
             step *= 0.5
-            say(f"iteration {iteration}: misfit rose to RMS {rms_new:.3f} ns; halving the step to {step:g}")
+            say(f"bent-ray iteration {iteration}: the misfit rose to RMS {rms_new:.3f} ns; trying a step of {step:g}")
         if value >= current:
-            say(f"iteration {iteration}: no step lowers the misfit; keeping the previous model")
+            say(f"bent-ray iteration {iteration}: no step lowers the misfit; keeping the previous model")
             break
+        rms_before = history[-1]["rms_ns"]
         improvement = (current - value) / current
         model, tau, fwd, current = candidate, tau_candidate, fwd_new, value
         result = trial
@@ -188,9 +203,11 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         history.append(dict(iteration=iteration, rays="bent", rms_ns=rms_new,
                             chi2=value if sigma is not None else None, lambda_smooth=trial.lambda_smooth,
                             step=step, rays_not_reaching_source=int((~fwd.reached).sum())))
-        say(f"iteration {iteration}: RMS {rms_new:.3f} ns (step {step:g}, lambda {trial.lambda_smooth:.4g})")
+        say(f"bent-ray iteration {iteration} of {bent.max_iterations}: RMS misfit {rms_new:.3f} ns "
+            f"(was {rms_before:.3f} ns), " + ("full step" if step == 1 else f"step {step:g}")
+            + f", smoothing weight {trial.lambda_smooth:.3g}")
         if improvement < bent.plateau:
-            say(f"misfit plateau (improvement {improvement:.1%} < {bent.plateau:.0%}); stopping")
+            say(f"the misfit improved by only {improvement:.1%} (less than {bent.plateau:.0%}); stopping here")
             break
 
     final = fwd

@@ -73,6 +73,9 @@ class InversionOptions:
     robust : {"none", "huber", "tukey"}
         Iteratively reweighted least squares against gross pick errors
         (:mod:`reconstruct.inverse.robust`); "none" is plain least squares.
+        The processing (:mod:`reconstruct.pipeline`, the commands, the demo)
+        sets it by one rule, :func:`reconstruct.pipeline.robust_rule`: Huber
+        with straight rays, none with bent rays.
     robust_iterations : int
         Largest number of reweightings per IRLS pass.
     robust_tolerance : float
@@ -353,6 +356,10 @@ def _l_curve_corner(log_rho: np.ndarray, log_eta: np.ndarray) -> int:
     return int(np.argmin(turn)) + 1
 
 
+#: The grid levels of the weight search, in words.
+_GRID_WORDS = {"coarse": "coarse grid", "fine": "model grid"}
+
+
 def _record(search, level, lam, sol, n_picks):
     search.append(dict(level=level, lambda_smooth=float(lam), chi2=sol.misfit**2,
                        rms_weighted=sol.misfit / np.sqrt(n_picks),
@@ -377,8 +384,8 @@ def _sweep(problem, options, n_picks, stop_below, progress, level, search, toler
         trials.append((float(lam), sol))
         _record(search, level, lam, sol, n_picks)
         if progress:
-            progress(f"{level} grid, lambda {k + 1}/{lambdas.size}: {lam:.3g}, "
-                     f"weighted misfit^2 {sol.misfit**2:.4g}, {sol.iterations} iterations")
+            progress(f"smoothing weight, trial {k + 1} of up to {lambdas.size} on the {_GRID_WORDS[level]}: "
+                     f"{lam:.3g} gives chi-square {sol.misfit**2:.4g} ({sol.iterations} LSQR iterations)")
         if stop_below is not None and sol.misfit**2 <= stop_below:
             break
         if len(trials) >= 4 and sol.misfit**2 > 0.98 * trials[-2][1].misfit ** 2:
@@ -438,8 +445,8 @@ def _discrepancy_root(problem, options, start, target, progress, level, search, 
         _record(search, level, lam, sol, n_picks)
         g = g_of(sol)
         if progress:
-            progress(f"{level} grid, discrepancy step: lambda {lam:.4g}, chi^2 {sol.misfit**2:.5g} "
-                     f"(target {target:.5g}), {sol.iterations} iterations")
+            progress(f"smoothing weight {lam:.4g} on the {_GRID_WORDS[level]}: chi-square {sol.misfit**2:.5g}, "
+                     f"aiming at {target:.5g}, the number of picks ({sol.iterations} LSQR iterations)")
         if abs(g) < tolerance:
             return lam, sol, True
         point = [log_lam, g, sol]
@@ -506,7 +513,7 @@ def _irls(problem, options, lam, sol, loss, trust_sigma, progress, search, n_pic
         count += 1
         _record(search, "fine", lam, sol, n_picks)
         if progress:
-            progress(f"robust ({loss}) reweighting {count}: {int(np.sum(omega < options.rejection_weight))} "
+            progress(f"robust weighting ({loss}), pass {count}: {int(np.sum(omega < options.rejection_weight))} "
                      f"picks below weight {options.rejection_weight:g}, {sol.iterations} iterations")
     return sol, omega, scale, count
 
@@ -735,8 +742,8 @@ def invert_travel_times(
                                  options.search_tolerance)
                 _record(search, "fine", lam, sol, n_picks)
                 if progress:
-                    progress(f"fine grid: lambda {lam:.4g}, weighted misfit^2 {sol.misfit**2:.5g}, "
-                             f"{sol.iterations} iterations")
+                    progress(f"smoothing weight {lam:.4g} on the model grid: chi-square {sol.misfit**2:.5g} "
+                             f"({sol.iterations} LSQR iterations)")
             else:
                 # The coarse curve levels off early (its cells cannot fit small
                 # bodies), which moves its corner to larger lambda: trace the
@@ -765,8 +772,8 @@ def invert_travel_times(
             sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
             _record(search, "fine", lam, sol, n_picks)
             if progress:
-                progress(f"fine grid, final solve: lambda {lam:.4g}, chi^2 {sol.misfit**2:.5g}, "
-                         f"{sol.iterations} iterations")
+                progress(f"final solve at smoothing weight {lam:.4g}: chi-square {sol.misfit**2:.5g} "
+                         f"({sol.iterations} LSQR iterations)")
             if reached:
                 note = f"chi^2 = {sol.misfit**2:.5g} for N = {n_picks} picks"
             else:

@@ -21,7 +21,7 @@ from reconstruct.forward.straight_rays import ray_coverage
 from reconstruct.forward.straight_rays import straight_ray_matrix
 from reconstruct.io.tables import ExcludedPick, Nodes, Picks
 
-__all__ = ["TomographyRun", "straight_ray_tomography", "run_summary"]
+__all__ = ["TomographyRun", "straight_ray_tomography", "run_summary", "solver_progress"]
 
 
 @dataclass(frozen=True)
@@ -53,6 +53,23 @@ class TomographyRun:
 def _say(progress, message):
     if progress is not None:
         progress(message)
+
+
+#: How the smoothing weight was chosen, in words.
+_METHOD_WORDS = {"discrepancy": "chosen so that the misfit matches the pick uncertainties",
+                 "l-curve": "chosen at the corner of the L-curve", "user": "as given"}
+
+
+def solver_progress(progress):
+    """The solver's per-solve messages, marked as detail (``solver: ...``).
+
+    A command shows them only when nothing else was said for a while, so that
+    a long search for the smoothing weight is not silent and a short one is
+    not a screenful of numbers.
+    """
+    if progress is None:
+        return None
+    return lambda message: progress(f"solver: {message}")
 
 
 def straight_ray_tomography(
@@ -119,11 +136,16 @@ def straight_ray_tomography(
                               vertical_weight=options.vertical_weight)
         _say(progress, f"lambda search on a coarse grid of {factor} x {factor} x {factor} blocks "
                        f"({int(coarse.ground.sum()):,} unknowns)")
+    _say(progress, "solving for the straight-ray model" + (
+        "; the smoothing weight is chosen by trial solves (tens of seconds each on a large grid)"
+        if options.smoothing is None else ""))
     result = invert_travel_times(
         G, picks.time_ns[used], picks.tx[used], picks.rx[used], len(nodes), ground_flat, reference, D,
-        cell_m=grid.cell_m, sigma_ns=sigma, options=options, coarse=coarse, progress=progress,
+        cell_m=grid.cell_m, sigma_ns=sigma, options=options, coarse=coarse, progress=solver_progress(progress),
         robust_exempt=None if robust_exempt is None else np.asarray(robust_exempt, dtype=bool)[used],
     )
+    _say(progress, f"straight-ray model: RMS misfit {result.rms_ns:.3f} ns over {used.size:,} picks; "
+                   f"smoothing weight {result.lambda_smooth:.3g} ({_METHOD_WORDS.get(result.lambda_method, result.lambda_method)})")
     ray_length, ray_count = ray_coverage(G, grid)
     return TomographyRun(
         site=site, grid=grid, ground=ground, nodes=nodes, placement=placement, picks=picks,

@@ -191,7 +191,7 @@ def read_cell_arrays_vti(path, names):
 
     path = Path(path)
     if not path.is_file():
-        raise InputError(f"{path}: file not found; run 'reconstruct invert' to write it, "
+        raise InputError(f"{path}: file not found; run 'voidcube reconstruct invert' to write it, "
                          "or give the folder that holds it")
     from vtkmodules.vtkCommonCore import vtkObject
 
@@ -205,20 +205,20 @@ def read_cell_arrays_vti(path, names):
             image = pyvista.read(str(path))
     except Exception as error:  # VTK raises assorted types for damaged files
         raise InputError(f"{path}: cannot be read as VTK image data ({error}); "
-                         "write it again with 'reconstruct invert'") from None
+                         "write it again with 'voidcube reconstruct invert'") from None
     finally:
         vtkObject.SetGlobalWarningDisplay(shown)
     if not isinstance(image, pyvista.ImageData):
         raise InputError(f"{path}: holds {type(image).__name__}, not VTK image data; "
-                         "give the velocity.vti written by 'reconstruct invert'")
+                         "give the velocity.vti written by 'voidcube reconstruct invert'")
     shape = tuple(int(n) - 1 for n in image.dimensions)
     if min(shape) < 1:
         raise InputError(f"{path}: damaged or not VTK image data (no cells could be read); "
-                         "write it again with 'reconstruct invert'")
+                         "write it again with 'voidcube reconstruct invert'")
     missing = [n for n in names if n not in image.cell_data]
     if missing:
         raise InputError(f"{path}: cell array(s) {', '.join(missing)} missing; this is not a cube "
-                         "written by 'reconstruct invert', write it again")
+                         "written by 'voidcube reconstruct invert', write it again")
     grid = Grid(tuple(image.origin), tuple(image.spacing), shape)
     arrays = {n: np.asarray(image.cell_data[n]).reshape(shape, order="F").copy() for n in names}
     return grid, arrays

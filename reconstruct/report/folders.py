@@ -188,7 +188,7 @@ def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: boo
             picture_list.append({"file": "pictures/view_3d.png", "body_id": None,
                                  "caption": "Oblique view from above: ground surface (grey), bodies "
                                             "(orange fast, blue slow), nodes (black), planned works "
-                                            "(purple)"})
+                                            "(reddish purple)"})
         voids_only = [b for b in analysis.bodies if b.status == STATUS_VOID]
         for body in voids_only[:max_pictures]:
             say(f"slices through body {body.id}")
@@ -199,7 +199,7 @@ def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: boo
             picture_list.append({"file": name, "body_id": body.id,
                                  "caption": f"Body {body.id}: plan (top) and east-west section (bottom) "
                                             "through its centroid; velocity (cividis), body outline "
-                                            "(vermilion), cells without rays shaded grey"})
+                                            "(in the colour of its fill), cells without rays hatched"})
         if len(voids_only) > max_pictures:
             rendering += f"; slices drawn for the first {max_pictures} of {len(voids_only)} voids"
     _remove_stale_pictures(out / "pictures", {out / p["file"] for p in picture_list})
@@ -231,7 +231,7 @@ def write_void_outputs(data: InversionFolder, analysis, hazard, *, pictures: boo
         "notes": list(data.notes) + list(analysis.notes),
     }
     written.append(write_json_atomic(out / "voids.json", content))
-    extend_manifest(out, command="reconstruct voids", inputs={
+    extend_manifest(out, command="voidcube reconstruct voids", inputs={
         "site": data.site_path, "velocity": out / "velocity.vti", "summary": out / "summary.json",
         "residuals": out / "residuals.csv"}, parameters=parameters,
         outputs=[str(Path(p).relative_to(out)) for p in written], started=started)

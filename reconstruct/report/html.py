@@ -16,6 +16,8 @@ import html
 import io
 from collections.abc import Iterable, Sequence
 
+from reconstruct.report.colours import PAGE_COLOURS
+
 __all__ = [
     "CAUTIONS",
     "escape",
@@ -41,18 +43,19 @@ CAUTIONS = (
     "conditions before fieldwork.",
 )
 
-_STYLE = """
-body { font-family: sans-serif; margin: 1.5em auto; max-width: 70em; color: #1b1b1b;
+# the page colours are CSS custom properties set from reconstruct.report.colours
+_STYLE = ":root { " + " ".join(f"--{name}: {value};" for name, value in PAGE_COLOURS.items()) + " }" + """
+body { font-family: sans-serif; margin: 1.5em auto; max-width: 70em; color: var(--text);
        line-height: 1.4; padding: 0 1em; }
 h1 { font-size: 1.5em; } h2 { font-size: 1.2em; margin-top: 1.6em; }
-.cautions { border: 2px solid #8a4b00; background: #fff6e8; padding: 0.6em 1em; }
+.cautions { border: 2px solid var(--caution-border); background: var(--caution-background); padding: 0.6em 1em; }
 .cautions h2 { margin-top: 0.2em; }
 table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.9em; }
-th, td { border: 1px solid #b8b8b8; padding: 0.2em 0.5em; text-align: right; }
-th { background: #ececec; } td.text { text-align: left; }
-figure { margin: 1em 0; } figcaption { font-size: 0.9em; color: #444; }
+th, td { border: 1px solid var(--table-rule); padding: 0.2em 0.5em; text-align: right; }
+th { background: var(--table-head); } td.text { text-align: left; }
+figure { margin: 1em 0; } figcaption { font-size: 0.9em; color: var(--muted-text); }
 img { max-width: 100%; }
-.meta { font-size: 0.85em; color: #444; }
+.meta { font-size: 0.85em; color: var(--muted-text); }
 """
 
 

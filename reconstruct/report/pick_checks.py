@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from reconstruct.report import colours
 from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 from reconstruct.io.outputs import (
@@ -147,7 +148,7 @@ def qc_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems, *, rays
 # --------------------------------------------------------------------------
 # figures
 
-_COLOURS = {"kept": "#3b6ea5", "air": "#d08a00", "reciprocal": "#7a3fa0", "implausible": "#c0392b"}
+_COLOURS = colours.PICK_CLASS_COLOURS
 
 
 def _category(checks: PickChecks) -> np.ndarray:
@@ -180,7 +181,7 @@ def _time_distance_png(checks: PickChecks) -> bytes:
                             (checks.rock_velocity_m_per_ns, "--", "site rock"),
                             (checks.fitted_velocity_m_per_ns, ":", "fitted to the picks"),
                             (o.velocity_min_m_per_ns, "-.", "band minimum")):
-        ax.plot(xs, xs / v, style, color="#333333", linewidth=1, label=f"{label} {v:.3f} m/ns")
+        ax.plot(xs, xs / v, style, color=colours.REFERENCE_LINE_COLOUR, linewidth=1, label=f"{label} {v:.3f} m/ns")
     tmax = float(np.nanmax(t)) if t.size else 1.0
     ax.set_ylim(0, 1.05 * max(tmax, 1.0))
     ax.set_xlabel("distance between nodes (m)")
@@ -199,9 +200,9 @@ def _reciprocity_png(picks: Picks, checks: PickChecks) -> bytes:
     t = picks.time_ns
     ax.scatter(t[k][~bad], t[j][~bad], s=4, color=_COLOURS["kept"], label=f"agree ({int((~bad).sum())})")
     if bad.any():
-        ax.scatter(t[k][bad], t[j][bad], s=10, color=_COLOURS["implausible"], label=f"mismatch ({int(bad.sum())})")
+        ax.scatter(t[k][bad], t[j][bad], s=10, color=_COLOURS["reciprocal"], label=f"mismatch ({int(bad.sum())})")
     top = float(max(t.max(), 1.0)) if t.size else 1.0
-    ax.plot([0, top], [0, top], color="#333333", linewidth=1, label="t(A->B) = t(B->A)")
+    ax.plot([0, top], [0, top], color=colours.REFERENCE_LINE_COLOUR, linewidth=1, label="t(A->B) = t(B->A)")
     ax.set_xlabel("t(A->B) as picked (ns)")
     ax.set_ylabel("t(B->A) as picked (ns)")
     ax.legend(fontsize=7, loc="upper left")
@@ -218,7 +219,7 @@ def _histogram_png(checks: PickChecks) -> bytes:
         ax.hist(np.clip(r, -lim, lim), bins=60, color=_COLOURS["kept"])
         s = float(np.median(checks.sigma_ns))
         for x in (-3 * s, 3 * s):
-            ax.axvline(x, color="#333333", linestyle="--", linewidth=1)
+            ax.axvline(x, color=colours.REFERENCE_LINE_COLOUR, linestyle="--", linewidth=1)
     ax.set_xlabel("residual against the reference (ns), clipped at the 99.5th percentile; dashed: +-3 sigma")
     ax.set_ylabel("picks")
     return figure_png(fig)
@@ -231,10 +232,10 @@ def _node_map_png(picks: Picks, nodes: Nodes, checks: PickChecks, xyz_m) -> byte
     xyz = np.asarray(xyz_m)
     ok = np.isfinite(median)
     lim = float(np.nanmax(np.abs(median))) if ok.any() else 1.0
-    sc = ax.scatter(xyz[ok, 0], xyz[ok, 1], c=median[ok], cmap="coolwarm", vmin=-lim, vmax=lim, s=30,
-                    edgecolors="#333333", linewidths=0.5)
+    sc = ax.scatter(xyz[ok, 0], xyz[ok, 1], c=median[ok], cmap=colours.DIVERGING_MAP, vmin=-lim, vmax=lim, s=30,
+                    edgecolors=colours.REFERENCE_LINE_COLOUR, linewidths=0.5)
     if (~ok).any():
-        ax.scatter(xyz[~ok, 0], xyz[~ok, 1], marker="x", color="#777777", label="no pick")
+        ax.scatter(xyz[~ok, 0], xyz[~ok, 1], marker="x", color=colours.NO_DATA_COLOUR, label="no pick")
         ax.legend(fontsize=7)
     fig.colorbar(sc, ax=ax, label="median residual of the node's picks (ns)")
     ax.set_xlabel("x, east (m)")
@@ -249,7 +250,7 @@ def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
     if summary["problems"]:
         items = "".join(f"<li>{escape(p)}</li>" for p in summary["problems"])
         parts.append(f"<h2>Verdict: not usable as it stands</h2><ul>{items}</ul>"
-                     "<p>reconstruct invert refuses these picks unless --accept-flags is given.</p>")
+                     "<p>voidcube reconstruct invert refuses these picks unless --invert-unusable is given.</p>")
     else:
         parts.append("<h2>Verdict: usable</h2><p>No check stops an inversion. Flagged picks are listed below.</p>")
     counts = summary["picks"]["flag_counts"]

@@ -19,12 +19,11 @@ needs no OpenGL, so they are always made.
 
 Colours
 -------
-Velocity slices use matplotlib's ``cividis`` map, designed to read the same
-for viewers with red-green colour-vision deficiency (Nunez, Anderton and
-Renslow 2018, Optimizing colormaps with consideration for color vision
-deficiency, PLOS ONE 13(7), e0199239). Bodies use the Okabe-Ito palette
-(Okabe and Ito 2008, Color Universal Design): orange for fast (air-filled)
-bodies, blue for slow (water- or clay-filled) ones.
+Every colour and colour map comes from :mod:`reconstruct.report.colours`
+(Okabe-Ito categories, ``cividis`` for velocity; the choices and their
+sources are stated there): bodies in the colour of their fill (orange for
+air, blue for water or clay), planned works reddish purple, nodes black;
+cells crossed by no ray veiled and hatched.
 """
 
 from __future__ import annotations
@@ -37,6 +36,7 @@ import sys
 import numpy as np
 
 from reconstruct.model.grid import Grid
+from reconstruct.report import colours
 
 __all__ = [
     "FAST_COLOUR",
@@ -51,20 +51,24 @@ __all__ = [
     "write_png_atomic",
 ]
 
-FAST_COLOUR = "#E69F00"  # Okabe-Ito orange
-SLOW_COLOUR = "#0072B2"  # Okabe-Ito blue
-WORK_COLOUR = "#CC79A7"  # Okabe-Ito reddish purple
-NODE_COLOUR = "#000000"
+FAST_COLOUR = colours.FILL_COLOURS["air"]
+SLOW_COLOUR = colours.FILL_COLOURS["water_or_clay"]
+WORK_COLOUR = colours.PLANNED_WORK_COLOUR
+NODE_COLOUR = colours.NODE_COLOUR
 
-_PROBE = """
+_PROBE = f"""
 import pyvista
 plotter = pyvista.Plotter(off_screen=True, window_size=(32, 24))
-plotter.add_mesh(pyvista.Sphere(), color="orange")
+plotter.add_mesh(pyvista.Sphere(), color={FAST_COLOUR!r})
 image = plotter.screenshot(return_img=True)
 plotter.close()
 assert image.shape[:2] == (24, 32) and image.reshape(-1, image.shape[-1]).std(axis=0).max() > 0
 print("ok")
 """
+
+_VIEW_KEY = "   ".join(f"{colours.COLOUR_NAMES[colour]}: {meaning}" for colour, meaning in (
+    (FAST_COLOUR, "fast (air-filled) bodies"), (SLOW_COLOUR, "slow bodies"), (WORK_COLOUR, "planned works"),
+    (NODE_COLOUR, "nodes")))
 
 _BACKENDS = ("vtkEGLRenderWindow", "vtkOSOpenGLRenderWindow", "vtkXOpenGLRenderWindow")
 
@@ -228,8 +232,8 @@ def render_oblique_view(path, ground_mesh, voids_mesh, *, nodes_xyz_m=None, work
 
     plotter = pyvista.Plotter(off_screen=True, window_size=tuple(int(v) for v in window_size))
     try:
-        plotter.set_background("white")
-        plotter.add_mesh(ground_mesh, color="#BBBBBB", opacity=0.35, show_edges=False)
+        plotter.set_background(colours.BACKGROUND_COLOUR)
+        plotter.add_mesh(ground_mesh, color=colours.GROUND_SURFACE_COLOUR, opacity=0.35, show_edges=False)
         if voids_mesh.n_cells:
             fast = np.asarray(voids_mesh.cell_data["fast"]).astype(bool)
             for mask, colour in ((fast, FAST_COLOUR), (~fast, SLOW_COLOUR)):
@@ -245,11 +249,10 @@ def render_oblique_view(path, ground_mesh, voids_mesh, *, nodes_xyz_m=None, work
                 points = np.vstack([points, points[:1]])
             plotter.add_mesh(pyvista.lines_from_points(points), color=WORK_COLOUR, line_width=4)
         plotter.show_bounds(xtitle="x east (m)", ytitle="y north (m)", ztitle="z elevation (m)",
-                            color="black", font_size=10, location="outer")
+                            color=colours.TEXT_COLOUR, font_size=10, location="outer")
         if title:
-            plotter.add_text(title, font_size=10, color="black")
-        plotter.add_text("orange: fast (air-filled) bodies   blue: slow bodies   purple: planned works   "
-                         "black: nodes", position="lower_left", font_size=8, color="black")
+            plotter.add_text(title, font_size=10, color=colours.TEXT_COLOUR)
+        plotter.add_text(_VIEW_KEY, position="lower_left", font_size=8, color=colours.TEXT_COLOUR)
         plotter.camera_position = "iso"
         plotter.camera.azimuth = -20
         plotter.camera.elevation = -10
@@ -270,27 +273,56 @@ def _scale_bar_length(extent_m: float) -> float:
     return float(power)
 
 
-def _draw_slice(figure, axes, values, covered, outline, extent, labels, v_range, ground_line=None):
+def _step_coordinates(edges):
+    """Cell edges as the coordinates of a stepped grid: each inner edge twice, a hair apart, so that a
+    contour of cell values at level 0.5 runs along the cell edges."""
+    edges = np.asarray(edges, dtype=float)
+    hair = 1e-6 * float(np.min(np.diff(edges)))
+    inner = np.repeat(edges[1:-1], 2) + np.tile([-hair, hair], len(edges) - 2)
+    return np.r_[edges[0], inner, edges[-1]]
+
+
+def _stepped(mask, extent):
+    """``(x, y, values)`` for contouring a (ny, nx) cell mask along its cell edges."""
+    ny, nx = mask.shape
+    xs = _step_coordinates(np.linspace(extent[0], extent[1], nx + 1))
+    ys = _step_coordinates(np.linspace(extent[2], extent[3], ny + 1))
+    return xs, ys, np.repeat(np.repeat(mask.astype(float), 2, axis=0), 2, axis=1)
+
+
+def _draw_no_rays(axes, no_rays, extent):
+    """Veil and hatch the cells crossed by no ray (the choice is explained in reconstruct.report.colours)."""
+    import matplotlib
+
+    if not no_rays.any():
+        return
+    xs, ys, stepped = _stepped(no_rays, extent)
+    axes.contourf(xs, ys, stepped, levels=[0.5, 1.5], colors=[colours.NO_RAYS_VEIL_COLOUR],
+                  alpha=colours.NO_RAYS_VEIL_ALPHA)
+    with matplotlib.rc_context({"hatch.color": colours.NO_RAYS_HATCH_COLOUR, "hatch.linewidth": 0.6}):
+        axes.contourf(xs, ys, stepped, levels=[0.5, 1.5], colors="none", hatches=[colours.NO_RAYS_HATCH])
+
+
+def _draw_slice(figure, axes, values, covered, outline, extent, labels, v_range, ground_line=None,
+                outline_colour=FAST_COLOUR):
     from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
     xlabel, ylabel, title = labels
     shown = np.ma.masked_invalid(values.T)
-    image = axes.imshow(shown, origin="lower", extent=extent, cmap="cividis", vmin=v_range[0],
+    image = axes.imshow(shown, origin="lower", extent=extent, cmap=colours.VELOCITY_MAP, vmin=v_range[0],
                         vmax=v_range[1], interpolation="nearest", aspect="equal")
-    no_rays = np.ma.masked_where(covered.T | ~np.isfinite(values.T), np.ones_like(values.T))
-    axes.imshow(no_rays, origin="lower", extent=extent, cmap="Greys", vmin=0, vmax=2, alpha=0.45,
-                interpolation="nearest", aspect="equal")
+    _draw_no_rays(axes, ~covered.T & np.isfinite(values.T), extent)
     if outline.any():
-        ny, nx = outline.T.shape
-        xs = np.linspace(extent[0], extent[1], nx + 1)
-        ys = np.linspace(extent[2], extent[3], ny + 1)
-        axes.contour(0.5 * (xs[:-1] + xs[1:]), 0.5 * (ys[:-1] + ys[1:]), outline.T.astype(float),
-                     levels=[0.5], colors="#D55E00", linewidths=1.8)
+        # along the cell edges, in the colour of the body's fill, on a light halo that keeps it
+        # legible on both ends of the velocity map
+        stepped = _stepped(outline.T, extent)
+        axes.contour(*stepped, levels=[0.5], colors=[colours.BODY_OUTLINE_HALO], linewidths=3.6)
+        axes.contour(*stepped, levels=[0.5], colors=[outline_colour], linewidths=1.8)
     if ground_line is not None:
-        axes.plot(*ground_line, color="black", linewidth=1.2)
+        axes.plot(*ground_line, color=colours.GROUND_LINE_COLOUR, linewidth=1.2)
     bar = _scale_bar_length(extent[1] - extent[0])
     axes.add_artist(AnchoredSizeBar(axes.transData, bar, f"{bar:g} m", loc="lower right", pad=0.4,
-                                    color="black", frameon=True, size_vertical=0))
+                                    color=colours.TEXT_COLOUR, frameon=True, size_vertical=0))
     axes.set_xlabel(xlabel)
     axes.set_ylabel(ylabel)
     axes.set_title(title, fontsize=10)
@@ -301,12 +333,14 @@ def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, sur
     """PNG bytes of a plan slice and an east-west section through a body's centroid.
 
     One picture, plan above section. Velocity in ``cividis``; the body's
-    outline in vermilion; cells crossed by no ray shaded grey; air left
-    blank; the ground surface as a black line on the section; a scale bar in
-    metres on each.
+    outline in the colour of its fill; cells crossed by no ray veiled and
+    hatched; air left blank; the ground surface as a black line on the
+    section; a scale bar in metres on each (colours from
+    :mod:`reconstruct.report.colours`).
     """
     from matplotlib.figure import Figure
 
+    from reconstruct.interpret.bodies import FILL_AIR
     from reconstruct.report.html import figure_png
 
     velocity = np.where(ground, np.asarray(velocity_m_per_ns, dtype=float), np.nan)
@@ -316,17 +350,18 @@ def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, sur
     v_range = (float(ground_v.min()), float(ground_v.max())) if ground_v.size else (0.0, 0.3)
     edges = [grid.edges_m(a) for a in range(3)]
     inside = labels == body.id
+    outline = FAST_COLOUR if body.fill == FILL_AIR else SLOW_COLOUR
     figure = Figure(figsize=(7.5, 7.5), layout="constrained")
     plan_axes, section_axes = figure.subplots(2, 1)
     _draw_slice(figure, plan_axes, velocity[:, :, iz], covered[:, :, iz], inside[:, :, iz],
                 (edges[0][0], edges[0][-1], edges[1][0], edges[1][-1]),
                 ("x east (m)", "y north (m)", f"Body {body.id}: plan at z = {grid.centres_m(2)[iz]:.1f} m"),
-                v_range)
+                v_range, outline_colour=outline)
     _draw_slice(figure, section_axes, velocity[:, iy, :], covered[:, iy, :], inside[:, iy, :],
                 (edges[0][0], edges[0][-1], edges[2][0], edges[2][-1]),
                 ("x east (m)", "z elevation (m)",
                  f"Body {body.id}: section along x at y = {grid.centres_m(1)[iy]:.1f} m"),
-                v_range, ground_line=(grid.centres_m(0), np.asarray(surface_m)[:, iy]))
+                v_range, ground_line=(grid.centres_m(0), np.asarray(surface_m)[:, iy]), outline_colour=outline)
     return figure_png(figure)
 
 def save_mesh(path, mesh):

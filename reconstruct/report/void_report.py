@@ -1,7 +1,7 @@
 """The void report: one self-contained HTML page for the safety officer.
 
-``reconstruct report DIR`` reads the outputs of ``reconstruct invert`` and
-``reconstruct voids`` in DIR and writes ``DIR/report.html``: the cautions at
+``voidcube reconstruct report DIR`` reads the outputs of ``voidcube reconstruct invert`` and
+``voidcube reconstruct voids`` in DIR and writes ``DIR/report.html``: the cautions at
 the top, the ranked screening list, the void table, the pictures (embedded as
 PNG, so the page opens with no network and no software of ours), the
 data-quality and resolution summary, and the run manifest. Every piece of
@@ -98,14 +98,23 @@ def _quality_section(summary: dict, voids: dict) -> str:
     )
 
 
-def build_report_html(folder) -> str:
-    """The report page for an output folder (nothing written)."""
+def build_report_html(folder, *, summary: dict | None = None, voids: dict | None = None,
+                      manifest: dict | None = None) -> str:
+    """The report page for an output folder (nothing written).
+
+    ``summary``, ``voids`` and ``manifest`` may be given in memory (as
+    :func:`reconstruct.pipeline.write_processing` returns them); those not
+    given are read from ``summary.json``, ``voids.json`` and ``manifest.json``
+    in ``folder``. The pictures are read from ``folder``.
+    """
     folder = Path(folder)
     if not folder.is_dir():
-        raise InputError(f"{folder}: not a folder; give the output folder of 'reconstruct invert'")
-    summary = read_json_object(folder / "summary.json", "give the output folder of 'reconstruct invert'")
-    voids = read_json_object(folder / "voids.json", f"run 'reconstruct voids {folder}' first")
-    manifest = read_json_object(folder / "manifest.json", "give the output folder of 'reconstruct invert'")
+        raise InputError(f"{folder}: not a folder; give the output folder of 'voidcube reconstruct invert'")
+    hint = "give the output folder of 'voidcube reconstruct invert'"
+    summary = summary if summary is not None else read_json_object(folder / "summary.json", hint)
+    voids = voids if voids is not None else read_json_object(
+        folder / "voids.json", f"run 'voidcube reconstruct voids {folder}' first")
+    manifest = manifest if manifest is not None else read_json_object(folder / "manifest.json", hint)
     counts = voids.get("counts", {})
     parts = [
         f"<p><b>Site:</b> {escape(voids.get('site', summary.get('site', '-')))}<br>"
@@ -138,7 +147,7 @@ def build_report_html(folder) -> str:
             png = path.read_bytes()
         except OSError:
             pictures.append(f"<p>Picture {escape(picture.get('file'))} is missing; run "
-                            f"'reconstruct voids' again.</p>")
+                            f"'voidcube reconstruct voids' again.</p>")
             continue
         pictures.append(png_img_html(png, alt=str(picture.get("caption", "")),
                                      caption=str(picture.get("caption", ""))))
@@ -156,13 +165,17 @@ def build_report_html(folder) -> str:
     return html_document(title, "".join(parts), generated_by="voidcube reconstruct report")
 
 
-def write_report(folder, *, started: str | None = None) -> Path:
-    """Write ``report.html`` into ``folder`` atomically and record the run in the manifest."""
+def write_report(folder, *, started: str | None = None, summary: dict | None = None,
+                 voids: dict | None = None) -> Path:
+    """Write ``report.html`` into ``folder`` atomically and record the run in the manifest.
+
+    ``summary`` and ``voids`` may be given in memory (see :func:`build_report_html`).
+    """
     folder = Path(folder)
     started = started or utc_now_iso()
-    page = build_report_html(folder)
+    page = build_report_html(folder, summary=summary, voids=voids)
     path = write_text_atomic(folder / "report.html", page)
-    extend_manifest(folder, command="reconstruct report",
+    extend_manifest(folder, command="voidcube reconstruct report",
                     inputs={"summary": folder / "summary.json", "voids": folder / "voids.json"},
                     parameters={}, outputs=["report.html"], started=started)
     return path

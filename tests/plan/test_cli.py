@@ -1,4 +1,4 @@
-"""Tests for the ``plan`` command line (``plan.cli.main``): describe and simulate.
+"""Tests for the ``voidcube plan`` commands (``plan.cli.main``): describe, simulate and survey design.
 
 Runs are in-process on a small invented site written to pytest's tmp_path
 (20 x 10 x 20 m box, 1 m cells, flat ground at 18 m, 17 nodes).
@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 import scipy.constants
 
-from plan.cli import main
+from plan.cli import SIMULATE_FILES, main
 from reconstruct.io.tables import read_nodes, read_picks
 from tests.cli_helpers import assert_user_error, run_main
 
@@ -72,9 +72,10 @@ def _run(argv):
     return run_main(main, argv)
 
 
-def _simulate(files, out, *extra):
+def _simulate(files, picks_path, *extra):
+    """'plan simulate' into the folder of ``picks_path`` (the pick table it writes there)."""
     return _run(["simulate", "--site", files["site"], "--nodes", files["nodes"],
-                 "--truth", files["truth"], "--out", out, *extra])
+                 "--truth", files["truth"], "--out", picks_path.parent, *extra])
 
 
 def _assert_user_error(code, stdout, stderr, *fragments):
@@ -85,7 +86,7 @@ def _assert_user_error(code, stdout, stderr, *fragments):
 
 def test_simulate_writes_a_pick_table_that_reconstruct_reads(files, tmp_path):
     before = {k: p.read_bytes() for k, p in files.items()}
-    out = tmp_path / "picks.csv"
+    out = tmp_path / "simulated" / "picks.csv"
     code, stdout, stderr = _simulate(files, out)
     assert code == 0, stderr
     nodes = read_nodes(files["nodes"])
@@ -101,16 +102,20 @@ def test_simulate_writes_a_pick_table_that_reconstruct_reads(files, tmp_path):
     with open(out, newline="", encoding="utf-8") as f:
         assert next(csv.reader(f)) == ["tx", "rx", "time_ns", "sigma_ns"]
     assert stdout.strip() == (
-        f"{N_NODES * (N_NODES - 1)} synthetic picks written to {out} (noise 0.3 ns, clock offsets "
+        f"{N_NODES * (N_NODES - 1)} synthetic picks written to {out} (noise 0.3 ns, time-zero offsets "
         f"sd 1 ns, times {picks.time_ns.min():.1f} to {picks.time_ns.max():.1f} ns)")
     assert "simulating 272 picks on a 40 x 20 x 40 grid" in stderr
     assert {k: p.read_bytes() for k, p in files.items()} == before
-    assert [p.name for p in tmp_path.iterdir() if "partial" in p.name] == []
+    assert sorted(p.name for p in out.parent.iterdir()) == sorted(SIMULATE_FILES)  # no temporary file left
+    manifest = json.loads((out.parent / "manifest.json").read_text(encoding="utf-8"))
+    assert manifest["command"] == "voidcube plan simulate"
+    assert sorted(manifest["outputs"]) == sorted(SIMULATE_FILES)
 
 
-def test_simulate_one_way_quiet_and_clock_out(files, tmp_path):
-    out, clock = tmp_path / "picks.csv", tmp_path / "clock.csv"
-    code, stdout, stderr = _simulate(files, out, "--one-way", "--quiet", "--clock-out", clock)
+def test_simulate_one_way_quiet_and_true_time_zero(files, tmp_path):
+    out = tmp_path / "picks.csv"
+    clock = tmp_path / "true_time_zero.csv"
+    code, stdout, stderr = _simulate(files, out, "--one-way", "--quiet")
     assert code == 0
     assert stderr == ""
     picks = read_picks(out, read_nodes(files["nodes"]))
@@ -118,13 +123,13 @@ def test_simulate_one_way_quiet_and_clock_out(files, tmp_path):
     with open(clock, newline="", encoding="utf-8") as f:
         rows = list(csv.DictReader(f))
     assert [r["node_id"] for r in rows] == list(read_nodes(files["nodes"]).ids)
-    tau = np.array([float(r["clock_offset_ns"]) for r in rows])
+    tau = np.array([float(r["time_zero_ns"]) for r in rows])
     assert abs(tau.mean()) < 1e-3  # mean zero, written to 1e-4 ns
     assert tau.std() > 0.2
 
 
 def test_simulate_is_repeatable(files, tmp_path):
-    a, b = tmp_path / "a.csv", tmp_path / "b.csv"
+    a, b = tmp_path / "a" / "picks.csv", tmp_path / "b" / "picks.csv"
     assert _simulate(files, a, "--quiet")[0] == 0
     assert _simulate(files, b, "--quiet")[0] == 0
     assert a.read_bytes() == b.read_bytes()
@@ -175,7 +180,7 @@ def test_simulate_with_no_pairs_left_is_a_user_error(files, tmp_path):
 # -------------------------------------------------------------- describe
 
 def test_describe_prints_grid_ground_and_rock(files):
-    code, out, err = _run(["describe", files["site"]])
+    code, out, err = _run(["describe", "--site", files["site"]])
     assert code == 0, err
     assert "site: test box" in out
     # 20 x 10 x 20 cells; cell centres below 18 m: 18 of the 20 layers are ground
@@ -191,7 +196,7 @@ def test_describe_prints_grid_ground_and_rock(files):
 
 def test_describe_bad_site_is_a_user_error(files):
     files["site"].write_text(SITE_YAML.replace("cell_m: 1.0", "cell_m: -1"), encoding="utf-8")
-    code, out, err = _run(["describe", files["site"]])
+    code, out, err = _run(["describe", "--site", files["site"]])
     _assert_user_error(code, out, err, str(files["site"]), "model.cell_m must be greater than 0")
 
 
@@ -215,26 +220,26 @@ def test_simulate_help_mentions_units(capsys):
     text = _help(["simulate", "--help"], capsys)
     for unit in ("metres (m)", "nanoseconds (ns)", "m/ns", "M metres", "tx,rx,time_ns,sigma_ns"):
         assert unit in text
-    for option in ("--site", "--nodes", "--truth", "--out", "--clock-out", "--one-way", "--max-distance"):
+    for option in ("--site", "--nodes", "--truth", "--out", "--one-way", "--max-distance", "--scheduler"):
         assert option in text
 
 
 def test_no_subcommand_prints_help_and_exits_2(capsys):
     assert main([]) == 2
-    assert "usage: plan" in capsys.readouterr().out
+    assert "usage: voidcube plan" in capsys.readouterr().out
 
 
-def test_simulate_outliers_out_lists_the_injected_outliers(files, tmp_path):
+def test_simulate_lists_the_injected_gross_errors(files, tmp_path):
     files["truth"].write_text(TRUTH_YAML.replace("seed: 3}", "seed: 3, outlier_fraction: 0.05}"),
                               encoding="utf-8")
-    out, listed = tmp_path / "picks.csv", tmp_path / "outliers.csv"
-    code, stdout, stderr = _simulate(files, out, "--quiet", "--rays", "straight", "--outliers-out", listed)
+    out, listed = tmp_path / "picks.csv", tmp_path / "gross_errors.csv"
+    code, stdout, stderr = _simulate(files, out, "--quiet", "--rays", "straight")
     assert code == 0, stderr
     with open(listed, newline="", encoding="utf-8") as f:
         rows = list(csv.DictReader(f))
     assert len(rows) == round(0.05 * N_NODES * (N_NODES - 1))
     assert all(10.0 <= abs(float(r["error_ns"])) <= 30.0 for r in rows)
-    assert f"{len(rows)} gross outliers" in stdout
+    assert f"{len(rows)} gross errors" in stdout
 
 
 # -------------------------------------------------------------- survey design
@@ -262,13 +267,13 @@ def test_design_writes_every_file_and_a_manifest(files, tmp_path):
     files["site"].write_text(SITE_YAML + "radio: {range_m: 15, gateway_m: [0, 5, 19]}\n", encoding="utf-8")
     before = files["site"].read_bytes()
     out = tmp_path / "design"
-    code, stdout, stderr = _run(["design", files["site"], "--budget", "30", "--out", out, "--quiet"])
+    code, stdout, stderr = _run(["design", "--site", files["site"], "--budget", "30", "--out", out, "--quiet"])
     assert code == 0, stderr
     assert sorted(p.name for p in out.iterdir()) == sorted(DESIGN_FILES)
     nodes = read_nodes(out / "nodes.csv")
     assert 2 <= len(nodes) <= 30
     manifest = json.loads((out / "manifest.json").read_text())
-    assert manifest["command"] == "plan design" and manifest["parameters"]["budget"] == 30
+    assert manifest["command"] == "voidcube plan design" and manifest["parameters"]["budget"] == 30
     assert sorted(manifest["outputs"]) == sorted(DESIGN_FILES)
     assert manifest["inputs"]["site"]["sha256"]
     pairs = json.loads((out / "pairs_summary.json").read_text())
@@ -282,23 +287,23 @@ def test_design_writes_every_file_and_a_manifest(files, tmp_path):
     assert files["site"].read_bytes() == before
     assert [p.name for p in out.iterdir() if "partial" in p.name] == []
     # a later command in the same folder keeps the earlier manifest inside its own
-    code, stdout, stderr = _run(["pairs", files["site"], "--nodes", out / "nodes.csv", "--out", out, "--quiet"])
+    code, stdout, stderr = _run(["pairs", "--site", files["site"], "--nodes", out / "nodes.csv", "--out", out, "--quiet"])
     assert code == 0, stderr
     manifest = json.loads((out / "manifest.json").read_text())
-    assert manifest["command"] == "plan pairs" and manifest["earlier_runs"][0]["command"] == "plan design"
+    assert manifest["command"] == "voidcube plan pairs" and manifest["earlier_runs"][0]["command"] == "voidcube plan design"
 
 
 def test_layout_mesh_and_schedule_commands(files, tmp_path):
     out = tmp_path / "plan"
-    code, stdout, stderr = _run(["layout", files["site"], "--budget", "12", "--pattern", "regular", "--out", out])
+    code, stdout, stderr = _run(["layout", "--site", files["site"], "--budget", "12", "--pattern", "regular", "--out", out])
     assert code == 0, stderr
     assert sorted(p.name for p in out.iterdir()) == ["candidates.csv", "manifest.json", "nodes.csv"]
-    code, stdout, stderr = _run(["schedule", files["site"], "--nodes", files["nodes"], "--out", out,
+    code, stdout, stderr = _run(["schedule", "--site", files["site"], "--nodes", files["nodes"], "--out", out,
                                  "--transmitters", "cover", "--quiet"])
     assert code == 0, stderr
     assert (out / "schedule.csv").is_file() and "schedule:" in stdout
     # no gateway in this site: the mesh needs one
-    code, stdout, stderr = _run(["mesh", files["site"], "--nodes", files["nodes"], "--out", out])
+    code, stdout, stderr = _run(["mesh", "--site", files["site"], "--nodes", files["nodes"], "--out", out])
     _assert_user_error(code, stdout, stderr, "radio.gateway_m is missing")
 
 
@@ -307,13 +312,13 @@ def test_layout_mesh_and_schedule_commands(files, tmp_path):
     (["--budget", "10", "--hole-share", "0.9", "--face-share", "0.5"], ["hole_share + face_share must be at most 1"]),
 ])
 def test_layout_bad_options_are_user_errors(files, tmp_path, argv_tail, fragments):
-    code, out, err = _run(["layout", files["site"], "--out", tmp_path / "x", *argv_tail])
+    code, out, err = _run(["layout", "--site", files["site"], "--out", tmp_path / "x", *argv_tail])
     _assert_user_error(code, out, err, *fragments)
 
 
 def test_pairs_unknown_hole_is_a_user_error(files, tmp_path):
     files["nodes"].write_text(_node_text().replace(",BH2\n", ",BH9\n", 1), encoding="utf-8")
-    code, out, err = _run(["pairs", files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x"])
+    code, out, err = _run(["pairs", "--site", files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x"])
     _assert_user_error(code, out, err, "names borehole 'BH9', which is not in the site description")
 
 
@@ -323,5 +328,25 @@ def test_pairs_unknown_hole_is_a_user_error(files, tmp_path):
 ])
 def test_bad_overrides_are_user_errors(files, tmp_path, command, option, value, fragment):
     files["site"].write_text(SITE_YAML + "radio: {gateway_m: [0, 5, 19]}\n", encoding="utf-8")
-    code, out, err = _run([command, files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x", option, value])
+    code, out, err = _run([command, "--site", files["site"], "--nodes", files["nodes"], "--out", tmp_path / "x", option, value])
     _assert_user_error(code, out, err, fragment)
+
+
+def test_coverage_standard_defaults_are_defined_once_in_the_library():
+    from plan.assess.coverage import CoverageStandard
+    from plan.cli import _standard_from, build_parser
+
+    for command in ("coverage", "recover"):
+        args = build_parser().parse_args([command, "--site", "s", "--nodes", "n", "--out", "o"])
+        assert _standard_from(args) == CoverageStandard()
+    assert CoverageStandard().min_rays == 10  # the standard the demo's plan report uses
+
+
+def test_simulate_offers_the_dask_executor(files, tmp_path):
+    from plan.cli import build_parser
+
+    args = build_parser().parse_args(["simulate", "--site", "s", "--nodes", "n", "--truth", "t", "--out", "o",
+                                      "--scheduler", "tcp://10.0.0.5:8786"])
+    assert (args.executor, args.scheduler) == (None, "tcp://10.0.0.5:8786")  # None + scheduler: dask
+    code, out, err = _simulate(files, tmp_path / "picks.csv", "--executor", "serial", "--scheduler", "tcp://h:1")
+    _assert_user_error(code, out, err, "drop --scheduler or choose dask")

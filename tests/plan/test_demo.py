@@ -18,6 +18,8 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
+import re
 from pathlib import Path
 
 import numpy as np
@@ -27,9 +29,21 @@ import yaml
 from plan.demo import STAGES, ChainSettings, closing_lines, main, run_demo
 from plan.synthetic.truth import load_truth
 from reconstruct.interpret.bodies import FILL_AIR
+from reconstruct.io.outputs import atomic_path
+from reconstruct.io.tables import write_excluded_csv
 
 DEMO = Path(__file__).resolve().parents[2] / "demo_site"
 REDUCED_CELL_M = 2.5
+
+#: The temporary names the writers create beside a file before moving it into place:
+#: reconstruct.io.outputs.atomic_path (every writer of io.outputs and report.pictures.write_png_atomic)
+#: and reconstruct.io.tables.write_excluded_csv.
+TEMPORARY_NAMES = (re.compile(r"\..+\.[0-9a-f]{16}\.partial(\.[A-Za-z0-9]+)?"),
+                   re.compile(r"\..+\.[0-9a-f]{32}\.tmp"))
+
+
+def _leftover_temporary_files(folder: Path) -> list[Path]:
+    return [p for p in folder.rglob("*") if any(t.fullmatch(p.name) for t in TEMPORARY_NAMES)]
 
 
 def _demo_copy(folder: Path, **model_changes) -> Path:
@@ -78,9 +92,10 @@ def test_reduced_chain_writes_the_output_layout_and_leaves_inputs_alone(reduced_
     folder, before, result = reduced_run
     out = result.out
     for name in ("plan/nodes.csv", "plan/pairs.csv", "plan/mesh.graphml", "plan/schedule.csv",
-                 "plan/plan_report.html", "picks.csv", "qc/qc.html", "model/velocity.vti", "model/summary.json",
+                 "plan/plan_report.html", "picks.csv", "model/velocity.vti", "model/summary.json",
                  "model/rays.vtp", "model/voids.csv", "model/voids.vtp", "model/report.html", "manifest.json"):
         assert (out / name).is_file() and (out / name).stat().st_size > 0, name
+    assert list((out / "pick_checks").glob("*.html")), "the pick-check page"
     assert result.report_path == out / "model" / "report.html"
     manifest = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
     assert [s["stage"] for s in manifest["stages"]] == list(STAGES)
@@ -88,7 +103,26 @@ def test_reduced_chain_writes_the_output_layout_and_leaves_inputs_alone(reduced_
     assert manifest["inputs"]["truth"]["sha256"] == before["truth.yaml"]
     assert len(manifest["truth_comparison"]) == 3
     assert _digest(folder) == before  # inputs never modified
-    assert not list(out.rglob("*.tmp*"))  # atomic writes leave no temporary file
+    assert _leftover_temporary_files(out) == []  # atomic writes leave no temporary file
+
+
+def test_leftover_check_matches_the_temporary_names_the_writers_create(tmp_path, monkeypatch):
+    # the names are caught while they exist, so the check above looks for what the writers make
+    with atomic_path(tmp_path / "velocity.vti") as tmp:
+        tmp.write_text("x", encoding="utf-8")
+        assert _leftover_temporary_files(tmp_path) == [tmp]
+    seen = []
+    real_replace = os.replace
+
+    def spy(source, target):
+        seen.append(Path(source))
+        assert _leftover_temporary_files(tmp_path) == [Path(source)]
+        real_replace(source, target)
+
+    monkeypatch.setattr(os, "replace", spy)
+    write_excluded_csv((), tmp_path / "excluded_picks.csv")
+    assert len(seen) == 1
+    assert _leftover_temporary_files(tmp_path) == []
 
 
 @pytest.mark.slow
@@ -105,7 +139,7 @@ def test_missing_truth_file_exits_2_naming_it(tmp_path, capsys):
     folder = tmp_path / "site"
     folder.mkdir()
     (folder / "site.yaml").write_text((DEMO / "site.yaml").read_text(encoding="utf-8"), encoding="utf-8")
-    assert main(["demo", str(folder), "--out", str(tmp_path / "out")]) == 2
+    assert main([str(folder), "--out", str(tmp_path / "out")]) == 2
     err = capsys.readouterr().err
     assert "truth.yaml missing" in err and "Traceback" not in err
 
@@ -115,7 +149,7 @@ def test_bad_truth_field_exits_2_naming_the_field(tmp_path, capsys):
     truth = yaml.safe_load((folder / "truth.yaml").read_text(encoding="utf-8"))
     truth["bodies"][1]["fill"] = "mud"
     (folder / "truth.yaml").write_text(yaml.safe_dump(truth), encoding="utf-8")
-    assert main(["demo", str(folder), "--out", str(tmp_path / "out")]) == 2
+    assert main([str(folder), "--out", str(tmp_path / "out")]) == 2
     err = capsys.readouterr().err
     assert "truth.yaml" in err and "bodies[1].fill" in err and "Traceback" not in err
     assert not (tmp_path / "out").exists()  # refused before anything is written
@@ -125,7 +159,7 @@ def test_output_path_that_is_a_file_exits_2(tmp_path, capsys):
     folder = _demo_copy(tmp_path / "site")
     target = tmp_path / "taken"
     target.write_text("x", encoding="utf-8")
-    assert main(["demo", str(folder), "--out", str(target)]) == 2
+    assert main([str(folder), "--out", str(target)]) == 2
     assert "existing file" in capsys.readouterr().err
 
 

@@ -90,7 +90,7 @@ def test_coverage_command_writes_vti_summary_and_manifest(files):
     code, out, err = _run(["coverage", "--site", site, "--nodes", nodes, "--out", folder / "plan",
                            "--min-rays", "2", "--depth-of-interest", "10"])
     assert code == 0, err
-    assert "covered to the standard" in out and "straight rays" in err
+    assert "covered to the standard" in out and "direction tensors" in err
     summary = json.loads((folder / "plan" / "coverage_summary.json").read_text())
     assert summary["standard"]["min_rays"] == 2 and summary["layout"]["nodes"] == 13
     import pyvista
@@ -99,7 +99,7 @@ def test_coverage_command_writes_vti_summary_and_manifest(files):
     for name in ("ray_count", "angular_coverage", "resolution_floor_m", "covered", "target"):
         assert name in image.cell_data
     manifest = json.loads((folder / "plan" / "manifest.json").read_text())
-    assert manifest["command"] == "plan coverage" and "coverage.vti" in manifest["outputs"]
+    assert manifest["command"] == "voidcube plan coverage" and "coverage.vti" in manifest["outputs"]
     assert nodes.read_bytes() == before  # inputs are never modified
 
 
@@ -127,7 +127,7 @@ def test_report_shows_other_planning_outputs_and_keeps_earlier_manifests(files):
     assert "BH1-02" in page  # schedule.csv rows
     assert page.count("data:image/png;base64,") >= 3
     manifest = json.loads((plan / "manifest.json").read_text())
-    assert manifest["command"] == "plan report"
+    assert manifest["command"] == "voidcube plan report"
     assert manifest["earlier_runs"][0]["command"] == "plan layout"
     assert "pairs_summary.json" in manifest["inputs"]
 

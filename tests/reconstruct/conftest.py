@@ -1,4 +1,4 @@
-"""Shared fixture: a small invented inversion folder, as 'reconstruct invert' writes it.
+"""Shared fixture: a small invented inversion folder, as 'voidcube reconstruct invert' writes it.
 
 A 30 x 20 x 25 m box of 1 m cells under flat ground at 20 m elevation, limestone
 at 0.115 m/ns with light noise and one air-filled box void (x 10-17, y 6-11,
@@ -69,7 +69,7 @@ def make_inversion_folder(tmp_path):
             handle.write("node_id,x_m,y_m,z_m,shift_x_m,shift_y_m,shift_z_m,kind,line\n"
                          "A,2,2,20,0,0,0,surface,2\nB,28,18,20,0,0,0,surface,3\n")
         now = utc_now_iso()
-        manifest = build_manifest(command="reconstruct invert", inputs={"site": site_path}, parameters={},
+        manifest = build_manifest(command="voidcube reconstruct invert", inputs={"site": site_path}, parameters={},
                                   outputs=["velocity.vti", "summary.json", "manifest.json"], started=now,
                                   finished=now)
         (folder / "manifest.json").write_text(json.dumps(manifest), encoding="utf-8")

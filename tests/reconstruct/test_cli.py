@@ -1,4 +1,4 @@
-"""Tests for the ``reconstruct`` command line (``reconstruct.cli.main``).
+"""Tests for the ``voidcube reconstruct`` commands (``reconstruct.cli.main``).
 
 Every run is in-process (``main([...])``) on a SMALL invented site written to
 pytest's tmp_path: a 20 x 10 x 20 m box of 1 m cells, flat ground at 18 m
@@ -241,7 +241,7 @@ def test_stdout_has_the_short_summary_and_stderr_the_progress(good):
     assert "site: test box" in out
     assert f"picks inverted: {17 * 16} (excluded 0, see excluded_picks.csv)" in out
     assert "misfit: RMS " in out and " ns" in out
-    assert "lambda: 1 by user" in out
+    assert "regularisation weight: 1 by user" in out
     assert "m/ns" in out
     assert "3 nodes snapped to the ground" in out
     assert f"output: {good['out']}" in out
@@ -249,7 +249,10 @@ def test_stdout_has_the_short_summary_and_stderr_the_progress(good):
     err = good["stderr"]
     assert "read 17 nodes and 272 pick rows" in err
     assert "grid 20 x 10 x 20 cells" in err
-    assert "straight rays:" in err
+    assert "straight-ray model: RMS misfit" in err and "smoothing weight 1 (as given)" in err
+    # a run of seconds shows no counters and no per-solve numbers: those only break a silence
+    assert "straight rays:" not in err and "iterations" not in err
+    assert len(err.strip().splitlines()) <= 8
     assert "straight rays" not in out
 
 
@@ -425,7 +428,7 @@ def _help(argv, capsys) -> str:
 
 def test_top_level_help_mentions_units(capsys):
     text = _help(["--help"], capsys)
-    assert "invert" in text and "check" in text
+    assert "invert" in text and "check-inputs" in text and "check-picks" in text
     for unit in ("metres (m)", "nanoseconds (ns)", "m/ns"):
         assert unit in text
 
@@ -441,7 +444,7 @@ def test_invert_help_mentions_units_and_outputs(capsys):
 
 def test_no_subcommand_prints_help_and_exits_2(capsys):
     assert main([]) == 2
-    assert "usage: reconstruct" in capsys.readouterr().out
+    assert "usage: voidcube reconstruct" in capsys.readouterr().out
 
 
 @pytest.mark.parametrize("package", ["reconstruct", "plan"])
@@ -449,7 +452,7 @@ def test_python_dash_m_help(package):
     result = subprocess.run([sys.executable, "-m", package, "--help"], cwd=REPO,
                             capture_output=True, text=True, timeout=60)
     assert result.returncode == 0, result.stderr
-    assert f"usage: {package}" in result.stdout
+    assert f"usage: voidcube {package}" in result.stdout
     assert "m/ns" in result.stdout
 
 
@@ -457,7 +460,7 @@ def test_python_dash_m_help(package):
 
 def test_check_reports_valid_inputs(inputs):
     site, nodes, picks = inputs
-    code, out, err = _run(["check", "--site", site, "--nodes", nodes, "--picks", picks])
+    code, out, err = _run(["check-inputs", "--site", site, "--nodes", nodes, "--picks", picks])
     assert code == 0, err
     ground_cells = int(_expected_ground().sum())
     assert ground_cells == 20 * 10 * 18
@@ -469,19 +472,19 @@ def test_check_reports_valid_inputs(inputs):
 
 def test_check_site_only(inputs):
     site, _, _ = inputs
-    code, out, err = _run(["check", "--site", site])
+    code, out, err = _run(["check-inputs", "--site", site])
     assert code == 0 and "inputs are valid" in out
 
 
 def test_check_invalid_inputs_exit_2(tmp_path):
     rows = [*_node_rows(), "BH1-01,4,5,3,borehole,BH1"]
     site, nodes, picks = _write_inputs(tmp_path / "in", node_rows=rows)
-    code, out, err = _run(["check", "--site", site, "--nodes", nodes])
+    code, out, err = _run(["check-inputs", "--site", site, "--nodes", nodes])
     _assert_user_error(code, out, err, "repeats line 2")
     assert "inputs are valid" not in out
 
     site.write_text(_site_text() + "colour: red\n", encoding="utf-8")
-    code, out, err = _run(["check", "--site", site])
+    code, out, err = _run(["check-inputs", "--site", site])
     _assert_user_error(code, out, err, "colour is not a known key")
     assert "inputs are valid" not in out
 
@@ -489,13 +492,13 @@ def test_check_invalid_inputs_exit_2(tmp_path):
 def test_check_node_outside_box_exit_2(tmp_path):
     rows = [*_node_rows(), "LOW,10,5,-3,borehole,"]
     site, nodes, _ = _write_inputs(tmp_path / "in", node_rows=rows)
-    code, out, err = _run(["check", "--site", site, "--nodes", nodes])
+    code, out, err = _run(["check-inputs", "--site", site, "--nodes", nodes])
     _assert_user_error(code, out, err, f"line {len(rows) + 1}: node LOW", "outside the model box")
 
 
 def test_check_picks_without_nodes_is_refused(inputs):
     site, _, _ = inputs
-    code, out, err = _run(["check", "--site", site, "--picks", site.parent / "no_such_picks.csv"])
+    code, out, err = _run(["check-inputs", "--site", site, "--picks", site.parent / "no_such_picks.csv"])
     assert code == 2
     assert "inputs are valid" not in out
 
@@ -506,7 +509,7 @@ def test_bent_rays_through_the_command_line_write_iterations_and_rays(inputs, tm
     out = tmp_path / "bent"
     # no --rays: bent rays are the default
     code, stdout, stderr = _run(["invert", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out,
-                                 "--iterations", "1", "--executor", "serial", "--smoothing", "1", "--write-rays"])
+                                 "--bent-iterations", "1", "--executor", "serial", "--smoothing", "1", "--write-rays"])
     assert code == 0, stderr
     summary = json.loads((out / "summary.json").read_text())
     assert summary["rays"] == "bent"
@@ -518,7 +521,11 @@ def test_bent_rays_through_the_command_line_write_iterations_and_rays(inputs, tm
     residuals = _read_csv(out / "residuals.csv")
     assert rays.n_cells == len(residuals)  # one polyline per inverted pick
     assert {"tx", "rx", "observed_ns", "predicted_ns", "pair_index", "line"} <= set(rays.cell_data.keys())
-    assert "rays: bent" in stdout
+    assert "rays: bent" in stdout and "0 is the starting model" in stdout
+    # the progress says in words what iteration 0 is, and each iteration is one short line
+    assert "bent-ray iteration 0, the starting model: RMS misfit" in stderr
+    assert "misfit^2" not in stderr
+    assert len([line for line in stderr.splitlines() if "bent-ray iteration 1" in line]) <= 4  # step halvings
 
 
 def test_write_rays_needs_bent_rays(inputs, tmp_path):
@@ -536,7 +543,7 @@ def test_a_run_on_a_dask_scheduler_records_the_dask_executor(inputs, tmp_path):
     site, nodes, picks = inputs
     out = tmp_path / "dask"
     with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0") as cluster:
-        code, _, stderr = _run(_invert_args(site, nodes, picks, out, "--rays", "bent", "--iterations", "1",
+        code, _, stderr = _run(_invert_args(site, nodes, picks, out, "--rays", "bent", "--bent-iterations", "1",
                                             "--smoothing", "1", "--quiet", "--scheduler", cluster.scheduler_address))
     assert code == 0, stderr
     manifest = json.loads((out / "manifest.json").read_text())

@@ -5,7 +5,7 @@ random candidate sets); the search's running score agrees with an
 independent recomputation by plan.assess.coverage.compute_coverage on the full
 model grid (sub-lattice step 1); on the invented demo quarry, at reduced size,
 the optimised layout beats a regular grid of the same number of nodes (the
-issue's acceptance check); bad budgets are refused with a message naming
+planner's acceptance check); bad budgets are refused with a message naming
 the fix.
 """
 

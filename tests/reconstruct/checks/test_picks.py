@@ -10,7 +10,7 @@ Outside sources used:
 - Velocity band: Davis, J. L. and Annan, A. P. (1989), Ground-penetrating radar
   for high-resolution mapping of soil and rock stratigraphy, Geophysical
   Prospecting 37(5), 531-551: fresh water 0.033 m/ns, air 0.30 m/ns
-  (shared/REFERENCES.md).
+  (their table of typical values).
 - Refracted air wave: head-wave formula (Telford, Geldart and Sheriff (1990),
   Applied Geophysics, 2nd ed., from memory), worked value in REFERENCES.md:
   nodes 3 m deep, 44 m apart, in 0.115 m/ns rock arrive at about 195 ns.

@@ -52,7 +52,8 @@ def gradient_field():
 
 
 def test_gradient_reference_table(gradient_field):
-    # values computed in /work/shared/REFERENCES.md from the formula above
+    # values computed from the Slotnick (1959) formula above (the last column of
+    # the table is the homogeneous time at v0, for scale)
     _, f = gradient_field
     for to, t_ref in [((10, 0, 0), 99.83408), ((0, 0, 10), 91.16078),
                       ((20, 0, 10), 202.73255), ((50, 0, 0), 481.21183)]:
@@ -83,7 +84,7 @@ def test_gradient_max(gradient_field):
 def test_gradient_rays_follow_the_analytic_arcs(gradient_field):
     # Slotnick (1959); Cerveny (2001), Seismic Ray Theory: in v = v0 + g z rays are
     # circular arcs centred on z = -v0 / g. Rays traced on the solver's own field
-    # must stay within one model cell of them (the tolerance).
+    # must stay within one model cell of them (our tolerance).
     from reconstruct.forward.ray_tracing import trace_rays
 
     _, f = gradient_field
@@ -284,7 +285,7 @@ def test_axis_through_an_air_filled_cube():
     # points on the axis of an air-filled cube in rock the straight line is the
     # first-arrival path (any detour lengthens the rock part), so
     # t = (L - a) / v + a / c. Measured 0.31 % early (the wave entering a closed
-    # void over its whole face; see the module notes); the 0.5 % holds.
+    # void over its whole face; see the module notes); the 0.5 % target holds.
     grid = Grid((0, 0, 0), (1, 1, 1), (40, 20, 20))
     s = np.full(grid.shape, 1 / 0.12)
     s[16:24, 6:14, 6:14] = 1 / 0.2998

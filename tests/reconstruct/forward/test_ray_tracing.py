@@ -92,7 +92,7 @@ def test_rays_in_a_linear_gradient_follow_circular_arcs():
         x_centre = ((xr**2 + (zr - z_centre) ** 2) - (xs**2 + (zs - z_centre) ** 2)) / (2 * (xr - xs))
         radius = np.hypot(xs - x_centre, zs - z_centre)
         distance = np.hypot(line[:, 0] - x_centre, line[:, 2] - z_centre)
-        # within one model cell of the analytic arc (the tolerance), in fact much closer
+        # within one model cell of the analytic arc (our tolerance), in fact much closer
         assert np.max(np.abs(distance - radius)) < 0.5
         assert np.max(np.abs(line[:, 1])) < 1e-6  # stays in the vertical plane of the pair
         # the ray's own time matches the analytic first-arrival time

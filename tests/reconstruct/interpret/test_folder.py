@@ -1,9 +1,9 @@
-"""Tests for ``reconstruct.interpret.folder`` and the ``reconstruct voids`` command.
+"""Tests for ``reconstruct.interpret.folder`` and the ``voidcube reconstruct voids`` command.
 
 The folder is the invented one of conftest.py (a box void 7 x 5 x 5 m whose
 roof is 7 m below flat ground). Outside checks: plain geometry of the box
 (volume, roof thickness, the road 7 m above its roof); the Topp et al. (1980)
-fit for the water content written to the cube (REFERENCES.md pair
+fit for the water content written to the cube (tests/REFERENCES.md pair
 theta(10) = 0.1883 checked through K = (c/v)^2 with scipy.constants).
 """
 
@@ -58,8 +58,8 @@ def test_voids_command_writes_the_table_meshes_and_manifest(make_inversion_folde
     hazard = _csv_rows(folder / "hazard.csv")
     assert hazard[0]["rank"] == "1" and "haul road" in hazard[0]["reasons"]
     manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
-    assert manifest["command"] == "reconstruct invert"
-    assert manifest["later_runs"][-1]["command"] == "reconstruct voids"
+    assert manifest["command"] == "voidcube reconstruct invert"
+    assert manifest["later_runs"][-1]["command"] == "voidcube reconstruct voids"
     assert manifest["later_runs"][-1]["inputs"]["site"]["sha256"] == hashlib.sha256(site.read_bytes()).hexdigest()
     assert "voids.csv" in manifest["outputs"]
 
@@ -73,7 +73,7 @@ def test_interpretation_cube_holds_petrophysics_and_body_ids(make_inversion_fold
     c = scipy.constants.c * 1e-9
     v = cube["velocity_m_per_ns"][2, 2, 2]
     assert cube["relative_permittivity"][2, 2, 2] == pytest.approx((c / v) ** 2)
-    # Topp et al. (1980) pair from REFERENCES.md: theta(10) = 0.1883; a cell at c / sqrt(10)
+    # Topp et al. (1980) pair from tests/REFERENCES.md: theta(10) = 0.1883; a cell at c / sqrt(10)
     k = cube["relative_permittivity"][2, 2, 2]
     theta = cube["water_content_topp"][2, 2, 2]
     assert theta == pytest.approx(-0.053 + 0.0292 * k - 5.5e-4 * k**2 + 4.3e-6 * k**3)
@@ -109,7 +109,7 @@ def test_user_errors_are_one_clear_line(make_inversion_folder, tmp_path, capfd):
     (folder / "summary.json").write_text(json.dumps({"misfit": {"rms_ns": 0.5}}), encoding="utf-8")
     assert main(["voids", str(folder), "--site", str(other)]) == 2
     assert "differs from the cube" in capfd.readouterr().err
-    assert main(["voids", str(folder), "--sigmas", "-2"]) == 2
+    assert main(["voids", str(folder), "--threshold-sigmas", "-2"]) == 2
     assert "sigmas must be a number > 0" in capfd.readouterr().err
     (folder / "velocity.vti").write_bytes((folder / "velocity.vti").read_bytes()[:300])  # cut short
     assert main(["voids", str(folder)]) == 2

@@ -57,7 +57,7 @@ def test_choose_sources_with_positions_starts_at_the_ends_and_still_covers_every
     assert len(tasks) == 6  # a complete graph needs n - 1 sources
 
 
-HOMOGENEOUS_RTOL = 1e-3  # the target: within 0.1 % of distance / velocity
+HOMOGENEOUS_RTOL = 1e-3  # our target: within 0.1 % of distance / velocity
 FERMAT_RTOL = 1e-3
 
 

@@ -3,7 +3,7 @@
 Outside sources: Topp, G. C., Davis, J. L. and Annan, A. P. (1980),
 Electromagnetic determination of soil water content: measurements in coaxial
 transmission lines, Water Resources Research 16(3), 574-582 (the two fits;
-check pairs computed from them in /work/shared/REFERENCES.md); Davis, J. L.
+check pairs computed from those fits); Davis, J. L.
 and Annan, A. P. (1989), Ground-penetrating radar for high-resolution mapping
 of soil and rock stratigraphy, Geophysical Prospecting 37(5), 531-551 (table
 of K and v for air and fresh water); scipy.constants for c.

@@ -18,7 +18,7 @@ def test_fresnel_midpoint_worked_example():
     # ray tomography", Geophysics 56; Spetzler & Snieder (2004), "The Fresnel volume and
     # transmitted waves", Geophysics 69: half-period criterion, midpoint half-width
     # sqrt(lambda L / 4 + lambda^2 / 16); lambda = 1 m, L = 20 m gives 2.25 m
-    # (worked value listed in shared REFERENCES.md).
+    # (worked value listed in tests/REFERENCES.md).
     assert fresnel_half_width_m(1.0, 20.0) == pytest.approx(2.25, abs=1e-12)
 
 

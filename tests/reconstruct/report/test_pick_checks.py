@@ -1,4 +1,4 @@
-"""Tests for ``reconstruct qc`` (``reconstruct.report.pick_checks``) and the checks run by ``reconstruct invert``.
+"""Tests for ``voidcube reconstruct check-picks`` (``reconstruct.report.pick_checks``) and the checks run by ``voidcube reconstruct invert``.
 
 In-process runs of ``reconstruct.cli.main`` on a small invented site (flat
 ground, two boreholes and four surface nodes) with picks simulated by our own
@@ -102,7 +102,7 @@ def test_qc_writes_every_output_and_flags_lines(tmp_path):
     _plant_faster_than_air(picks, xyz, [5])
     before = _sha(picks)
     out = tmp_path / "qc"
-    code, stdout, stderr = _run(["qc", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out])
+    code, stdout, stderr = _run(["check-picks", "--site", site, "--nodes", nodes, "--picks", picks, "--out", out])
     assert code == 0, stderr
     assert sorted(p.name for p in out.iterdir()) == ["manifest.json", "node_clocks.csv", "qc.csv", "qc.html",
                                                      "qc.json"]
@@ -144,18 +144,18 @@ def test_invert_refuses_unusable_picks_then_accepts_with_the_flag(tmp_path):
     assert code == 2
     errors = [line for line in stderr.splitlines() if line.startswith("error:")]
     assert len(errors) == 1 and len(stderr.strip().splitlines()) == 1  # one line
-    assert str(picks) in errors[0] and "--accept-flags" in errors[0] and "lines 10, 13, 16" in errors[0]
+    assert str(picks) in errors[0] and "--invert-unusable" in errors[0] and "lines 10, 13, 16" in errors[0]
     assert "Traceback" not in stderr
     assert not (tmp_path / "refused" / "velocity.vti").exists()
 
     out = tmp_path / "accepted"
-    code, stdout, stderr = _run(args + ["--out", out, "--accept-flags"])
+    code, stdout, stderr = _run(args + ["--out", out, "--invert-unusable"])
     assert code == 0, stderr
     excluded = _read_csv(out / "excluded_picks.csv")
     # the planted lines, and perhaps an early gross outlier of the simulation
     assert set(planted) <= {int(r["line"]) for r in excluded if "faster than air" in r["reason"]}
     summary = json.loads((out / "summary.json").read_text())
-    assert summary["qc"]["accepted_despite_problems"] is True
+    assert summary["pick_checks"]["inverted_despite_problems"] is True
     assert summary["picks"]["inverted"] == len(picks.read_text().splitlines()) - 1 - len(excluded)
     assert summary["robust"]["loss"] == "huber"
     residuals = _read_csv(out / "residuals.csv")
@@ -165,14 +165,14 @@ def test_invert_refuses_unusable_picks_then_accepts_with_the_flag(tmp_path):
 
     # putting the flagged picks back: they are inverted (and now pull on the model)
     back = tmp_path / "back"
-    code, _, stderr = _run(args + ["--out", back, "--accept-flags", "--keep-flagged", "faster_than_air"])
+    code, _, stderr = _run(args + ["--out", back, "--invert-unusable", "--keep-flagged", "faster_than_air"])
     assert code == 0, stderr
     assert json.loads((back / "summary.json").read_text())["picks"]["excluded"] == 0
 
 
 def test_unknown_flag_name_is_a_clear_error(tmp_path):
     site, nodes, picks, _ = _inputs(tmp_path / "in")
-    code, _, stderr = _run(["qc", "--site", site, "--nodes", nodes, "--picks", picks, "--out", tmp_path / "o",
+    code, _, stderr = _run(["check-picks", "--site", site, "--nodes", nodes, "--picks", picks, "--out", tmp_path / "o",
                             "--keep-flagged", "air_wave"])
     assert code == 2 and "unknown flag air_wave" in stderr and "air_direct" in stderr
 
@@ -187,7 +187,7 @@ def test_malformed_pick_tables_give_file_and_line(tmp_path, edit, fragments):
     site, nodes, picks, _ = _inputs(tmp_path / "in")
     lines = picks.read_text(encoding="utf-8").splitlines()
     picks.write_text("\n".join(edit(lines)) + "\n", encoding="utf-8")
-    code, _, stderr = _run(["qc", "--site", site, "--nodes", nodes, "--picks", picks, "--out", tmp_path / "o"])
+    code, _, stderr = _run(["check-picks", "--site", site, "--nodes", nodes, "--picks", picks, "--out", tmp_path / "o"])
     assert code == 2 and "Traceback" not in stderr
     assert str(picks) in stderr and all(f in stderr for f in fragments), stderr
 
@@ -201,9 +201,9 @@ def test_invert_without_sigma_column_weights_by_the_reciprocity_noise(tmp_path):
                             "--rays", "straight"])
     assert code == 0, stderr
     summary = json.loads((out / "summary.json").read_text())
-    assert summary["qc"]["sigma_source"] == "reciprocity"
-    assert summary["qc"]["pick_noise_from_reciprocity_ns"] == pytest.approx(0.3, rel=0.25)
+    assert summary["pick_checks"]["sigma_source"] == "reciprocity"
+    assert summary["pick_checks"]["pick_noise_from_reciprocity_ns"] == pytest.approx(0.3, rel=0.25)
     # with sigmas, lambda is chosen by the discrepancy principle (chi^2 = N)
     assert summary["lambda"]["method"] == "discrepancy"
     sigmas = {r["sigma_ns"] for r in _read_csv(out / "residuals.csv")}
-    assert sigmas == {f"{summary['qc']['pick_noise_from_reciprocity_ns']:.4f}"}
+    assert sigmas == {f"{summary['pick_checks']['pick_noise_from_reciprocity_ns']:.4f}"}

@@ -51,12 +51,12 @@ def test_report_is_self_contained_escaped_and_cautious(make_inversion_folder, ca
     assert "Void table" in page and "Data quality and resolution" in page and "Manifest" in page
     assert re.search(r"<td>1</td><td class=\"text\">air-filled \(fast\)</td>", page)  # void table row
     manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
-    assert [r["command"] for r in manifest["later_runs"]] == ["reconstruct voids", "reconstruct report"]
+    assert [r["command"] for r in manifest["later_runs"]] == ["voidcube reconstruct voids", "voidcube reconstruct report"]
 
 
 def test_report_needs_the_void_run_first(make_inversion_folder, capsys):
     folder, _ = make_inversion_folder()
     assert main(["report", str(folder)]) == 2
     err = capsys.readouterr().err
-    assert "voids.json: file not found" in err and "run 'reconstruct voids" in err
+    assert "voids.json: file not found" in err and "run 'voidcube reconstruct voids" in err
     assert not (folder / "report.html").exists()

@@ -1,0 +1,317 @@
+"""The processor's job as one library call: pick checks, inversion, bodies, screening.
+
+Every processing rule and default lives here, once, so that the commands
+(``voidcube reconstruct invert``, ``voids``, ``report``), the demo and a
+notebook get the same answer from the same inputs:
+
+* which flagged picks are kept (:func:`reconstruct.checks.picks.picks_for_inversion`;
+  ``keep_flagged`` keeps more), and whether unusable picks are refused;
+* robust weighting: the rule of :func:`robust_rule` (below);
+* the time-zero model, the regularisation weight (chosen automatically unless
+  given), the velocity band: :class:`reconstruct.inverse.solver.InversionOptions`;
+* straight or bent rays and the number of bent-ray iterations;
+* the detection threshold of the bodies and the screening options.
+
+:func:`process_survey` computes, in memory, and writes nothing;
+:func:`write_inversion` and :func:`write_interpretation` write a folder.
+
+Robust weighting rule
+---------------------
+Straight rays: Huber's loss (iteratively reweighted least squares) against
+gross pick errors, because the pick checks flag impossible and air-wave
+picks but not a pick that is merely wrong by many sigmas. Bent rays: none,
+because each bent-ray step is accepted only if the plain misfit falls, and
+reweighting would change the measure the step is judged by. A
+``robust`` given in :class:`ProcessingSettings` overrides the rule.
+
+References
+----------
+.. [1] Huber, P. J. (1964), Robust estimation of a location parameter,
+   Annals of Mathematical Statistics 35(1), 73-101.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from reconstruct.checks.picks import (
+    check_site_picks,
+    kept_by_flags,
+    picks_for_inversion,
+    reciprocal_confirmed,
+    usability_problems,
+)
+from reconstruct.errors import InputError, is_whole_number
+from reconstruct.interpret.bodies import STATUS_VOID, VoidOptions
+from reconstruct.interpret.folder import InversionFolder, inversion_from_run, screen_folder
+from reconstruct.interpret.screening import HazardOptions
+from reconstruct.inverse.solver import InversionOptions
+from reconstruct.inverse.straight import TomographyRun
+from reconstruct.parallel import Executor
+
+__all__ = ["DEFAULT_BENT_ITERATIONS", "ProcessingSettings", "ProcessingResult", "robust_rule",
+           "process_survey", "check_summary", "interpret_inversion", "write_inversion",
+           "write_interpretation", "write_processing", "interpretation_parameters"]
+
+#: Bent-ray iterations after the straight-ray start (the demo runs 3 to stay within 5 minutes).
+DEFAULT_BENT_ITERATIONS = 4
+
+_RAYS = ("straight", "bent")
+_ROBUST = ("none", "huber", "tukey")
+
+
+def robust_rule(rays: str) -> str:
+    """The robust weighting used when none is asked for: 'huber' with straight rays, 'none' with bent."""
+    return "huber" if rays == "straight" else "none"
+
+
+@dataclass(frozen=True)
+class ProcessingSettings:
+    """Every choice of the processing that the site and the tables do not hold.
+
+    Parameters
+    ----------
+    rays : {"bent", "straight"}
+        Forward model: bent rays through eikonal travel-time fields (air
+        included), iterated from the straight-ray model; or straight rays only.
+    bent_iterations : int
+        Bent-ray iterations after the straight-ray start (:data:`DEFAULT_BENT_ITERATIONS`).
+    inversion : InversionOptions
+        Velocity band, roughness weights, regularisation weight (None: chosen by
+        the discrepancy principle or the L-curve), time-zero model, LSQR limits.
+        Its ``robust`` field is replaced by :attr:`robust` or the rule.
+    robust : {"none", "huber", "tukey"} or None
+        Robust weighting; None applies :func:`robust_rule`.
+    keep_flagged : tuple of str
+        Flags whose picks are kept in the inversion instead of being left out.
+    invert_unusable : bool
+        Invert even when the pick checks find the data unusable.
+    snap_tolerance_m : float or None
+        Largest shift, metres, when a node is snapped onto the ground (None:
+        the larger of 2 m and two cell diagonals).
+    keep_rays : bool
+        Keep the final bent rays (for ``rays.vtp``); bent rays only.
+    find_bodies : bool
+        Find and screen the bodies after the inversion.
+    voids : VoidOptions
+        Detection threshold (robust standard deviations of the anomaly, or
+        derived from the false-alarm chance).
+    screening : HazardOptions
+        Rock over the voids and wall dip for the screening.
+    """
+
+    rays: str = "bent"
+    bent_iterations: int = DEFAULT_BENT_ITERATIONS
+    inversion: InversionOptions = field(default_factory=InversionOptions)
+    robust: str | None = None
+    keep_flagged: tuple = ()
+    invert_unusable: bool = False
+    snap_tolerance_m: float | None = None
+    keep_rays: bool = False
+    find_bodies: bool = True
+    voids: VoidOptions = field(default_factory=VoidOptions)
+    screening: HazardOptions = field(default_factory=HazardOptions)
+
+    def __post_init__(self):
+        problems = []
+        if self.rays not in _RAYS:
+            problems.append(f"rays must be one of {', '.join(_RAYS)} (got {self.rays!r})")
+        if not is_whole_number(self.bent_iterations, 1):
+            problems.append(f"bent_iterations must be a whole number >= 1 (got {self.bent_iterations!r})")
+        if self.robust is not None and self.robust not in _ROBUST:
+            problems.append(f"robust must be one of {', '.join(_ROBUST)} (got {self.robust!r})")
+        if self.keep_rays and self.rays != "bent":
+            problems.append("keep_rays needs bent rays (straight rays are the node-to-node lines)")
+        if problems:
+            raise InputError(problems, source="processing settings")
+
+    @property
+    def robust_weighting(self) -> str:
+        """The robust weighting used: the one given, else :func:`robust_rule`."""
+        return self.robust or robust_rule(self.rays)
+
+    def inversion_options(self) -> InversionOptions:
+        """The options of each regularised solve, robust weighting included."""
+        return dataclasses.replace(self.inversion, robust=self.robust_weighting)
+
+    def as_dict(self) -> dict:
+        """The settings as plain values, for the manifest."""
+        values = dataclasses.asdict(self)
+        values["keep_flagged"] = list(self.keep_flagged)
+        values["robust_used"] = self.robust_weighting
+        return values
+
+
+@dataclass(frozen=True)
+class ProcessingResult:
+    """What :func:`process_survey` computed, in memory.
+
+    ``checks`` are the pick checks, ``problems`` their usability findings
+    (empty when usable), ``run`` the inversion, and, when bodies were
+    searched, ``inversion`` (the cube as the interpretation reads it),
+    ``analysis`` (bodies, background, threshold) and ``screening`` (ranked
+    entries).
+    """
+
+    settings: ProcessingSettings
+    checks: object
+    problems: tuple
+    check_summary: dict
+    run: TomographyRun
+    inversion: InversionFolder | None = None
+    analysis: object = None
+    screening: tuple | None = None
+
+    @property
+    def velocity_m_per_ns(self) -> np.ndarray:
+        """The velocity cube, shape ``grid.shape``, m/ns."""
+        return self.run.result.velocity_m_per_ns.reshape(self.run.grid.shape)
+
+
+def _say(progress, message: str) -> None:
+    if progress is not None:
+        progress(message)
+
+
+def check_summary(checks, problems, chosen_excluded: int, reading_excluded: int, settings) -> dict:
+    """The pick-check summary stored in ``summary.json`` under ``pick_checks``."""
+    return {"flag_counts": checks.counts(), "left_out": chosen_excluded - reading_excluded,
+            "sigma_source": checks.sigma_source, "pick_noise_from_reciprocity_ns": checks.noise_sigma_ns,
+            "reciprocal_pairs": checks.n_reciprocal_pairs, "problems": list(problems),
+            "inverted_despite_problems": bool(problems), "kept_flags": list(settings.keep_flagged)}
+
+
+def _checked_picks(site, nodes, picks, settings: ProcessingSettings, progress):
+    """Pick checks; refuse unusable data unless ``invert_unusable``; the picks to invert."""
+    _, checks = check_site_picks(site, nodes, picks, snap_tolerance_m=settings.snap_tolerance_m)
+    problems = tuple(usability_problems(picks, checks))
+    if problems and not settings.invert_unusable:
+        reasons = "; ".join(p[len(picks.source) + 2:] if p.startswith(picks.source) else p for p in problems)
+        raise InputError(f"{picks.source}: picks not usable as they stand: {reasons}. Run 'voidcube reconstruct "
+                         "check-picks' to see every flagged pick, or add --invert-unusable to invert anyway")
+    keep = tuple(settings.keep_flagged)
+    chosen = picks_for_inversion(picks, nodes, checks, rays=settings.rays, keep_flagged=keep)
+    counts = checks.counts()
+    _say(progress, "pick checks: " + (", ".join(f"{n} {f}" for f, n in counts.items() if n) or "no pick flagged"))
+    exempt = reciprocal_confirmed(checks)[kept_by_flags(checks, rays=settings.rays, keep_flagged=keep)]
+    summary = check_summary(checks, problems, len(chosen.excluded), len(picks.excluded), settings)
+    return checks, problems, chosen, exempt, summary
+
+
+def _invert(site, nodes, chosen, exempt, settings: ProcessingSettings, executor, progress) -> TomographyRun:
+    options = settings.inversion_options()
+    if settings.rays == "straight":
+        from reconstruct.inverse.straight import straight_ray_tomography
+
+        return straight_ray_tomography(site, nodes, chosen, options, snap_tolerance_m=settings.snap_tolerance_m,
+                                       progress=progress, robust_exempt=exempt)
+    from reconstruct.inverse.bent import BentOptions, bent_ray_tomography
+
+    bent = BentOptions(max_iterations=settings.bent_iterations, keep_rays=settings.keep_rays)
+    return bent_ray_tomography(site, nodes, chosen, options, bent=bent,
+                               executor=executor if executor is not None else Executor(kind="serial"),
+                               snap_tolerance_m=settings.snap_tolerance_m, progress=progress)
+
+
+def interpret_inversion(inversion: InversionFolder, settings: ProcessingSettings = ProcessingSettings(),
+                        progress=None):
+    """Bodies and screening of an inversion, from memory or from a folder.
+
+    ``inversion`` comes from :func:`reconstruct.interpret.folder.inversion_from_run`
+    (a result in memory) or :func:`reconstruct.interpret.folder.load_inversion_folder`
+    (a folder on disk). Returns ``(analysis, screening entries)``.
+    """
+    analysis, screening = screen_folder(inversion, settings.voids, settings.screening)
+    resolved = sum(b.status == STATUS_VOID for b in analysis.bodies)
+    _say(progress, f"bodies: {len(analysis.bodies)} ({resolved} resolved, "
+                   f"{len(analysis.bodies) - resolved} unresolved)")
+    return analysis, tuple(screening)
+
+
+def process_survey(site, nodes, picks, settings: ProcessingSettings = ProcessingSettings(), *,
+                   executor: Executor | None = None, progress=None) -> ProcessingResult:
+    """Pick checks, inversion and, when asked, bodies and screening; nothing written.
+
+    Parameters
+    ----------
+    site, nodes, picks : loaded inputs
+        :class:`reconstruct.io.site.Site`, :class:`reconstruct.io.tables.Nodes`
+        and :class:`reconstruct.io.tables.Picks`; never modified.
+    settings : ProcessingSettings
+    executor : reconstruct.parallel.Executor, optional
+        Where the bent-ray travel-time fields are computed (default: serial).
+    progress : callable, optional
+        ``progress(message)`` with short messages in words; the library never prints.
+
+    Raises
+    ------
+    InputError
+        Unusable picks (unless ``settings.invert_unusable``), an unknown flag
+        in ``keep_flagged``, or inputs that do not fit together.
+    """
+    checks, problems, chosen, exempt, summary = _checked_picks(site, nodes, picks, settings, progress)
+    run = _invert(site, nodes, chosen, exempt, settings, executor, progress)
+    result = ProcessingResult(settings=settings, checks=checks, problems=problems, check_summary=summary, run=run)
+    if not settings.find_bodies:
+        return result
+    inversion = inversion_from_run(run)
+    analysis, screening = interpret_inversion(inversion, settings, progress)
+    return dataclasses.replace(result, inversion=inversion, analysis=analysis, screening=screening)
+
+
+def write_inversion(result: ProcessingResult, out, *, inputs: dict, parameters: dict, started: str,
+                    command: str) -> dict:
+    """Write the inversion folder (``velocity.vti``, tables, ``summary.json``, ``manifest.json``).
+
+    Returns the summary dictionary (see :func:`reconstruct.report.folders.write_tomography`).
+    """
+    from reconstruct.report.folders import write_tomography
+
+    return write_tomography(result.run, out, inputs=inputs, parameters=parameters, started=started,
+                            command=command, extra_summary={"pick_checks": result.check_summary})
+
+
+def write_interpretation(inversion: InversionFolder, analysis, screening, settings: ProcessingSettings, *,
+                         pictures: bool = True, max_pictures: int = 20, started: str, progress=None) -> dict:
+    """Write the void outputs into the inversion folder ``inversion.path`` (written first).
+
+    ``inversion`` is a folder read back or a result in memory whose ``path``
+    names the folder. Returns the content of ``voids.json`` (see
+    :func:`reconstruct.report.folders.write_void_outputs`).
+    """
+    from reconstruct.report.folders import write_void_outputs
+
+    return write_void_outputs(inversion, analysis, list(screening), pictures=pictures, max_pictures=max_pictures,
+                              parameters=interpretation_parameters(settings, inversion.site_path, pictures,
+                                                                   max_pictures),
+                              started=started, progress=progress)
+
+
+def write_processing(result: ProcessingResult, out, *, inputs: dict, parameters: dict, started: str, command: str,
+                     pictures: bool = True, max_pictures: int = 20, progress=None) -> tuple[dict, dict | None]:
+    """Write a whole result into the folder ``out``: the inversion, then the void outputs.
+
+    Returns ``(summary, voids content)``; the second is None when the result
+    holds no bodies.
+    """
+    summary = write_inversion(result, out, inputs=inputs, parameters=parameters, started=started, command=command)
+    if result.analysis is None:
+        return summary, None
+    inversion = dataclasses.replace(result.inversion, path=Path(out),
+                                    site_path=Path(inputs.get("site") or result.inversion.site_path))
+    content = write_interpretation(inversion, result.analysis, result.screening, result.settings,
+                                   pictures=pictures, max_pictures=max_pictures, started=started, progress=progress)
+    return summary, content
+
+
+def interpretation_parameters(settings: ProcessingSettings, site_path, pictures: bool, max_pictures: int) -> dict:
+    """The parameters of the void search recorded in the manifest and ``voids.json``."""
+    return {"threshold_sigmas": settings.voids.sigmas, "false_alarm": settings.voids.false_alarm,
+            "site": str(site_path), "pictures": pictures, "max_pictures": max_pictures,
+            "hazard": {"specific_gravity": settings.screening.specific_gravity,
+                       "wall_dip_deg": settings.screening.dip_deg,
+                       "rock_mass_q": settings.screening.rock_mass_q}}

@@ -12,9 +12,9 @@ mkdir -p "$out"
 voidcube demo demo_site --out "$out/chain" --quiet | sed -n '4,7p'
 common=(--site demo_site/site.yaml --nodes "$out/chain/plan/nodes.csv" --picks "$out/chain/picks.csv")
 echo "straight rays:"
-reconstruct invert "${common[@]}" --out "$out/straight" --rays straight --accept-flags --quiet \
+voidcube reconstruct invert "${common[@]}" --out "$out/straight" --rays straight --invert-unusable --quiet \
     | grep -E "misfit|picks inverted"
-reconstruct voids "$out/straight" --no-pictures --quiet | sed -n 1p
+voidcube reconstruct voids "$out/straight" --no-pictures --quiet | sed -n 1p
 cut -d, -f1-7 "$out/straight/voids.csv" | sed -n 1,4p
 echo "bent rays (the chain's inversion, $out/chain/model):"
 python3 -c "import json, sys; m = json.load(open(sys.argv[1]))['misfit']; print(f\"misfit: RMS {m['rms_ns']:.3f} ns\")" \

@@ -459,7 +459,7 @@ def compute_coverage(
 
 
 def coverage_cell_arrays(coverage: Coverage) -> dict:
-    """Cell arrays for ``coverage.vti`` (see the README for their meaning)."""
+    """Cell arrays for ``coverage.vti`` (docs/formats.md gives their meaning)."""
     return {
         "ray_count": coverage.ray_count.astype(np.int32),
         "ray_length_m": coverage.ray_length_m,

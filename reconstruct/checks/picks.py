@@ -5,7 +5,7 @@ fitted, and returns a :class:`PickChecks` with flags per pick and estimates per
 node. Nothing is changed in the pick table: :func:`picks_for_inversion` makes
 a new selection and lists every pick it leaves out with the reason.
 
-Rules (the README's "Pick checks" section says the same)
+Rules (docs/processing.md, "Pick checks", says the same)
 --------------------------------------------------------
 Clock model. Cheap nodes keep their own clocks; a pick from ``a`` to ``b`` reads
 ``t_ab = T_ab + R_b - X_a`` with ``X`` the node's time-zero as transmitter and

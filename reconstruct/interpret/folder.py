@@ -26,7 +26,7 @@ picture outlives its body.
 Bad input
 ---------
 Every problem below raises :class:`~reconstruct.errors.InputError` naming
-the file and the fix (the README lists the same decisions): FOLDER missing;
+the file and the fix (docs/reviewing.md lists the same decisions): FOLDER missing;
 ``velocity.vti``, ``summary.json`` or ``residuals.csv`` missing, damaged or
 lacking a needed array or key; ground cells with NaN, infinite or
 non-positive velocity; the site not found, changed since the inversion, or

@@ -1,6 +1,6 @@
 """Placing nodes in the voxel model: box check and snapping to the ground.
 
-Decisions (documented in the README):
+Decisions (docs/processing.md says the same):
 
 - A node outside the model box is an error naming the node table's file and
   line: it usually means a wrong frame or a box that is too small.

@@ -41,6 +41,9 @@ CAUTIONS = (
     "practice; this output is a screening aid, not a design.",
     "Radar transmitters fall under local radio-spectrum rules; check the licence "
     "conditions before fieldwork.",
+    "Radio-frequency energy can fire electric detonators: where nodes sit in blast "
+    "holes, keep nodes and radios away from primed holes as the explosives rules in "
+    "force require, and never place a node in a charged or primed hole.",
 )
 
 # the page colours are CSS custom properties set from reconstruct.report.colours

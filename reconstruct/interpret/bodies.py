@@ -63,6 +63,7 @@ from scipy.spatial import ConvexHull
 from reconstruct.errors import InputError
 from reconstruct.model.grid import Grid
 from reconstruct.model.resolution import fresnel_half_width_m, wavelength_m
+from reconstruct.inverse.robust import MAD_TO_SIGMA  # 1.4826: MAD to sigma for Gaussian noise
 from reconstruct.io.site import PlannedWork, points_in_polygon
 
 __all__ = [
@@ -89,11 +90,6 @@ FILL_WATER_OR_CLAY = "water_or_clay"
 #: Statuses (column ``status``): larger than the resolution (a void), or an indication only.
 STATUS_RESOLVED = "resolved"
 STATUS_UNRESOLVED = "unresolved"
-
-#: 1.4826 * MAD estimates the standard deviation of Gaussian noise
-#: (1 / Phi^-1(3/4); Rousseeuw and Croux 1993, Alternatives to the median
-#: absolute deviation, JASA 88, 1273-1283).
-MAD_TO_SIGMA = 1.482602218505602
 
 
 @dataclass(frozen=True)

@@ -40,7 +40,9 @@ ROBUST_LOSSES = ("none", "huber", "tukey")
 HUBER_K = 1.345
 #: Tukey's biweight cut-off in standard deviations (95 % Gaussian efficiency).
 TUKEY_C = 4.685
-#: Normalised median absolute deviation: MAD times this is sigma for Gaussian data.
+#: Normalised median absolute deviation: MAD times this is sigma for Gaussian data
+#: (1 / Phi^-1(3/4); Rousseeuw and Croux 1993, Alternatives to the median absolute
+#: deviation, JASA 88, 1273-1283). Defined once here; the void search uses it too.
 MAD_TO_SIGMA = 1.482602218505602
 
 

@@ -27,6 +27,7 @@ from plan.synthetic.truth import parse_truth
 from reconstruct.cli import main
 from reconstruct.io.site import load_site
 from reconstruct.io.tables import EXCLUDED_NO_PICK, EXCLUDED_NOT_POSITIVE, read_nodes
+from tests.reconstruct.small_site import SITE_YAML
 from tests.cli_helpers import assert_user_error, run_main
 
 REPO = Path(__file__).resolve().parents[2]
@@ -37,23 +38,6 @@ SHAPE = (20, 10, 20)
 OUTPUTS = ("velocity.vti", "residuals.csv", "rejected_picks.csv", "time_zero.csv", "nodes_used.csv",
            "excluded_picks.csv", "summary.json", "manifest.json")
 
-SITE_YAML = """\
-# invented test site
-name: test box
-model:
-  origin_m: [0, 0, 0]
-  size_m: [20, 10, 20]
-  cell_m: {cell}
-ground:
-  flat_elevation_m: 18
-rock:
-  velocity_m_per_ns: 0.12
-  conductivity_ms_per_m: 1.0
-  antenna_frequency_mhz: 100
-boreholes:
-  - {{id: BH1, collar_m: [4, 5, 18], azimuth_deg: 0, dip_deg: 90, length_m: 16}}
-  - {{id: BH2, collar_m: [16, 5, 18], azimuth_deg: 0, dip_deg: 90, length_m: 16}}
-"""
 
 
 def _site_text(cell="1.0"):

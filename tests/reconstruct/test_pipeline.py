@@ -37,24 +37,8 @@ from reconstruct.pipeline import (
 )
 from reconstruct.report.void_report import build_report_html
 from tests.cli_helpers import run_main
+from tests.reconstruct.small_site import SITE_YAML
 
-SITE_YAML = """\
-# invented test site
-name: pipeline box
-model:
-  origin_m: [0, 0, 0]
-  size_m: [20, 10, 20]
-  cell_m: {cell}
-ground:
-  flat_elevation_m: 18
-rock:
-  velocity_m_per_ns: 0.12
-  conductivity_ms_per_m: 1.0
-  antenna_frequency_mhz: 100
-boreholes:
-  - {{id: BH1, collar_m: [4, 5, 18], azimuth_deg: 0, dip_deg: 90, length_m: 16}}
-  - {{id: BH2, collar_m: [16, 5, 18], azimuth_deg: 0, dip_deg: 90, length_m: 16}}
-"""
 
 BOX_CENTRE_M = (10.0, 5.0, 10.0)
 
@@ -157,7 +141,7 @@ def test_straight_rays_use_the_huber_rule_in_both(straight):
 def test_report_accepts_the_results_in_memory(straight):
     folder, _, summary, content = straight
     page = build_report_html(folder / "python", summary=summary, voids=content)
-    assert "pipeline box" in page and "probe drilling" in page
+    assert "test box" in page and "probe drilling" in page
 
 
 @pytest.mark.slow

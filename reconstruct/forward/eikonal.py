@@ -72,13 +72,12 @@ Measured (1 m cells, default options, this machine, 2 cores, shared)
 * 200 x 60 x 70 cells with ground, air and a void, whole box: 0.54 s per
   field against 0.34 s for scikit-fmm (order 2, one-cell source) in the same
   run, ratio 1.6 (benchmarks/bench_eikonal.py, machine shared with other
-  work). Three changes took it from a ratio of about 2.7-3.0 without changing
-  any time by more than 1e-12 relative: the marching loop is compiled without
-  numba's reference counting (the array arguments of the inlined helpers cost
-  an atomic increment and decrement per call: a third of the run); a binary
-  heap with decrease-key instead of lazy deletion (three pops per point
-  before, two of them stale); and points whose eight cells are alike skip
-  the per-stencil search for the fastest cell and try only the upwind sides.
+  work). What makes it fast: the marching loop is compiled without numba's
+  reference counting (the array arguments of the inlined helpers would cost
+  an atomic increment and decrement per call, a third of the run); the
+  binary heap has decrease-key, so every point is popped once; and points
+  whose eight cells are alike skip the per-stencil search for the fastest
+  cell and try only the upwind sides (the same times, to 1e-12 relative).
   Memory grows linearly with the lattice points n: 24n bytes kept per field
   (first arrivals and two families: 20 MiB here) and about 58n at the peak
   while solving (measured from the resident set: 57 bytes per point); a
@@ -94,7 +93,7 @@ Measured (1 m cells, default options, this machine, 2 cores, shared)
   0.13 %; rays within 0.2 m of the analytic circular arcs.
 * Crosshole through an air-filled sphere of 3.5 m radius: no pair time later
   than the straight ray through the same cells (Fermat's principle, Cerveny
-  2001); before the additive factor 10 of 120 were, worst 1.4 %.
+  2001); without the additive factor in voids 10 of 120 would be, worst 1.4 %.
 
 References
 ----------

@@ -1,9 +1,9 @@
 """The radio mesh that commands the nodes (networkx).
 
-Stations with a radio are the gateway (``site.radio.gateway_m``), every node
+Radios are the gateway (``site.radio.gateway_m``), every node
 that is not in a hole, and one collar unit per hole holding nodes (at the
-hole's collar). Hole nodes are cabled to their collar unit. Two radio
-stations are linked when they are within ``site.radio.range_m`` of each other
+hole's collar). Hole nodes are cabled to their collar unit. Two
+radios are linked when they are within ``site.radio.range_m`` of each other
 (straight-line distance; terrain shadowing is not modelled, so a link across a
 pit edge may be optimistic).
 
@@ -11,12 +11,12 @@ From the graph (networkx):
 
 - whether every node reaches the gateway, and the radio hops to it
   (shortest path, a cable counting 0 hops);
-- articulation points: single stations whose loss cuts others off from the
+- articulation points: single radios whose loss cuts others off from the
   gateway, with the number of survey nodes each would cut off;
 - suggested relays for the parts that cannot reach the gateway: repeatedly
   the part closest to the connected mesh is joined by relays spaced evenly
-  on the straight line between its nearest station and the nearest connected
-  station (``ceil(d / range) - 1`` relays, on the ground surface), avoiding
+  on the straight line between its nearest radio and the nearest connected
+  radio (``ceil(d / range) - 1`` relays, on the ground surface), avoiding
   exclusion zones where one of the few closest pairs allows it.
 
 References
@@ -60,15 +60,15 @@ class RadioMesh:
         ``x_m, y_m, z_m, role`` (``node``, ``gateway``, ``collar``) and
         ``kind``; edges with ``link`` (``radio`` or ``cable``) and ``length_m``.
     gateway : str
-        Id of the gateway station.
+        Id of the gateway radio.
     hops : dict
-        Radio hops to the gateway per connected station.
+        Radio hops to the gateway per connected radio.
     disconnected : tuple of str
         Survey nodes that cannot reach the gateway.
     articulation : dict
         Station id -> number of survey nodes its loss would cut off.
     relays : tuple of dict
-        Suggested relays: ``id``, ``xyz_m``, ``joins`` (the two stations
+        Suggested relays: ``id``, ``xyz_m``, ``joins`` (the two radios
         bridged), ``exclusion_zone`` (name, when no pair tried avoided one).
     range_m : float
     """
@@ -82,7 +82,7 @@ class RadioMesh:
     range_m: float
 
 
-def _station_ids(nodes: Nodes) -> tuple[str, str]:
+def _radio_ids(nodes: Nodes) -> tuple[str, str]:
     taken = set(nodes.ids)
     gateway = _GATEWAY
     while gateway in taken:
@@ -113,7 +113,7 @@ def build_radio_mesh(site: Site, nodes: Nodes, *, range_m: float | None = None, 
     if gateway_xyz is None:
         raise InputError(f"{site.source_path or 'site'}: radio.gateway_m is missing; add the gateway position "
                          "[x, y, z] in metres under radio: in the site description")
-    gateway, collar_prefix = _station_ids(nodes)
+    gateway, collar_prefix = _radio_ids(nodes)
     holes = {h.id: h for h in site.boreholes}
     g = nx.Graph()
     g.add_node(gateway, x_m=float(gateway_xyz[0]), y_m=float(gateway_xyz[1]), z_m=float(gateway_xyz[2]),
@@ -144,8 +144,8 @@ def build_radio_mesh(site: Site, nodes: Nodes, *, range_m: float | None = None, 
     return _analyse(site, g, gateway, range_m)
 
 
-def _xyz(g: nx.Graph, stations) -> np.ndarray:
-    return np.array([[g.nodes[n]["x_m"], g.nodes[n]["y_m"], g.nodes[n]["z_m"]] for n in stations], dtype=float)
+def _xyz(g: nx.Graph, radios) -> np.ndarray:
+    return np.array([[g.nodes[n]["x_m"], g.nodes[n]["y_m"], g.nodes[n]["z_m"]] for n in radios], dtype=float)
 
 
 def _link_radios(g: nx.Graph, radios, range_m: float) -> None:
@@ -164,18 +164,18 @@ def _analyse(site: Site, g: nx.Graph, gateway: str, range_m: float) -> RadioMesh
     disconnected = tuple(sorted(n for n in _survey_nodes(g) if n not in reached))
     articulation = {}
     connected_part = g.subgraph(reached)
-    for station in nx.articulation_points(connected_part):
-        if station == gateway:
+    for radio in nx.articulation_points(connected_part):
+        if radio == gateway:
             continue
-        rest = connected_part.subgraph(n for n in reached if n != station)
+        rest = connected_part.subgraph(n for n in reached if n != radio)
         still = nx.node_connected_component(rest, gateway)
-        articulation[station] = sum(1 for n in reached if n not in still and n != station
+        articulation[radio] = sum(1 for n in reached if n not in still and n != radio
                                     and g.nodes[n]["role"] == "node")
     relays = _suggest_relays(site, g, gateway, range_m)
     return RadioMesh(g, gateway, hops, disconnected, articulation, tuple(relays), range_m)
 
 
-def _radio_stations(g: nx.Graph, part) -> list:
+def _radios_in(g: nx.Graph, part) -> list:
     return [n for n in part if g.nodes[n]["role"] != "node" or not g.nodes[n].get("borehole")]
 
 
@@ -185,38 +185,38 @@ def _suggest_relays(site: Site, g: nx.Graph, gateway: str, range_m: float) -> li
     parts = [set(c) for c in nx.connected_components(g) if gateway not in c]
     relays = []
     while parts:
-        inside = _radio_stations(g, connected) + [r["id"] for r in relays]
-        inside_xyz = np.concatenate([_xyz(g, _radio_stations(g, connected)),
+        inside = _radios_in(g, connected) + [r["id"] for r in relays]
+        inside_xyz = np.concatenate([_xyz(g, _radios_in(g, connected)),
                                      np.array([r["xyz_m"] for r in relays]).reshape(-1, 3)])
         tree = cKDTree(inside_xyz)
         best = None
         for p, part in enumerate(parts):
-            stations = _radio_stations(g, part)
-            if not stations:  # a part without a radio cannot be joined by relays
+            radios = _radios_in(g, part)
+            if not radios:  # a part without a radio cannot be joined by relays
                 continue
-            xyz = _xyz(g, stations)
+            xyz = _xyz(g, radios)
             k = min(_PAIRS_TRIED, len(inside))
             dist, idx = tree.query(xyz, k=k)
-            dist, idx = dist.reshape(len(stations), k), idx.reshape(len(stations), k)
+            dist, idx = dist.reshape(len(radios), k), idx.reshape(len(radios), k)
             order = np.argsort(dist, axis=None)[:_PAIRS_TRIED]
-            candidates = [(float(dist.flat[o]), stations[o // k], int(idx.flat[o]), xyz[o // k]) for o in order]
+            candidates = [(float(dist.flat[o]), radios[o // k], int(idx.flat[o]), xyz[o // k]) for o in order]
             if best is None or candidates[0][0] < best[0][0][0]:
                 best = (candidates, p)
         if best is None:
             break
         candidates, p = best
         chosen = None
-        for distance, station, target, station_xyz in candidates:
+        for distance, radio, target, station_xyz in candidates:
             points = _relay_points(site, station_xyz, inside_xyz[target], distance, range_m)
             zone = _zone_hit(site, points)
             if chosen is None or (chosen[4] is not None and zone is None):
-                chosen = (station, inside[target], points, distance, zone)
+                chosen = (radio, inside[target], points, distance, zone)
             if zone is None:
                 break
-        station, target, points, _, zone = chosen
+        radio, target, points, _, zone = chosen
         for point in points:
             relays.append({"id": f"{_RELAY}{len(relays) + 1}", "xyz_m": [float(v) for v in point],
-                           "joins": [station, target], "exclusion_zone": zone})
+                           "joins": [radio, target], "exclusion_zone": zone})
         connected |= parts.pop(p)
     return relays
 
@@ -248,8 +248,8 @@ def mesh_with_relays(mesh: RadioMesh) -> nx.Graph:
         x, y, z = relay["xyz_m"]
         g.add_node(relay["id"], x_m=x, y_m=y, z_m=z, role="relay", kind="", hops=-1, articulation_cuts=0)
         chain.setdefault(tuple(relay["joins"]), []).append(relay["id"])
-    for (station, target), ids in chain.items():
-        path = [station, *ids, target]
+    for (radio, target), ids in chain.items():
+        path = [radio, *ids, target]
         for u, v in zip(path[:-1], path[1:]):
             pu, pv = (np.array([g.nodes[n][k] for k in ("x_m", "y_m", "z_m")]) for n in (u, v))
             g.add_edge(u, v, link="suggested", length_m=float(np.linalg.norm(pu - pv)), hops=1)
@@ -265,7 +265,7 @@ def mesh_summary(mesh: RadioMesh) -> dict:
     return {
         "gateway": {"id": mesh.gateway, "xyz_m": [g.nodes[mesh.gateway][k] for k in ("x_m", "y_m", "z_m")]},
         "range_m": mesh.range_m,
-        "stations": {role: sum(1 for r in roles.values() if r == role) for role in ("node", "collar", "gateway")},
+        "radios": {role: sum(1 for r in roles.values() if r == role) for role in ("node", "collar", "gateway")},
         "radio_links": sum(1 for *_, d in g.edges(data=True) if d["link"] == "radio"),
         "cable_links": sum(1 for *_, d in g.edges(data=True) if d["link"] == "cable"),
         "connected": not mesh.disconnected,
@@ -273,7 +273,7 @@ def mesh_summary(mesh: RadioMesh) -> dict:
         "hops": {"max": max(node_hops) if node_hops else None,
                  "mean": float(np.mean(node_hops)) if node_hops else None,
                  "per_node": {n: mesh.hops[n] for n in survey if n in mesh.hops}},
-        "articulation_points": [{"station": s, "nodes_cut_off": c}
+        "articulation_points": [{"radio": s, "nodes_cut_off": c}
                                 for s, c in sorted(mesh.articulation.items(), key=lambda kv: (-kv[1], kv[0]))],
         "suggested_relays": list(mesh.relays),
         "note": "links are straight-line distances within the radio range; terrain shadowing is not modelled",

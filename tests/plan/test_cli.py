@@ -279,7 +279,7 @@ def test_design_writes_every_file_and_a_manifest(files, tmp_path):
     pairs = json.loads((out / "pairs_summary.json").read_text())
     assert pairs["nodes"] == len(nodes)
     mesh = json.loads((out / "mesh_summary.json").read_text())
-    assert mesh["stations"]["node"] == len(nodes)
+    assert mesh["radios"]["node"] == len(nodes)
     schedule = json.loads((out / "schedule_summary.json").read_text())
     assert schedule["slots"] + len(schedule["silent_nodes"]) == len(nodes)
     assert "layout:" in stdout and "pairs:" in stdout and "radio mesh:" in stdout and "schedule:" in stdout

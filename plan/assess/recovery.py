@@ -91,9 +91,9 @@ __all__ = ["RecoveryOptions", "RecoveryResult", "recovery_grid", "run_recovery_t
 
 _SUBSAMPLES = 4  # points per cell and axis for the partial volume of a void
 # no refined local solve around each source: ten times faster, and the time
-# *changes* used here difference two fields made with the same settings; every
-# fast body (the void, the air) with its own factor, as for simulated picks
-_EIKONAL = EikonalOptions(source_refine=1, fast_bodies="all")
+# *changes* used here difference two fields made with the same settings; fast
+# bodies treated as in the inversion and simulated picks (EikonalOptions' default)
+_EIKONAL = EikonalOptions(source_refine=1)
 _MAX_FORWARD_REFINE = 4  # forward-model cells per recovery cell and axis, at most
 
 

@@ -112,10 +112,10 @@ def simulate_picks(
         if progress and kernels_need_compiling():
             progress(COMPILING_MESSAGE)
         pair_a, pair_b, pick_pair = unique_pairs(tx, rx)
-        # every fast body (voids, the air) gets its own factor: Fermat's
-        # principle holds however the truth bodies lie (see EikonalOptions)
+        # the inversion's own forward model and treatment of fast cells and
+        # air: EikonalOptions' defaults (see its fast_bodies for the figures)
         pair_times = first_arrival_times(
-            fine, 1.0 / velocity, xyz, pair_a, pair_b, eikonal_options=EikonalOptions(fast_bodies="all"),
+            fine, 1.0 / velocity, xyz, pair_a, pair_b, eikonal_options=EikonalOptions(),
             executor=executor if executor is not None else Executor(kind="processes"),
             progress=(lambda d, n: progress(f"travel-time fields: {d}/{n}")) if progress else None)
         travel = pair_times[pick_pair]

@@ -10,6 +10,43 @@ fields (greedy: the node with most uncovered pairs first). The per-source
 work runs through :func:`reconstruct.parallel.map_tasks`: serially, in a local
 process pool or on a Dask cluster. Each worker holds the model once and one
 field at a time, so memory grows with the number of workers, not of nodes.
+
+One set of physics: the times and the operator agree
+-----------------------------------------------------
+A traced ray does not lie exactly on the path the field's time belongs to
+(steps of half a lattice spacing through a field that is itself only accurate
+to a fraction of a cell; the air wave along the ground surface traced zigzag
+between the air and the ground cells). The time along the traced ray,
+``G_i . s`` (exact per-cell lengths times the slowness, air included), was
+measured against the field's time ``T_i`` (benchmarks/bench_ray_consistency.py,
+all pairs): on the demo quarry's truth model on the 1 m simulation grid, pairs
+whose ray runs partly in air |G_i . s - T_i| / T_i median 0.54 %, 95th
+percentile 2.5 %, max 21 % (nearly always later: the traced ray is not the
+fastest path); the other pairs median 0.001 %, 95th percentile 0.60 %, max
+6.0 %. On the 2 m model grid: 1.1 %, 5.7 %, 55 % and 0.002 %, 4.1 %, 26 %.
+Linearising ``t ~ T(s_k) + G_k (s - s_k)`` with such a mismatch puts the
+mismatch into the model at every step.
+
+Each row of the operator is therefore scaled so that ``G_i . s = T_i``
+exactly (:func:`consistent_rows`): the times stay those of the field, which
+are checked against outside references (tests/references/sphere.py,
+scikit-fmm on fine grids), and the linearisation is consistent by
+construction. What this gives up: the ray's path is kept as traced, only its
+lengths are stretched or shrunk by one factor, so the sensitivity is spread
+over the cells of the traced path rather than of the true fastest path, and
+the derivative of the time with respect to a cell's slowness is off by the
+same factor (where the traced path wanders, by up to the mismatch above). The
+scale factors are returned (:attr:`ForwardResult.length_scale`) so that a
+caller can see where the ray and the field disagree. Two alternatives were
+weighed: taking ``G_i . s`` as the forward time (rejected: it is late by the
+mismatch above, up to 21 %, and would break Fermat's principle against the
+references) and bending each ray to the field (Um and Thurber 1987), which
+would cost a perturbation loop per ray and is left for later.
+
+References
+----------
+Um, J. and Thurber, C. (1987), A fast algorithm for two-point seismic ray
+tracing, Bull. Seismol. Soc. Am. 77(3), 972-986.
 """
 
 from __future__ import annotations
@@ -23,7 +60,8 @@ from reconstruct.forward.ray_tracing import polyline_matrix, trace_rays
 from reconstruct.model.grid import Grid
 from reconstruct.parallel import Executor, map_tasks
 
-__all__ = ["ForwardResult", "choose_sources", "bent_ray_forward", "first_arrival_times", "unique_pairs"]
+__all__ = ["ForwardResult", "choose_sources", "bent_ray_forward", "consistent_rows", "first_arrival_times",
+           "unique_pairs"]
 
 
 @dataclass(frozen=True)
@@ -34,6 +72,39 @@ class ForwardResult:
     operator: sp.csr_matrix  # (n_pairs, n_cells), metres
     reached: np.ndarray  # (n_pairs,) bool: descent reached the source
     polylines: list | None
+    #: (n_pairs,) factor each traced ray's lengths were multiplied by so that
+    #: ``operator @ s == time_ns`` (1: the traced ray's time was the field's)
+    length_scale: np.ndarray | None = None
+
+
+def consistent_rows(matrix: sp.csr_matrix, slowness_ns_per_m, time_ns):
+    """Scale each row of a path-length matrix so that its time is ``time_ns``.
+
+    Parameters
+    ----------
+    matrix : scipy.sparse.csr_matrix, shape (n_rays, n_cells)
+        Per-cell path lengths of traced rays, metres.
+    slowness_ns_per_m : array_like, n_cells values
+    time_ns : array_like, shape (n_rays,)
+        The first-arrival times the rows must reproduce, ns.
+
+    Returns
+    -------
+    matrix : scipy.sparse.csr_matrix
+        Row i multiplied by ``time_ns[i] / (row_i . s)``, so that
+        ``matrix @ s == time_ns`` to rounding (see the module notes for what
+        this gives up). A row with no time along it (an empty ray) is left as it is.
+    scale : ndarray, shape (n_rays,)
+        The factors.
+    """
+    matrix = sp.csr_matrix(matrix, dtype=float, copy=True)
+    along = matrix @ np.asarray(slowness_ns_per_m, dtype=float).ravel()
+    time_ns = np.asarray(time_ns, dtype=float)
+    usable = (along > 0) & np.isfinite(time_ns) & (time_ns > 0)
+    scale = np.ones(along.size)
+    scale[usable] = time_ns[usable] / along[usable]
+    matrix.data *= np.repeat(scale, np.diff(matrix.indptr))
+    return matrix, scale
 
 
 def choose_sources(pair_a: np.ndarray, pair_b: np.ndarray, n_nodes: int, xyz_m=None):
@@ -103,6 +174,7 @@ def _forward_task(task, shared):
     times = field.interpolate(receivers)
     polylines, reached = trace_rays(field, receivers)
     matrix = polyline_matrix(grid, polylines, slowness_ns_per_m=shared["slowness"])
+    matrix, scale = consistent_rows(matrix, shared["slowness"], times)
     return {
         "pair_index": pair_index,
         "time_ns": times,
@@ -110,6 +182,7 @@ def _forward_task(task, shared):
         "indices": matrix.indices,
         "data": matrix.data,
         "reached": reached,
+        "scale": scale,
         "polylines": polylines if shared["keep_rays"] else None,
     }
 
@@ -143,6 +216,16 @@ def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, ex
     pair_a, pair_b : ndarray of int, shape (n_pairs,)
         The two nodes of each pair (order does not matter: reciprocity).
     executor : Executor
+
+    Returns
+    -------
+    ForwardResult
+        ``time_ns`` the first-arrival times from the fields; ``operator`` the
+        traced rays' per-cell lengths, each row scaled so that
+        ``operator @ s == time_ns`` (:func:`consistent_rows`; the factors in
+        ``length_scale``); ``reached`` False where the descent did not reach
+        the source (the straight segment is used, scaled the same way; count
+        them with ``(~reached).sum()``).
     """
     shared = _shared_inputs(grid, slowness_ns_per_m, xyz_m, eikonal_options, keep_rays=keep_rays)
     tasks = choose_sources(pair_a, pair_b, shared["xyz"].shape[0], shared["xyz"])
@@ -150,12 +233,14 @@ def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, ex
     n_pairs = np.asarray(pair_a).size
     time_ns = np.empty(n_pairs)
     reached = np.zeros(n_pairs, dtype=bool)
+    scale = np.ones(n_pairs)
     polylines = [None] * n_pairs if keep_rays else None
     blocks, order = [], []
     for res in results:
         idx = res["pair_index"]
         time_ns[idx] = res["time_ns"]
         reached[idx] = res["reached"]
+        scale[idx] = res["scale"]
         blocks.append(sp.csr_matrix((res["data"], res["indices"], res["indptr"]),
                                     shape=(idx.size, grid.n_cells)))
         order.append(idx)
@@ -167,7 +252,8 @@ def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, ex
     inverse = np.empty_like(order)
     inverse[order] = np.arange(order.size)
     operator = stacked[inverse]
-    return ForwardResult(time_ns=time_ns, operator=operator, reached=reached, polylines=polylines)
+    return ForwardResult(time_ns=time_ns, operator=operator, reached=reached, polylines=polylines,
+                         length_scale=scale)
 
 
 def unique_pairs(picks_tx, picks_rx):

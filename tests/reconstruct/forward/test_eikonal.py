@@ -321,6 +321,30 @@ def test_a_void_nearer_than_the_ground_surface_delays_no_first_arrival(half_spac
     assert np.max(after - before) <= 0.05
 
 
+def test_a_small_void_beside_a_larger_one_delays_no_first_arrival_with_all_bodies(half_space):
+    # Fermat's principle (Cerveny, V. (2001), Seismic Ray Theory, CUP, sec. 3.1):
+    # adding a small air-filled void nearer the source than a larger one must not
+    # delay the waves through the larger one. fast_bodies="all" keeps the delay
+    # below a tenth of the pick accuracy of cheap nodes (0.05 ns). The default
+    # ("nearest_and_largest", used to simulate and to invert, see EikonalOptions
+    # for why) does not: the small void takes the factor from the larger one and
+    # the arrivals behind it come 1.48 ns late here (2.85 ns on the demo quarry).
+    grid, s = half_space
+    larger = s.copy()
+    larger[30:40, 4:12, 8:16] = 1 / SPEED_OF_LIGHT_M_PER_NS
+    both = larger.copy()
+    both[17:19, 1:3, 12:14] = 1 / SPEED_OF_LIGHT_M_PER_NS
+    src = np.array([22.3, 8.1, 12.2])
+    rx = np.c_[np.full(12, 60.5), np.full(12, 7.6), np.linspace(3.0, 28.0, 12)]  # a borehole behind
+    options = EikonalOptions(fast_bodies="all")
+    before = travel_time_field(grid, larger, src, options=options).interpolate(rx)
+    after = travel_time_field(grid, both, src, options=options).interpolate(rx)
+    assert np.max(after - before) <= 0.05
+    default_delay = np.max(travel_time_field(grid, both, src).interpolate(rx)
+                           - travel_time_field(grid, larger, src).interpolate(rx))
+    assert default_delay > 1.0  # the default's known limitation, documented in EikonalOptions
+
+
 def test_crosshole_void_never_later_than_straight_ray_target():
     # Fermat's principle (Cerveny, V. (2001), Seismic Ray Theory, CUP, sec. 3.1):
     # the first arrival is no later than the time along any path, the straight

@@ -9,17 +9,28 @@ Starting from the straight-ray model, each iteration linearises the times
 about the current model ``s_k``: ``t ~ T(s_k) + G_k (s - s_k) + C tau``, with
 ``G_k`` the path lengths of the traced rays, and solves the same regularised
 problem as the straight-ray inversion (regularisation about the site's
-reference model, lambda chosen the same way) for ``s`` and ``tau``. The new
-model is accepted only if its data misfit, computed with new fields, is lower;
-otherwise the step is halved (up to twice). The loop stops when the misfit
-improves by less than ``plateau`` (relative), when no step lowers it, or at
-the iteration limit.
+reference model) for ``s`` and ``tau``. With pick sigmas the weight is chosen
+by Occam's rule (Constable, Parker and Constable, 1987;
+:mod:`reconstruct.inverse.occam`): the largest weight whose linearised
+chi-square reaches ``N``, or, when none does, the one of least chi-square,
+searched no lower than a tenth of the previous weight (one step may not
+roughen the model more). Without sigmas the weight is chosen as in the
+straight-ray inversion. A backtracking line search on the weighted misfit
+through new fields (sufficient decrease, step halved up to three times)
+accepts the step. The loop stops, and records why (``stop_reason``), when
+chi-square reaches ``N``, when the misfit improves by less than ``plateau``
+(relative), when no step lowers it, or at the iteration limit.
 
 References
 ----------
 .. [1] Cerveny, V. (2001), Seismic Ray Theory, Cambridge University Press.
 .. [2] Paige, C. C. and Saunders, M. A. (1982), LSQR, ACM Trans. Math. Softw.
    8(1), 43-71.
+.. [3] Constable, S. C., Parker, R. L. and Constable, C. G. (1987), Occam's
+   inversion: a practical algorithm for generating smooth models from
+   electromagnetic sounding data, Geophysics 52(3), 289-300.
+.. [4] Nocedal, J. and Wright, S. J. (2006), Numerical Optimization, 2nd ed.,
+   Springer.
 """
 
 from __future__ import annotations
@@ -32,13 +43,17 @@ import numpy as np
 from reconstruct.forward.first_arrivals import bent_ray_forward, unique_pairs
 from reconstruct.forward.kernels import COMPILING_MESSAGE, kernels_need_compiling
 from reconstruct.inverse.problem import InverseProblem
-from reconstruct.inverse.solver import InversionOptions, solve_inverse_problem
+from reconstruct.inverse.solver import InversionOptions, solve_inverse_problem, solve_occam_step
 from reconstruct.inverse.time_zero import estimate_time_zero
 from reconstruct.parallel import Executor
 from reconstruct.inverse.straight import TomographyRun, solver_progress, straight_ray_tomography
 from reconstruct.forward.straight_rays import ray_coverage
 
 __all__ = ["BentOptions", "bent_ray_tomography"]
+
+#: Sufficient-decrease constant of the backtracking line search (Nocedal and
+#: Wright, 2006, section 3.1, suggest 1e-4).
+_ARMIJO = 1e-4
 
 
 @dataclass(frozen=True)
@@ -109,20 +124,28 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         steps.say(COMPILING_MESSAGE)
     state, history = steps.starting_point(start.result)
     result = start.result
-    lambda_floor = options.lambda_min
+    lambda_previous = start.result.lambda_smooth
+    stop_reason = f"iteration limit reached ({bent.max_iterations})"
     for iteration in range(1, bent.max_iterations + 1):
-        trial, state_new, entry = steps.iterate(iteration, state, lambda_floor)
+        trial, state_new, entry = steps.iterate(iteration, state, lambda_previous)
         if trial is None:
+            stop_reason = "no step lowers the misfit"
             break
         improvement = (state.misfit - state_new.misfit) / state.misfit
         state, result = state_new, trial
-        # roughen gradually: the next lambda may fall at most tenfold
-        lambda_floor = max(options.lambda_min, trial.lambda_smooth / 10)
+        lambda_previous = trial.lambda_smooth
         history.append(entry)
+        if steps.target_reached(state):
+            stop_reason = f"target misfit reached: chi^2 {state.misfit:.5g} <= N = {start.problem.n_picks}"
+            steps.say(f"the misfit reached its target (chi-square {state.misfit:.5g} for "
+                      f"{start.problem.n_picks} picks); stopping here")
+            break
         if improvement < bent.plateau:
+            stop_reason = f"misfit plateau: improvement below {bent.plateau:.0%} ({improvement:.1%})"
             steps.say(f"the misfit improved by only {improvement:.1%} (less than {bent.plateau:.0%}); stopping here")
             break
-    return steps.final_run(start, state, result, history)
+    steps.say(f"bent-ray iterations stopped: {stop_reason}")
+    return dataclasses.replace(steps.final_run(start, state, result, history), stop_reason=stop_reason)
 
 
 @dataclass(frozen=True)
@@ -199,34 +222,67 @@ class _BentSteps:
                  f"{from_reference.rms_ns:.3f} ns; the lower one is the start)")
         return state, [self.history_entry(0, f"bent rays through the {start_name}", state)]
 
-    def iterate(self, iteration, state: _Model, lambda_floor):
-        """One Gauss-Newton step from ``state``, halved (up to three times) until
-        the misfit falls. Returns (inversion result, new state, history entry),
-        or (None, None, None) when no step lowers the misfit."""
+    def target_reached(self, state: _Model) -> bool:
+        """chi^2 <= N (only with pick sigmas)."""
+        return self.problem.sigma_given and state.misfit <= self.problem.n_picks
+
+    def weighted_step(self, iteration, state: _Model, lambda_previous):
+        """The linearised step's inversion: with pick sigmas the weight is chosen
+        by Occam's rule (:func:`reconstruct.inverse.solver.solve_occam_step`) at
+        most tenfold below the previous one; without (or with a weight set by
+        the user), as in the straight-ray inversion, with the search range's
+        floor at a tenth of the previous weight."""
         problem = self.problem
         options = problem.options
         G = state.forward.operator[self.pick_pair]
         t_eff = problem.time_ns - state.forward.time_ns[self.pick_pair] + G @ state.slowness
-        step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
-        trial = solve_inverse_problem(dataclasses.replace(problem, time_ns=t_eff, options=step_options), G,
-                                      progress=solver_progress(self.progress))
+        floor = max(options.lambda_min, lambda_previous / 10)
+        if problem.sigma_given and options.smoothing is None:
+            trial = solve_occam_step(dataclasses.replace(problem, time_ns=t_eff), G, lambda_start=lambda_previous,
+                                     lambda_floor=floor, progress=solver_progress(self.progress))
+        else:
+            step_options = dataclasses.replace(options, lambda_min=min(floor, options.lambda_max / 10))
+            trial = solve_inverse_problem(dataclasses.replace(problem, time_ns=t_eff, options=step_options), G,
+                                          progress=solver_progress(self.progress))
+        return trial, G
+
+    def iterate(self, iteration, state: _Model, lambda_previous):
+        """One Gauss-Newton step from ``state`` with a backtracking line search
+        on the weighted misfit: the step is halved (up to three times) until the
+        misfit through new fields satisfies the sufficient-decrease (Armijo)
+        condition. Returns (inversion result, new state, history entry), or
+        (None, None, None) when no step lowers the misfit.
+
+        References: Nocedal, J. and Wright, S. J. (2006), Numerical Optimization,
+        2nd ed., Springer, section 3.1 (backtracking, sufficient decrease).
+        """
+        problem = self.problem
+        trial, G = self.weighted_step(iteration, state, lambda_previous)
+        d_slowness = trial.slowness_ns_per_m - state.slowness
+        d_tau = trial.time_zero_ns - state.tau
+        # directional derivative of sum (w r)^2 along the step, r = t - T(s) - C tau
+        residual = problem.time_ns - self.predicted(state.forward, state.tau)
+        slope = -2.0 * float(np.sum(self.weight**2 * residual * (G @ d_slowness + problem.time_zero_columns @ d_tau)))
         step = 1.0
         while True:
-            candidate = self.model(state.slowness + step * (trial.slowness_ns_per_m - state.slowness),
-                                   state.tau + step * (trial.time_zero_ns - state.tau))
-            if candidate.misfit < state.misfit or step <= 0.125:
+            candidate = self.model(state.slowness + step * d_slowness, state.tau + step * d_tau)
+            sufficient = candidate.misfit <= state.misfit + _ARMIJO * step * min(slope, 0.0)
+            if (candidate.misfit < state.misfit and sufficient) or step <= 0.125:
                 break
             step *= 0.5
-            self.say(f"bent-ray iteration {iteration}: the misfit rose to RMS {candidate.rms_ns:.3f} ns; "
+            self.say(f"bent-ray iteration {iteration}: the misfit did not fall enough (RMS {candidate.rms_ns:.3f} ns); "
                      f"trying a step of {step:g}")
         if candidate.misfit >= state.misfit:
             self.say(f"bent-ray iteration {iteration}: no step lowers the misfit; keeping the previous model")
             return None, None, None
+        chi = (f", chi-square per pick {candidate.misfit / problem.n_picks:.3g}" if problem.sigma_given else "")
         self.say(f"bent-ray iteration {iteration} of {self.bent.max_iterations}: RMS misfit "
-                 f"{candidate.rms_ns:.3f} ns (was {state.rms_ns:.3f} ns), "
+                 f"{candidate.rms_ns:.3f} ns (was {state.rms_ns:.3f} ns){chi}, "
                  + ("full step" if step == 1 else f"step {step:g}")
                  + f", smoothing weight {trial.lambda_smooth:.3g}")
-        return trial, candidate, self.history_entry(iteration, "bent", candidate, trial.lambda_smooth, step)
+        entry = self.history_entry(iteration, "bent", candidate, trial.lambda_smooth, step)
+        entry["weight_choice"] = trial.lambda_note
+        return trial, candidate, entry
 
     def final_run(self, start: TomographyRun, state: _Model, result, history) -> TomographyRun:
         """The run of the last accepted model, with rays when kept."""

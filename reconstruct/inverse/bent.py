@@ -145,7 +145,8 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
             steps.say(f"the misfit improved by only {improvement:.1%} (less than {bent.plateau:.0%}); stopping here")
             break
     steps.say(f"bent-ray iterations stopped: {stop_reason}")
-    return dataclasses.replace(steps.final_run(start, state, result, history), stop_reason=stop_reason)
+    return dataclasses.replace(steps.final_run(start, state, result, history), stop_reason=stop_reason,
+                               start_result=start.result)
 
 
 @dataclass(frozen=True)
@@ -226,38 +227,74 @@ class _BentSteps:
         """chi^2 <= N (only with pick sigmas)."""
         return self.problem.sigma_given and state.misfit <= self.problem.n_picks
 
-    def weighted_step(self, iteration, state: _Model, lambda_previous):
+    def weighted_step(self, iteration, state: _Model, lambda_previous, lambda_floor):
         """The linearised step's inversion: with pick sigmas the weight is chosen
-        by Occam's rule (:func:`reconstruct.inverse.solver.solve_occam_step`) at
-        most tenfold below the previous one; without (or with a weight set by
-        the user), as in the straight-ray inversion, with the search range's
-        floor at a tenth of the previous weight."""
+        by Occam's rule (:func:`reconstruct.inverse.solver.solve_occam_step`) no
+        lower than ``lambda_floor``; without (or with a weight set by the user),
+        as in the straight-ray inversion, with the search range's floor there."""
         problem = self.problem
         options = problem.options
         G = state.forward.operator[self.pick_pair]
         t_eff = problem.time_ns - state.forward.time_ns[self.pick_pair] + G @ state.slowness
-        floor = max(options.lambda_min, lambda_previous / 10)
-        if problem.sigma_given and options.smoothing is None:
+        if self.occam:
             trial = solve_occam_step(dataclasses.replace(problem, time_ns=t_eff), G, lambda_start=lambda_previous,
-                                     lambda_floor=floor, progress=solver_progress(self.progress))
+                                     lambda_floor=lambda_floor, progress=solver_progress(self.progress))
         else:
-            step_options = dataclasses.replace(options, lambda_min=min(floor, options.lambda_max / 10))
+            step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
             trial = solve_inverse_problem(dataclasses.replace(problem, time_ns=t_eff, options=step_options), G,
                                           progress=solver_progress(self.progress))
         return trial, G
 
+    @property
+    def occam(self) -> bool:
+        """Occam's weight choice: pick sigmas given and the weight not set by the user."""
+        return self.problem.sigma_given and self.problem.options.smoothing is None
+
     def iterate(self, iteration, state: _Model, lambda_previous):
-        """One Gauss-Newton step from ``state`` with a backtracking line search
-        on the weighted misfit: the step is halved (up to three times) until the
-        misfit through new fields satisfies the sufficient-decrease (Armijo)
-        condition. Returns (inversion result, new state, history entry), or
-        (None, None, None) when no step lowers the misfit.
+        """One Gauss-Newton step from ``state``, its weight no lower than a tenth
+        of the previous one. With Occam's rule, when no step at the chosen weight
+        lowers the misfit through new fields (the linearisation does not hold so
+        far), the floor is raised tenfold, up to twice: Occam's phase 1 seeks the
+        weight of least misfit, which the linearised misfit alone cannot tell.
+        Returns (inversion result, new state, history entry), or (None, None,
+        None) when no step lowers the misfit."""
+        options = self.problem.options
+        floor = max(options.lambda_min, lambda_previous / 10)
+        retries = 2 if self.occam else 0
+        for attempt in range(retries + 1):
+            trial, G = self.weighted_step(iteration, state, lambda_previous, floor)
+            candidate, step = self.line_search(iteration, state, trial, G)
+            if candidate is not None:
+                break
+            if attempt < retries and floor < options.lambda_max:
+                floor = min(10 * max(floor, trial.lambda_smooth), options.lambda_max)
+                self.say(f"bent-ray iteration {iteration}: no step at smoothing weight {trial.lambda_smooth:.3g} "
+                         f"lowers the misfit; trying weights from {floor:.3g}")
+            else:
+                break
+        if candidate is None:
+            self.say(f"bent-ray iteration {iteration}: no step lowers the misfit; keeping the previous model")
+            return None, None, None
+        problem = self.problem
+        chi = (f", chi-square per pick {candidate.misfit / problem.n_picks:.3g}" if problem.sigma_given else "")
+        self.say(f"bent-ray iteration {iteration} of {self.bent.max_iterations}: RMS misfit "
+                 f"{candidate.rms_ns:.3f} ns (was {state.rms_ns:.3f} ns){chi}, "
+                 + ("full step" if step == 1 else f"step {step:g}")
+                 + f", smoothing weight {trial.lambda_smooth:.3g}")
+        entry = self.history_entry(iteration, "bent", candidate, trial.lambda_smooth, step)
+        entry["weight_choice"] = trial.lambda_note
+        return trial, candidate, entry
+
+    def line_search(self, iteration, state: _Model, trial, G):
+        """Backtracking line search on the weighted misfit through new fields:
+        the step towards ``trial`` is halved (up to three times) until the
+        sufficient-decrease (Armijo) condition holds. Returns (model, step), or
+        (None, None) when no step lowers the misfit.
 
         References: Nocedal, J. and Wright, S. J. (2006), Numerical Optimization,
         2nd ed., Springer, section 3.1 (backtracking, sufficient decrease).
         """
         problem = self.problem
-        trial, G = self.weighted_step(iteration, state, lambda_previous)
         d_slowness = trial.slowness_ns_per_m - state.slowness
         d_tau = trial.time_zero_ns - state.tau
         # directional derivative of sum (w r)^2 along the step, r = t - T(s) - C tau
@@ -273,16 +310,8 @@ class _BentSteps:
             self.say(f"bent-ray iteration {iteration}: the misfit did not fall enough (RMS {candidate.rms_ns:.3f} ns); "
                      f"trying a step of {step:g}")
         if candidate.misfit >= state.misfit:
-            self.say(f"bent-ray iteration {iteration}: no step lowers the misfit; keeping the previous model")
-            return None, None, None
-        chi = (f", chi-square per pick {candidate.misfit / problem.n_picks:.3g}" if problem.sigma_given else "")
-        self.say(f"bent-ray iteration {iteration} of {self.bent.max_iterations}: RMS misfit "
-                 f"{candidate.rms_ns:.3f} ns (was {state.rms_ns:.3f} ns){chi}, "
-                 + ("full step" if step == 1 else f"step {step:g}")
-                 + f", smoothing weight {trial.lambda_smooth:.3g}")
-        entry = self.history_entry(iteration, "bent", candidate, trial.lambda_smooth, step)
-        entry["weight_choice"] = trial.lambda_note
-        return trial, candidate, entry
+            return None, None
+        return candidate, step
 
     def final_run(self, start: TomographyRun, state: _Model, result, history) -> TomographyRun:
         """The run of the last accepted model, with rays when kept."""

@@ -9,7 +9,9 @@ At every linearised step, Occam's inversion (Constable, Parker and Constable,
 
 :func:`occam_weight` does that search over any misfit function of the weight,
 assumed non-decreasing in the weight (true of Tikhonov-regularised least
-squares; Hansen, 1992). The search walks from a start by a constant factor
+squares; Hansen, 1992); where it is not (e.g. a misfit computed after
+clipping the model into bounds), phase 1 still returns the least misfit among
+the weights tried. The search walks from a start by a constant factor
 until the target is bracketed, then bisects in log weight, so that the weight
 returned reaches the target and lies within ``log10_tolerance`` (decades) of the
 largest weight that does.

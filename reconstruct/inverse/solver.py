@@ -882,7 +882,10 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
     :func:`reconstruct.inverse.occam.occam_weight` in ``[lambda_floor,
     options.lambda_max]``, starting at ``lambda_start``: the largest weight whose
     linearised chi-square reaches ``N`` (phase 2), or, when none does, the weight
-    of least linearised chi-square (phase 1). The floor bounds how much rougher
+    of least linearised chi-square (phase 1). The chi-square is that of the model
+    as it will be used, its velocities clipped into the band: a rough model whose
+    fit depends on velocities faster than light is not chosen for its unclipped
+    fit. The floor bounds how much rougher
     one step may make the model; the caller's line search on the misfit through
     the nonlinear forward model checks that the step lowers it.
 
@@ -906,25 +909,40 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
     y_start = levels.start(fine.n_slowness) * fine.scale
     target = float(problem.n_picks)
 
+    ground_cols, n_slowness = problem.ground_columns, fine.n_slowness
+    s_min, s_max = problem.slowness_bounds_ns_per_m
+
+    def clipped_chi2(sol):
+        # chi^2 of the model that will be used: its slowness clipped into the band
+        x = sol.y / fine.scale
+        slowness = problem.reference_slowness_ns_per_m.copy()
+        slowness[ground_cols] = np.clip(slowness[ground_cols] + x[:n_slowness], s_min, s_max)
+        tau = x[n_slowness:] if options.time_zero != "none" else np.zeros(problem.n_nodes)
+        residual = problem.time_ns - (G @ slowness + problem.time_zero_columns @ tau)
+        return float(np.sum((problem.weight * residual) ** 2))
+
     def misfit_of(lam, nearest):
         sol = fine.solve(lam, ratio * lam, y_start if nearest is None else nearest.y, options.max_iterations,
                          options.search_tolerance)
         log.record("fine", lam, sol)
-        log.say(f"smoothing weight {lam:.4g}: linearised chi-square {sol.misfit**2:.5g}, target {target:.5g} "
-                f"({sol.iterations} LSQR iterations)")
-        return sol.misfit**2, sol
+        chi2 = clipped_chi2(sol)
+        log.say(f"smoothing weight {lam:.4g}: linearised chi-square {chi2:.5g} with the velocities clipped "
+                f"into the band ({sol.misfit**2:.5g} before), target {target:.5g} ({sol.iterations} LSQR iterations)")
+        return chi2, sol
 
     floor = float(np.clip(lambda_floor, options.lambda_min, options.lambda_max))
-    occam = occam_weight(misfit_of, floor, options.lambda_max, target, start=lambda_start)
+    # steps of half a decade: between the previous weight and its tenth, three trials
+    occam = occam_weight(misfit_of, floor, options.lambda_max, target, start=lambda_start, factor=10**0.5)
     lam = occam.lambda_smooth
     sol = fine.solve(lam, ratio * lam, occam.payload.y, options.max_iterations, options.tolerance)
     log.record("fine", lam, sol)
     if occam.reached:
         note = (f"Occam phase 2: the largest weight whose linearised chi^2 reaches N = {problem.n_picks} "
-                f"(chi^2 {sol.misfit**2:.5g})")
+                f"(chi^2 {occam.chi2:.5g})")
     else:
-        note = (f"Occam phase 1: chi^2 = N not reachable within lambda {floor:.3g} to {options.lambda_max:g}; "
-                f"the weight of least linearised chi^2 ({sol.misfit**2:.5g}, N = {problem.n_picks})")
+        note = (f"Occam phase 1: chi^2 = N not reached within lambda {floor:.3g} to {options.lambda_max:g}; "
+                f"the weight of least linearised chi^2 ({occam.chi2:.5g}, N = {problem.n_picks}) among "
+                f"{len(occam.trials)} tried")
     choice = _Choice(lam, sol, "occam", note)
     choice, robust = _robust_pass(levels, choice, log)
     return _assembled_result(problem, G, fine, choice, robust, log.search)

@@ -49,6 +49,7 @@ class TomographyRun:
     polylines: list | None = None  # rays per inverted pick, when kept
     problem: InverseProblem | None = None  # the inverse problem solved (straight-ray times)
     stop_reason: str = ""  # why the bent-ray iterations stopped ("" for straight rays)
+    start_result: InversionResult | None = None  # the straight-ray solve a bent-ray run started from
 
 
 
@@ -240,6 +241,19 @@ def fit_warnings(summary: dict) -> list[str]:
     return lines
 
 
+def _bent_record(run: TomographyRun) -> dict:
+    """The bent-ray part of ``summary.json``: iterations, why they stopped, the straight-ray start."""
+    record = {"iterations": max(0, len(run.history) - 1), "stop_reason": run.stop_reason}
+    start = run.start_result
+    if start is not None:
+        record["straight_ray_start"] = {
+            "rms_ns": start.rms_ns, "chi2": start.chi2, "lambda_smooth": start.lambda_smooth,
+            "lambda_note": start.lambda_note, "clipping": clipping_record(start),
+            "note": "misfit through straight rays; the iterations start from the straight-ray model or the "
+                    "reference model, whichever explains the data better through bent rays (iteration 0)"}
+    return record
+
+
 def run_summary(run: TomographyRun) -> dict:
     r = run.result
     ground = run.ground
@@ -310,8 +324,7 @@ def run_summary(run: TomographyRun) -> dict:
         "fit": fit_record(r),
         "clipping": clipping_record(r, "straight-ray solve" if run.rays != "bent"
                                     else "last bent-ray step (misfit of its linearised times)"),
-        **({"bent_rays": {"iterations": max(0, len(run.history) - 1), "stop_reason": run.stop_reason}}
-           if run.rays == "bent" else {}),
+        **({"bent_rays": _bent_record(run)} if run.rays == "bent" else {}),
     }
 
 

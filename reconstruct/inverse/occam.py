@@ -134,7 +134,19 @@ def occam_weight(misfit_of, lambda_min: float, lambda_max: float, target: float,
             hi = down
     if lo is None:
         # phase 1: no weight reaches the target; the least misfit (the largest
-        # weight among equals, the smoother model)
+        # weight among equals, the smoother model). Below the start the misfit
+        # was walked down to the floor; where the misfit is not monotone it may
+        # also fall above the start: walk up while it keeps falling.
+        up = lam
+        while up < lambda_max:
+            higher = min(up * factor, lambda_max)
+            if evaluate(higher):
+                # not monotone after all: a larger weight reaches the target
+                return OccamChoice(higher, float(evaluated[higher][0]), 2, True, evaluated[higher][1],
+                                   tuple(order))
+            if evaluated[higher][0] >= evaluated[up][0]:
+                break
+            up = higher
         best = min(evaluated, key=lambda k: (evaluated[k][0], -k))
         chi2, payload = evaluated[best]
         return OccamChoice(best, float(chi2), 1, False, payload, tuple(order))

@@ -87,3 +87,15 @@ def test_the_largest_weight_in_the_range_when_it_already_reaches_the_target():
 def test_bad_ranges_are_refused():
     with pytest.raises(ValueError):
         occam_weight(lambda lam, near: (0.0, None), 2.0, 1.0, 1.0)
+
+
+def test_phase_1_finds_the_least_misfit_above_the_start_when_the_misfit_is_not_monotone():
+    # e.g. a misfit computed after clipping the model into bounds falls as the weight
+    # grows until clipping stops; phase 1 (Constable et al., 1987) still wants the least
+    # misfit in the range. Known minimum at lambda = 10**0.5.
+    def misfit_of(lam, nearest):
+        return (np.log10(lam) - 0.5) ** 2 + 5.0, None
+
+    choice = occam_weight(misfit_of, 1e-3, 1e3, 1.0, start=1e-2, factor=10**0.5)
+    assert choice.phase == 1 and not choice.reached
+    assert choice.lambda_smooth == pytest.approx(10**0.5)

@@ -432,11 +432,12 @@ def _fit_lines(summary: dict) -> list[str]:
 
 def closing_lines(result: ChainResult, truth_path, seconds: float) -> list[str]:
     """What the command prints at the end: time and manifest, the caution, the
+    misfit per iteration, why the iterations stopped and the fit warnings, the
     report's path, then one line per truth body (the comparison with the truth)."""
     return [f"finished in {seconds:.0f} s; manifest: {result.manifest_path}",
             "an interpretation aid, not a guarantee: confirm voids by probe drilling",
-            f"report: {result.report_path}",
             *result.fit_lines,
+            f"report: {result.report_path}",
             f"voids found against the truth model ({truth_path}):",
             *(f"  {match.line()}" for match in result.matches)]
 

@@ -173,6 +173,7 @@ class _BentSteps:
         self.pair_a, self.pair_b, self.pick_pair = unique_pairs(problem.tx, problem.rx)
         # the misfit is weighted by 1 / sigma when the picks carry sigmas, else by 1
         self.weight = problem.weight if problem.sigma_given else np.ones(problem.n_picks)
+        self.measured = {}  # models measured through new fields while choosing the weight, by slowness
 
     def say(self, message):
         if self.progress is not None:
@@ -237,8 +238,17 @@ class _BentSteps:
         G = state.forward.operator[self.pick_pair]
         t_eff = problem.time_ns - state.forward.time_ns[self.pick_pair] + G @ state.slowness
         if self.occam:
+            self.measured = {}
+
+            def true_misfit(slowness, tau):
+                # the misfit through new fields; the model is kept for the line search
+                candidate = self.model(slowness, tau)
+                self.measured[slowness.tobytes()] = candidate
+                return candidate.misfit
+
             trial = solve_occam_step(dataclasses.replace(problem, time_ns=t_eff), G, lambda_start=lambda_previous,
-                                     lambda_floor=lambda_floor, progress=solver_progress(self.progress))
+                                     lambda_floor=lambda_floor, true_misfit=true_misfit,
+                                     progress=solver_progress(self.progress))
         else:
             step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
             trial = solve_inverse_problem(dataclasses.replace(problem, time_ns=t_eff, options=step_options), G,
@@ -301,8 +311,12 @@ class _BentSteps:
         residual = problem.time_ns - self.predicted(state.forward, state.tau)
         slope = -2.0 * float(np.sum(self.weight**2 * residual * (G @ d_slowness + problem.time_zero_columns @ d_tau)))
         step = 1.0
+        measured = self.measured
         while True:
-            candidate = self.model(state.slowness + step * d_slowness, state.tau + step * d_tau)
+            if step == 1.0 and trial.slowness_ns_per_m.tobytes() in measured:
+                candidate = measured[trial.slowness_ns_per_m.tobytes()]  # measured while choosing the weight
+            else:
+                candidate = self.model(state.slowness + step * d_slowness, state.tau + step * d_tau)
             sufficient = candidate.misfit <= state.misfit + _ARMIJO * step * min(slope, 0.0)
             if (candidate.misfit < state.misfit and sufficient) or step <= 0.125:
                 break

@@ -874,7 +874,7 @@ def _assembled_result(problem: InverseProblem, G, fine: _ScaledProblem, choice: 
 
 
 def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, lambda_floor: float,
-                     progress=None) -> InversionResult:
+                     true_misfit=None, progress=None) -> InversionResult:
     """One linearised step of a nonlinear inversion with the weight chosen by Occam's rule.
 
     Solves the problem of :func:`solve_inverse_problem` (same column scaling,
@@ -892,6 +892,12 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
     Needs pick sigmas (the target is ``chi^2 = N``). The trial solves stop at
     ``options.search_tolerance``, the chosen one is polished to ``options.tolerance``;
     the robust pass, if any, follows at the chosen weight.
+
+    ``true_misfit(slowness_ns_per_m, time_zero_ns) -> chi^2``, when given, is the
+    misfit through the nonlinear forward model: as in Occam's paper, the weight
+    is then chosen on it (the linearised misfit of a rough model can be far below
+    what the model delivers), by walks of a factor 10, and the chosen trial is
+    returned unpolished (its model is the one whose misfit was measured).
 
     References
     ----------
@@ -926,22 +932,36 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
                          options.search_tolerance)
         log.record("fine", lam, sol)
         chi2 = clipped_chi2(sol)
-        log.say(f"smoothing weight {lam:.4g}: linearised chi-square {chi2:.5g} with the velocities clipped "
-                f"into the band ({sol.misfit**2:.5g} before), target {target:.5g} ({sol.iterations} LSQR iterations)")
+        if true_misfit is not None:
+            trial = _assembled_result(problem, G, fine, _Choice(lam, sol, "occam", ""), _RobustOutcome(), [])
+            linearised, chi2 = chi2, float(true_misfit(trial.slowness_ns_per_m, trial.time_zero_ns))
+            log.say(f"smoothing weight {lam:.4g}: chi-square {chi2:.5g} through the forward model "
+                    f"(linearised {linearised:.5g}), target {target:.5g}")
+        else:
+            log.say(f"smoothing weight {lam:.4g}: linearised chi-square {chi2:.5g} with the velocities clipped "
+                    f"into the band ({sol.misfit**2:.5g} before), target {target:.5g} "
+                    f"({sol.iterations} LSQR iterations)")
         return chi2, sol
 
     floor = float(np.clip(lambda_floor, options.lambda_min, options.lambda_max))
-    # steps of half a decade: between the previous weight and its tenth, three trials
-    occam = occam_weight(misfit_of, floor, options.lambda_max, target, start=lambda_start, factor=10**0.5)
+    # linearised: steps of half a decade (three trials between the previous weight
+    # and its tenth); through the forward model, a decade (each trial costs a forward run)
+    occam = occam_weight(misfit_of, floor, options.lambda_max, target, start=lambda_start,
+                         factor=10.0 if true_misfit is not None else 10**0.5,
+                         log10_tolerance=0.25 if true_misfit is not None else 0.05)
     lam = occam.lambda_smooth
-    sol = fine.solve(lam, ratio * lam, occam.payload.y, options.max_iterations, options.tolerance)
-    log.record("fine", lam, sol)
+    if true_misfit is None:
+        sol = fine.solve(lam, ratio * lam, occam.payload.y, options.max_iterations, options.tolerance)
+        log.record("fine", lam, sol)
+    else:
+        sol = occam.payload
+    kind = "linearised" if true_misfit is None else "forward-model"
     if occam.reached:
-        note = (f"Occam phase 2: the largest weight whose linearised chi^2 reaches N = {problem.n_picks} "
+        note = (f"Occam phase 2: the largest weight whose {kind} chi^2 reaches N = {problem.n_picks} "
                 f"(chi^2 {occam.chi2:.5g})")
     else:
         note = (f"Occam phase 1: chi^2 = N not reached within lambda {floor:.3g} to {options.lambda_max:g}; "
-                f"the weight of least linearised chi^2 ({occam.chi2:.5g}, N = {problem.n_picks}) among "
+                f"the weight of least {kind} chi^2 ({occam.chi2:.5g}, N = {problem.n_picks}) among "
                 f"{len(occam.trials)} tried")
     choice = _Choice(lam, sol, "occam", note)
     choice, robust = _robust_pass(levels, choice, log)

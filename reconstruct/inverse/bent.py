@@ -9,17 +9,21 @@ Starting from the straight-ray model, each iteration linearises the times
 about the current model ``s_k``: ``t ~ T(s_k) + G_k (s - s_k) + C tau``, with
 ``G_k`` the path lengths of the traced rays, and solves the same regularised
 problem as the straight-ray inversion (regularisation about the site's
-reference model) for ``s`` and ``tau``. With pick sigmas the weight is chosen
-by Occam's rule (Constable, Parker and Constable, 1987;
-:mod:`reconstruct.inverse.occam`): the largest weight whose linearised
-chi-square reaches ``N``, or, when none does, the one of least chi-square,
-searched no lower than a tenth of the previous weight (one step may not
-roughen the model more). Without sigmas the weight is chosen as in the
-straight-ray inversion. A backtracking line search on the weighted misfit
-through new fields (sufficient decrease, step halved up to three times)
-accepts the step. The loop stops, and records why (``stop_reason``), when
-chi-square reaches ``N``, when the misfit improves by less than ``plateau``
-(relative), when no step lowers it, or at the iteration limit.
+reference model) for ``s`` and ``tau``. With pick sigmas (and the weight
+not set by the user) the weight is chosen by Occam's rule (Constable, Parker
+and Constable, 1987; :mod:`reconstruct.inverse.occam`) on the misfit through
+new fields: the largest weight whose model reaches chi-square ``N``, or, when
+none does, the one of least chi-square, searched no lower than a tenth of the
+previous weight. The linearised misfit is not used to choose: on the demo
+quarry it favoured rough models (with many cells clipped at the speed of
+light) whose full steps raised the misfit through new fields; choosing on it
+ended at chi^2/N 99.9 after three iterations, against 45.6 before this
+change. Without sigmas the weight is chosen as in the straight-ray inversion.
+A backtracking line search on the weighted misfit (sufficient decrease, step
+halved up to three times) accepts the step. The loop stops, and
+records why (``stop_reason``), when chi-square reaches ``N``, when the
+misfit improves by less than ``plateau`` (relative), when no step lowers it,
+or at the iteration limit.
 
 References
 ----------
@@ -262,15 +266,14 @@ class _BentSteps:
 
     def iterate(self, iteration, state: _Model, lambda_previous):
         """One Gauss-Newton step from ``state``, its weight no lower than a tenth
-        of the previous one. With Occam's rule, when no step at the chosen weight
-        lowers the misfit through new fields (the linearisation does not hold so
-        far), the floor is raised tenfold, up to twice: Occam's phase 1 seeks the
-        weight of least misfit, which the linearised misfit alone cannot tell.
+        of the previous one, then the line search. ``retries`` (0: Occam's walk
+        through the forward model already looked above the start) is how often
+        the floor is raised tenfold when no step lowers the misfit.
         Returns (inversion result, new state, history entry), or (None, None,
         None) when no step lowers the misfit."""
         options = self.problem.options
         floor = max(options.lambda_min, lambda_previous / 10)
-        retries = 2 if self.occam else 0
+        retries = 0
         for attempt in range(retries + 1):
             trial, G = self.weighted_step(iteration, state, lambda_previous, floor)
             candidate, step = self.line_search(iteration, state, trial, G)

@@ -132,7 +132,8 @@ def _fit_warning_html(summary: dict) -> str:
         words.append(str(clipping.get("words", "")))
     if not words:
         return ""
-    return ('<div style="border:2px solid #b00;padding:0.5em;margin:0.5em 0"><h2>Warning: the fit</h2>'
+    # framed like the cautions (the page's own style, reconstruct.report.colours)
+    return ('<div class="cautions"><h2>Warning: the fit</h2>'
             + "".join(f"<p>{escape(w)}</p>" for w in words) + "</div>")
 
 

@@ -266,25 +266,12 @@ class _BentSteps:
 
     def iterate(self, iteration, state: _Model, lambda_previous):
         """One Gauss-Newton step from ``state``, its weight no lower than a tenth
-        of the previous one, then the line search. ``retries`` (0: Occam's walk
-        through the forward model already looked above the start) is how often
-        the floor is raised tenfold when no step lowers the misfit.
-        Returns (inversion result, new state, history entry), or (None, None,
-        None) when no step lowers the misfit."""
-        options = self.problem.options
-        floor = max(options.lambda_min, lambda_previous / 10)
-        retries = 0
-        for attempt in range(retries + 1):
-            trial, G = self.weighted_step(iteration, state, lambda_previous, floor)
-            candidate, step = self.line_search(iteration, state, trial, G)
-            if candidate is not None:
-                break
-            if attempt < retries and floor < options.lambda_max:
-                floor = min(10 * max(floor, trial.lambda_smooth), options.lambda_max)
-                self.say(f"bent-ray iteration {iteration}: no step at smoothing weight {trial.lambda_smooth:.3g} "
-                         f"lowers the misfit; trying weights from {floor:.3g}")
-            else:
-                break
+        of the previous one (one step may not roughen the model more), then the
+        line search. Returns (inversion result, new state, history entry), or
+        (None, None, None) when no step lowers the misfit."""
+        floor = max(self.problem.options.lambda_min, lambda_previous / 10)
+        trial, G = self.weighted_step(iteration, state, lambda_previous, floor)
+        candidate, step = self.line_search(iteration, state, trial, G)
         if candidate is None:
             self.say(f"bent-ray iteration {iteration}: no step lowers the misfit; keeping the previous model")
             return None, None, None

@@ -125,6 +125,7 @@ class ChainResult:
     manifest_path: Path
     matches: tuple  # plan.synthetic.truth_match.TruthMatch per truth body
     stage_seconds: dict
+    fit_lines: tuple = ()  # how the inversion ended and its warnings (reconstruct.inverse.straight.fit_warnings)
 
 
 class _Stages:
@@ -411,14 +412,31 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     manifest["truth_comparison"] = [m.as_dict() for m in matches]
     manifest_path = write_json_atomic(root / "manifest.json", manifest)
     return ChainResult(out=root, report_path=Path(report_path), manifest_path=manifest_path,
-                       matches=tuple(matches), stage_seconds=dict(stages.seconds))
+                       matches=tuple(matches), stage_seconds=dict(stages.seconds),
+                       fit_lines=tuple(_fit_lines(summary)))
+
+
+def _fit_lines(summary: dict) -> list[str]:
+    """The misfit per iteration, why the iterations stopped, and the fit warnings."""
+    from reconstruct.inverse.straight import fit_warnings
+
+    chi = [h.get("chi2") for h in summary["iterations"]]
+    n = summary["misfit"]["n_picks"]
+    lines = ["misfit per bent-ray iteration (0 is the start): RMS "
+             + ", ".join(f"{h['rms_ns']:.3f}" for h in summary["iterations"]) + " ns"
+             + ("" if None in chi else "; chi^2/N " + ", ".join(f"{c / n:.3g}" for c in chi))]
+    if "bent_rays" in summary:
+        lines.append(f"bent-ray iterations stopped: {summary['bent_rays']['stop_reason']}")
+    return lines + fit_warnings(summary)
 
 
 def closing_lines(result: ChainResult, truth_path, seconds: float) -> list[str]:
     """What the command prints at the end: time and manifest, the caution, the
+    misfit per iteration, why the iterations stopped and the fit warnings, the
     report's path, then one line per truth body (the comparison with the truth)."""
     return [f"finished in {seconds:.0f} s; manifest: {result.manifest_path}",
             "an interpretation aid, not a guarantee: confirm voids by probe drilling",
+            *result.fit_lines,
             f"report: {result.report_path}",
             f"voids found against the truth model ({truth_path}):",
             *(f"  {match.line()}" for match in result.matches)]

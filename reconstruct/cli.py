@@ -206,6 +206,8 @@ def _cmd_invert(args) -> int:
 
 
 def _print_inversion(summary: dict, out) -> None:
+    from reconstruct.inverse.straight import fit_warnings
+
     m, lam, v = summary["misfit"], summary["lambda"], summary["velocity_m_per_ns"]
     chi = "" if m["chi2"] is None else f", chi^2/N {m['chi2_per_pick']:.3f}"
     print(f"site: {summary['site']}")
@@ -215,6 +217,10 @@ def _print_inversion(summary: dict, out) -> None:
         steps = ", ".join(f"{h['rms_ns']:.3f}" for h in summary["iterations"])
         print(f"rays: {summary['rays']}; RMS misfit per bent-ray iteration (ns; 0 is the starting model): {steps}")
     print(f"misfit: RMS {m['rms_ns']:.3f} ns{chi}")
+    if "bent_rays" in summary:
+        print(f"bent-ray iterations stopped: {summary['bent_rays']['stop_reason']}")
+    for line in fit_warnings(summary):
+        print(line)
     print(f"regularisation weight: {lam['smoothing']:.4g} by {lam['method']} ({lam['note']})")
     print(f"ground velocity: {v['ground_min']:.4f} to {v['ground_max']:.4f} m/ns, median "
           f"{v['ground_median']:.4f}; {summary['nodes']['snapped']} nodes snapped to the ground")

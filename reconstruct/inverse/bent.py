@@ -9,17 +9,32 @@ Starting from the straight-ray model, each iteration linearises the times
 about the current model ``s_k``: ``t ~ T(s_k) + G_k (s - s_k) + C tau``, with
 ``G_k`` the path lengths of the traced rays, and solves the same regularised
 problem as the straight-ray inversion (regularisation about the site's
-reference model, lambda chosen the same way) for ``s`` and ``tau``. The new
-model is accepted only if its data misfit, computed with new fields, is lower;
-otherwise the step is halved (up to twice). The loop stops when the misfit
-improves by less than ``plateau`` (relative), when no step lowers it, or at
-the iteration limit.
+reference model) for ``s`` and ``tau``. With pick sigmas (and the weight
+not set by the user) the weight is chosen by Occam's rule (Constable, Parker
+and Constable, 1987; :mod:`reconstruct.inverse.occam`) on the misfit through
+new fields: the largest weight whose model reaches chi-square ``N``, or, when
+none does, the one of least chi-square, searched no lower than a tenth of the
+previous weight. The linearised misfit is not used to choose: on the demo
+quarry it favoured rough models (with many cells clipped at the speed of
+light) whose full steps raised the misfit through new fields; choosing on it
+ended at chi^2/N 99.9 after three iterations, against 45.6 before this
+change. Without sigmas the weight is chosen as in the straight-ray inversion.
+A backtracking line search on the weighted misfit (sufficient decrease, step
+halved up to three times) accepts the step. The loop stops, and
+records why (``stop_reason``), when chi-square reaches ``N``, when the
+misfit improves by less than ``plateau`` (relative), when no step lowers it,
+or at the iteration limit.
 
 References
 ----------
 .. [1] Cerveny, V. (2001), Seismic Ray Theory, Cambridge University Press.
 .. [2] Paige, C. C. and Saunders, M. A. (1982), LSQR, ACM Trans. Math. Softw.
    8(1), 43-71.
+.. [3] Constable, S. C., Parker, R. L. and Constable, C. G. (1987), Occam's
+   inversion: a practical algorithm for generating smooth models from
+   electromagnetic sounding data, Geophysics 52(3), 289-300.
+.. [4] Nocedal, J. and Wright, S. J. (2006), Numerical Optimization, 2nd ed.,
+   Springer.
 """
 
 from __future__ import annotations
@@ -32,13 +47,17 @@ import numpy as np
 from reconstruct.forward.first_arrivals import bent_ray_forward, unique_pairs
 from reconstruct.forward.kernels import COMPILING_MESSAGE, kernels_need_compiling
 from reconstruct.inverse.problem import InverseProblem
-from reconstruct.inverse.solver import InversionOptions, solve_inverse_problem
+from reconstruct.inverse.solver import InversionOptions, solve_inverse_problem, solve_occam_step
 from reconstruct.inverse.time_zero import estimate_time_zero
 from reconstruct.parallel import Executor
 from reconstruct.inverse.straight import TomographyRun, solver_progress, straight_ray_tomography
 from reconstruct.forward.straight_rays import ray_coverage
 
 __all__ = ["BentOptions", "bent_ray_tomography"]
+
+#: Sufficient-decrease constant of the backtracking line search (Nocedal and
+#: Wright, 2006, section 3.1, suggest 1e-4).
+_ARMIJO = 1e-4
 
 
 @dataclass(frozen=True)
@@ -109,20 +128,29 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
         steps.say(COMPILING_MESSAGE)
     state, history = steps.starting_point(start.result)
     result = start.result
-    lambda_floor = options.lambda_min
+    lambda_previous = start.result.lambda_smooth
+    stop_reason = f"iteration limit reached ({bent.max_iterations})"
     for iteration in range(1, bent.max_iterations + 1):
-        trial, state_new, entry = steps.iterate(iteration, state, lambda_floor)
+        trial, state_new, entry = steps.iterate(iteration, state, lambda_previous)
         if trial is None:
+            stop_reason = "no step lowers the misfit"
             break
         improvement = (state.misfit - state_new.misfit) / state.misfit
         state, result = state_new, trial
-        # roughen gradually: the next lambda may fall at most tenfold
-        lambda_floor = max(options.lambda_min, trial.lambda_smooth / 10)
+        lambda_previous = trial.lambda_smooth
         history.append(entry)
+        if steps.target_reached(state):
+            stop_reason = f"target misfit reached: chi^2 {state.misfit:.5g} <= N = {start.problem.n_picks}"
+            steps.say(f"the misfit reached its target (chi-square {state.misfit:.5g} for "
+                      f"{start.problem.n_picks} picks); stopping here")
+            break
         if improvement < bent.plateau:
+            stop_reason = f"misfit plateau: improvement below {bent.plateau:.0%} ({improvement:.1%})"
             steps.say(f"the misfit improved by only {improvement:.1%} (less than {bent.plateau:.0%}); stopping here")
             break
-    return steps.final_run(start, state, result, history)
+    steps.say(f"bent-ray iterations stopped: {stop_reason}")
+    return dataclasses.replace(steps.final_run(start, state, result, history), stop_reason=stop_reason,
+                               start_result=start.result)
 
 
 @dataclass(frozen=True)
@@ -149,6 +177,7 @@ class _BentSteps:
         self.pair_a, self.pair_b, self.pick_pair = unique_pairs(problem.tx, problem.rx)
         # the misfit is weighted by 1 / sigma when the picks carry sigmas, else by 1
         self.weight = problem.weight if problem.sigma_given else np.ones(problem.n_picks)
+        self.measured = {}  # models measured through new fields while choosing the weight, by slowness
 
     def say(self, message):
         if self.progress is not None:
@@ -199,34 +228,94 @@ class _BentSteps:
                  f"{from_reference.rms_ns:.3f} ns; the lower one is the start)")
         return state, [self.history_entry(0, f"bent rays through the {start_name}", state)]
 
-    def iterate(self, iteration, state: _Model, lambda_floor):
-        """One Gauss-Newton step from ``state``, halved (up to three times) until
-        the misfit falls. Returns (inversion result, new state, history entry),
-        or (None, None, None) when no step lowers the misfit."""
+    def target_reached(self, state: _Model) -> bool:
+        """chi^2 <= N (only with pick sigmas)."""
+        return self.problem.sigma_given and state.misfit <= self.problem.n_picks
+
+    def weighted_step(self, iteration, state: _Model, lambda_previous, lambda_floor):
+        """The linearised step's inversion: with pick sigmas the weight is chosen
+        by Occam's rule (:func:`reconstruct.inverse.solver.solve_occam_step`) no
+        lower than ``lambda_floor``; without (or with a weight set by the user),
+        as in the straight-ray inversion, with the search range's floor there."""
         problem = self.problem
         options = problem.options
         G = state.forward.operator[self.pick_pair]
         t_eff = problem.time_ns - state.forward.time_ns[self.pick_pair] + G @ state.slowness
-        step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
-        trial = solve_inverse_problem(dataclasses.replace(problem, time_ns=t_eff, options=step_options), G,
-                                      progress=solver_progress(self.progress))
-        step = 1.0
-        while True:
-            candidate = self.model(state.slowness + step * (trial.slowness_ns_per_m - state.slowness),
-                                   state.tau + step * (trial.time_zero_ns - state.tau))
-            if candidate.misfit < state.misfit or step <= 0.125:
-                break
-            step *= 0.5
-            self.say(f"bent-ray iteration {iteration}: the misfit rose to RMS {candidate.rms_ns:.3f} ns; "
-                     f"trying a step of {step:g}")
-        if candidate.misfit >= state.misfit:
+        if self.occam:
+            self.measured = {}
+
+            def true_misfit(slowness, tau):
+                # the misfit through new fields; the model is kept for the line search
+                candidate = self.model(slowness, tau)
+                self.measured[slowness.tobytes()] = candidate
+                return candidate.misfit
+
+            trial = solve_occam_step(dataclasses.replace(problem, time_ns=t_eff), G, lambda_start=lambda_previous,
+                                     lambda_floor=lambda_floor, true_misfit=true_misfit,
+                                     progress=solver_progress(self.progress))
+        else:
+            step_options = dataclasses.replace(options, lambda_min=min(lambda_floor, options.lambda_max / 10))
+            trial = solve_inverse_problem(dataclasses.replace(problem, time_ns=t_eff, options=step_options), G,
+                                          progress=solver_progress(self.progress))
+        return trial, G
+
+    @property
+    def occam(self) -> bool:
+        """Occam's weight choice: pick sigmas given and the weight not set by the user."""
+        return self.problem.sigma_given and self.problem.options.smoothing is None
+
+    def iterate(self, iteration, state: _Model, lambda_previous):
+        """One Gauss-Newton step from ``state``, its weight no lower than a tenth
+        of the previous one (one step may not roughen the model more), then the
+        line search. Returns (inversion result, new state, history entry), or
+        (None, None, None) when no step lowers the misfit."""
+        floor = max(self.problem.options.lambda_min, lambda_previous / 10)
+        trial, G = self.weighted_step(iteration, state, lambda_previous, floor)
+        candidate, step = self.line_search(iteration, state, trial, G)
+        if candidate is None:
             self.say(f"bent-ray iteration {iteration}: no step lowers the misfit; keeping the previous model")
             return None, None, None
+        problem = self.problem
+        chi = (f", chi-square per pick {candidate.misfit / problem.n_picks:.3g}" if problem.sigma_given else "")
         self.say(f"bent-ray iteration {iteration} of {self.bent.max_iterations}: RMS misfit "
-                 f"{candidate.rms_ns:.3f} ns (was {state.rms_ns:.3f} ns), "
+                 f"{candidate.rms_ns:.3f} ns (was {state.rms_ns:.3f} ns){chi}, "
                  + ("full step" if step == 1 else f"step {step:g}")
                  + f", smoothing weight {trial.lambda_smooth:.3g}")
-        return trial, candidate, self.history_entry(iteration, "bent", candidate, trial.lambda_smooth, step)
+        entry = self.history_entry(iteration, "bent", candidate, trial.lambda_smooth, step)
+        entry["weight_choice"] = trial.lambda_note
+        return trial, candidate, entry
+
+    def line_search(self, iteration, state: _Model, trial, G):
+        """Backtracking line search on the weighted misfit through new fields:
+        the step towards ``trial`` is halved (up to three times) until the
+        sufficient-decrease (Armijo) condition holds. Returns (model, step), or
+        (None, None) when no step lowers the misfit.
+
+        References: Nocedal, J. and Wright, S. J. (2006), Numerical Optimization,
+        2nd ed., Springer, section 3.1 (backtracking, sufficient decrease).
+        """
+        problem = self.problem
+        d_slowness = trial.slowness_ns_per_m - state.slowness
+        d_tau = trial.time_zero_ns - state.tau
+        # directional derivative of sum (w r)^2 along the step, r = t - T(s) - C tau
+        residual = problem.time_ns - self.predicted(state.forward, state.tau)
+        slope = -2.0 * float(np.sum(self.weight**2 * residual * (G @ d_slowness + problem.time_zero_columns @ d_tau)))
+        step = 1.0
+        measured = self.measured
+        while True:
+            if step == 1.0 and trial.slowness_ns_per_m.tobytes() in measured:
+                candidate = measured[trial.slowness_ns_per_m.tobytes()]  # measured while choosing the weight
+            else:
+                candidate = self.model(state.slowness + step * d_slowness, state.tau + step * d_tau)
+            sufficient = candidate.misfit <= state.misfit + _ARMIJO * step * min(slope, 0.0)
+            if (candidate.misfit < state.misfit and sufficient) or step <= 0.125:
+                break
+            step *= 0.5
+            self.say(f"bent-ray iteration {iteration}: the misfit did not fall enough (RMS {candidate.rms_ns:.3f} ns); "
+                     f"trying a step of {step:g}")
+        if candidate.misfit >= state.misfit:
+            return None, None
+        return candidate, step
 
     def final_run(self, start: TomographyRun, state: _Model, result, history) -> TomographyRun:
         """The run of the last accepted model, with rays when kept."""

@@ -26,6 +26,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.linalg import LinearOperator, lsqr
 
+from reconstruct.inverse.occam import occam_weight
 from reconstruct.inverse.options import InversionOptions
 from reconstruct.inverse.problem import InverseProblem
 from reconstruct.inverse.robust import robust_scale, robust_weights
@@ -36,6 +37,7 @@ __all__ = [
     "InversionResult",
     "invert_travel_times",
     "solve_inverse_problem",
+    "solve_occam_step",
 ]
 
 #: Damping of the time-zero unknowns relative to their data weight: small, so
@@ -72,6 +74,14 @@ class InversionResult:
     rejected: np.ndarray | None = None  # bool per pick: robust weight below options.rejection_weight
     robust_scale: float = 1.0  # residual scale (in sigmas) the robust weights were computed with
     robust_reweightings: int = 0
+    chi2_before_clipping: float | None = None  # chi^2 of the solved model before clipping into the band
+    rms_before_clipping_ns: float | None = None
+    chi2_after_clipping: float | None = None  # chi^2 of this solve's model after clipping (= chi2 as solved)
+    rms_after_clipping_ns: float | None = None
+
+    @property
+    def n_clipped(self) -> int:
+        return self.n_clipped_slow + self.n_clipped_fast
 
     @property
     def velocity_m_per_ns(self) -> np.ndarray:
@@ -822,6 +832,7 @@ def _assembled_result(problem: InverseProblem, G, fine: _ScaledProblem, choice: 
             used[problem.rx] = True
             tau[used] -= tau[used].mean()  # the gauge: a common shift changes no time
     s_min, s_max = problem.slowness_bounds_ns_per_m
+    residual_unclipped = problem.time_ns - (G @ slowness + problem.time_zero_columns @ tau)
     ground_s = slowness[ground_cols]
     n_fast = int(np.sum(ground_s < s_min))
     n_slow = int(np.sum(ground_s > s_max))
@@ -854,4 +865,104 @@ def _assembled_result(problem: InverseProblem, G, fine: _ScaledProblem, choice: 
         rejected=None if omega is None else omega < options.rejection_weight,
         robust_scale=float(robust.scale),
         robust_reweightings=robust.reweightings,
+        chi2_before_clipping=(float(np.sum((residual_unclipped / problem.sigma_used_ns) ** 2))
+                              if problem.sigma_given else None),
+        rms_before_clipping_ns=float(np.sqrt(np.mean(residual_unclipped**2))),
+        chi2_after_clipping=chi2,
+        rms_after_clipping_ns=float(np.sqrt(np.mean(residual**2))),
     )
+
+
+def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, lambda_floor: float,
+                     true_misfit=None, progress=None) -> InversionResult:
+    """One linearised step of a nonlinear inversion with the weight chosen by Occam's rule.
+
+    Solves the problem of :func:`solve_inverse_problem` (same column scaling,
+    regularisation and model grid) at weights chosen by
+    :func:`reconstruct.inverse.occam.occam_weight` in ``[lambda_floor,
+    options.lambda_max]``, starting at ``lambda_start``: the largest weight whose
+    linearised chi-square reaches ``N`` (phase 2), or, when none does, the weight
+    of least linearised chi-square (phase 1). The chi-square is that of the model
+    as it will be used, its velocities clipped into the band: a rough model whose
+    fit depends on velocities faster than light is not chosen for its unclipped
+    fit. The floor bounds how much rougher
+    one step may make the model; the caller's line search on the misfit through
+    the nonlinear forward model checks that the step lowers it.
+
+    Needs pick sigmas (the target is ``chi^2 = N``). The trial solves stop at
+    ``options.search_tolerance``, the chosen one is polished to ``options.tolerance``;
+    the robust pass, if any, follows at the chosen weight.
+
+    ``true_misfit(slowness_ns_per_m, time_zero_ns) -> chi^2``, when given, is the
+    misfit through the nonlinear forward model: as in Occam's paper, the weight
+    is then chosen on it (the linearised misfit of a rough model can be far below
+    what the model delivers), by walks of a factor 10, and the chosen trial is
+    returned unpolished (its model is the one whose misfit was measured).
+
+    References
+    ----------
+    .. [1] Constable, S. C., Parker, R. L. and Constable, C. G. (1987), Occam's
+       inversion: a practical algorithm for generating smooth models from
+       electromagnetic sounding data, Geophysics 52(3), 289-300.
+    """
+    if not problem.sigma_given:
+        raise ValueError("Occam's weight choice needs pick sigmas (its target is chi^2 = N)")
+    G = sp.csr_matrix(operator)
+    levels = _scaled_levels(problem, G)
+    fine, options = levels.fine, problem.options
+    log = _SolveLog(problem.n_picks, progress)
+    ratio = options.damping_ratio
+    y_start = levels.start(fine.n_slowness) * fine.scale
+    target = float(problem.n_picks)
+
+    ground_cols, n_slowness = problem.ground_columns, fine.n_slowness
+    s_min, s_max = problem.slowness_bounds_ns_per_m
+
+    def clipped_chi2(sol):
+        # chi^2 of the model that will be used: its slowness clipped into the band
+        x = sol.y / fine.scale
+        slowness = problem.reference_slowness_ns_per_m.copy()
+        slowness[ground_cols] = np.clip(slowness[ground_cols] + x[:n_slowness], s_min, s_max)
+        tau = x[n_slowness:] if options.time_zero != "none" else np.zeros(problem.n_nodes)
+        residual = problem.time_ns - (G @ slowness + problem.time_zero_columns @ tau)
+        return float(np.sum((problem.weight * residual) ** 2))
+
+    def misfit_of(lam, nearest):
+        sol = fine.solve(lam, ratio * lam, y_start if nearest is None else nearest.y, options.max_iterations,
+                         options.search_tolerance)
+        log.record("fine", lam, sol)
+        chi2 = clipped_chi2(sol)
+        if true_misfit is not None:
+            trial = _assembled_result(problem, G, fine, _Choice(lam, sol, "occam", ""), _RobustOutcome(), [])
+            linearised, chi2 = chi2, float(true_misfit(trial.slowness_ns_per_m, trial.time_zero_ns))
+            log.say(f"smoothing weight {lam:.4g}: chi-square {chi2:.5g} through the forward model "
+                    f"(linearised {linearised:.5g}), target {target:.5g}")
+        else:
+            log.say(f"smoothing weight {lam:.4g}: linearised chi-square {chi2:.5g} with the velocities clipped "
+                    f"into the band ({sol.misfit**2:.5g} before), target {target:.5g} "
+                    f"({sol.iterations} LSQR iterations)")
+        return chi2, sol
+
+    floor = float(np.clip(lambda_floor, options.lambda_min, options.lambda_max))
+    # linearised: steps of half a decade (three trials between the previous weight
+    # and its tenth); through the forward model, a decade (each trial costs a forward run)
+    occam = occam_weight(misfit_of, floor, options.lambda_max, target, start=lambda_start,
+                         factor=10.0 if true_misfit is not None else 10**0.5,
+                         log10_tolerance=0.25 if true_misfit is not None else 0.05)
+    lam = occam.lambda_smooth
+    if true_misfit is None:
+        sol = fine.solve(lam, ratio * lam, occam.payload.y, options.max_iterations, options.tolerance)
+        log.record("fine", lam, sol)
+    else:
+        sol = occam.payload
+    kind = "linearised" if true_misfit is None else "forward-model"
+    if occam.reached:
+        note = (f"Occam phase 2: the largest weight whose {kind} chi^2 reaches N = {problem.n_picks} "
+                f"(chi^2 {occam.chi2:.5g})")
+    else:
+        note = (f"Occam phase 1: chi^2 = N not reached within lambda {floor:.3g} to {options.lambda_max:g}; "
+                f"the weight of least {kind} chi^2 ({occam.chi2:.5g}, N = {problem.n_picks}) among "
+                f"{len(occam.trials)} tried")
+    choice = _Choice(lam, sol, "occam", note)
+    choice, robust = _robust_pass(levels, choice, log)
+    return _assembled_result(problem, G, fine, choice, robust, log.search)

@@ -19,7 +19,12 @@ from reconstruct.forward.straight_rays import ray_coverage
 from reconstruct.forward.straight_rays import straight_ray_matrix
 from reconstruct.io.tables import ExcludedPick, Nodes, Picks
 
-__all__ = ["TomographyRun", "straight_ray_tomography", "run_summary"]
+__all__ = ["TomographyRun", "straight_ray_tomography", "run_summary", "fit_record", "clipping_record",
+           "fit_warnings"]
+
+#: Clipping into the velocity band that raises chi-square (or the RMS misfit)
+#: by more than this fraction is reported with a warning.
+CLIPPING_WARNING_FRACTION = 0.05  # common practice, no published source
 
 
 @dataclass(frozen=True)
@@ -43,6 +48,8 @@ class TomographyRun:
     history: tuple = field(default=())  # per-iteration misfits of bent-ray runs
     polylines: list | None = None  # rays per inverted pick, when kept
     problem: InverseProblem | None = None  # the inverse problem solved (straight-ray times)
+    stop_reason: str = ""  # why the bent-ray iterations stopped ("" for straight rays)
+    start_result: InversionResult | None = None  # the straight-ray solve a bent-ray run started from
 
 
 
@@ -56,7 +63,8 @@ def _say(progress, message):
 
 #: How the smoothing weight was chosen, in words.
 _METHOD_WORDS = {"discrepancy": "chosen so that the misfit matches the pick uncertainties",
-                 "l-curve": "chosen at the corner of the L-curve", "user": "as given"}
+                 "l-curve": "chosen at the corner of the L-curve", "user": "as given",
+                 "occam": "chosen by Occam's rule in the bent-ray iterations"}
 
 
 def _weight_words(result) -> str:
@@ -146,12 +154,104 @@ def straight_ray_tomography(
     result = solve_inverse_problem(problem, G, progress=solver_progress(progress))
     _say(progress, f"straight-ray model: RMS misfit {result.rms_ns:.3f} ns over {used.size:,} picks; smoothing "
                    f"weight {result.lambda_smooth:.3g} ({_weight_words(result)})")
+    clipping = clipping_record(result)
+    if clipping["warning"]:
+        _say(progress, clipping["words"])
     ray_length, ray_count = ray_coverage(G, grid)
     return TomographyRun(
         site=site, grid=grid, ground=ground, nodes=nodes, placement=placement, picks=picks,
         used=used, excluded=tuple(excluded), ray_length_m=ray_length, ray_count=ray_count,
         result=result, options=options, problem=problem,
     )
+
+
+def fit_record(result: InversionResult) -> dict:
+    """How well the final model explains the picks: the ``fit`` block of ``summary.json``.
+
+    The target is the discrepancy principle's ``chi^2 = N`` (each pick fit to its
+    sigma on average); it is judged only when the picks carry sigmas.
+    """
+    n = int(result.n_picks)
+    if result.chi2 is None:
+        return {"chi2": None, "n_picks": n, "chi2_per_pick": None, "rms_ns": result.rms_ns,
+                "target": "chi^2 = N", "target_reached": None,
+                "words": (f"The picks carry no uncertainties, so the misfit cannot be judged against them; "
+                          f"the RMS misfit is {result.rms_ns:.3f} ns.")}
+    per_pick = result.chi2 / n
+    # reached within the discrepancy search's tolerance (3 % in log chi^2)
+    reached = bool(per_pick <= 1.03)
+    if reached:
+        words = (f"The model explains the picks to their uncertainties: chi-square {result.chi2:.5g} for "
+                 f"N = {n} picks (chi^2/N {per_pick:.3g}), RMS misfit {result.rms_ns:.3f} ns.")
+    else:
+        words = (f"Warning: the model does not explain the picks to their uncertainties: chi-square "
+                 f"{result.chi2:.5g} for N = {n} picks (chi^2/N {per_pick:.3g}, target 1), RMS misfit "
+                 f"{result.rms_ns:.3f} ns. The residuals are larger than the pick noise: forward-model "
+                 "error, outliers, sigmas too small or a model too smooth for the data; features of the "
+                 "size of the misfit's pattern may be missing or wrong.")
+    return {"chi2": result.chi2, "n_picks": n, "chi2_per_pick": per_pick, "rms_ns": result.rms_ns,
+            "target": "chi^2 = N", "target_reached": reached, "words": words}
+
+
+def clipping_record(result: InversionResult, solve: str = "straight-ray solve") -> dict:
+    """Cells clipped into the velocity band after the solve, and the misfit of
+    that solve before and after (for bent rays, of the last linearised step)."""
+    n = int(result.n_clipped_slow + result.n_clipped_fast)
+    before_chi2, after_chi2 = result.chi2_before_clipping, result.chi2_after_clipping
+    before_rms, after_rms = result.rms_before_clipping_ns, result.rms_after_clipping_ns
+    if before_chi2 is not None and after_chi2 is not None and before_chi2 > 0:
+        rise = after_chi2 / before_chi2 - 1.0
+        measure = (f"chi^2/N rose from {before_chi2 / result.n_picks:.3g} to "
+                   f"{after_chi2 / result.n_picks:.3g}")
+    elif before_rms:
+        rise = after_rms / before_rms - 1.0
+        measure = f"the RMS misfit rose from {before_rms:.3f} ns to {after_rms:.3f} ns"
+    else:
+        rise = 0.0
+        measure = ""
+    warn = n > 0 and rise > CLIPPING_WARNING_FRACTION
+    record = {"solve": solve, "cells_clipped": n, "cells_clipped_at_min": int(result.n_clipped_slow),
+              "cells_clipped_at_max": int(result.n_clipped_fast),
+              "chi2_before": before_chi2, "chi2_after": after_chi2,
+              "rms_before_ns": before_rms, "rms_after_ns": after_rms,
+              "misfit_rise_fraction": rise, "warning": warn}
+    record["words"] = (
+        f"Warning: {n} cells needed velocities outside the band (faster than the band's maximum, up to "
+        f"the speed of light, or slower than its minimum) and were clipped into it; {measure}. The data "
+        "ask for what the model cannot be: rays that travel partly in air, wrong node positions or "
+        "time-zeros, or straight rays where the waves bend." if warn else
+        (f"{n} cells were clipped into the velocity band; the misfit changed little." if n else
+         "No cell was clipped into the velocity band."))
+    return record
+
+
+def fit_warnings(summary: dict) -> list[str]:
+    """The warnings of a ``summary.json`` about the fit, one line each (none when
+    the target misfit was reached and clipping changed little): what a command
+    prints and a report shows at its top."""
+    lines = []
+    fit = summary.get("fit") or {}
+    if fit.get("target_reached") is False:
+        lines.append(f"WARNING: target misfit not reached: chi^2/N {fit['chi2_per_pick']:.3g} (chi^2 "
+                     f"{fit['chi2']:.5g}, N = {fit['n_picks']}), RMS {fit['rms_ns']:.3f} ns; the residuals exceed "
+                     "the pick uncertainties (see fit in summary.json)")
+    clipping = summary.get("clipping") or {}
+    if clipping.get("warning"):
+        lines.append("WARNING: " + clipping["words"].removeprefix("Warning: "))
+    return lines
+
+
+def _bent_record(run: TomographyRun) -> dict:
+    """The bent-ray part of ``summary.json``: iterations, why they stopped, the straight-ray start."""
+    record = {"iterations": max(0, len(run.history) - 1), "stop_reason": run.stop_reason}
+    start = run.start_result
+    if start is not None:
+        record["straight_ray_start"] = {
+            "rms_ns": start.rms_ns, "chi2": start.chi2, "lambda_smooth": start.lambda_smooth,
+            "lambda_note": start.lambda_note, "clipping": clipping_record(start),
+            "note": "misfit through straight rays; the iterations start from the straight-ray model or the "
+                    "reference model, whichever explains the data better through bent rays (iteration 0)"}
+    return record
 
 
 def run_summary(run: TomographyRun) -> dict:
@@ -221,6 +321,10 @@ def run_summary(run: TomographyRun) -> dict:
             "ground_cells_with_rays": int(covered.sum()),
             "fraction_of_ground_with_rays": float(covered.mean()) if covered.size else 0.0,
         },
+        "fit": fit_record(r),
+        "clipping": clipping_record(r, "straight-ray solve" if run.rays != "bent"
+                                    else "last bent-ray step (misfit of its linearised times)"),
+        **({"bent_rays": _bent_record(run)} if run.rays == "bent" else {}),
     }
 
 

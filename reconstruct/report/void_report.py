@@ -120,6 +120,23 @@ def _quality_section(summary: dict, voids: dict) -> str:
     )
 
 
+def _fit_warning_html(summary: dict) -> str:
+    """A visible warning when the model does not explain the picks to their
+    uncertainties, or when clipping into the velocity band raised the misfit."""
+    words = []
+    fit = summary.get("fit") or {}
+    if fit.get("target_reached") is False:
+        words.append(str(fit.get("words", "")))
+    clipping = summary.get("clipping") or {}
+    if clipping.get("warning"):
+        words.append(str(clipping.get("words", "")))
+    if not words:
+        return ""
+    # framed like the cautions (the page's own style, reconstruct.report.colours)
+    return ('<div class="cautions"><h2>Warning: the fit</h2>'
+            + "".join(f"<p>{escape(w)}</p>" for w in words) + "</div>")
+
+
 def build_report_html(folder, *, summary: dict | None = None, voids: dict | None = None,
                       manifest: dict | None = None) -> str:
     """The report page for an output folder (nothing written).
@@ -138,7 +155,7 @@ def build_report_html(folder, *, summary: dict | None = None, voids: dict | None
         folder / "voids.json", f"run 'voidcube reconstruct voids {folder}' first")
     manifest = manifest if manifest is not None else read_json_object(folder / "manifest.json", hint)
     counts = voids.get("counts", {})
-    parts = [
+    parts = [_fit_warning_html(summary)] + [
         f"<p><b>Site:</b> {escape(voids.get('site', summary.get('site', '-')))}<br>"
         f"<b>Folder:</b> {escape(folder)}<br><b>Written:</b> {escape(utc_now_iso())}</p>",
         f"<h2>Summary</h2><p>{int(counts.get('resolved', 0))} void(s) (resolved bodies) and "

@@ -134,6 +134,12 @@ def test_command_ends_with_the_report_path_and_one_line_per_truth_body(reduced_r
     assert lines[-5] == f"report: {result.out / 'model' / 'report.html'}"
     assert [line.strip() for line in lines[-3:]] == [m.line() for m in result.matches]
     assert lines[-1].strip().startswith("small cavity (below resolution): ")
+    # how the inversion ended, and a warning when chi^2 = N (the discrepancy principle's
+    # target; Constable, Parker and Constable, 1987, Geophysics 52(3), 289-300) was not reached
+    summary = json.loads((result.out / "model" / "summary.json").read_text(encoding="utf-8"))
+    assert f"bent-ray iterations stopped: {summary['bent_rays']['stop_reason']}" in lines
+    assert any(line.startswith("WARNING: target misfit not reached") for line in lines) == (
+        summary["fit"]["target_reached"] is False)
 
 
 def test_missing_truth_file_exits_2_naming_it(tmp_path, capsys):

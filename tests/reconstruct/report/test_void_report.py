@@ -64,3 +64,24 @@ def test_report_needs_the_void_run_first(make_inversion_folder, capsys):
     err = capsys.readouterr().err
     assert "voids.json: file not found" in err and "run 'voidcube reconstruct voids" in err
     assert not (folder / "report.html").exists()
+
+
+def test_report_warns_after_the_cautions_when_the_target_misfit_is_not_reached(make_inversion_folder):
+    # the discrepancy principle's target chi^2 = N (Constable, Parker and Constable, 1987,
+    # Geophysics 52(3), 289-300); the figures come from the summary's fit block
+    from reconstruct.report.void_report import build_report_html
+
+    folder, _ = make_inversion_folder(name="fit check", work="road")
+    assert main(["voids", str(folder), "--quiet"]) == 0
+    summary = json.loads((folder / "summary.json").read_text(encoding="utf-8"))
+    n = 272
+    summary["fit"] = dict(n_picks=n, rms_ns=3.4, chi2=45.6 * n, chi2_per_pick=45.6, target_reached=False,
+                          words=f"Warning: the model does not explain the picks: chi^2/N 45.6 for N = {n}")
+    page = build_report_html(folder, summary=summary)
+    warning = page.index("Warning: the fit")
+    last_caution = max(page.index(c.split(";")[0].replace("'", "&#x27;")) for c in CAUTIONS)
+    assert last_caution < warning < page.index("<h2>Summary</h2>")
+    assert "chi^2/N 45.6" in page
+    summary["fit"] = dict(summary["fit"], chi2=0.9 * n, chi2_per_pick=0.9, target_reached=True)
+    summary["clipping"] = dict(summary.get("clipping", {}), warning=False)
+    assert "Warning: the fit" not in build_report_html(folder, summary=summary)

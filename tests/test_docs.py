@@ -293,5 +293,5 @@ def test_documented_command_lines_parse(page, line, capsys):
     parser, argv = _parser_for(shlex.split(line))
     try:
         parser.parse_args(argv)
-    except SystemExit as stop:
+    except SystemExit:
         raise AssertionError(f"{page}: `{line}` is refused by the parser: {capsys.readouterr().err.strip()}") from None

@@ -778,6 +778,16 @@ class _Checker:
             return None
         return v
 
+    def choice(self, value, path, allowed, *, otherwise="", show=None):
+        """``value`` if it is one of ``allowed``, else None with a message that
+        suggests the closest allowed word (or says ``otherwise``)."""
+        if value in allowed:
+            return value
+        close = difflib.get_close_matches(str(value), allowed, n=1, cutoff=0.6)
+        self.add(f"{path} {(show or _describe)(value)} is not one of {', '.join(allowed)}"
+                 + (f"; did you mean '{close[0]}'?" if close else (f"; {otherwise}" if otherwise else "")))
+        return None
+
     def text(self, value, path, *, what="text"):
         if value is _MISSING:
             return None
@@ -1202,12 +1212,8 @@ def _parse_boreholes(value, chk: _Checker) -> list[tuple[int, Borehole]]:
                          unit="degrees", fix="measure below horizontal, 90 is vertical down")
         length = chk.number(sec.get("length_m", _MISSING), f"{path}.length_m", lo=0.0,
                             lo_open=True, unit="m")
-        kind = sec.get("kind", "borehole")
-        if kind not in HOLE_KINDS:
-            close = difflib.get_close_matches(str(kind), HOLE_KINDS, n=1, cutoff=0.6)
-            chk.add(f"{path}.kind {_describe(kind)} is not one of {', '.join(HOLE_KINDS)}"
-                    + (f"; did you mean '{close[0]}'?" if close else "; leave it out for a borehole"))
-            kind = None
+        kind = chk.choice(sec.get("kind", "borehole"), f"{path}.kind", HOLE_KINDS,
+                          otherwise="leave it out for a borehole")
         if None not in (hid, collar, az, dip, length, kind):
             holes.append((i, Borehole(hid, collar, az, dip, length, kind)))
     return holes
@@ -1222,11 +1228,8 @@ def _parse_works(value, chk: _Checker) -> list[PlannedWork]:
             continue
         name = chk.text(sec.get("name", _MISSING), f"{path}.name")
         kind = chk.text(sec.get("kind", _MISSING), f"{path}.kind")
-        if kind is not None and kind not in PLANNED_WORK_KINDS:
-            close = difflib.get_close_matches(kind, PLANNED_WORK_KINDS, n=1, cutoff=0.6)
-            chk.add(f"{path}.kind {kind!r} is not one of {', '.join(PLANNED_WORK_KINDS)}"
-                    + (f"; did you mean '{close[0]}'?" if close else ""))
-            kind = None
+        if kind is not None:
+            kind = chk.choice(kind, f"{path}.kind", PLANNED_WORK_KINDS, show=repr)
         shapes = [k for k in ("polyline_m", "polygon_m") if k in sec]
         if len(shapes) != 1:
             chk.add(f"{path} needs exactly one of polyline_m, polygon_m (got "

@@ -38,10 +38,17 @@ the derivative of the time with respect to a cell's slowness is off by the
 same factor (where the traced path wanders, by up to the mismatch above). The
 scale factors are returned (:attr:`ForwardResult.length_scale`) so that a
 caller can see where the ray and the field disagree. Two alternatives were
-weighed: taking ``G_i . s`` as the forward time (rejected: it is late by the
-mismatch above, up to 21 %, and would break Fermat's principle against the
-references) and bending each ray to the field (Um and Thurber 1987), which
-would cost a perturbation loop per ray and is left for later.
+weighed: taking ``G_i . s`` of the traced ray as the forward time (rejected:
+it is late by the mismatch above, up to 21 %, and would break Fermat's
+principle against the references) and bending each ray to a path of locally
+least time through the cells (Um and Thurber 1987;
+:mod:`reconstruct.forward.bending`), whose time and row agree by construction.
+Bending is available (``bent_ray_forward(bend=True)``) but not the default:
+it costs about 6 ms per ray on the 200-node benchmark model (2 cores shared;
+about 2 minutes more per iteration for 19,900 pairs, against a 60 s target),
+and next to a sphere of 2.5 m radius at 1 m cells it does not bring the times
+within 1 ns of the exact ones, because the voxel model itself is that far
+from the sphere (benchmarks/bench_sharp_bodies.py holds the table).
 
 References
 ----------

@@ -21,6 +21,17 @@ Jacobian agree by construction; by Fermat's principle it is never earlier
 than the least time through the same cells (any polyline is a path), and
 the search stops in the local minimum nearest the traced ray.
 
+Measured: a ray refracted across a plane interface on a cell face comes
+within 0.02 % of Snell's time; a head wave along a faster half-space stays
+0.25 % late (moves across the ray slide the critical-angle legs along it only
+slowly), where the field itself is 0.01 % off. Next to a sphere of 2.5 m
+radius at 1 m cells (benchmarks/bench_sharp_bodies.py) bending makes the time
+that of a real path through the voxel model, which the field's is not
+(-0.5 to +2.4 ns off it next to the air-filled sphere), but the voxel model
+itself is up to 2.3 ns early (air-filled) and 5.2 ns late (water-filled)
+against the true sphere. Cost: 2-5 ms per ray of 12-24 m, about 6 ms per ray
+on the 200-node benchmark model (2 cores shared with other work).
+
 References
 ----------
 Um, J. and Thurber, C. (1987), A fast algorithm for two-point seismic ray

@@ -4,12 +4,13 @@
 - Two layers with the interface on a cell face, end points in different
   layers: the refracted ray's time is the least over the crossing point of
   sqrt(x^2 + h1^2) / v1 + sqrt((L - x)^2 + h2^2) / v2 (Fermat's principle,
-  Snell's law; Telford, Geldart and Sheriff 1990, Applied Geophysics, 2nd ed.,
-  section 4.2), found here with scipy.optimize.minimize_scalar.
+  whose stationary point is Snell's law; any refraction text, e.g. Telford,
+  Geldart and Sheriff 1990, Applied Geophysics, 2nd ed., from memory), found
+  here with scipy.optimize.minimize_scalar.
 - Both end points above a faster half-space, far apart: the head wave,
-  t = x / v2 + (h1 + h2) cos(i_c) / v1 with sin(i_c) = v1 / v2 (Telford,
-  Geldart and Sheriff 1990, section 4.3, refraction travel times). Bending
-  starts from the ray traced through the eikonal field.
+  t = x / v2 + (h1 + h2) cos(i_c) / v1 with sin(i_c) = v1 / v2 (the
+  head-wave formula, tests/REFERENCES.md; Telford, Geldart and Sheriff 1990,
+  from memory). Bending starts from the ray traced through the eikonal field.
 - Every bent path's time equals its exact per-cell lengths (Siddon 1985,
   polyline_matrix) times the slowness, and bent_ray_forward(bend=True) returns
   an operator whose rows reproduce its times.
@@ -55,7 +56,7 @@ def test_refracted_ray_across_an_interface_obeys_snell():
     snell = minimize_scalar(lambda x: np.hypot(x, h1) / SLOW_V + np.hypot(length - x, h2) / FAST_V,
                             bounds=(0.0, length), method="bounded", options={"xatol": 1e-10}).fun
     bent, time_ns = bend_rays(grid, s, [np.vstack([a, b])])
-    assert time_ns[0] == pytest.approx(snell, rel=2e-4)
+    assert time_ns[0] == pytest.approx(snell, rel=3e-4)  # measured 1.6e-4
     assert time_ns[0] >= snell * (1 - 1e-9)  # a path is never faster than the least time
     along = polyline_matrix(grid, bent) @ s.ravel()
     assert along[0] == pytest.approx(time_ns[0], rel=1e-12)
@@ -72,7 +73,7 @@ def test_head_wave_along_a_faster_half_space():
     field = travel_time_field(grid, s, a, receivers_xyz_m=b[None])
     traced, _ = trace_rays(field, b[None])
     _, time_ns = bend_rays(grid, s, traced, reference_ns=field.interpolate(b[None]))
-    assert time_ns[0] == pytest.approx(head, rel=5e-3)
+    assert time_ns[0] == pytest.approx(head, rel=5e-3)  # measured 2.5e-3 late (see bending.py)
     assert time_ns[0] >= head * (1 - 1e-9)
 
 

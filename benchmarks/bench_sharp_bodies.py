@@ -52,7 +52,7 @@ bent     1.0    slowness   -0.63 [-2.27, +0.32]   +0.76 [+0.00, +5.24]   + 2-5 m
 bent     1.0    velocity   -2.49 [-3.99, -0.47]   +0.75 [-0.15, +3.75]   + 2-5 ms/ray
 bent     1.0    centre     -4.27 [-6.29, -1.57]   +0.02 [-2.11, +2.33]   + 2-5 ms/ray
 bent     1.0    slowness2  +0.68 [-0.39, +2.59]   +0.32 [-0.97, +2.93]   + 4 ms/ray
-skfmm    0.25*  slowness   +0.08 [-0.81, +0.89]   +1.23 [+0.00, +5.16]   6.2 s/pair
+skfmm    0.25*  slowness   +0.11 [-0.98, +0.93]   +1.23 [+0.00, +5.31]   6-15 s/pair
 field    0.5    slowness   -0.50 [-1.26, +0.62]   +0.65 [+0.00, +3.93]   0.43 s/field
 bent     0.5    slowness   -0.58 [-1.29, +0.15]   +0.27 [+0.00, +3.48]   1.06 s/field
 =======  =====  =========  =====================  =====================  ==============
@@ -77,8 +77,8 @@ field is -0.53 to +2.43 ns (median +0.66) and -1.86 to +0.85 ns (median
 +0.03) off the voxel model: the solver's own share is the smaller one next to
 the water-filled sphere, and comparable next to the air-filled one, where the
 two partly cancel in the median (+0.19). scikit-fmm on the 0.25 m lattice is
-no sharper reference: it is later than the bent rays by up to 1.55 ns (air)
-and 1.3 ns (water).
+no sharper reference: in a trial run it was later than the bent rays by up
+to 1.5 ns (air) and 1.3 ns (water).
 
 So at 1 m cells no forward design that converges to the voxel model's own
 first arrival can meet the target against the sphere: finer travel-time

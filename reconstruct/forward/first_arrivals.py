@@ -38,10 +38,17 @@ the derivative of the time with respect to a cell's slowness is off by the
 same factor (where the traced path wanders, by up to the mismatch above). The
 scale factors are returned (:attr:`ForwardResult.length_scale`) so that a
 caller can see where the ray and the field disagree. Two alternatives were
-weighed: taking ``G_i . s`` as the forward time (rejected: it is late by the
-mismatch above, up to 21 %, and would break Fermat's principle against the
-references) and bending each ray to the field (Um and Thurber 1987), which
-would cost a perturbation loop per ray and is left for later.
+weighed: taking ``G_i . s`` of the traced ray as the forward time (rejected:
+it is late by the mismatch above, up to 21 %, and would break Fermat's
+principle against the references) and bending each ray to a path of locally
+least time through the cells (Um and Thurber 1987;
+:mod:`reconstruct.forward.bending`), whose time and row agree by construction.
+Bending is available (``bent_ray_forward(bend=True)``) but not the default:
+it costs about 6 ms per ray on the 200-node benchmark model (2 cores shared;
+about 2 minutes more per iteration for 19,900 pairs, against a 60 s target),
+and next to a sphere of 2.5 m radius at 1 m cells it does not bring the times
+within 1 ns of the exact ones, because the voxel model itself is that far
+from the sphere (benchmarks/bench_sharp_bodies.py holds the table).
 
 References
 ----------
@@ -56,9 +63,13 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
+from reconstruct.forward.bending import bend_rays
 from reconstruct.forward.ray_tracing import polyline_matrix, trace_rays
 from reconstruct.model.grid import Grid
 from reconstruct.parallel import Executor, map_tasks
+
+#: A bent ray is used when its time is at most this fraction later than the field's.
+_BEND_ACCEPT = 0.01
 
 __all__ = ["ForwardResult", "choose_sources", "bent_ray_forward", "consistent_rows", "first_arrival_times",
            "unique_pairs"]
@@ -174,6 +185,8 @@ def _forward_task(task, shared):
     times = field.interpolate(receivers)
     polylines, reached = trace_rays(field, receivers)
     matrix = polyline_matrix(grid, polylines, slowness_ns_per_m=shared["slowness"])
+    if shared.get("bend"):
+        polylines, times, matrix = _bent_rows(grid, shared["slowness"], polylines, times, matrix)
     matrix, scale = consistent_rows(matrix, shared["slowness"], times)
     return {
         "pair_index": pair_index,
@@ -185,6 +198,21 @@ def _forward_task(task, shared):
         "scale": scale,
         "polylines": polylines if shared["keep_rays"] else None,
     }
+
+
+def _bent_rows(grid, slowness, polylines, times, matrix):
+    """Bend the traced rays (:func:`reconstruct.forward.bending.bend_rays`) and
+    take a bent ray, its time and its exact per-cell lengths wherever it is no
+    later than the field's time by more than ``_BEND_ACCEPT``; elsewhere (the
+    bending stuck in a later local minimum) keep the traced ray and the field's time."""
+    bent, bent_ns = bend_rays(grid, slowness, polylines, reference_ns=times, retry_above=_BEND_ACCEPT)
+    use = bent_ns <= times * (1.0 + _BEND_ACCEPT)
+    bent_matrix = polyline_matrix(grid, bent)
+    matrix = sp.diags(use.astype(float)) @ bent_matrix + sp.diags((~use).astype(float)) @ matrix
+    matrix = sp.csr_matrix(matrix)
+    matrix.eliminate_zeros()
+    polylines = [b if u else p for b, p, u in zip(bent, polylines, use)]
+    return polylines, np.where(use, bent_ns, times), matrix
 
 
 def _times_task(task, shared):
@@ -205,7 +233,8 @@ def first_arrival_times(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *,
 
 
 def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, executor: Executor,
-                     eikonal_options=None, keep_rays: bool = False, progress=None) -> ForwardResult:
+                     eikonal_options=None, keep_rays: bool = False, bend: bool = False,
+                     progress=None) -> ForwardResult:
     """First-arrival times and bent rays of node pairs through a model.
 
     Parameters
@@ -216,6 +245,14 @@ def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, ex
     pair_a, pair_b : ndarray of int, shape (n_pairs,)
         The two nodes of each pair (order does not matter: reciprocity).
     executor : Executor
+    bend : bool
+        Bend every traced ray to a path of locally least time through the
+        cells (:mod:`reconstruct.forward.bending`) and use the bent ray's time
+        and exact per-cell lengths where it is at most 1 % later than the
+        field's time (else the traced ray, scaled). Off by default: see the
+        measurements in benchmarks/bench_sharp_bodies.py (it costs several
+        milliseconds per ray and does not bring the times next to a sphere
+        within the targets at 1 m cells, where the voxel model itself differs).
 
     Returns
     -------
@@ -227,7 +264,7 @@ def bent_ray_forward(grid: Grid, slowness_ns_per_m, xyz_m, pair_a, pair_b, *, ex
         the source (the straight segment is used, scaled the same way; count
         them with ``(~reached).sum()``).
     """
-    shared = _shared_inputs(grid, slowness_ns_per_m, xyz_m, eikonal_options, keep_rays=keep_rays)
+    shared = _shared_inputs(grid, slowness_ns_per_m, xyz_m, eikonal_options, keep_rays=keep_rays, bend=bend)
     tasks = choose_sources(pair_a, pair_b, shared["xyz"].shape[0], shared["xyz"])
     results = map_tasks(executor, _forward_task, tasks, shared=shared, progress=progress)
     n_pairs = np.asarray(pair_a).size

@@ -1,0 +1,537 @@
+"""Issue 14, first target: one air-filled sphere under flat ground with air above, processed as a user would.
+
+The case
+--------
+Rock of 0.115 m/ns under flat ground at z = 30 m, air above (c, 0.2998 m/ns);
+an air-filled sphere of radius 2.5 m, centre (20.3, 19.6, 23.4) m (its top
+4.1 m below the ground, off the cell lattice). 80 nodes: four vertical
+boreholes 8 m from the sphere's axis with 11 nodes each (2 to 17 m deep) and
+36 surface nodes on a 7 m grid. Every node transmits and every other listens
+(6,320 picks, both directions), 0.5 ns Gaussian pick noise (seed 14),
+``sigma_ns`` 0.5 in the pick table.
+
+Independent pick times
+----------------------
+Never voidcube's own forward model. The first arrival of each pair is the
+least of (Fermat's principle; every candidate is the time of a real path, so
+the least is exact to the optimiser's tolerance once the fastest family is
+among them):
+
+1. through the ground past the sphere: the exact sphere reference
+   (tests/references/sphere.py: straight segment, refracted through the
+   sphere minimised over entry and exit points);
+2. the refracted air wave along the ground surface, or the direct air wave
+   between surface nodes (tests/references/air_halfspace.py; Telford,
+   Geldart and Sheriff 1990, Applied Geophysics, 2nd ed., refraction section,
+   from memory);
+3. through the sphere on one node's side, then up to the surface and along
+   it as a refracted air wave to the other node: the same minimisation over
+   entry and exit points with the head-wave time from the exit point.
+
+The geometry is chosen so that no head-wave leg of family 2 crosses the
+sphere (asserted). Families 1 and 3 are minimised only where a lower bound
+(rock slowness outside, nothing inside; the head-wave formula is a lower
+bound of any path through the surface by the Cauchy-Schwarz inequality) says
+they could win. The times are cached in /tmp (``--cache``); the first run
+takes a few minutes on one core. scikit-fmm (a general-purpose fast-marching
+library) on 0.25 m cells checks them for a few borehole sources
+(``--fmm-sources``).
+
+Processing
+----------
+voidcube's default processing, in-process (:func:`reconstruct.pipeline.process_survey`):
+site, nodes and picks written to a temporary folder and read back as a user's
+files would be; 1 m cells, bent rays, default settings. Printed: chi^2/N per
+bent-ray iteration (the start first), the stop reason, time per stage, the
+body nearest the sphere against the truth and the targets of issue 14
+(chi^2/N <= 1.5, centroid within 1 m, volume within 25 %, roof within 0.5 m,
+misfit falling at every iteration), and the final residuals by kind of pair.
+
+Options pass settings through without code changes: ``--iterations N``
+(``--bent-iterations``), ``--cell M``, ``--inversion key=value`` (fields of
+InversionOptions, dataclasses.replace), ``--setting key=value``
+(ProcessingSettings), ``--voids key=value`` (VoidOptions); values are read as
+YAML scalars (``smoothing=0.3``, ``time_zero=none``).
+
+Measured (this machine, 2 cores shared with two other runs; default settings)
+------------------------------------------------------------------------------
+See the closing lines of this docstring, filled from the run.
+
+Run: ``python3 benchmarks/bench_sphere_case.py`` (``--workers 2`` for the
+process pool; ``--truth-forward`` also times voidcube's forward model through
+the true model against the reference).
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import hashlib
+import json
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import yaml
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
+
+from scipy.optimize import minimize  # noqa: E402
+
+from tests.references.air_halfspace import head_wave_time_ns  # noqa: E402
+from tests.references.sphere import _angles_of, _on_sphere, first_arrival_ns, polyline_time_ns  # noqa: E402
+
+V_ROCK = 0.115  # m/ns, limestone (Davis and Annan 1989)
+V_AIR = 0.299792458  # m/ns, c (SI definition): the air above and the sphere's fill
+S_ROCK, S_AIR = 1 / V_ROCK, 1 / V_AIR
+K_VERTICAL = np.sqrt(S_ROCK**2 - S_AIR**2)  # ns/m: head-wave time per metre of depth
+TAN_CRITICAL = (S_AIR / S_ROCK) / np.sqrt(1 - (S_AIR / S_ROCK) ** 2)
+GROUND_M = 30.0
+CENTRE = np.array([20.3, 19.6, 23.4])
+RADIUS = 2.5
+ROOF_DEPTH_M = GROUND_M - (CENTRE[2] + RADIUS)  # 4.1 m of rock over the sphere
+VOLUME_M3 = 4.0 / 3.0 * np.pi * RADIUS**3
+BOX_ORIGIN, BOX_SIZE = (0.0, 0.0, 8.0), (40.0, 40.0, 26.0)
+NOISE_NS, SEED = 0.5, 14
+TARGETS = {"chi2_per_pick": 1.5, "centroid_m": 1.0, "volume_fraction": 0.25, "roof_m": 0.5}
+NEAR_M = 6.0  # a pair passes "near the sphere" when its straight line passes within this of the centre
+
+
+# ---------------------------------------------------------------- the survey
+
+
+def layout():
+    """Node ids, positions (m), kinds and holes: 4 boreholes of 11 nodes, 36 surface nodes."""
+    ids, xyz, kinds, holes = [], [], [], []
+    for k, (dx, dy) in enumerate(((-8, 0), (8, 0), (0, -8), (0, 8)), start=1):
+        for depth in np.arange(2.0, 17.1, 1.5):
+            ids.append(f"H{k}-{depth:04.1f}")
+            xyz.append((CENTRE[0] + dx, CENTRE[1] + dy, GROUND_M - depth))
+            kinds.append("borehole")
+            holes.append(f"H{k}")
+    for x in np.arange(3.0, 39.0, 7.0):
+        for y in np.arange(3.0, 39.0, 7.0):
+            ids.append(f"S{x:02.0f}-{y:02.0f}")
+            xyz.append((x, y, GROUND_M))
+            kinds.append("surface")
+            holes.append("")
+    return ids, np.array(xyz), kinds, holes
+
+
+def site_yaml(cell_m: float) -> str:
+    """The site description of the case (flat ground, the four holes)."""
+    holes = "\n".join(
+        f"  - {{id: H{k}, collar_m: [{CENTRE[0] + dx:.1f}, {CENTRE[1] + dy:.1f}, {GROUND_M}], azimuth_deg: 0, "
+        "dip_deg: 90, length_m: 18}" for k, (dx, dy) in enumerate(((-8, 0), (8, 0), (0, -8), (0, 8)), start=1))
+    return ("name: air-filled sphere under flat ground (benchmark, invented)\n"
+            f"model: {{origin_m: {list(BOX_ORIGIN)}, size_m: {list(BOX_SIZE)}, cell_m: {cell_m}}}\n"
+            f"ground: {{flat_elevation_m: {GROUND_M}}}\n"
+            f"rock: {{velocity_m_per_ns: {V_ROCK}, conductivity_ms_per_m: 1.0, antenna_frequency_mhz: 100}}\n"
+            f"boreholes:\n{holes}\n")
+
+
+# ---------------------------------------------------------------- independent first arrivals
+
+
+def _head_leg_misses_sphere(a, b) -> bool:
+    """True when the critical-angle leg from ``a`` up to the surface, towards ``b``, misses the sphere."""
+    depth = GROUND_M - a[2]
+    if depth <= 0:
+        return True
+    towards = b[:2] - a[:2]
+    towards = towards / np.linalg.norm(towards)
+    top = np.array([*(a[:2] + towards * depth * TAN_CRITICAL), GROUND_M])
+    d = top - a
+    t = np.clip((CENTRE - a) @ d / (d @ d), 0.0, 1.0)
+    return np.linalg.norm(a + t * d - CENTRE) > RADIUS
+
+
+def _sphere_then_head_ns(a, b, starts=8, seed=0):
+    """Least time over A -> P -> Q (P, Q on the sphere) -> up to the surface -> air -> B (family 3)."""
+    depth_b = GROUND_M - b[2]
+
+    def from_exit(q):
+        x = np.linalg.norm(b[:2] - q[:2])
+        head = float(head_wave_time_ns(x, GROUND_M - q[2], depth_b, S_ROCK, S_AIR))
+        return head if np.isfinite(head) else np.linalg.norm(b - q) * S_ROCK
+
+    def cost(v):
+        p, q = _on_sphere(v[:2], CENTRE, RADIUS), _on_sphere(v[2:], CENTRE, RADIUS)
+        return polyline_time_ns([a, p, q], CENTRE, RADIUS, V_AIR, V_ROCK) + from_exit(q)
+
+    towards_b = np.array([*(0.5 * (b[:2] - CENTRE[:2]) / max(np.linalg.norm(b[:2] - CENTRE[:2]), 1e-9)), 1.0])
+    guesses = [np.concatenate([_angles_of(a, CENTRE), _angles_of(CENTRE + towards_b, CENTRE)]),
+               np.concatenate([_angles_of(a, CENTRE), [0.05, 0.0]]),
+               np.concatenate([_angles_of(a, CENTRE), _angles_of(b, CENTRE)])]
+    rng = np.random.default_rng(seed)
+    while len(guesses) < starts:
+        guesses.append(np.concatenate([[np.arccos(rng.uniform(-1, 1)), rng.uniform(-np.pi, np.pi)],
+                                       [np.arccos(rng.uniform(0, 1)), rng.uniform(-np.pi, np.pi)]]))
+    return min(minimize(cost, g, method="Nelder-Mead",
+                        options={"xatol": 1e-9, "fatol": 1e-11, "maxiter": 20000, "maxfev": 40000}).fun
+               for g in guesses)
+
+
+def independent_time_ns(a, b):
+    """Exact first arrival between nodes ``a`` and ``b`` (see the module notes); returns (time, family)."""
+    x = float(np.linalg.norm(b[:2] - a[:2]))
+    depth_a, depth_b = GROUND_M - a[2], GROUND_M - b[2]
+    straight = polyline_time_ns([a, b], CENTRE, RADIUS, V_AIR, V_ROCK)
+    head = float(head_wave_time_ns(x, depth_a, depth_b, S_ROCK, S_AIR))
+    if np.isfinite(head):
+        assert _head_leg_misses_sphere(a, b) and _head_leg_misses_sphere(b, a), (a, b)
+    best, family = min((straight, "straight"), (head, "air wave"))
+    ra, rb = np.linalg.norm(a - CENTRE), np.linalg.norm(b - CENTRE)
+    if S_ROCK * (ra + rb - 2 * RADIUS) < best:  # a path through the sphere could be faster
+        t = first_arrival_ns(a, b, CENTRE, RADIUS, V_AIR, V_ROCK, starts=8)
+        if t < best - 1e-9:
+            best, family = t, "through sphere"
+    top_depth = GROUND_M - CENTRE[2] - RADIUS
+    for p, q, rp in ((a, b, ra), (b, a, rb)):  # family 3, sphere on either side
+        x_cq = max(np.linalg.norm(q[:2] - CENTRE[:2]) - RADIUS, 0.0)
+        bound = S_ROCK * (rp - RADIUS) + S_AIR * x_cq + K_VERTICAL * (top_depth + GROUND_M - q[2])
+        if bound < best:
+            t = _sphere_then_head_ns(p, q)
+            if t < best - 1e-9:
+                best, family = t, "sphere + air wave"
+    return best, family
+
+
+def independent_times(xyz, cache: Path, progress=print):
+    """Times (ns) and families of every unordered pair ``i < j``, cached on disk by the geometry."""
+    key = hashlib.sha256(np.ascontiguousarray(xyz).tobytes()
+                         + repr((V_ROCK, V_AIR, GROUND_M, CENTRE.tolist(), RADIUS, 2)).encode()).hexdigest()[:16]
+    path = cache / f"bench_sphere_case_{key}.npz"
+    if path.exists():
+        stored = np.load(path)
+        progress(f"independent times read from the cache {path}")
+        return stored["i"], stored["j"], stored["time_ns"], stored["family"]
+    i, j = np.triu_indices(len(xyz), 1)
+    times, families = np.empty(i.size), np.empty(i.size, dtype=object)
+    started = time.perf_counter()
+    for k, (p, q) in enumerate(zip(i, j)):
+        times[k], families[k] = independent_time_ns(xyz[p], xyz[q])
+        if (k + 1) % 500 == 0:
+            progress(f"  independent times: {k + 1}/{i.size} pairs, {time.perf_counter() - started:.0f} s")
+    progress(f"independent times of {i.size} pairs: {time.perf_counter() - started:.0f} s")
+    cache.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_suffix(".part.npz")
+    np.savez(tmp, i=i, j=j, time_ns=times, family=families.astype(str))
+    tmp.replace(path)
+    return i, j, times, families.astype(str)
+
+
+# ---------------------------------------------------------------- check against scikit-fmm
+
+
+def fmm_check(xyz, kinds, i, j, times, families, n_sources: int, cell_m: float = 0.25, progress=print):
+    """Independent times against scikit-fmm (order 2) on ``cell_m`` cells for a few borehole sources.
+
+    The fine grid holds rock, air above the ground and the sphere (a cell is air
+    when its centre is); each source is a circle of 0.6 m in rock timed at the
+    rock velocity. Returns the differences (fmm minus reference, ns) and families.
+    """
+    import skfmm
+    from scipy.interpolate import RegularGridInterpolator
+
+    axes = [np.arange(o + cell_m / 2, o + s, cell_m) for o, s in zip(BOX_ORIGIN, BOX_SIZE)]
+    X, Y, Z = np.meshgrid(*axes, indexing="ij")
+    air = (Z > GROUND_M) | ((X - CENTRE[0]) ** 2 + (Y - CENTRE[1]) ** 2 + (Z - CENTRE[2]) ** 2 <= RADIUS**2)
+    speed = np.where(air, V_AIR, V_ROCK)
+    boreholes = [k for k, kind in enumerate(kinds) if kind == "borehole"]
+    sources = [boreholes[k] for k in np.linspace(0, len(boreholes) - 1, n_sources).round().astype(int)]
+    lookup = {(int(p), int(q)): k for k, (p, q) in enumerate(zip(i, j))}
+    diffs, fams = [], []
+    r0 = 0.6
+    for src in sources:
+        started = time.perf_counter()
+        phi = np.sqrt((X - xyz[src, 0]) ** 2 + (Y - xyz[src, 1]) ** 2 + (Z - xyz[src, 2]) ** 2) - r0
+        field = skfmm.travel_time(phi, speed, dx=cell_m, order=2) + r0 * S_ROCK
+        at = RegularGridInterpolator(axes, np.asarray(field), bounds_error=False, fill_value=None)
+        others = [k for k in range(len(xyz)) if k != src]
+        fmm = at(xyz[others])
+        for k, t in zip(others, fmm):
+            m = lookup[(min(src, k), max(src, k))]
+            diffs.append(t - times[m])
+            fams.append(families[m])
+        progress(f"  scikit-fmm field from {src}: {time.perf_counter() - started:.0f} s")
+    return np.array(diffs), np.array(fams)
+
+
+def print_fmm_check(diffs, fams):
+    print(f"independent times against scikit-fmm (0.25 m cells, order 2), fmm minus reference, ns:")
+    print(f"  {'first arrival':<20}{'pairs':>6}{'median':>9}{'median |d|':>12}{'max |d|':>9}")
+    for name in ["all", *sorted(set(fams))]:
+        d = diffs if name == "all" else diffs[fams == name]
+        print(f"  {name:<20}{d.size:>6}{np.median(d):>9.2f}{np.median(np.abs(d)):>12.2f}{np.max(np.abs(d)):>9.2f}")
+
+
+# ---------------------------------------------------------------- files a user would have
+
+
+def write_inputs(folder: Path, cell_m: float, ids, xyz, kinds, holes, i, j, times):
+    """site.yaml, nodes.csv and picks.csv (both directions, seeded noise) in ``folder``."""
+    (folder / "site.yaml").write_text(site_yaml(cell_m), encoding="utf-8")
+    rows = ["node_id,x_m,y_m,z_m,kind,borehole"]
+    rows += [f"{n},{p[0]:.3f},{p[1]:.3f},{p[2]:.3f},{k},{h}" for n, p, k, h in zip(ids, xyz, kinds, holes)]
+    (folder / "nodes.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    tx = np.concatenate([i, j])
+    rx = np.concatenate([j, i])
+    true_ns = np.concatenate([times, times])
+    picked = true_ns + np.random.default_rng(SEED).normal(0.0, NOISE_NS, true_ns.size)
+    rows = ["tx,rx,time_ns,sigma_ns"] + [f"{ids[a]},{ids[b]},{t:.3f},{NOISE_NS}" for a, b, t in zip(tx, rx, picked)]
+    (folder / "picks.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    return tx, rx, true_ns
+
+
+# ---------------------------------------------------------------- processing
+
+
+def parse_assignments(items, what):
+    """``key=value`` strings into a dict; values read as YAML scalars."""
+    values = {}
+    for item in items or ():
+        key, sep, text = item.partition("=")
+        if not sep or not key.strip():
+            raise SystemExit(f"--{what}: expected key=value (got {item!r})")
+        values[key.strip()] = yaml.safe_load(text)
+    return values
+
+
+def settings_from(args):
+    from reconstruct.interpret.bodies import VoidOptions
+    from reconstruct.inverse.options import InversionOptions
+    from reconstruct.pipeline import ProcessingSettings
+
+    def replaced(kind, values, what):
+        known = {f.name for f in dataclasses.fields(kind)}
+        unknown = sorted(set(values) - known)
+        if unknown:
+            raise SystemExit(f"--{what}: unknown field(s) {', '.join(unknown)} of {kind.__name__}; "
+                             f"known: {', '.join(sorted(known))}")
+        return dataclasses.replace(kind(), **values)
+
+    inversion = replaced(InversionOptions, parse_assignments(args.inversion, "inversion"), "inversion")
+    voids = replaced(VoidOptions, parse_assignments(args.voids, "voids"), "voids")
+    extra = parse_assignments(args.setting, "setting")
+    extra.setdefault("bent_iterations", args.iterations)
+    extra.update(inversion=inversion, voids=voids)
+    return replaced(ProcessingSettings, extra, "setting")
+
+
+class Clock:
+    """Progress messages with the time since the start; the times of the stage boundaries."""
+
+    def __init__(self, verbose: bool):
+        self.started = time.perf_counter()
+        self.verbose = verbose
+        self.marks = []  # (seconds, message)
+
+    def __call__(self, message: str):
+        now = time.perf_counter() - self.started
+        self.marks.append((now, message))
+        if self.verbose or not message.startswith("solver:"):
+            print(f"  [{now:7.1f} s] {message}", flush=True)
+
+    def stages(self, total: float):
+        """(stage name, seconds): pick checks and straight-ray start, each bent-ray iteration, bodies."""
+        import re
+
+        bounds = [("reading, pick checks and the straight-ray solve", None)]
+        for seconds, message in self.marks:
+            if message.startswith("straight-ray model:"):
+                bounds[-1] = (bounds[-1][0], seconds)
+                bounds.append(("bent-ray start (two forward runs)", None))
+            elif message.startswith("bent-ray iteration 0,"):
+                bounds[-1] = (bounds[-1][0], seconds)
+            elif re.match(r"bent-ray iteration \d+ of \d+:|bent-ray iteration \d+: no step", message):
+                bounds.append((message.split(":")[0].split(" of ")[0], seconds))
+            elif message.startswith("bent-ray iterations stopped") and "no step" in message:
+                bounds.append(("the last trial step, refused", seconds))
+        bounds.append(("bodies and screening", total))
+        out, previous = [], 0.0
+        for name, seconds in bounds:
+            if seconds is None:
+                continue
+            out.append((name, seconds - previous))
+            previous = seconds
+        return out
+
+
+# ---------------------------------------------------------------- figures
+
+
+def nearest_body(analysis):
+    """The body whose centroid lies nearest the sphere's centre, or None."""
+    bodies = list(analysis.bodies) if analysis is not None else []
+    if not bodies:
+        return None
+    return min(bodies, key=lambda b: np.linalg.norm(np.asarray(b.centroid_m) - CENTRE))
+
+
+def pair_classes(xyz, kinds, tx, rx):
+    """Kind of pair (surface-surface, surface-borehole, borehole-borehole) and whether the line passes near."""
+    kinds = np.asarray(kinds)
+    surface = kinds == "surface"
+    n_surface = surface[tx].astype(int) + surface[rx].astype(int)
+    kind = np.array(["borehole-borehole", "surface-borehole", "surface-surface"])[n_surface]
+    a, b = xyz[tx], xyz[rx]
+    d = b - a
+    t = np.clip(np.einsum("ij,ij->i", CENTRE - a, d) / np.einsum("ij,ij->i", d, d), 0.0, 1.0)
+    near = np.linalg.norm(a + t[:, None] * d - CENTRE, axis=1) <= NEAR_M
+    return kind, near
+
+
+def print_residuals(label, residual, kind, near, family, sigma=NOISE_NS):
+    print(f"{label} (residual = pick minus predicted, ns):")
+    print(f"  {'pairs':<38}{'picks':>6}{'RMS':>7}{'chi2/N':>8}{'mean':>7}{'p95 |r|':>9}")
+    groups = [("all", np.ones(residual.size, bool))]
+    groups += [(f"{k}, {'near' if n else 'away from'} the sphere", (kind == k) & (near == n))
+               for k in ("surface-surface", "surface-borehole", "borehole-borehole") for n in (True, False)]
+    groups += [(f"first arrival: {f}", family == f) for f in sorted(set(family))]
+    for name, sel in groups:
+        if not sel.any():
+            continue
+        r = residual[sel]
+        print(f"  {name:<38}{r.size:>6}{np.sqrt(np.mean(r**2)):>7.2f}{np.mean((r / sigma) ** 2):>8.2f}"
+              f"{np.mean(r):>7.2f}{np.percentile(np.abs(r), 95):>9.2f}")
+
+
+def verdict(ok):
+    return "pass" if ok else "FAIL"
+
+
+def print_figures(result, clock_stages, n_picks_written):
+    run = result.run
+    n = run.problem.n_picks
+    print(f"\npicks written {n_picks_written}, inverted {n}; flags: {result.check_summary['flag_counts']}")
+    print("chi^2/N per bent-ray iteration (iteration 0 is the start through bent rays):")
+    start = run.start_result
+    if start is not None and start.chi2 is not None:
+        print(f"  straight-ray solve: chi^2/N {start.chi2 / n:.3f} through straight rays, RMS {start.rms_ns:.3f} ns")
+    chi = []
+    for entry in run.history:
+        value = entry["chi2"] / n if entry.get("chi2") is not None else float("nan")
+        chi.append(value)
+        extra = (f", weight {entry['lambda_smooth']:.3g}, step {entry['step']:g}"
+                 if entry.get("lambda_smooth") is not None else f" ({entry['rays']})")
+        print(f"  iteration {entry['iteration']}: chi^2/N {value:.3f}, RMS {entry['rms_ns']:.3f} ns{extra}")
+    print(f"stop reason: {run.stop_reason}")
+    print("time per stage:")
+    for name, seconds in clock_stages:
+        print(f"  {name:<55}{seconds:8.1f} s")
+    body = nearest_body(result.analysis)
+    final_chi = run.result.chi2 / n
+    falls = all(b < a for a, b in zip(chi, chi[1:])) and "no step" not in run.stop_reason
+    rows = [("final chi^2/N", f"{final_chi:.3f}", f"<= {TARGETS['chi2_per_pick']}",
+             final_chi <= TARGETS["chi2_per_pick"]),
+            ("misfit falls at every iteration", str(falls), "True", falls)]
+    bodies = list(result.analysis.bodies) if result.analysis is not None else []
+    print(f"\nbodies found: {len(bodies)}")
+    for b in bodies:
+        print(f"  body {b.body_id}: {b.status}, {b.fill}, {b.volume_m3:.1f} m^3, centroid "
+              f"({b.centroid_m[0]:.1f}, {b.centroid_m[1]:.1f}, {b.centroid_m[2]:.1f}) m, roof {b.roof_thickness_m:.1f} m, "
+              f"span {b.span_m:.1f} m, peak velocity {b.extreme_velocity_m_per_ns:.3f} m/ns")
+    if body is None:
+        rows += [("body near the sphere", "none", "found", False)]
+    else:
+        offset = float(np.linalg.norm(np.asarray(body.centroid_m) - CENTRE))
+        volume = body.volume_m3 / VOLUME_M3 - 1.0
+        roof = body.roof_thickness_m - ROOF_DEPTH_M
+        print(f"body nearest the sphere: {body.body_id} ({body.status}, {body.fill}); truth: centre "
+              f"({CENTRE[0]}, {CENTRE[1]}, {CENTRE[2]}) m, {VOLUME_M3:.1f} m^3, roof {ROOF_DEPTH_M:.1f} m, "
+              f"span {2 * RADIUS:.1f} m")
+        rows += [("centroid offset (m)", f"{offset:.2f}", f"<= {TARGETS['centroid_m']}", offset <= TARGETS["centroid_m"]),
+                 ("volume found vs truth", f"{body.volume_m3:.1f} vs {VOLUME_M3:.1f} m^3 ({volume:+.0%})",
+                  f"within {TARGETS['volume_fraction']:.0%}", abs(volume) <= TARGETS["volume_fraction"]),
+                 ("roof depth error (m; + is too deep)", f"{roof:+.2f}", f"within {TARGETS['roof_m']}",
+                  abs(roof) <= TARGETS["roof_m"])]
+    print(f"\n{'target (issue 14)':<38}{'measured':<32}{'target':<14}verdict")
+    for name, measured, target, ok in rows:
+        print(f"{name:<38}{measured:<32}{target:<14}{verdict(ok)}")
+
+
+def truth_forward(run, kinds, tx, rx, true_ns, executor):
+    """voidcube's bent-ray forward through the true model (sphere by cell centres) against the reference."""
+    from reconstruct.forward.first_arrivals import bent_ray_forward, unique_pairs
+
+    grid = run.grid
+    centres = grid.cell_centres_m()
+    inside = np.sum((centres - CENTRE) ** 2, axis=-1) <= RADIUS**2
+    slowness = np.where(run.ground & ~inside, S_ROCK, S_AIR)
+    xyz = run.placement.xyz_m
+    a, b, which = unique_pairs(tx, rx)
+    started = time.perf_counter()
+    fwd = bent_ray_forward(grid, slowness, xyz, a, b, executor=executor)
+    kind, near = pair_classes(xyz, kinds, tx, rx)
+    print(f"\nvoidcube's forward through the true model ({time.perf_counter() - started:.0f} s):")
+    return fwd.time_ns[which] - true_ns, kind, near
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--iterations", "--bent-iterations", dest="iterations", type=int, default=None,
+                        help="bent-ray iterations (default: the processing default)")
+    parser.add_argument("--cell", type=float, default=1.0, help="model cell size, m (default 1)")
+    parser.add_argument("--inversion", action="append", metavar="KEY=VALUE",
+                        help="set a field of InversionOptions (repeatable)")
+    parser.add_argument("--setting", action="append", metavar="KEY=VALUE",
+                        help="set a field of ProcessingSettings (repeatable)")
+    parser.add_argument("--voids", action="append", metavar="KEY=VALUE", help="set a field of VoidOptions")
+    parser.add_argument("--workers", type=int, default=1, help="1: serial; more: a process pool")
+    parser.add_argument("--fmm-sources", type=int, default=8, help="borehole sources of the scikit-fmm check (0: none)")
+    parser.add_argument("--truth-forward", action="store_true",
+                        help="also compare voidcube's forward through the true model with the reference")
+    parser.add_argument("--cache", type=Path, default=Path(tempfile.gettempdir()) / "voidcube_bench_sphere",
+                        help="folder of the cached independent times")
+    parser.add_argument("--verbose", action="store_true", help="show the solver's messages too")
+    args = parser.parse_args(argv)
+
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes, read_picks
+    from reconstruct.parallel import Executor
+    from reconstruct.pipeline import DEFAULT_BENT_ITERATIONS, process_survey
+
+    if args.iterations is None:
+        args.iterations = DEFAULT_BENT_ITERATIONS
+    settings = settings_from(args)
+    ids, xyz, kinds, holes = layout()
+    print(f"sphere: radius {RADIUS} m, centre {CENTRE.tolist()} m, roof {ROOF_DEPTH_M:.1f} m below the ground, "
+          f"{VOLUME_M3:.1f} m^3; rock {V_ROCK} m/ns, air {V_AIR:.4f} m/ns; {len(ids)} nodes")
+    i, j, times, families = independent_times(xyz, args.cache)
+    counts = {f: int(np.sum(families == f)) for f in sorted(set(families))}
+    print(f"first arrivals of the {i.size} pairs: {counts}")
+    if args.fmm_sources > 0:
+        print_fmm_check(*fmm_check(xyz, kinds, i, j, times, families, args.fmm_sources))
+
+    executor = Executor(kind="serial") if args.workers <= 1 else Executor(kind="processes", workers=args.workers)
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        tx, rx, true_ns = write_inputs(folder, args.cell, ids, xyz, kinds, holes, i, j, times)
+        site = load_site(folder / "site.yaml")
+        nodes = read_nodes(folder / "nodes.csv")
+        picks = read_picks(folder / "picks.csv", nodes)
+        print(f"processing: cells {args.cell} m, settings {json.dumps(parse_assignments(args.setting, 'setting'))}, "
+              f"inversion {json.dumps(parse_assignments(args.inversion, 'inversion'))}, "
+              f"{settings.bent_iterations} bent-ray iterations, {settings.rays} rays")
+        clock = Clock(args.verbose)
+        result = process_survey(site, nodes, picks, settings, executor=executor, progress=clock)
+        total = time.perf_counter() - clock.started
+    print_figures(result, clock.stages(total), len(tx))
+    print(f"total processing time {total:.0f} s")
+    run = result.run
+    used = np.asarray(run.picks.lines)[np.asarray(run.used)] - 2  # rows of picks.csv (header on line 1)
+    family = np.concatenate([families, families])[used]
+    kind, near = pair_classes(xyz, kinds, tx[used], rx[used])
+    print()
+    print_residuals("final residuals by kind of pair", run.result.residual_ns, kind, near, family)
+    if args.truth_forward:
+        error, kind_t, near_t = truth_forward(run, kinds, tx[used], rx[used], true_ns[used], executor)
+        print_residuals("reference minus voidcube's forward time through the true model (+: the forward is early)",
+                        -error, kind_t, near_t, family)
+
+
+if __name__ == "__main__":
+    main()

@@ -53,9 +53,51 @@ InversionOptions, dataclasses.replace), ``--setting key=value``
 (ProcessingSettings), ``--voids key=value`` (VoidOptions); values are read as
 YAML scalars (``smoothing=0.3``, ``time_zero=none``).
 
-Measured (this machine, 2 cores shared with two other runs; default settings)
-------------------------------------------------------------------------------
-See the closing lines of this docstring, filled from the run.
+Measured (2026-12-04, main at dbf5585, 2 cores shared with other runs; default settings, serial)
+--------------------------------------------------------------------------------------------------
+Independent times: 3,160 pairs in 579 s on one (shared) core, then cached.
+First arrivals: 1,803 air waves, 780 straight through rock, 178 through the
+sphere, 399 through the sphere and then along the surface (family 3).
+Against scikit-fmm, 8 borehole sources, 632 pairs (fmm minus reference, ns):
+
+=====================  =====  ======  ==========  =======
+first arrival          pairs  median  median |d|  max |d|
+=====================  =====  ======  ==========  =======
+all                    632    +0.18   0.31        1.29
+air wave               224    +1.01   1.01        1.29
+sphere + air wave      71     +0.34   0.36        1.04
+straight               274    +0.08   0.13        0.58
+through sphere         63     -0.33   0.38        1.12
+=====================  =====  ======  ==========  =======
+
+The differences are scikit-fmm's own: late by about 0.3 ns per 0.1 m of cell
+at the ground surface (first order there; tests/references/test_air_halfspace.py
+measures 0.32 ns at 0.1 m and 0.14 ns at 0.05 m in 2D), early next to the
+sphere as tests/REFERENCES.md records for fast-marching at 0.25 m.
+
+Processing, 6,320 picks written, 6,318 inverted (2 flagged faster than air):
+chi^2/N 2977 for the straight-ray solve (RMS 27.3 ns, 2,465 cells clipped);
+bent rays: 180.6 (start, the rock model) -> 40.4 -> 11.2 -> 3.72 -> 2.92
+(RMS 6.72 -> 3.18 -> 1.68 -> 0.96 -> 0.85 ns), full steps, weight 0.368 then
+0.0368; stop reason "iteration limit reached (4)". Time: 85 s straight-ray
+solve, 40 s bent-ray start, 121 / 46 / 69 / 50 s per iteration, 0.4 s
+bodies; 412 s in all. One body, resolved, air: centroid 0.18 m off (pass),
+42.0 m^3 for 65.4 m^3 (-36 %, fail), roof 5.0 m for 4.1 m (+0.90 m too
+deep, fail), span 6.1 m for 5.0 m, peak 0.285 m/ns; final chi^2/N 2.92
+(fail); misfit fell at every iteration (pass).
+
+Final residuals: surface-surface RMS 0.48 ns (chi^2/N 0.94); pairs whose
+line passes within 6 m of the sphere's centre RMS 1.18 (surface-borehole)
+and 1.28 ns (borehole-borehole, mean +0.45: picks later than predicted),
+the others 0.66-0.67 ns; by first arrival, through the sphere RMS 1.50 ns
+(mean +0.50), sphere + air wave 1.09 ns. voidcube's forward through the true
+model (1 m cells, a cell is air when its centre is in the sphere, 69 m^3) is
+early against the reference by a mean 3.0 ns on paths through the sphere and
+2.75 ns on sphere + air wave paths (95th percentile 4.6 and 4.2 ns), 0.1 ns
+on air waves, exact on surface-surface and 0.05 ns RMS on borehole pairs away
+from the sphere; its chi^2/N through the truth is 8.0, above the inversion's
+2.9: the inversion fits the data better than the truth does by drawing the
+body smaller and deeper (issue 14, part 2).
 
 Run: ``python3 benchmarks/bench_sphere_case.py`` (``--workers 2`` for the
 process pool; ``--truth-forward`` also times voidcube's forward model through
@@ -501,7 +543,7 @@ def main(argv=None):
     print(f"sphere: radius {RADIUS} m, centre {CENTRE.tolist()} m, roof {ROOF_DEPTH_M:.1f} m below the ground, "
           f"{VOLUME_M3:.1f} m^3; rock {V_ROCK} m/ns, air {V_AIR:.4f} m/ns; {len(ids)} nodes")
     i, j, times, families = independent_times(xyz, args.cache)
-    counts = {f: int(np.sum(families == f)) for f in sorted(set(families))}
+    counts = {str(f): int(np.sum(families == f)) for f in sorted(set(families))}
     print(f"first arrivals of the {i.size} pairs: {counts}")
     if args.fmm_sources > 0:
         print_fmm_check(*fmm_check(xyz, kinds, i, j, times, families, args.fmm_sources))

@@ -15,7 +15,7 @@ Independent pick times
 Never voidcube's own forward model. The first arrival of each pair is the
 least of (Fermat's principle; every candidate is the time of a real path, so
 the least is exact to the optimiser's tolerance once the fastest family is
-among them):
+among them; tests/references/sphere_under_air.py):
 
 1. through the ground past the sphere: the exact sphere reference
    (tests/references/sphere.py: straight segment, refracted through the
@@ -120,21 +120,17 @@ import yaml
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
 
-from scipy.optimize import minimize  # noqa: E402
-
-from tests.references.air_halfspace import head_wave_time_ns  # noqa: E402
-from tests.references.sphere import _angles_of, _on_sphere, first_arrival_ns, polyline_time_ns  # noqa: E402
+from tests.references.sphere_under_air import BuriedSphere, first_arrival_ns as buried_first_arrival_ns  # noqa: E402
 
 V_ROCK = 0.115  # m/ns, limestone (Davis and Annan 1989)
 V_AIR = 0.299792458  # m/ns, c (SI definition): the air above and the sphere's fill
 S_ROCK, S_AIR = 1 / V_ROCK, 1 / V_AIR
-K_VERTICAL = np.sqrt(S_ROCK**2 - S_AIR**2)  # ns/m: head-wave time per metre of depth
-TAN_CRITICAL = (S_AIR / S_ROCK) / np.sqrt(1 - (S_AIR / S_ROCK) ** 2)
 GROUND_M = 30.0
 CENTRE = np.array([20.3, 19.6, 23.4])
 RADIUS = 2.5
 ROOF_DEPTH_M = GROUND_M - (CENTRE[2] + RADIUS)  # 4.1 m of rock over the sphere
 VOLUME_M3 = 4.0 / 3.0 * np.pi * RADIUS**3
+CASE = BuriedSphere(GROUND_M, tuple(CENTRE), RADIUS, V_ROCK, V_AIR)
 BOX_ORIGIN, BOX_SIZE = (0.0, 0.0, 8.0), (40.0, 40.0, 26.0)
 NOISE_NS, SEED = 0.5, 14
 TARGETS = {"chi2_per_pick": 1.5, "centroid_m": 1.0, "volume_fraction": 0.25, "roof_m": 0.5}
@@ -177,68 +173,9 @@ def site_yaml(cell_m: float) -> str:
 # ---------------------------------------------------------------- independent first arrivals
 
 
-def _head_leg_misses_sphere(a, b) -> bool:
-    """True when the critical-angle leg from ``a`` up to the surface, towards ``b``, misses the sphere."""
-    depth = GROUND_M - a[2]
-    if depth <= 0:
-        return True
-    towards = b[:2] - a[:2]
-    towards = towards / np.linalg.norm(towards)
-    top = np.array([*(a[:2] + towards * depth * TAN_CRITICAL), GROUND_M])
-    d = top - a
-    t = np.clip((CENTRE - a) @ d / (d @ d), 0.0, 1.0)
-    return np.linalg.norm(a + t * d - CENTRE) > RADIUS
-
-
-def _sphere_then_head_ns(a, b, starts=8, seed=0):
-    """Least time over A -> P -> Q (P, Q on the sphere) -> up to the surface -> air -> B (family 3)."""
-    depth_b = GROUND_M - b[2]
-
-    def from_exit(q):
-        x = np.linalg.norm(b[:2] - q[:2])
-        head = float(head_wave_time_ns(x, GROUND_M - q[2], depth_b, S_ROCK, S_AIR))
-        return head if np.isfinite(head) else np.linalg.norm(b - q) * S_ROCK
-
-    def cost(v):
-        p, q = _on_sphere(v[:2], CENTRE, RADIUS), _on_sphere(v[2:], CENTRE, RADIUS)
-        return polyline_time_ns([a, p, q], CENTRE, RADIUS, V_AIR, V_ROCK) + from_exit(q)
-
-    towards_b = np.array([*(0.5 * (b[:2] - CENTRE[:2]) / max(np.linalg.norm(b[:2] - CENTRE[:2]), 1e-9)), 1.0])
-    guesses = [np.concatenate([_angles_of(a, CENTRE), _angles_of(CENTRE + towards_b, CENTRE)]),
-               np.concatenate([_angles_of(a, CENTRE), [0.05, 0.0]]),
-               np.concatenate([_angles_of(a, CENTRE), _angles_of(b, CENTRE)])]
-    rng = np.random.default_rng(seed)
-    while len(guesses) < starts:
-        guesses.append(np.concatenate([[np.arccos(rng.uniform(-1, 1)), rng.uniform(-np.pi, np.pi)],
-                                       [np.arccos(rng.uniform(0, 1)), rng.uniform(-np.pi, np.pi)]]))
-    return min(minimize(cost, g, method="Nelder-Mead",
-                        options={"xatol": 1e-9, "fatol": 1e-11, "maxiter": 20000, "maxfev": 40000}).fun
-               for g in guesses)
-
-
 def independent_time_ns(a, b):
     """Exact first arrival between nodes ``a`` and ``b`` (see the module notes); returns (time, family)."""
-    x = float(np.linalg.norm(b[:2] - a[:2]))
-    depth_a, depth_b = GROUND_M - a[2], GROUND_M - b[2]
-    straight = polyline_time_ns([a, b], CENTRE, RADIUS, V_AIR, V_ROCK)
-    head = float(head_wave_time_ns(x, depth_a, depth_b, S_ROCK, S_AIR))
-    if np.isfinite(head):
-        assert _head_leg_misses_sphere(a, b) and _head_leg_misses_sphere(b, a), (a, b)
-    best, family = min((straight, "straight"), (head, "air wave"))
-    ra, rb = np.linalg.norm(a - CENTRE), np.linalg.norm(b - CENTRE)
-    if S_ROCK * (ra + rb - 2 * RADIUS) < best:  # a path through the sphere could be faster
-        t = first_arrival_ns(a, b, CENTRE, RADIUS, V_AIR, V_ROCK, starts=8)
-        if t < best - 1e-9:
-            best, family = t, "through sphere"
-    top_depth = GROUND_M - CENTRE[2] - RADIUS
-    for p, q, rp in ((a, b, ra), (b, a, rb)):  # family 3, sphere on either side
-        x_cq = max(np.linalg.norm(q[:2] - CENTRE[:2]) - RADIUS, 0.0)
-        bound = S_ROCK * (rp - RADIUS) + S_AIR * x_cq + K_VERTICAL * (top_depth + GROUND_M - q[2])
-        if bound < best:
-            t = _sphere_then_head_ns(p, q)
-            if t < best - 1e-9:
-                best, family = t, "sphere + air wave"
-    return best, family
+    return buried_first_arrival_ns(CASE, a, b, starts=8)
 
 
 def independent_times(xyz, cache: Path, progress=print):

@@ -99,6 +99,22 @@ from the sphere; its chi^2/N through the truth is 8.0, above the inversion's
 2.9: the inversion fits the data better than the truth does by drawing the
 body smaller and deeper (issue 14, part 2).
 
+With ``--iterations 8`` (same run, same figures up to iteration 4): chi^2/N
+2.92 -> 2.68 (iteration 5, full step) -> 2.47 (iteration 6, half step); at
+iteration 7 no step of 1, 1/2, 1/4 or 1/8 lowered it (RMS 0.852-0.870 ns
+against 0.786 ns): stop reason "no step lowers the misfit", so the misfit
+stalls at chi^2/N 2.47 (RMS 0.79 ns). 866 s in all (load of 8-10 on the 2
+cores: the straight-ray solve took 170 s and iteration 1, with Occam's weight
+search through new fields, 206 s; later iterations 57-83 s, the refused one
+113 s). The void table then holds the sphere's body (resolved, air) 0.18 m
+off, 30.0 m^3 for 65.4 m^3 (-54 %: the peak reaches the band's 0.30 m/ns and
+the half-peak cut draws a tighter body), roof 4.0 m for 4.1 m (-0.10 m,
+pass), span 6.1 m; and three small slow indications (2-3 m^3), two at the
+ground surface and one 5 m under the sphere. Residuals stay largest on pairs
+near the sphere: RMS 1.03 ns surface-borehole and 1.17 ns borehole-borehole
+(chi^2/N 4.3 and 5.5), through-sphere paths 1.37 ns, against 0.48 ns for
+surface-surface and 0.63-0.67 ns for the other pairs away from the sphere.
+
 Run: ``python3 benchmarks/bench_sphere_case.py`` (``--workers 2`` for the
 process pool; ``--truth-forward`` also times voidcube's forward model through
 the true model against the reference).
@@ -325,10 +341,10 @@ class Clock:
                 bounds.append(("bent-ray start (two forward runs)", None))
             elif message.startswith("bent-ray iteration 0,"):
                 bounds[-1] = (bounds[-1][0], seconds)
-            elif re.match(r"bent-ray iteration \d+ of \d+:|bent-ray iteration \d+: no step", message):
+            elif re.match(r"bent-ray iteration \d+ of \d+:", message):
                 bounds.append((message.split(":")[0].split(" of ")[0], seconds))
-            elif message.startswith("bent-ray iterations stopped") and "no step" in message:
-                bounds.append(("the last trial step, refused", seconds))
+            elif re.match(r"bent-ray iteration \d+: no step", message):
+                bounds.append((message.split(":")[0] + " (no step accepted)", seconds))
         bounds.append(("bodies and screening", total))
         out, previous = [], 0.0
         for name, seconds in bounds:
@@ -403,10 +419,14 @@ def print_figures(result, clock_stages, n_picks_written):
         print(f"  {name:<55}{seconds:8.1f} s")
     body = nearest_body(result.analysis)
     final_chi = run.result.chi2 / n
-    falls = all(b < a for a, b in zip(chi, chi[1:])) and "no step" not in run.stop_reason
+    accepted_fall = all(b < a for a, b in zip(chi, chi[1:]))
+    refused = "no step" in run.stop_reason
+    falls = accepted_fall and not refused
+    words = ("every accepted one fell" if accepted_fall else "an accepted one rose") + (
+        f"; iteration {len(chi)} refused" if refused else "")
     rows = [("final chi^2/N", f"{final_chi:.3f}", f"<= {TARGETS['chi2_per_pick']}",
              final_chi <= TARGETS["chi2_per_pick"]),
-            ("misfit falls at every iteration", str(falls), "True", falls)]
+            ("misfit falls at every iteration", words, "all fall", falls)]
     bodies = list(result.analysis.bodies) if result.analysis is not None else []
     print(f"\nbodies found: {len(bodies)}")
     for b in bodies:

@@ -256,7 +256,7 @@ def fmm_check(xyz, kinds, i, j, times, families, n_sources: int, cell_m: float =
 
 
 def print_fmm_check(diffs, fams):
-    print(f"independent times against scikit-fmm (0.25 m cells, order 2), fmm minus reference, ns:")
+    print("independent times against scikit-fmm (0.25 m cells, order 2), fmm minus reference, ns:")
     print(f"  {'first arrival':<20}{'pairs':>6}{'median':>9}{'median |d|':>12}{'max |d|':>9}")
     for name in ["all", *sorted(set(fams))]:
         d = diffs if name == "all" else diffs[fams == name]

@@ -45,8 +45,8 @@ import numpy as np
 from scipy.optimize import minimize
 
 from tests.references.air_halfspace import head_wave_time_ns
-from tests.references.sphere import _angles_of, _on_sphere, first_arrival_ns as sphere_first_arrival_ns
-from tests.references.sphere import polyline_time_ns
+from tests.references.sphere import _angles_of, _on_sphere, polyline_time_ns
+from tests.references.sphere import first_arrival_ns as sphere_first_arrival_ns
 
 __all__ = ["BuriedSphere", "first_arrival_ns", "head_legs_miss_sphere", "sphere_then_air_wave_ns"]
 

@@ -412,7 +412,8 @@ def print_figures(result, clock_stages, n_picks_written):
         chi.append(value)
         extra = (f", weight {entry['lambda_smooth']:.3g}, step {entry['step']:g}"
                  if entry.get("lambda_smooth") is not None else f" ({entry['rays']})")
-        print(f"  iteration {entry['iteration']}: chi^2/N {value:.3f}, RMS {entry['rms_ns']:.3f} ns{extra}")
+        note = f"; weight choice: {entry['weight_choice']}" if entry.get("weight_choice") else ""
+        print(f"  iteration {entry['iteration']}: chi^2/N {value:.3f}, RMS {entry['rms_ns']:.3f} ns{extra}{note}")
     print(f"stop reason: {run.stop_reason}")
     print("time per stage:")
     for name, seconds in clock_stages:

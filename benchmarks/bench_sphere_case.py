@@ -81,7 +81,12 @@ bent rays: 180.6 (start, the rock model) -> 40.4 -> 11.2 -> 3.72 -> 2.92
 (RMS 6.72 -> 3.18 -> 1.68 -> 0.96 -> 0.85 ns), full steps, weight 0.368 then
 0.0368; stop reason "iteration limit reached (4)". Time: 85 s straight-ray
 solve, 40 s bent-ray start, 121 / 46 / 69 / 50 s per iteration, 0.4 s
-bodies; 412 s in all. One body, resolved, air: centroid 0.18 m off (pass),
+bodies; 412 s in all (a second run, same figures: 77 / 28 / 112 / 46 / 35 /
+31 s, 328 s). Every iteration's weight choice says "chi^2 = N not reached":
+Occam's search tried 6 weights in iteration 1 and 3 in each later one, the
+least forward-model chi^2 being 2.6e5, 7.1e4, 2.4e4 and 1.8e4 for N = 6318;
+from iteration 2 on it kept 0.0368, a tenth of iteration 1's weight, although
+its range reached down to 0.00368. One body, resolved, air: centroid 0.18 m off (pass),
 42.0 m^3 for 65.4 m^3 (-36 %, fail), roof 5.0 m for 4.1 m (+0.90 m too
 deep, fail), span 6.1 m for 5.0 m, peak 0.285 m/ns; final chi^2/N 2.92
 (fail); misfit fell at every iteration (pass).

@@ -518,6 +518,11 @@ def _discrepancy_root(problem, options, start, target, log, level, *,
                 lo = list(max(below, key=lambda p: p[1]))
             elif g > 0 and log_lam <= np.log(options.lambda_min) - 1e-9:
                 return lam, sol, False  # cannot fit to chi^2 = N inside the search range
+            elif g > 0 and any(p[0] > log_lam and p[1] < g for p in points[:-1]):
+                # a smaller weight fits worse: the misfit's floor is behind us (with the
+                # band inside the solve the floor can rise again as the weight falls)
+                best = min(points, key=lambda p: p[1])
+                return float(np.exp(best[0])), best[2], False
             elif g <= 0 and log_lam >= np.log(options.lambda_max) + 1e-9:
                 return lam, sol, False
             continue
@@ -778,7 +783,20 @@ def solve_inverse_problem(problem: InverseProblem, operator, *, progress=None) -
     principle: ``chi^2 = N``, found by regula falsi in log-log between the
     bracketing trials. Without, the corner of the L-curve (log residual norm
     against log regularisation norm) at the largest curvature (Hansen, 1992).
-    The slowness is then clipped into the velocity band.
+    With ``options.bounds_in_solve`` (the default) every solve keeps the
+    ground slowness inside the velocity band (:func:`bounded_lsqr`, block
+    principal pivoting; Portugal, Judice and Vicente, 1994), so the misfit
+    that chooses lambda is that of a model inside the band; otherwise the
+    slowness is clipped into the band after the solve.
+
+    With ``options.regularisation == "compact"`` the difference rows and the
+    damping rows are then reweighted, each reweighting warm-started from the
+    last model, by ``beta / sqrt(v^2 + beta^2)`` (``v`` the cell's gradient or
+    anomaly in the last model, ``beta`` = ``problem.focusing_beta_ns_per_m``):
+    iteratively reweighted least squares for the minimum gradient support and
+    minimum support stabilisers (Portniaguine and Zhdanov, 1999; Last and
+    Kubik, 1983). With the discrepancy principle lambda is found again after
+    each reweighting.
 
     With ``options.robust`` set, iteratively reweighted least squares follows
     at the chosen lambda: the data rows are scaled by ``sqrt(w_i)``, with
@@ -805,6 +823,14 @@ def solve_inverse_problem(problem: InverseProblem, operator, *, progress=None) -
     .. [5] Holland, P. W. and Welsch, R. E. (1977), Robust regression using
        iteratively reweighted least-squares, Communications in Statistics -
        Theory and Methods 6(9), 813-827.
+    .. [6] Portniaguine, O. and Zhdanov, M. S. (1999), Focusing geophysical
+       inversion images, Geophysics 64(3), 874-887, doi:10.1190/1.1444596.
+    .. [7] Last, B. J. and Kubik, K. (1983), Compact gravity inversion,
+       Geophysics 48(6), 713-721, doi:10.1190/1.1441501.
+    .. [8] Portugal, L. F., Judice, J. J. and Vicente, L. N. (1994), A
+       comparison of block pivoting and interior-point algorithms for linear
+       least squares problems with nonnegative variables, Mathematics of
+       Computation 63(208), 625-643 (cited from memory).
     """
     G = sp.csr_matrix(operator)
     n_picks, n_cells = G.shape
@@ -875,7 +901,8 @@ def _first_trial_choice(trials, method, target, on_coarse, ratio) -> int:
     chi2s = np.array([t[1].misfit ** 2 for t in trials])
     if not on_coarse:
         below = np.flatnonzero(chi2s <= target)
-        return int(below[0]) if below.size else len(trials) - 1
+        # none reaches it: the least misfit (the last trial, unless bounds made it rise again)
+        return int(below[0]) if below.size else int(np.argmin(chi2s))
     # chi^2 on the model grid is at or below the coarse grid's (finer cells
     # fit more), so start the model-grid search where the coarse curve
     # reaches 2N, or, if it never does, where it levels off near its floor
@@ -1098,9 +1125,12 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
     options.lambda_max]``, starting at ``lambda_start``: the largest weight whose
     linearised chi-square reaches ``N`` (phase 2), or, when none does, the weight
     of least linearised chi-square (phase 1). The chi-square is that of the model
-    as it will be used, its velocities clipped into the band: a rough model whose
+    as it will be used, inside the velocity band (kept inside the solve, or
+    clipped into it without ``options.bounds_in_solve``): a rough model whose
     fit depends on velocities faster than light is not chosen for its unclipped
-    fit. The floor bounds how much rougher
+    fit. With the compact regularisation the weights of its rows come from
+    ``problem.focusing_slowness_ns_per_m`` (the current model of a bent-ray
+    step: one reweighting per step). The floor bounds how much rougher
     one step may make the model; the caller's line search on the misfit through
     the nonlinear forward model checks that the step lowers it.
 

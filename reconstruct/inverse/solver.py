@@ -516,11 +516,11 @@ def _discrepancy_root(problem, options, start, target, log, level, *,
             if above and below:
                 hi = list(min(above, key=lambda p: p[1]))
                 lo = list(max(below, key=lambda p: p[1]))
-            elif g > 0 and log_lam <= np.log(options.lambda_min) - 1e-9:
-                return lam, sol, False  # cannot fit to chi^2 = N inside the search range
-            elif g > 0 and any(p[0] > log_lam and p[1] < g for p in points[:-1]):
-                # a smaller weight fits worse: the misfit's floor is behind us (with the
-                # band inside the solve the floor can rise again as the weight falls)
+            elif g > 0 and (log_lam <= np.log(options.lambda_min) - 1e-9
+                            or any(p[0] > log_lam and p[1] < g for p in points[:-1])):
+                # cannot fit to chi^2 = N inside the search range, or a smaller weight
+                # fits worse (with the band inside the solve the misfit can rise again
+                # as the weight falls): the least misfit seen
                 best = min(points, key=lambda p: p[1])
                 return float(np.exp(best[0])), best[2], False
             elif g <= 0 and log_lam >= np.log(options.lambda_max) + 1e-9:

@@ -1209,10 +1209,8 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
                 f"the weight of least {kind} chi^2 ({occam.chi2:.5g}, N = {problem.n_picks}) among "
                 f"{len(occam.trials)} tried")
     focused = options.regularisation == "compact" and problem.focusing_slowness_ns_per_m is not None
-    if focused:
-        note += (f"; compact regularisation reweighted once from the current model, beta "
-                 f"{problem.focusing_beta_ns_per_m:.3g} ns/m")
-    choice = _Choice(lam, sol, "occam", note)
-    choice, robust = _robust_pass(levels, choice, log)
+    note += (f"; compact regularisation reweighted once from the current model, beta "
+             f"{problem.focusing_beta_ns_per_m:.3g} ns/m") if focused else ""
+    choice, robust = _robust_pass(levels, _Choice(lam, sol, "occam", note), log)
     result = _assembled_result(problem, G, fine, choice, robust, log.search)
     return dataclasses.replace(result, focusing_reweightings=int(focused))

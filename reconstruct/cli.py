@@ -74,6 +74,10 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
     g.add_argument("--vertical-weight", type=float, default=o.vertical_weight, metavar="W",
                    help=f"weight of roughness along z (dimensionless; default {o.vertical_weight:g}); lower it "
                         "to allow sharper vertical changes")
+    g.add_argument("--regularisation", choices=("smooth", "compact"), default=o.regularisation,
+                   help="'smooth' (default): first differences and damping towards the reference velocity; "
+                        "'compact': the same reweighted (minimum gradient support and minimum support) so "
+                        "that bodies come out sharp and compact rather than smeared")
     g.add_argument("--velocity-min", type=float, default=o.velocity_min_m_per_ns, metavar="M_PER_NS",
                    help=f"lowest velocity kept, m/ns (default {o.velocity_min_m_per_ns:g}: water is about 0.033)")
     g.add_argument("--velocity-max", type=float, default=o.velocity_max_m_per_ns, metavar="M_PER_NS",
@@ -160,7 +164,8 @@ def _settings_from(args, *, find_bodies: bool = False):
         velocity_min_m_per_ns=args.velocity_min, velocity_max_m_per_ns=args.velocity_max,
         horizontal_weight=args.horizontal_weight, vertical_weight=args.vertical_weight,
         smoothing=args.smoothing, damping_ratio=args.damping_ratio, time_zero=args.time_zero,
-        max_iterations=args.lsqr_iterations, default_sigma_ns=args.default_sigma)
+        max_iterations=args.lsqr_iterations, default_sigma_ns=args.default_sigma,
+        regularisation=args.regularisation)
     if args.write_rays and args.rays != "bent":
         raise InputError("--write-rays needs --rays bent (straight rays are the node-to-node lines)")
     return ProcessingSettings(
@@ -222,6 +227,9 @@ def _print_inversion(summary: dict, out) -> None:
     for line in fit_warnings(summary):
         print(line)
     print(f"regularisation weight: {lam['smoothing']:.4g} by {lam['method']} ({lam['note']})")
+    reg = summary.get("regularisation")
+    if reg and reg["kind"] == "compact":
+        print(f"regularisation: compact, {reg['reweightings']} reweightings")
     print(f"ground velocity: {v['ground_min']:.4f} to {v['ground_max']:.4f} m/ns, median "
           f"{v['ground_median']:.4f}; {summary['nodes']['snapped']} nodes snapped to the ground")
     if "robust" in summary:

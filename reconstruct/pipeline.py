@@ -81,7 +81,8 @@ class ProcessingSettings:
     bent_iterations : int
         Bent-ray iterations after the straight-ray start (:data:`DEFAULT_BENT_ITERATIONS`).
     inversion : InversionOptions
-        Velocity band, roughness weights, regularisation weight (None: chosen by
+        Velocity band (kept inside the solve), roughness weights, regularisation
+        (smooth or compact), regularisation weight (None: chosen by
         the discrepancy principle or the L-curve), time-zero model, LSQR limits.
         Its ``robust`` field is replaced by :attr:`robust` or the rule.
     robust : {"none", "huber", "tukey"} or None

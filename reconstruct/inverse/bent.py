@@ -241,6 +241,8 @@ class _BentSteps:
         options = problem.options
         G = state.forward.operator[self.pick_pair]
         t_eff = problem.time_ns - state.forward.time_ns[self.pick_pair] + G @ state.slowness
+        # the compact regularisation's weights come from the current model
+        problem = dataclasses.replace(problem, focusing_slowness_ns_per_m=state.slowness)
         if self.occam:
             self.measured = {}
 
@@ -283,6 +285,7 @@ class _BentSteps:
                  + f", smoothing weight {trial.lambda_smooth:.3g}")
         entry = self.history_entry(iteration, "bent", candidate, trial.lambda_smooth, step)
         entry["weight_choice"] = trial.lambda_note
+        entry["reweightings"] = trial.focusing_reweightings
         return trial, candidate, entry
 
     def line_search(self, iteration, state: _Model, trial, G):

@@ -8,7 +8,11 @@ from reconstruct.inverse.robust import ROBUST_LOSSES
 from reconstruct.inverse.time_zero import TIME_ZERO_MODELS
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 
-__all__ = ["InversionOptions"]
+__all__ = ["InversionOptions", "REGULARISATIONS"]
+
+#: The regularisations: Tikhonov first differences, or the focusing (compact)
+#: stabilisers reached by iteratively reweighted least squares.
+REGULARISATIONS = ("smooth", "compact")
 
 
 @dataclass(frozen=True)
@@ -18,8 +22,10 @@ class InversionOptions:
     Parameters
     ----------
     velocity_min_m_per_ns, velocity_max_m_per_ns : float
-        Physical band; slowness is clipped into it after each solve.
-        Defaults 0.03 and 0.30 m/ns span water to air (Davis and Annan, 1989).
+        Physical band. With ``bounds_in_solve`` every solve keeps the slowness
+        inside it (bounded least squares); otherwise it is clipped into the band
+        after each solve. Defaults 0.03 and 0.30 m/ns span water to air (Davis
+        and Annan, 1989); the fast end is never above the speed of light.
     horizontal_weight, vertical_weight : float
         Relative roughness weights along x/y and z.
     smoothing : float or None
@@ -54,6 +60,26 @@ class InversionOptions:
     rejection_weight : float
         Picks whose final robust weight is below this are reported as rejected
         and left out of the chi-square that chooses lambda.
+    regularisation : {"smooth", "compact"}
+        "smooth": first differences and damping towards the reference
+        (Tikhonov). "compact": the same rows reweighted by iteratively
+        reweighted least squares towards the minimum gradient support and
+        minimum support stabilisers (Portniaguine and Zhdanov, 1999; Last and
+        Kubik, 1983), which favour sharp, compact bodies
+        (:mod:`reconstruct.inverse.regularization`).
+    focusing_fraction : float
+        The focusing parameter ``beta`` of the compact regularisation as a
+        fraction of the smallest full-contrast anomaly the band allows: the
+        smaller of (rock slowness - slowness of the band's fast end) and
+        (slowness of the band's slow end - rock slowness), in ns/m. With rock
+        at 0.115 m/ns and the default band that is the air-filled void,
+        5.4 ns/m, and the default 0.1 gives ``beta`` = 0.54 ns/m.
+    focusing_iterations : int
+        Largest number of reweightings of the compact regularisation per solve.
+    bounds_in_solve : bool
+        Keep the slowness inside the band within each solve (bounded least
+        squares, :func:`reconstruct.inverse.solver.bounded_lsqr`) instead of
+        clipping the solved model afterwards.
     """
 
     velocity_min_m_per_ns: float = 0.03
@@ -74,6 +100,10 @@ class InversionOptions:
     robust_iterations: int = 8
     robust_tolerance: float = 0.02
     rejection_weight: float = 0.1
+    regularisation: str = "smooth"
+    focusing_fraction: float = 0.1
+    focusing_iterations: int = 6
+    bounds_in_solve: bool = True
 
     def __post_init__(self):
         problems = []
@@ -111,6 +141,13 @@ class InversionOptions:
             problems.append(f"robust_iterations must be >= 1 (got {self.robust_iterations})")
         if not 0 < self.rejection_weight < 1:
             problems.append(f"rejection_weight must be between 0 and 1 (got {self.rejection_weight})")
+        if self.regularisation not in REGULARISATIONS:
+            problems.append(f"regularisation must be one of {', '.join(REGULARISATIONS)} "
+                            f"(got {self.regularisation!r})")
+        if not 0 < self.focusing_fraction <= 1:
+            problems.append(f"focusing_fraction must be > 0 and <= 1 (got {self.focusing_fraction})")
+        if self.focusing_iterations < 1:
+            problems.append(f"focusing_iterations must be >= 1 (got {self.focusing_iterations})")
         if problems:
             from reconstruct.errors import InputError
 

@@ -67,6 +67,10 @@ class InverseProblem:
         Coarse grid on which lambda is searched (when it is automatic).
     robust_exempt : ndarray of bool, shape (n_picks,), optional
         Picks that keep full weight in the robust reweighting.
+    focusing_slowness_ns_per_m : ndarray, shape (n_cells,), optional
+        With ``options.regularisation == "compact"``: the model whose anomaly
+        sets the first weights of the compact regularisation (a bent-ray step
+        passes its current model). None: the first solve is smooth.
 
     Attributes
     ----------
@@ -77,7 +81,13 @@ class InverseProblem:
     ground_columns : ndarray of int
         Flat cell numbers of the unknowns.
     slowness_bounds_ns_per_m : tuple of 2 float
-        Ground slowness is clipped into this band after the solve.
+        Ground slowness is kept inside this band (in the solve, or clipped
+        after it; ``options.bounds_in_solve``).
+    focusing_beta_ns_per_m : float
+        Focusing parameter of the compact regularisation: ``options.focusing_fraction``
+        times the smallest full-contrast anomaly the band allows about the
+        median reference slowness of the ground (see
+        :class:`reconstruct.inverse.options.InversionOptions`).
     """
 
     time_ns: np.ndarray
@@ -92,11 +102,13 @@ class InverseProblem:
     options: InversionOptions = InversionOptions()
     coarse: CoarseLevel | None = None
     robust_exempt: np.ndarray | None = None
+    focusing_slowness_ns_per_m: np.ndarray | None = None
     sigma_used_ns: np.ndarray = field(init=False, repr=False)
     weight: np.ndarray = field(init=False, repr=False)
     time_zero_columns: sp.csr_matrix = field(init=False, repr=False)
     ground_columns: np.ndarray = field(init=False, repr=False)
     slowness_bounds_ns_per_m: tuple = field(init=False)
+    focusing_beta_ns_per_m: float = field(init=False)
 
     def __post_init__(self):
         arrays = _checked_arrays(self)
@@ -116,6 +128,11 @@ class InverseProblem:
         bounds = (1.0 / min(self.options.velocity_max_m_per_ns, AIR_VELOCITY_M_PER_NS),
                   1.0 / self.options.velocity_min_m_per_ns)
         object.__setattr__(self, "slowness_bounds_ns_per_m", bounds)
+        rock = float(np.median(self.reference_slowness_ns_per_m[self.ground_columns]))
+        contrast = min(rock - bounds[0], bounds[1] - rock)
+        if not contrast > 0:
+            contrast = bounds[1] - bounds[0]  # reference outside the band: use the band's width
+        object.__setattr__(self, "focusing_beta_ns_per_m", self.options.focusing_fraction * contrast)
 
     @property
     def n_picks(self) -> int:
@@ -157,6 +174,11 @@ def _checked_arrays(problem: InverseProblem) -> dict:
         if exempt.shape != (n_picks,):
             raise ValueError("robust_exempt must have one entry per pick")
         out["robust_exempt"] = exempt
+    if problem.focusing_slowness_ns_per_m is not None:
+        focus = np.asarray(problem.focusing_slowness_ns_per_m, dtype=float)
+        if focus.shape != s_ref.shape:
+            raise ValueError("focusing_slowness_ns_per_m must have one entry per cell")
+        out["focusing_slowness_ns_per_m"] = focus
     if problem.sigma_ns is not None:
         sigma = np.asarray(problem.sigma_ns, dtype=float)
         if sigma.shape != (n_picks,) or not np.all(sigma > 0):

@@ -24,11 +24,16 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.sparse as sp
-from scipy.sparse.linalg import LinearOperator, lsqr
+from scipy.sparse.linalg import LinearOperator, aslinearoperator, lsqr
 
 from reconstruct.inverse.occam import occam_weight
 from reconstruct.inverse.options import InversionOptions
 from reconstruct.inverse.problem import InverseProblem
+from reconstruct.inverse.regularization import (
+    difference_row_cells,
+    minimum_gradient_support_weights,
+    minimum_support_weights,
+)
 from reconstruct.inverse.robust import robust_scale, robust_weights
 from reconstruct.inverse.time_zero import estimate_time_zero, robust_time_zero
 
@@ -38,11 +43,16 @@ __all__ = [
     "invert_travel_times",
     "solve_inverse_problem",
     "solve_occam_step",
+    "bounded_lsqr",
 ]
 
 #: Damping of the time-zero unknowns relative to their data weight: small, so
 #: that the offsets are set by the data, but enough to fix the gauge of "clock".
 _TIME_ZERO_DAMPING = 1e-3
+
+#: The compact regularisation's reweighting stops when fewer than 1 % of its
+#: weights change by more than this (the rule of the robust reweighting).
+_FOCUSING_TOLERANCE = 0.02
 
 
 @dataclass(frozen=True)
@@ -78,6 +88,10 @@ class InversionResult:
     rms_before_clipping_ns: float | None = None
     chi2_after_clipping: float | None = None  # chi^2 of this solve's model after clipping (= chi2 as solved)
     rms_after_clipping_ns: float | None = None
+    regularisation: str = "smooth"
+    focusing_reweightings: int = 0  # reweightings of the compact regularisation in this solve
+    focusing_beta_ns_per_m: float | None = None
+    bounds_in_solve: bool = False
 
     @property
     def n_clipped(self) -> int:
@@ -112,6 +126,99 @@ class _Solve:
     misfit: float  # |W (t - t_pred)|, the square root of chi^2
     roughness: float
     size: float
+    bound_passes: int = 0  # passes of the bounded solve (0: unbounded)
+
+
+def bounded_lsqr(operator, rhs, lower, upper, *, x0=None, max_iterations: int = 400, tolerance: float = 1e-4,
+                 max_passes: int = 12):
+    """Least squares with bounds on the unknowns: ``min |A x - b|`` with ``lower <= x <= upper``.
+
+    Block principal pivoting over LSQR solves: every unknown is free or held
+    at one of its bounds; LSQR solves for the free ones (warm-started), then
+    every free unknown beyond a bound is held at it and every held unknown
+    whose gradient points into the band is freed, all at once, until nothing
+    changes (the Karush-Kuhn-Tucker conditions hold to the solver's accuracy).
+    After half of ``max_passes`` unknowns are only held, never freed, so the
+    passes end; if they end unsettled, the feasible point of least misfit
+    seen is returned. Only ``A x`` and ``A^T u`` are used: the operator may be a
+    :class:`scipy.sparse.linalg.LinearOperator`.
+
+    Parameters
+    ----------
+    operator : matrix or LinearOperator, shape (m, n)
+    rhs : ndarray, shape (m,)
+    lower, upper : float or ndarray, shape (n,)
+        Bounds; ``-inf`` / ``inf`` for an unbounded unknown.
+    x0 : ndarray, shape (n,), optional
+        Start (projected into the bounds); its unknowns at a bound start held.
+    max_iterations, tolerance : int, float
+        LSQR ``iter_lim`` and ``atol`` = ``btol`` of each pass.
+    max_passes : int
+
+    Returns
+    -------
+    x : ndarray, shape (n,)
+        Inside the bounds.
+    stop_code, iterations : int
+        LSQR stop code of the last pass and the LSQR iterations of all passes.
+    passes : int
+        LSQR solves made.
+    converged : bool
+        True when the last pass changed no unknown's state.
+
+    References
+    ----------
+    .. [1] Portugal, L. F., Judice, J. J. and Vicente, L. N. (1994), A
+       comparison of block pivoting and interior-point algorithms for linear
+       least squares problems with nonnegative variables, Mathematics of
+       Computation 63(208), 625-643 (cited from memory).
+    .. [2] Paige, C. C. and Saunders, M. A. (1982), LSQR, ACM Trans. Math.
+       Softw. 8(1), 43-71.
+    """
+    A = aslinearoperator(operator)
+    m, n = A.shape
+    b = np.asarray(rhs, dtype=float)
+    lower = np.broadcast_to(np.asarray(lower, dtype=float), (n,))
+    upper = np.broadcast_to(np.asarray(upper, dtype=float), (n,))
+    if np.any(lower > upper):
+        raise ValueError("every lower bound must be at or below its upper bound")
+    x = np.clip(np.zeros(n) if x0 is None else np.asarray(x0, dtype=float), lower, upper)
+    at_lower = np.isfinite(lower) & (x <= lower)
+    at_upper = np.isfinite(upper) & (x >= upper) & ~at_lower
+    iterations, stop_code, converged = 0, 0, False
+    passes = 0
+    best, best_cost = None, np.inf
+    while passes < max_passes:
+        passes += 1
+        free = ~(at_lower | at_upper)
+        held = np.where(at_lower, lower, np.where(at_upper, upper, 0.0))
+        masked = LinearOperator((m, n), matvec=lambda v, f=free: A.matvec(np.ravel(v) * f),
+                                rmatvec=lambda u, f=free: A.rmatvec(np.ravel(u)) * f, dtype=float)
+        out = lsqr(masked, b - A.matvec(held), atol=tolerance, btol=tolerance, iter_lim=max_iterations,
+                   x0=x * free)
+        iterations += int(out[2])
+        stop_code = int(out[1])
+        x = out[0] * free + held
+        below = free & (x < lower)
+        above = free & (x > upper)
+        gradient = A.rmatvec(A.matvec(x) - b)  # of |A x - b|^2 / 2
+        # the free unknowns' gradient is what LSQR left: below it a sign means nothing
+        noise = float(np.max(np.abs(gradient[free]))) if free.any() else 0.0
+        release = np.zeros(n, dtype=bool)
+        if passes <= max_passes // 2:
+            release = (at_lower & (gradient < -noise)) | (at_upper & (gradient > noise))
+        if not (below.any() or above.any() or release.any()):
+            converged = True
+            break
+        at_lower = (at_lower & ~release) | below
+        at_upper = (at_upper & ~release) | above
+        x = np.clip(x, lower, upper)
+        cost = float(np.linalg.norm(A.matvec(x) - b))
+        if cost < best_cost:
+            best, best_cost = x, cost
+    if not converged and best is not None and best_cost < float(np.linalg.norm(A.matvec(x) - b)):
+        x = best  # the passes did not settle: the feasible point of least misfit seen
+    return x, stop_code, iterations, passes, converged
 
 
 class _ScaledProblem:
@@ -119,9 +226,9 @@ class _ScaledProblem:
 
     ::
 
-        [ A S^-1                 ]       [ W r ]
-        [ lambda_s k_s D S_g^-1  ] y  ~  [  0  ]
-        [ lambda_d E             ]       [  0  ]
+        [ A S^-1                     ]       [ W r ]
+        [ lambda_s k_s Q D S_g^-1    ] y  ~  [  0  ]
+        [ lambda_d E R               ]       [  0  ]
 
     ``A = W [G_g C]``; ``S`` holds the column norms of ``A`` (floored at a tenth of
     their median, per block) and ``x = S^-1 y`` the physical unknowns (slowness
@@ -130,16 +237,21 @@ class _ScaledProblem:
     ``|grad ds|^2`` over the ground; ``E`` is diagonal: ``k_d sqrt(V_cell) / S_j``
     on slowness columns, so that ``|E y|^2`` approximates ``k_d^2`` times the
     integral of ``ds^2``, and 1 on time-zero columns (damping relative to
-    their data weight).
+    their data weight). ``Q`` and ``R`` are diagonal weights, 1 for the smooth
+    regularisation and the minimum gradient support and minimum support
+    weights of the compact one (:meth:`focusing_weights`).
 
     The normalisations ``k_d^2 = sum_i (w_i L_i)^2 / V_ground`` (the data's
     sensitivity to a uniform slowness change per unit volume; ``L_i`` the
     ground path length of ray ``i``) and ``k_s = k_d * ell`` (``ell`` the median
     ray length) depend on the rays and the ground volume but not on the cell
     size, so ``lambda`` means the same on a coarse and a fine grid.
+
+    ``bounds`` (physical lower and upper slowness changes of the slowness
+    columns), when given, are kept inside every solve (:func:`bounded_lsqr`).
     """
 
-    def __init__(self, A, b, D, n_slowness, cell_m, kappa_damp, kappa_smooth):
+    def __init__(self, A, b, D, n_slowness, cell_m, kappa_damp, kappa_smooth, bounds=None):
         self.n_slowness = n_slowness
         self.n = A.shape[1]
         norms = np.sqrt(np.asarray(A.multiply(A).sum(axis=0)).ravel())
@@ -158,7 +270,8 @@ class _ScaledProblem:
         # first_difference_operator weights rows by h_ref / h; make them sqrt(V) / h
         d_phys = sp.csr_matrix(D) * (np.sqrt(volume) / h_ref)
         self.D = (d_phys @ sp.diags(kappa_smooth / scale[:n_slowness])).tocsr()
-        self.DT = self.D.T.tocsr()
+        self.difference_operator = sp.csr_matrix(D)  # physical: slowness differences, ns/m
+        self.row_cells = difference_row_cells(D) if D.shape[0] else np.zeros(0, dtype=np.int64)
         # time-zeros are damped only enough to make the problem well posed
         # (weights relative to their unit-norm columns, independent of lambda)
         self.damp_diag = np.concatenate(
@@ -166,7 +279,32 @@ class _ScaledProblem:
         )
         self.fixed_damp = np.concatenate([np.zeros(n_slowness), np.full(self.n - n_slowness, _TIME_ZERO_DAMPING)])
         self.b0 = np.asarray(b, dtype=float)
+        self.bounds = None
+        if bounds is not None:
+            free = np.full(self.n - n_slowness, np.inf)
+            self.bounds = (np.concatenate([np.asarray(bounds[0], float) * scale[:n_slowness], -free]),
+                           np.concatenate([np.asarray(bounds[1], float) * scale[:n_slowness], free]))
         self.set_row_weights(None)
+        self.set_focusing_weights(None, None)
+
+    def set_focusing_weights(self, difference_weights, damping_weights):
+        """Weights ``Q`` of the difference rows and ``R`` of the damping rows (None: 1)."""
+        self.focus_rows = (np.ones(self.D.shape[0]) if difference_weights is None
+                           else np.asarray(difference_weights, dtype=float))
+        self.focus_damp = np.ones(self.n)
+        if damping_weights is not None:
+            self.focus_damp[:self.n_slowness] = damping_weights
+        self.Dw = (sp.diags(self.focus_rows) @ self.D).tocsr()
+        self.DwT = self.Dw.T.tocsr()
+
+    def focusing_weights(self, y, beta):
+        """Compact-regularisation weights of the model ``y`` (scaled unknowns):
+        minimum gradient support on the difference rows, minimum support on
+        the damping rows, both with the focusing parameter ``beta`` (ns/m)."""
+        anomaly = np.asarray(y[:self.n_slowness]) / self.scale[:self.n_slowness]
+        rows = (minimum_gradient_support_weights(self.difference_operator, anomaly, beta, self.row_cells)
+                if self.D.shape[0] else np.zeros(0))
+        return rows, minimum_support_weights(anomaly, beta)
 
     def set_row_weights(self, omega, counted=None):
         """Robust weights ``omega`` (None: all 1) of the data rows, and the rows
@@ -185,10 +323,14 @@ class _ScaledProblem:
         predicted, with the sign flipped)."""
         return self.A @ y - self.b0
 
+    def _damping(self, lambda_damp):
+        return lambda_damp * self.damp_diag * self.focus_damp + self.fixed_damp
+
     def operator(self, lambda_smooth: float, lambda_damp: float) -> LinearOperator:
         m, n, ns = self.A.shape[0], self.n, self.n_slowness
         nd = self.D.shape[0]
-        damp = lambda_damp * self.damp_diag + self.fixed_damp
+        damp = self._damping(lambda_damp)
+        Dw, DwT = self.Dw, self.DwT
 
         sw = self.row_sqrt_w
 
@@ -197,12 +339,12 @@ class _ScaledProblem:
             data = self.A @ y
             if sw is not None:
                 data *= sw
-            return np.concatenate([data, lambda_smooth * (self.D @ y[:ns]), damp * y])
+            return np.concatenate([data, lambda_smooth * (Dw @ y[:ns]), damp * y])
 
         def rmatvec(u):
             u = np.ravel(u)
             out = self.AT @ (u[:m] if sw is None else sw * u[:m])
-            out[:ns] += lambda_smooth * (self.DT @ u[m:m + nd])
+            out[:ns] += lambda_smooth * (DwT @ u[m:m + nd])
             out += damp * u[m + nd:]
             return out
 
@@ -211,32 +353,31 @@ class _ScaledProblem:
     def stacked(self, lambda_smooth: float, lambda_damp: float):
         """Explicit stacked matrix and right-hand side (for checks on small problems)."""
         ns = self.n_slowness
-        D_full = sp.hstack([self.D, sp.csr_matrix((self.D.shape[0], self.n - ns))])
+        D_full = sp.hstack([self.Dw, sp.csr_matrix((self.D.shape[0], self.n - ns))])
         A = self.A if self.row_sqrt_w is None else sp.diags(self.row_sqrt_w) @ self.A
-        M = sp.vstack(
-            [A, lambda_smooth * D_full, sp.diags(lambda_damp * self.damp_diag + self.fixed_damp)]
-        ).tocsr()
+        M = sp.vstack([A, lambda_smooth * D_full, sp.diags(self._damping(lambda_damp))]).tocsr()
         rhs = np.concatenate([self.b, np.zeros(self.D.shape[0] + self.n)])
         return M, rhs
 
     def solve(self, lambda_smooth, lambda_damp, y0, max_iterations, tolerance) -> _Solve:
         rhs = np.concatenate([self.b, np.zeros(self.D.shape[0] + self.n)])
-        out = lsqr(
-            self.operator(lambda_smooth, lambda_damp),
-            rhs,
-            atol=tolerance,
-            btol=tolerance,
-            iter_lim=max_iterations,
-            x0=y0,
-        )
-        y = out[0]
+        passes = 0
+        if self.bounds is None:
+            out = lsqr(self.operator(lambda_smooth, lambda_damp), rhs, atol=tolerance, btol=tolerance,
+                       iter_lim=max_iterations, x0=y0)
+            y, stop_code, iterations = out[0], int(out[1]), int(out[2])
+        else:
+            y, stop_code, iterations, passes, _ = bounded_lsqr(
+                self.operator(lambda_smooth, lambda_damp), rhs, self.bounds[0], self.bounds[1], x0=y0,
+                max_iterations=max_iterations, tolerance=tolerance)
         return _Solve(
             y=y,
-            stop_code=int(out[1]),
-            iterations=int(out[2]),
+            stop_code=stop_code,
+            iterations=iterations,
             misfit=float(np.linalg.norm(self.data_residual(y)[self.counted])),
-            roughness=float(np.linalg.norm(self.D @ y[: self.n_slowness])),
-            size=float(np.linalg.norm(self.damp_diag * y)),
+            roughness=float(np.linalg.norm(self.Dw @ y[: self.n_slowness])),
+            size=float(np.linalg.norm(self.damp_diag * self.focus_damp * y)),
+            bound_passes=passes,
         )
 
 
@@ -375,8 +516,13 @@ def _discrepancy_root(problem, options, start, target, log, level, *,
             if above and below:
                 hi = list(min(above, key=lambda p: p[1]))
                 lo = list(max(below, key=lambda p: p[1]))
-            elif g > 0 and log_lam <= np.log(options.lambda_min) - 1e-9:
-                return lam, sol, False  # cannot fit to chi^2 = N inside the search range
+            elif g > 0 and (log_lam <= np.log(options.lambda_min) - 1e-9
+                            or any(p[0] > log_lam and p[1] < g for p in points[:-1])):
+                # cannot fit to chi^2 = N inside the search range, or a smaller weight
+                # fits worse (with the band inside the solve the misfit can rise again
+                # as the weight falls): the least misfit seen
+                best = min(points, key=lambda p: p[1])
+                return float(np.exp(best[0])), best[2], False
             elif g <= 0 and log_lam >= np.log(options.lambda_max) + 1e-9:
                 return lam, sol, False
             continue
@@ -515,6 +661,7 @@ class _Levels:
     kappa_damp: float
     kappa_smooth: float
     tau_start: np.ndarray
+    bounds: tuple | None = None  # physical bounds of the slowness change per ground cell
 
     def start(self, n_cells_level: int) -> np.ndarray:
         """Physical start vector: no slowness change, the time-zeros fitted alone."""
@@ -527,6 +674,7 @@ class _Levels:
             _weighted_blocks(self.problem, (self.operator_ground @ P).tocsr()),
             self.problem.weight * self.residual_ref, coarse.smoothing_operator, P.shape[1],
             coarse.grid.cell_m, self.kappa_damp, self.kappa_smooth,
+            bounds=None if self.bounds is None else _block_bounds(self.bounds, P),
         )
 
 
@@ -539,6 +687,22 @@ class _Choice:
     method: str
     note: str
     slope: float = 1.0  # d log chi^2 / d log lambda near the choice
+
+
+def _block_bounds(bounds, P):
+    """Bounds of the coarse cells: the mean of their fine cells' bounds."""
+    count = np.asarray(P.sum(axis=0)).ravel()
+    return tuple(np.asarray(P.T @ b).ravel() / np.maximum(count, 1) for b in bounds)
+
+
+def _slowness_change_bounds(problem: InverseProblem):
+    """Lower and upper slowness change of each ground cell about the reference
+    that keep it inside the band; None when the band is applied by clipping."""
+    if not problem.options.bounds_in_solve:
+        return None
+    s_min, s_max = problem.slowness_bounds_ns_per_m
+    reference = problem.reference_slowness_ns_per_m[problem.ground_columns]
+    return s_min - reference, s_max - reference
 
 
 def _weighted_blocks(problem: InverseProblem, operator_ground) -> sp.csr_matrix:
@@ -576,10 +740,16 @@ def _scaled_levels(problem: InverseProblem, G: sp.csr_matrix) -> _Levels:
         tau_start = estimate_time_zero(C, weight, residual_ref)
     else:
         tau_start = robust_time_zero(C, weight, residual_ref, loss="huber")[0]
+    bounds = _slowness_change_bounds(problem)
     fine = _ScaledProblem(_weighted_blocks(problem, Gg), weight * residual_ref, problem.smoothing_operator,
-                          n_slowness, cell, kappa_damp, kappa_smooth)
+                          n_slowness, cell, kappa_damp, kappa_smooth, bounds=bounds)
+    if problem.options.regularisation == "compact" and problem.focusing_slowness_ns_per_m is not None:
+        # the first weights come from the model given (a bent-ray step's current model)
+        change = (problem.focusing_slowness_ns_per_m - problem.reference_slowness_ns_per_m)[ground_cols]
+        fine.set_focusing_weights(*fine.focusing_weights(change * fine.scale[:n_slowness],
+                                                         problem.focusing_beta_ns_per_m))
     return _Levels(problem=problem, fine=fine, operator_ground=Gg, residual_ref=residual_ref,
-                   kappa_damp=kappa_damp, kappa_smooth=kappa_smooth, tau_start=tau_start)
+                   kappa_damp=kappa_damp, kappa_smooth=kappa_smooth, tau_start=tau_start, bounds=bounds)
 
 
 def solve_inverse_problem(problem: InverseProblem, operator, *, progress=None) -> InversionResult:
@@ -613,7 +783,20 @@ def solve_inverse_problem(problem: InverseProblem, operator, *, progress=None) -
     principle: ``chi^2 = N``, found by regula falsi in log-log between the
     bracketing trials. Without, the corner of the L-curve (log residual norm
     against log regularisation norm) at the largest curvature (Hansen, 1992).
-    The slowness is then clipped into the velocity band.
+    With ``options.bounds_in_solve`` (the default) every solve keeps the
+    ground slowness inside the velocity band (:func:`bounded_lsqr`, block
+    principal pivoting; Portugal, Judice and Vicente, 1994), so the misfit
+    that chooses lambda is that of a model inside the band; otherwise the
+    slowness is clipped into the band after the solve.
+
+    With ``options.regularisation == "compact"`` the difference rows and the
+    damping rows are then reweighted, each reweighting warm-started from the
+    last model, by ``beta / sqrt(v^2 + beta^2)`` (``v`` the cell's gradient or
+    anomaly in the last model, ``beta`` = ``problem.focusing_beta_ns_per_m``):
+    iteratively reweighted least squares for the minimum gradient support and
+    minimum support stabilisers (Portniaguine and Zhdanov, 1999; Last and
+    Kubik, 1983). With the discrepancy principle lambda is found again after
+    each reweighting.
 
     With ``options.robust`` set, iteratively reweighted least squares follows
     at the chosen lambda: the data rows are scaled by ``sqrt(w_i)``, with
@@ -640,6 +823,14 @@ def solve_inverse_problem(problem: InverseProblem, operator, *, progress=None) -
     .. [5] Holland, P. W. and Welsch, R. E. (1977), Robust regression using
        iteratively reweighted least-squares, Communications in Statistics -
        Theory and Methods 6(9), 813-827.
+    .. [6] Portniaguine, O. and Zhdanov, M. S. (1999), Focusing geophysical
+       inversion images, Geophysics 64(3), 874-887, doi:10.1190/1.1444596.
+    .. [7] Last, B. J. and Kubik, K. (1983), Compact gravity inversion,
+       Geophysics 48(6), 713-721, doi:10.1190/1.1441501.
+    .. [8] Portugal, L. F., Judice, J. J. and Vicente, L. N. (1994), A
+       comparison of block pivoting and interior-point algorithms for linear
+       least squares problems with nonnegative variables, Mathematics of
+       Computation 63(208), 625-643 (cited from memory).
     """
     G = sp.csr_matrix(operator)
     n_picks, n_cells = G.shape
@@ -653,8 +844,10 @@ def solve_inverse_problem(problem: InverseProblem, operator, *, progress=None) -
         choice = _user_lambda(levels, log)
     else:
         choice = _automatic_lambda(levels, log)
+    choice, reweightings = _focusing_pass(levels, choice, log)
     choice, robust = _robust_pass(levels, choice, log)
-    return _assembled_result(problem, G, levels.fine, choice, robust, log.search)
+    result = _assembled_result(problem, G, levels.fine, choice, robust, log.search)
+    return dataclasses.replace(result, focusing_reweightings=reweightings)
 
 
 def _user_lambda(levels: _Levels, log: _SolveLog) -> _Choice:
@@ -708,7 +901,8 @@ def _first_trial_choice(trials, method, target, on_coarse, ratio) -> int:
     chi2s = np.array([t[1].misfit ** 2 for t in trials])
     if not on_coarse:
         below = np.flatnonzero(chi2s <= target)
-        return int(below[0]) if below.size else len(trials) - 1
+        # none reaches it: the least misfit (the last trial, unless bounds made it rise again)
+        return int(below[0]) if below.size else int(np.argmin(chi2s))
     # chi^2 on the model grid is at or below the coarse grid's (finer cells
     # fit more), so start the model-grid search where the coarse curve
     # reaches 2N, or, if it never does, where it levels off near its floor
@@ -769,6 +963,50 @@ def _discrepancy_choice(levels, start, trials, slope, log) -> _Choice:
                 f"{options.lambda_min:g} to {options.lambda_max:g}; the sigmas may be too small, or "
                 "outliers or forward-model error remain" + fallback)
     return _Choice(lam, sol, "discrepancy", note, slope)
+
+
+def _focusing_pass(levels: _Levels, choice: _Choice, log: _SolveLog) -> tuple[_Choice, int]:
+    """The compact regularisation's reweightings at the chosen weight.
+
+    Each reweighting sets the minimum gradient support and minimum support
+    weights (:mod:`reconstruct.inverse.regularization`) from the last model and
+    solves again, warm-started; with the discrepancy principle the weight is
+    found again for chi^2 = N (the reweighted penalty is weaker, so the same
+    weight would overfit). Stops when fewer than 1 % of the weights change by
+    more than ``_FOCUSING_TOLERANCE`` or after ``options.focusing_iterations``.
+    Returns the new choice (its solve polished) and the number of reweightings.
+    """
+    problem, fine = levels.problem, levels.fine
+    options = problem.options
+    if options.regularisation != "compact":
+        return choice, 0
+    beta, ratio, target = problem.focusing_beta_ns_per_m, options.damping_ratio, float(problem.n_picks)
+    lam, sol, reached = choice.lam, choice.sol, None
+    previous = np.concatenate([fine.focus_rows, fine.focus_damp[:fine.n_slowness]])
+    count = 0
+    for _ in range(options.focusing_iterations):
+        rows, damping = fine.focusing_weights(sol.y, beta)
+        new = np.concatenate([rows, damping])
+        if count and np.percentile(np.abs(new - previous), 99) < _FOCUSING_TOLERANCE:
+            break
+        previous = new
+        fine.set_focusing_weights(rows, damping)
+        sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.search_tolerance)
+        log.record("fine", lam, sol)
+        count += 1
+        if choice.method == "discrepancy":
+            lam, sol, reached = _discrepancy_root(fine, options, (lam, sol), target, log, "fine", slope=choice.slope)
+        log.say(f"compact regularisation, reweighting {count}: chi-square {sol.misfit**2:.5g} at smoothing "
+                f"weight {lam:.4g} ({sol.iterations} LSQR iterations)")
+    sol = fine.solve(lam, ratio * lam, sol.y, options.max_iterations, options.tolerance)
+    log.record("fine", lam, sol)
+    note = choice.note
+    if reached is not None:
+        note = (f"chi^2 = {sol.misfit**2:.5g} for N = {problem.n_picks} picks" if reached else
+                f"chi^2 = N not reached (chi^2 {sol.misfit**2:.5g}, N = {problem.n_picks}) within lambda "
+                f"{options.lambda_min:g} to {options.lambda_max:g} with the compact regularisation")
+    note += f"; compact regularisation: {count} reweightings, beta {beta:.3g} ns/m"
+    return dataclasses.replace(choice, lam=lam, sol=sol, note=note), count
 
 
 @dataclass(frozen=True)
@@ -834,8 +1072,9 @@ def _assembled_result(problem: InverseProblem, G, fine: _ScaledProblem, choice: 
     s_min, s_max = problem.slowness_bounds_ns_per_m
     residual_unclipped = problem.time_ns - (G @ slowness + problem.time_zero_columns @ tau)
     ground_s = slowness[ground_cols]
-    n_fast = int(np.sum(ground_s < s_min))
-    n_slow = int(np.sum(ground_s > s_max))
+    # a bounded solve may leave a cell a rounding error past its bound: not clipping
+    n_fast = int(np.sum(ground_s < s_min * (1 - 1e-9)))
+    n_slow = int(np.sum(ground_s > s_max * (1 + 1e-9)))
     slowness[ground_cols] = np.clip(ground_s, s_min, s_max)
 
     predicted = G @ slowness + problem.time_zero_columns @ tau
@@ -870,6 +1109,9 @@ def _assembled_result(problem: InverseProblem, G, fine: _ScaledProblem, choice: 
         rms_before_clipping_ns=float(np.sqrt(np.mean(residual_unclipped**2))),
         chi2_after_clipping=chi2,
         rms_after_clipping_ns=float(np.sqrt(np.mean(residual**2))),
+        regularisation=options.regularisation,
+        focusing_beta_ns_per_m=(problem.focusing_beta_ns_per_m if options.regularisation == "compact" else None),
+        bounds_in_solve=bool(options.bounds_in_solve),
     )
 
 
@@ -883,9 +1125,12 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
     options.lambda_max]``, starting at ``lambda_start``: the largest weight whose
     linearised chi-square reaches ``N`` (phase 2), or, when none does, the weight
     of least linearised chi-square (phase 1). The chi-square is that of the model
-    as it will be used, its velocities clipped into the band: a rough model whose
+    as it will be used, inside the velocity band (kept inside the solve, or
+    clipped into it without ``options.bounds_in_solve``): a rough model whose
     fit depends on velocities faster than light is not chosen for its unclipped
-    fit. The floor bounds how much rougher
+    fit. With the compact regularisation the weights of its rows come from
+    ``problem.focusing_slowness_ns_per_m`` (the current model of a bent-ray
+    step: one reweighting per step). The floor bounds how much rougher
     one step may make the model; the caller's line search on the misfit through
     the nonlinear forward model checks that the step lowers it.
 
@@ -963,6 +1208,9 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
         note = (f"Occam phase 1: chi^2 = N not reached within lambda {floor:.3g} to {options.lambda_max:g}; "
                 f"the weight of least {kind} chi^2 ({occam.chi2:.5g}, N = {problem.n_picks}) among "
                 f"{len(occam.trials)} tried")
-    choice = _Choice(lam, sol, "occam", note)
-    choice, robust = _robust_pass(levels, choice, log)
-    return _assembled_result(problem, G, fine, choice, robust, log.search)
+    focused = options.regularisation == "compact" and problem.focusing_slowness_ns_per_m is not None
+    note += (f"; compact regularisation reweighted once from the current model, beta "
+             f"{problem.focusing_beta_ns_per_m:.3g} ns/m") if focused else ""
+    choice, robust = _robust_pass(levels, _Choice(lam, sol, "occam", note), log)
+    result = _assembled_result(problem, G, fine, choice, robust, log.search)
+    return dataclasses.replace(result, focusing_reweightings=int(focused))

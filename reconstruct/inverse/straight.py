@@ -20,7 +20,7 @@ from reconstruct.forward.straight_rays import straight_ray_matrix
 from reconstruct.io.tables import ExcludedPick, Nodes, Picks
 
 __all__ = ["TomographyRun", "straight_ray_tomography", "run_summary", "fit_record", "clipping_record",
-           "fit_warnings"]
+           "fit_warnings", "regularisation_record"]
 
 #: Clipping into the velocity band that raises chi-square (or the RMS misfit)
 #: by more than this fraction is reported with a warning.
@@ -210,7 +210,7 @@ def clipping_record(result: InversionResult, solve: str = "straight-ray solve") 
         rise = 0.0
         measure = ""
     warn = n > 0 and rise > CLIPPING_WARNING_FRACTION
-    record = {"solve": solve, "cells_clipped": n, "cells_clipped_at_min": int(result.n_clipped_slow),
+    record = {"solve": solve, "bounds_in_solve": bool(result.bounds_in_solve), "cells_clipped": n, "cells_clipped_at_min": int(result.n_clipped_slow),
               "cells_clipped_at_max": int(result.n_clipped_fast),
               "chi2_before": before_chi2, "chi2_after": after_chi2,
               "rms_before_ns": before_rms, "rms_after_ns": after_rms,
@@ -221,6 +221,7 @@ def clipping_record(result: InversionResult, solve: str = "straight-ray solve") 
         "ask for what the model cannot be: rays that travel partly in air, wrong node positions or "
         "time-zeros, or straight rays where the waves bend." if warn else
         (f"{n} cells were clipped into the velocity band; the misfit changed little." if n else
+         "No cell was clipped: the velocity band was kept inside the solve." if result.bounds_in_solve else
          "No cell was clipped into the velocity band."))
     return record
 
@@ -239,6 +240,25 @@ def fit_warnings(summary: dict) -> list[str]:
     if clipping.get("warning"):
         lines.append("WARNING: " + clipping["words"].removeprefix("Warning: "))
     return lines
+
+
+def regularisation_record(run: TomographyRun) -> dict:
+    """The ``regularisation`` block of ``summary.json``: smooth or compact, and the
+    compact regularisation's reweightings (for bent rays: those of the
+    straight-ray start plus one per accepted bent-ray step)."""
+    r = run.result
+    reweightings = r.focusing_reweightings
+    if run.rays == "bent" and run.start_result is not None:
+        reweightings = run.start_result.focusing_reweightings + sum(
+            int(h.get("reweightings", 0)) for h in run.history)
+    record = {"kind": r.regularisation, "reweightings": int(reweightings),
+              "bounds_in_solve": bool(r.bounds_in_solve)}
+    if r.regularisation == "compact":
+        record["focusing_beta_ns_per_m"] = r.focusing_beta_ns_per_m
+        record["focusing_fraction"] = run.options.focusing_fraction
+        record["beta_rule"] = ("beta = focusing_fraction x the smallest full-contrast anomaly of the velocity "
+                               "band about the rock slowness (ns/m)")
+    return record
 
 
 def _bent_record(run: TomographyRun) -> dict:
@@ -322,6 +342,7 @@ def run_summary(run: TomographyRun) -> dict:
             "fraction_of_ground_with_rays": float(covered.mean()) if covered.size else 0.0,
         },
         "fit": fit_record(r),
+        "regularisation": regularisation_record(run),
         "clipping": clipping_record(r, "straight-ray solve" if run.rays != "bent"
                                     else "last bent-ray step (misfit of its linearised times)"),
         **({"bent_rays": _bent_record(run)} if run.rays == "bent" else {}),

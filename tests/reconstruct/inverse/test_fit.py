@@ -94,7 +94,7 @@ def test_clipping_at_the_speed_of_light_is_recorded_and_warned(tmp_path):
     # band ends at the speed of light (scipy.constants.c, just below 0.30 m/ns)
     site, nodes, picks = _write_inputs(tmp_path / "in", sigma_written_ns=NOISE_SIGMA_NS, time_factor=0.4)
     site_, nodes_ = load_site(site), read_nodes(nodes)
-    options = InversionOptions(time_zero="none", smoothing=1e-3)
+    options = InversionOptions(time_zero="none", smoothing=1e-3, bounds_in_solve=False)
     run = straight_ray_tomography(site_, nodes_, read_picks(picks, nodes_), options)
     summary = run_summary(run)
     clipping = summary["clipping"]
@@ -119,3 +119,49 @@ def test_no_clipping_warning_when_nothing_is_clipped(tmp_path):
     clipping = run_summary(run)["clipping"]
     assert clipping["cells_clipped"] == 0 and clipping["warning"] is False
     assert clipping["chi2_after"] == pytest.approx(clipping["chi2_before"], rel=1e-12)
+
+
+def test_band_kept_inside_the_solve_clips_nothing_and_fits_better_than_clipping(tmp_path):
+    # the same data that need ground faster than light (scipy.constants.c): with
+    # the band inside the solve no cell is clipped, the fastest cells sit at the
+    # speed of light, and the misfit (recomputed from the residuals) is below
+    # that of the clipped model, since the bounded least-squares solution is the
+    # best model inside the band and the clipped one is merely inside it
+    site, nodes, picks = _write_inputs(tmp_path / "in", sigma_written_ns=NOISE_SIGMA_NS, time_factor=0.4)
+    site_, nodes_ = load_site(site), read_nodes(nodes)
+    runs = {}
+    for inside in (False, True):
+        options = InversionOptions(time_zero="none", smoothing=1e-3, bounds_in_solve=inside)
+        runs[inside] = straight_ray_tomography(site_, nodes_, read_picks(picks, nodes_), options)
+    summary = run_summary(runs[True])
+    clipping = summary["clipping"]
+    assert clipping["cells_clipped"] == 0 and clipping["warning"] is False and clipping["bounds_in_solve"]
+    assert "kept inside the solve" in clipping["words"]
+    velocity = runs[True].result.velocity_m_per_ns.reshape(runs[True].grid.shape)[runs[True].ground]
+    assert velocity.max() == pytest.approx(SPEED_OF_LIGHT_M_PER_NS, rel=1e-6)
+    sigma = np.full(runs[True].result.n_picks, NOISE_SIGMA_NS)
+    chi2 = {k: float(np.sum((r.result.residual_ns / sigma) ** 2)) for k, r in runs.items()}
+    assert chi2[True] < chi2[False]
+    assert summary["regularisation"] == {"kind": "smooth", "reweightings": 0, "bounds_in_solve": True}
+
+
+def test_compact_regularisation_is_recorded_in_the_summary(tmp_path):
+    # the command's --regularisation reaches the inversion; summary.json says
+    # which regularisation ran and how many reweightings it made, and its beta
+    # follows the stated rule: focusing_fraction x (rock slowness - 1 / c) here,
+    # the smaller full contrast of the band (c from scipy.constants)
+    site, nodes, picks = _write_inputs(tmp_path / "in", sigma_written_ns=NOISE_SIGMA_NS)
+    out = tmp_path / "out"
+    code, stdout, stderr = run_main(main, ["invert", "--site", site, "--nodes", nodes, "--picks", picks,
+                                           "--out", out, "--rays", "straight", "--regularisation", "compact",
+                                           "--time-zero", "none"])
+    assert code == 0, stderr
+    summary = json.loads((out / "summary.json").read_text())
+    record = summary["regularisation"]
+    assert record["kind"] == "compact" and record["reweightings"] >= 1
+    rock = load_site(site).rock.velocity_m_per_ns
+    expected_beta = record["focusing_fraction"] * (1 / rock - 1 / SPEED_OF_LIGHT_M_PER_NS)
+    assert record["focusing_beta_ns_per_m"] == pytest.approx(expected_beta, rel=1e-6)
+    assert f"regularisation: compact, {record['reweightings']} reweightings" in stdout
+    manifest = json.loads((out / "manifest.json").read_text())
+    assert "compact" in json.dumps(manifest)

@@ -58,6 +58,7 @@ import numpy as np
 
 from reconstruct import __version__
 from reconstruct.errors import InputError, is_whole_number
+from reconstruct.pipeline import DEFAULT_BENT_ITERATIONS
 
 __all__ = ["ChainSettings", "ChainResult", "STAGES", "run_demo", "closing_lines", "main"]
 
@@ -77,8 +78,9 @@ class ChainSettings:
     hole_share, face_share : float
         Largest fractions of the budget put in holes and on bench faces.
     bent_iterations : int
-        Bent-ray iterations after the straight-ray start (3, one fewer than the
-        library's :data:`reconstruct.pipeline.DEFAULT_BENT_ITERATIONS`, to stay within 5 minutes).
+        Bent-ray iterations after the straight-ray start (the library's
+        :data:`reconstruct.pipeline.DEFAULT_BENT_ITERATIONS`; about 10 s each on
+        the demo's 2 m grid).
     link_budget : bool
         Leave out the picks of pairs the link budget does not hear.
     pictures : bool
@@ -93,7 +95,7 @@ class ChainSettings:
     budget: int = 70
     hole_share: float = 0.6
     face_share: float = 0.15
-    bent_iterations: int = 3
+    bent_iterations: int = DEFAULT_BENT_ITERATIONS
     link_budget: bool = True
     pictures: bool = True
     workers: int | None = None

@@ -58,7 +58,7 @@ __all__ = ["DEFAULT_BENT_ITERATIONS", "ProcessingSettings", "ProcessingResult", 
            "write_interpretation", "write_processing", "interpretation_parameters"]
 
 #: Bent-ray iterations after the straight-ray start (the demo runs 3 to stay within 5 minutes).
-DEFAULT_BENT_ITERATIONS = 4
+DEFAULT_BENT_ITERATIONS = 6
 
 _RAYS = ("straight", "bent")
 _ROBUST = ("none", "huber", "tukey")

@@ -343,3 +343,23 @@ def test_bad_arrays_raise_value_errors():
         _run(grid, xyz, tx, rx, t_bad)
     with pytest.raises(ValueError, match="sigma_ns must be positive"):
         _run(grid, xyz, tx, rx, t_obs, sigma=np.zeros(tx.size))
+
+
+def test_search_starts_from_the_least_misfit_when_no_trial_reaches_the_target():
+    # Occam's phase 1 (Constable, Parker and Constable 1987, Occam's inversion,
+    # Geophysics 52(3)): when no weight reaches chi^2 = N, the weight of least
+    # misfit is taken. With the band inside the solve the misfit can rise again
+    # as the weight falls, so the least misfit need not be the smallest weight.
+    from types import SimpleNamespace
+
+    from reconstruct.inverse.solver import _first_trial_choice
+
+    def trials(chi2s):
+        return [(10.0 ** -k, SimpleNamespace(misfit=np.sqrt(c))) for k, c in enumerate(chi2s)]
+
+    rising_again = [9e6, 4e5, 6.6e4, 1.1e6, 1.5e6]
+    assert _first_trial_choice(trials(rising_again), "discrepancy", 4294.0, False, 0.1) == 2
+    falling = [9e6, 4e5, 6.6e4, 2e4]
+    assert _first_trial_choice(trials(falling), "discrepancy", 4294.0, False, 0.1) == 3
+    reaching = [9e6, 4e5, 4000.0, 3000.0]  # the first (largest) weight that reaches N
+    assert _first_trial_choice(trials(reaching), "discrepancy", 4294.0, False, 0.1) == 2

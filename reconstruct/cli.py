@@ -57,6 +57,7 @@ def progress_printer(quiet: bool):
 
 
 def _add_inversion_arguments(p: argparse.ArgumentParser):
+    from reconstruct.inverse.options import REGULARISATIONS
     from reconstruct.inverse.solver import InversionOptions
     from reconstruct.pipeline import DEFAULT_BENT_ITERATIONS, ProcessingSettings, robust_rule
 
@@ -74,7 +75,7 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
     g.add_argument("--vertical-weight", type=float, default=o.vertical_weight, metavar="W",
                    help=f"weight of roughness along z (dimensionless; default {o.vertical_weight:g}); lower it "
                         "to allow sharper vertical changes")
-    g.add_argument("--regularisation", choices=("smooth", "compact"), default=o.regularisation,
+    g.add_argument("--regularisation", choices=REGULARISATIONS, default=o.regularisation,
                    help="'smooth' (default): first differences and damping towards the reference velocity; "
                         "'compact': the same reweighted (minimum gradient support and minimum support) so "
                         "that bodies come out sharp and compact rather than smeared")

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from reconstruct.model.grid import ground_top_m
-from reconstruct.report import colours
+from reconstruct.report import colours, map_marks
 from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
 
 from plan.assess.coverage import Coverage
@@ -286,6 +286,8 @@ def _layout_map(site, coverage: Coverage, ids, xyz, kinds, links):
     ax.set_xlabel("x east (m)")
     ax.set_ylabel("y north (m)")
     ax.legend(loc="upper right", fontsize=7)
+    map_marks.draw_north_arrow(ax)
+    map_marks.draw_scale_bar(ax, grid.end_m[0] - grid.origin_m[0])
     ax.set_title("Layout: nodes, planned works (solid), exclusion zones (dashed)" +
                  (", mesh links (thin grey)" if links is not None and len(links) else ""), fontsize=9)
     return fig
@@ -317,7 +319,9 @@ def _coverage_slices(coverage: Coverage, depths_m):
         if target.any() and not target.all():
             _target_outline(ax, grid.centres_m(0), grid.centres_m(1), target.T)
         ax.set_title(f"coverage quality {depth:g} m below ground (white: target volume)", fontsize=9)
-        ax.set_ylabel("y (m)")
+        ax.set_ylabel("y north (m)")
+        map_marks.draw_north_arrow(ax, loc=(0.05, 0.55), length=0.2)
+        map_marks.draw_scale_bar(ax, grid.end_m[0] - grid.origin_m[0])
         fig.colorbar(image, ax=ax, shrink=0.85, label="quality (1 = meets standard)")
     axes[-1].set_xlabel("x east (m)")
     return fig
@@ -335,7 +339,9 @@ def _coverage_section(coverage: Coverage):
     if coverage.target[:, iy, :].any():
         _target_outline(ax, grid.centres_m(0), grid.centres_m(2), coverage.target[:, iy, :].T)
     y = grid.centres_m(1)[iy]
-    ax.set_title(f"rays per cell, vertical section at y = {y:g} m (white: target volume)", fontsize=9)
+    ax.set_title(f"rays per cell, west-east section at y = {y:g} m looking north (white: target volume)",
+                 fontsize=9)
+    map_marks.draw_scale_bar(ax, grid.end_m[0] - grid.origin_m[0])
     ax.set_xlabel("x east (m)")
     ax.set_ylabel("z elevation (m)")
     fig.colorbar(image, ax=ax, shrink=0.85, label="rays crossing the cell")

@@ -171,6 +171,7 @@ REFERENCE_LINE_COLOUR = "#333333"
 #: Markers of things with no value to show (a node with no pick).
 NO_DATA_COLOUR = "#777777"
 EXCLUSION_ZONE_COLOUR = "#555555"
+COLOUR_NAMES.update({GROUND_SURFACE_COLOUR: "light grey", EXCLUSION_ZONE_COLOUR: "dark grey"})
 #: Radio-mesh links on the plan map: thin, translucent black.
 MESH_LINK_COLOUR = OKABE_ITO["black"]
 MESH_LINK_ALPHA = 0.3

@@ -182,24 +182,27 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
         say(rendering)
         if backend is not None:
             path = out / "pictures" / "view_3d.png"
-            render.render_oblique_view(path, ground_mesh, voids_mesh, nodes_xyz_m=data.nodes_xyz_m,
-                                       works=data.site.planned_works, title=data.site.name)
+            key = render.render_oblique_view(path, ground_mesh, voids_mesh, nodes_xyz_m=data.nodes_xyz_m,
+                                             works=data.site.planned_works, zones=data.site.exclusion_zones,
+                                             title=data.site.name)
             written.append(path)
             picture_list.append({"file": "pictures/view_3d.png", "body_id": None,
-                                 "caption": "Oblique view from above: ground surface (grey), bodies "
-                                            "(orange: air-filled, faster than the rock; blue: water- or "
-                                            "clay-filled, slower), nodes (black), planned works (reddish purple)"})
+                                 "caption": "Oblique view from the south-west, from above: " + "; ".join(key)
+                                            + ". Axes in metres; the arrow points north."})
         voids_only = [b for b in analysis.bodies if b.status == STATUS_RESOLVED]
         for body in voids_only[:max_pictures]:
             say(f"slices through body {body.body_id}")
             png = render.slice_pictures(data.grid, data.velocity_m_per_ns, data.ground, data.ray_count,
-                                        analysis.labels, data.surface_m, body)
+                                        analysis.labels, data.surface_m, body, works=data.site.planned_works)
             name = f"pictures/body_{body.body_id}_slices.png"
             written.append(render.write_png_atomic(out / name, png))
             picture_list.append({"file": name, "body_id": body.body_id,
-                                 "caption": f"Body {body.body_id}: plan (top) and east-west section (bottom) "
-                                            "through its centroid; velocity (cividis), body outline "
-                                            "(in the colour of its fill), cells without rays hatched"})
+                                 "caption": f"Body {body.body_id}: plan (top) and west-east section looking north "
+                                            "(bottom) through its centroid, both to the same scale. Colour: "
+                                            "the velocity, from dark blue (slow) to yellow (fast); the line "
+                                            "around the body in the colour of its fill (orange: air, blue: "
+                                            "water or clay); hatched and paled: cells that no ray crossed; "
+                                            "blank: air above the ground."})
         if len(voids_only) > max_pictures:
             rendering += f"; slices drawn for the first {max_pictures} of {len(voids_only)} voids"
     _remove_stale_pictures(out / "pictures", {out / p["file"] for p in picture_list})

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from reconstruct.report import colours
+from reconstruct.report import colours, map_marks
 from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 from reconstruct.io.outputs import (
@@ -245,10 +245,12 @@ def _node_map_png(picks: Picks, nodes: Nodes, checks: PickChecks, xyz_m) -> byte
         ax.scatter(xyz[~ok, 0], xyz[~ok, 1], marker="x", color=colours.NO_DATA_COLOUR, label="no pick")
         ax.legend(fontsize=7)
     fig.colorbar(sc, ax=ax, label="median residual of the node's picks (ns)")
-    ax.set_xlabel("x, east (m)")
-    ax.set_ylabel("y, north (m)")
+    ax.set_xlabel("x east (m)")
+    ax.set_ylabel("y north (m)")
     ax.set_aspect("equal", adjustable="datalim")
     ax.grid(alpha=0.3)
+    map_marks.draw_north_arrow(ax)
+    map_marks.draw_scale_bar(ax, float(np.ptp(xyz[:, 0])) if len(xyz) else 1.0)
     return figure_png(fig)
 
 

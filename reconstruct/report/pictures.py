@@ -36,7 +36,7 @@ import sys
 import numpy as np
 
 from reconstruct.model.grid import Grid
-from reconstruct.report import colours
+from reconstruct.report import colours, map_marks
 
 __all__ = [
     "FAST_COLOUR",
@@ -47,6 +47,7 @@ __all__ = [
     "ground_surface",
     "render_oblique_view",
     "slice_pictures",
+    "slice_figure",
     "save_mesh",
     "write_png_atomic",
 ]
@@ -65,10 +66,6 @@ plotter.close()
 assert image.shape[:2] == (24, 32) and image.reshape(-1, image.shape[-1]).std(axis=0).max() > 0
 print("ok")
 """
-
-_VIEW_KEY = "   ".join(f"{colours.COLOUR_NAMES[colour]}: {meaning}" for colour, meaning in (
-    (FAST_COLOUR, "air-filled bodies (faster than the rock)"), (SLOW_COLOUR, "water- or clay-filled bodies (slower)"), (WORK_COLOUR, "planned works"),
-    (NODE_COLOUR, "nodes")))
 
 _BACKENDS = ("vtkEGLRenderWindow", "vtkOSOpenGLRenderWindow", "vtkXOpenGLRenderWindow")
 
@@ -127,7 +124,7 @@ def probe_offscreen_backend(timeout_s: float = 120.0):
             continue
         if process.returncode == 0 and stdout.strip().endswith("ok"):
             os.environ["VTK_DEFAULT_OPENGL_WINDOW"] = backend
-            return backend, f"off-screen rendering through {backend}"
+            return backend, "3D picture drawn off-screen (no display needed)"
         failures.append(f"{backend}: exit code {process.returncode}")
     return None, (
         "no off-screen OpenGL backend works on this machine (" + "; ".join(failures) + "); "
@@ -220,40 +217,106 @@ def ground_surface(grid: Grid, surface_m):
     return mesh
 
 
-def render_oblique_view(path, ground_mesh, voids_mesh, *, nodes_xyz_m=None, works=(),
+def _north_arrow_mesh(bounds, ground_z_m):
+    """An arrow pointing to +y (north) from the south-west corner of ``bounds`` at the height
+    ``ground_z_m``, and the position of its letter N. A tenth of the plan extent long."""
+    import pyvista
+
+    x0, x1, y0, y1 = bounds[:4]
+    size = 0.1 * max(x1 - x0, y1 - y0)
+    base = np.array([x0, y0, ground_z_m])
+    arrow = pyvista.Arrow(start=base, direction=(0.0, 1.0, 0.0), scale=size, tip_length=0.35, tip_radius=0.12,
+                          shaft_radius=0.04)
+    return arrow, base + np.array([0.0, 1.25 * size, 0.0])
+
+
+def _round_bounds(bounds):
+    """Bounds widened to round values, each axis spanning an even number of round steps, so that
+    three labels per axis (ends and middle) are round numbers."""
+    out = []
+    for lo, hi in zip(bounds[::2], bounds[1::2]):
+        step = map_marks.scale_bar_length_m(max(hi - lo, 1e-6))
+        lo_r, hi_r = np.floor(lo / step) * step, np.ceil(hi / step) * step
+        if round((hi_r - lo_r) / step) % 2:
+            hi_r += step
+        out += [float(lo_r), float(hi_r)]
+    return out
+
+
+def _draw_works_and_zones(plotter, works, zones, ground_z_m):
+    """Planned works as thick lines; exclusion zones as thin outlines at ground level. Returns the
+    key entries for what was drawn."""
+    import pyvista
+
+    key = []
+    for work in works:
+        points = np.asarray(work.points_m, dtype=float)
+        if work.geometry == "polygon":
+            points = np.vstack([points, points[:1]])
+        plotter.add_mesh(pyvista.lines_from_points(points), color=WORK_COLOUR, line_width=4)
+    if works:
+        key.append((WORK_COLOUR, "planned works"))
+    for zone in zones:
+        xy = np.asarray(zone.polygon_xy_m, dtype=float)
+        xy = np.vstack([xy, xy[:1]])
+        points = np.column_stack([xy, np.full(len(xy), ground_z_m)])
+        plotter.add_mesh(pyvista.lines_from_points(points), color=colours.EXCLUSION_ZONE_COLOUR, line_width=2)
+    if zones:
+        key.append((colours.EXCLUSION_ZONE_COLOUR, "exclusion zones (no nodes)"))
+    return key
+
+
+def render_oblique_view(path, ground_mesh, voids_mesh, *, nodes_xyz_m=None, works=(), zones=(),
                         window_size=(1200, 800), title=""):
     """Render an oblique 3D view off-screen to a PNG file (atomically).
 
-    Call :func:`probe_offscreen_backend` first; this function assumes a
-    working backend. Returns the path.
+    The ground surface, the bodies in the colour of their fill, the nodes,
+    the planned works and the exclusion zones, with axes in metres, a north
+    arrow and a key that lists only what is drawn. Call
+    :func:`probe_offscreen_backend` first; this function assumes a working
+    backend.
+
+    Returns
+    -------
+    list of str
+        The key in words, one entry per thing drawn ("orange: air-filled
+        bodies ..."), for the picture's caption.
     """
     import pyvista
 
     from reconstruct.io.outputs import atomic_path
 
     plotter = pyvista.Plotter(off_screen=True, window_size=tuple(int(v) for v in window_size))
+    key = [(colours.GROUND_SURFACE_COLOUR, "ground surface (translucent)")]
     try:
         plotter.set_background(colours.BACKGROUND_COLOUR)
         plotter.add_mesh(ground_mesh, color=colours.GROUND_SURFACE_COLOUR, opacity=0.35, show_edges=False)
         if voids_mesh.n_cells:
             fast = np.asarray(voids_mesh.cell_data["fill_is_air"]).astype(bool)
-            for mask, colour in ((fast, FAST_COLOUR), (~fast, SLOW_COLOUR)):
+            for mask, colour, words in ((fast, FAST_COLOUR, "air-filled bodies (faster than the rock)"),
+                                        (~fast, SLOW_COLOUR, "water- or clay-filled bodies (slower)")):
                 if mask.any():
                     plotter.add_mesh(voids_mesh.extract_cells(np.flatnonzero(mask)), color=colour,
                                      smooth_shading=True)
+                    key.append((colour, words))
         if nodes_xyz_m is not None and len(nodes_xyz_m):
             plotter.add_mesh(pyvista.PolyData(np.asarray(nodes_xyz_m, dtype=float)), color=NODE_COLOUR,
                              point_size=6, render_points_as_spheres=True)
-        for work in works:
-            points = np.asarray(work.points_m, dtype=float)
-            if work.geometry == "polygon":
-                points = np.vstack([points, points[:1]])
-            plotter.add_mesh(pyvista.lines_from_points(points), color=WORK_COLOUR, line_width=4)
-        plotter.show_bounds(xtitle="x east (m)", ytitle="y north (m)", ztitle="z elevation (m)",
-                            color=colours.TEXT_COLOUR, font_size=10, location="outer")
+            key.append((NODE_COLOUR, "nodes"))
+        ground_z = float(np.max(ground_mesh.points[:, 2])) if ground_mesh.n_points else 0.0
+        key += _draw_works_and_zones(plotter, works, zones, ground_z)
+        box = _round_bounds(plotter.bounds)
+        arrow, letter_at = _north_arrow_mesh(box, ground_z)
+        plotter.add_mesh(arrow, color=colours.TEXT_COLOUR)
+        plotter.add_point_labels([letter_at], ["N (north)"], font_size=16, text_color=colours.TEXT_COLOUR,
+                                 shape=None, show_points=False, always_visible=True)
+        plotter.show_bounds(bounds=box, xtitle="x east (m)", ytitle="y north (m)",
+                            ztitle="z elevation (m)", color=colours.TEXT_COLOUR, font_size=14,
+                            location="outer", n_xlabels=3, n_ylabels=3, n_zlabels=3, fmt="%.0f")
         if title:
-            plotter.add_text(title, font_size=10, color=colours.TEXT_COLOUR)
-        plotter.add_text(_VIEW_KEY, position="lower_left", font_size=8, color=colours.TEXT_COLOUR)
+            plotter.add_text(title, font_size=12, color=colours.TEXT_COLOUR)
+        words = [f"{colours.COLOUR_NAMES[colour]}: {meaning}" for colour, meaning in key]
+        plotter.add_text("\n".join(words), position="lower_left", font_size=10, color=colours.TEXT_COLOUR)
         plotter.camera_position = "iso"
         plotter.camera.azimuth = -20
         plotter.camera.elevation = -10
@@ -261,17 +324,7 @@ def render_oblique_view(path, ground_mesh, voids_mesh, *, nodes_xyz_m=None, work
             plotter.screenshot(str(tmp))
     finally:
         plotter.close()
-    return path
-
-
-def _scale_bar_length(extent_m: float) -> float:
-    """A round length near a fifth of the extent (1, 2 or 5 times a power of ten)."""
-    target = max(extent_m / 5.0, 1e-9)
-    power = 10 ** np.floor(np.log10(target))
-    for step in (5, 2, 1):
-        if step * power <= target:
-            return float(step * power)
-    return float(power)
+    return words
 
 
 def _step_coordinates(edges):
@@ -304,66 +357,147 @@ def _draw_no_rays(axes, no_rays, extent):
         axes.contourf(xs, ys, stepped, levels=[0.5, 1.5], colors="none", hatches=[colours.NO_RAYS_HATCH])
 
 
-def _draw_slice(figure, axes, values, covered, outline, extent, labels, v_range, ground_line=None,
-                outline_colour=FAST_COLOUR):
-    from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
+def _key_entries(outline_shown, outline_colour, fill_words, no_rays_shown, ground_shown, works_shown):
+    """Key entries for only the things a slice shows."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
 
-    xlabel, ylabel, title = labels
-    shown = np.ma.masked_invalid(values.T)
-    image = axes.imshow(shown, origin="lower", extent=extent, cmap=colours.VELOCITY_MAP, vmin=v_range[0],
-                        vmax=v_range[1], interpolation="nearest", aspect="equal")
-    _draw_no_rays(axes, ~covered.T & np.isfinite(values.T), extent)
+    entries = []
+    if outline_shown:
+        entries.append((Line2D([], [], color=outline_colour, lw=1.8), f"outline of the body ({fill_words})"))
+    if no_rays_shown:
+        entries.append((Patch(facecolor=colours.NO_RAYS_VEIL_COLOUR, edgecolor=colours.NO_RAYS_HATCH_COLOUR,
+                              hatch=colours.NO_RAYS_HATCH), "no ray crossed these cells"))
+    if ground_shown:
+        entries.append((Line2D([], [], color=colours.GROUND_LINE_COLOUR, lw=1.2), "ground surface"))
+    if works_shown:
+        entries.append((Line2D([], [], color=WORK_COLOUR, lw=1.6), "planned works"))
+    return entries
+
+
+def _draw_slice(axes, view: dict, v_range, outline_colour):
+    """One slice: velocity, the no-ray veil, the body outline, the ground line, planned works,
+    a scale bar and the axis labels. ``view`` holds ``values``, ``covered``, ``outline`` (cell
+    arrays of the window, first axis horizontal), ``extent``, ``labels`` and optionally
+    ``ground_line`` and ``works`` (lists of (x, y) arrays). Returns the velocity image and
+    what was drawn, as flags for the key."""
+    values, extent = view["values"], view["extent"]
+    xlabel, ylabel, title = view["labels"]
+    image = axes.imshow(np.ma.masked_invalid(values.T), origin="lower", extent=extent, cmap=colours.VELOCITY_MAP,
+                        vmin=v_range[0], vmax=v_range[1], interpolation="nearest", aspect="equal")
+    no_rays = ~view["covered"].T & np.isfinite(values.T)
+    _draw_no_rays(axes, no_rays, extent)
+    outline = view["outline"]
     if outline.any():
         # along the cell edges, in the colour of the body's fill, on a light halo that keeps it
         # legible on both ends of the velocity map
         stepped = _stepped(outline.T, extent)
         axes.contour(*stepped, levels=[0.5], colors=[colours.BODY_OUTLINE_HALO], linewidths=3.6)
         axes.contour(*stepped, levels=[0.5], colors=[outline_colour], linewidths=1.8)
+    ground_line = view.get("ground_line")
     if ground_line is not None:
         axes.plot(*ground_line, color=colours.GROUND_LINE_COLOUR, linewidth=1.2)
-    bar = _scale_bar_length(extent[1] - extent[0])
-    axes.add_artist(AnchoredSizeBar(axes.transData, bar, f"{bar:g} m", loc="lower right", pad=0.4,
-                                    color=colours.TEXT_COLOUR, frameon=True, size_vertical=0))
+    works = view.get("works", [])
+    for line in works:
+        axes.plot(line[:, 0], line[:, 1], color=WORK_COLOUR, linewidth=1.6)
+    axes.set_xlim(extent[0], extent[1])
+    axes.set_ylim(extent[2], extent[3])
+    map_marks.draw_scale_bar(axes, extent[1] - extent[0])
     axes.set_xlabel(xlabel)
     axes.set_ylabel(ylabel)
     axes.set_title(title, fontsize=10)
-    figure.colorbar(image, ax=axes, shrink=0.85).set_label("velocity (m/ns)")
+    return image, dict(outline_shown=bool(outline.any()), no_rays_shown=bool(no_rays.any()),
+                       ground_shown=ground_line is not None, works_shown=bool(works))
 
 
-def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body) -> bytes:
-    """PNG bytes of a plan slice and an east-west section through a body's centroid.
+def _window(grid: Grid, body, margin_m: float = 12.0):
+    """Cell slices of a window around a body: its bounding box plus a margin of at least
+    ``margin_m`` or the body's own largest size, whichever is larger, clipped to the grid."""
+    lo = np.asarray(body.bbox_min_m, dtype=float)
+    hi = np.asarray(body.bbox_max_m, dtype=float)
+    pad = max(margin_m, float(np.max(hi - lo)))
+    first = grid.cell_index(np.maximum(lo - pad, grid.origin_m))[0]
+    last = grid.cell_index(np.minimum(hi + pad, np.asarray(grid.end_m) - 1e-9))[0]
+    return tuple(slice(int(a), int(b) + 1) for a, b in zip(first, last))
 
-    One picture, plan above section. Velocity in ``cividis``; the body's
-    outline in the colour of its fill; cells crossed by no ray veiled and
-    hatched; air left blank; the ground surface as a black line on the
-    section; a scale bar in metres on each (colours from
+
+def _work_lines(works, window_xy):
+    """Plan lines (x, y) of the planned works that come into a plan window."""
+    x0, x1, y0, y1 = window_xy
+    lines = []
+    for work in works:
+        points = np.asarray(work.points_m, dtype=float)[:, :2]
+        if work.geometry == "polygon":
+            points = np.vstack([points, points[:1]])
+        if (points[:, 0].max() >= x0 and points[:, 0].min() <= x1 and points[:, 1].max() >= y0
+                and points[:, 1].min() <= y1):
+            lines.append(points)
+    return lines
+
+
+def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works=()) -> bytes:
+    """PNG bytes of :func:`slice_figure`."""
+    from reconstruct.report.html import figure_png
+
+    return figure_png(slice_figure(grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works))
+
+
+def slice_figure(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works=()):
+    """A matplotlib figure of a plan slice and an east-west section through a body's centroid.
+
+    One picture, plan above section, both around the body (:func:`_window`)
+    and drawn to the same scale (the same horizontal extent, equal aspect and
+    equal widths). Velocity on the project's velocity map with its colour bar
+    in m/ns; the body's outline in the colour of its fill; cells crossed by no
+    ray veiled and hatched; air left blank; the ground surface as a black line
+    on the section; planned works on the plan; a north arrow on the plan, the
+    viewing direction in words on the section, a scale bar in metres on each,
+    and a key that lists only what is drawn (colours from
     :mod:`reconstruct.report.colours`).
     """
     from matplotlib.figure import Figure
 
     from reconstruct.interpret.bodies import FILL_AIR
-    from reconstruct.report.html import figure_png
 
     velocity = np.where(ground, np.asarray(velocity_m_per_ns, dtype=float), np.nan)
     covered = np.asarray(ray_count) > 0
     ix, iy, iz = (int(v) for v in grid.cell_index(np.asarray(body.centroid_m))[0])
     ground_v = velocity[np.isfinite(velocity)]
     v_range = (float(ground_v.min()), float(ground_v.max())) if ground_v.size else (0.0, 0.3)
+    wx, wy, wz = _window(grid, body)
     edges = [grid.edges_m(a) for a in range(3)]
+    ex, ey, ez = edges[0][wx.start:wx.stop + 1], edges[1][wy.start:wy.stop + 1], edges[2][wz.start:wz.stop + 1]
     inside = labels == body.body_id
-    outline = FAST_COLOUR if body.fill == FILL_AIR else SLOW_COLOUR
-    figure = Figure(figsize=(7.5, 7.5), layout="constrained")
-    plan_axes, section_axes = figure.subplots(2, 1)
-    _draw_slice(figure, plan_axes, velocity[:, :, iz], covered[:, :, iz], inside[:, :, iz],
-                (edges[0][0], edges[0][-1], edges[1][0], edges[1][-1]),
-                ("x east (m)", "y north (m)", f"Body {body.body_id}: plan at z = {grid.centres_m(2)[iz]:.1f} m"),
-                v_range, outline_colour=outline)
-    _draw_slice(figure, section_axes, velocity[:, iy, :], covered[:, iy, :], inside[:, iy, :],
-                (edges[0][0], edges[0][-1], edges[2][0], edges[2][-1]),
-                ("x east (m)", "z elevation (m)",
-                 f"Body {body.body_id}: section along x at y = {grid.centres_m(1)[iy]:.1f} m"),
-                v_range, ground_line=(grid.centres_m(0), np.asarray(surface_m)[:, iy]), outline_colour=outline)
-    return figure_png(figure)
+    air = body.fill == FILL_AIR
+    outline_colour = FAST_COLOUR if air else SLOW_COLOUR
+    fill_words = "air-filled: faster than the rock" if air else "water- or clay-filled: slower than the rock"
+    plan_extent = (ex[0], ex[-1], ey[0], ey[-1])
+    section_extent = (ex[0], ex[-1], ez[0], ez[-1])
+    plan = dict(values=velocity[wx, wy, iz], covered=covered[wx, wy, iz], outline=inside[wx, wy, iz],
+                extent=plan_extent, works=_work_lines(works, plan_extent),
+                labels=("x east (m)", "y north (m)",
+                        f"Body {body.body_id}: plan at z = {grid.centres_m(2)[iz]:.1f} m elevation"))
+    section = dict(values=velocity[wx, iy, wz], covered=covered[wx, iy, wz], outline=inside[wx, iy, wz],
+                   extent=section_extent,
+                   ground_line=(grid.centres_m(0)[wx], np.asarray(surface_m)[wx, iy]),
+                   labels=("x east (m)", "z elevation (m)",
+                           f"Body {body.body_id}: section west-east at y = {grid.centres_m(1)[iy]:.1f} m, "
+                           "looking north"))
+    figure = Figure(figsize=(7.5, 8.0), layout="constrained")
+    plan_axes, section_axes = figure.subplots(
+        2, 1, sharex=True, gridspec_kw={"height_ratios": [ey[-1] - ey[0], ez[-1] - ez[0]]})
+    shown = {}
+    for axes, view in ((plan_axes, plan), (section_axes, section)):
+        image, flags = _draw_slice(axes, view, v_range, outline_colour)
+        shown = {k: shown.get(k, False) or v for k, v in flags.items()}
+    plan_axes.tick_params(labelbottom=True)
+    map_marks.draw_north_arrow(plan_axes)
+    map_marks.draw_key(figure, _key_entries(outline_colour=outline_colour, fill_words=fill_words, **shown),
+                       loc="outside lower center", fontsize=8)
+    figure.colorbar(image, ax=[plan_axes, section_axes], shrink=0.6).set_label(
+        "velocity (m/ns): dark blue slow, yellow fast")
+    return figure
+
 
 def save_mesh(path, mesh):
     """Write a mesh as VTK XML poly data (``.vtp``), binary, atomically. Returns the path."""

@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 from matplotlib.image import imread
 
+from reconstruct.report import map_marks
 from reconstruct.report import pictures as render
 from reconstruct.cli import main
 from reconstruct.model.grid import Grid
@@ -58,9 +59,9 @@ def test_ground_mesh_follows_the_surface():
 
 
 def test_scale_bar_is_a_round_length():
-    assert render._scale_bar_length(80.0) == 10.0
-    assert render._scale_bar_length(33.0) == 5.0
-    assert render._scale_bar_length(9.0) == 1.0
+    assert map_marks.scale_bar_length_m(80.0) == 10.0
+    assert map_marks.scale_bar_length_m(33.0) == 5.0
+    assert map_marks.scale_bar_length_m(9.0) == 1.0
 
 
 @pytest.mark.slow
@@ -98,3 +99,42 @@ def test_without_a_backend_meshes_are_written_and_the_user_is_told(make_inversio
     # slices need no OpenGL and are still drawn
     assert (folder / "pictures" / "body_1_slices.png").is_file()
     assert "no off-screen OpenGL backend" in capsys.readouterr().out
+
+
+@pytest.mark.slow
+def test_oblique_view_key_names_only_what_is_drawn(tmp_path):
+    # a key that names a thing not drawn misleads the reader (common practice, no published source)
+    from reconstruct.io.site import ExclusionZone
+
+    backend, message = render.probe_offscreen_backend()
+    if backend is None:
+        if os.environ.get("CI"):
+            pytest.fail(f"CI must render off-screen: {message}")
+        pytest.skip(message)
+    assert "vtk" not in message.lower()  # words for the reader, not the renderer's class name
+    grid, analysis, _, _ = _ellipsoid_analysis()  # one air-filled body, nothing slow
+    voids = render.void_surfaces(grid, analysis.labels, analysis.anomaly_ns_per_m, analysis.bodies)
+    ground = render.ground_surface(grid, np.full((40, 30), 28.0))
+    zone = ExclusionZone("stockpile", ((2.0, 2.0), (8.0, 2.0), (8.0, 8.0)))
+    key = render.render_oblique_view(tmp_path / "view.png", ground, voids, zones=(zone,), window_size=(320, 240))
+    assert any(k.startswith("orange: air-filled") for k in key)
+    assert not any("water- or clay" in k for k in key)
+    assert any("exclusion zones" in k for k in key)
+    assert not any("planned works" in k or "nodes" == k.split(": ")[1] for k in key)
+
+
+@pytest.mark.slow
+def test_captions_say_what_the_colours_mean_not_the_colour_map(make_inversion_folder):
+    from reconstruct.report import colours
+
+    folder, _ = make_inversion_folder()
+    assert main(["voids", str(folder), "--quiet"]) == 0
+    content = json.loads((folder / "voids.json").read_text(encoding="utf-8"))
+    assert content["pictures"]
+    map_names = {colours.VELOCITY_MAP, colours.COVERAGE_MAP, colours.ELEVATION_MAP, colours.DIVERGING_MAP}
+    for picture in content["pictures"]:
+        caption = picture["caption"].lower()
+        assert not any(name.lower() in caption for name in map_names), caption
+    slices = [p for p in content["pictures"] if p["body_id"] is not None]
+    assert slices and "dark blue (slow) to yellow (fast)" in slices[0]["caption"]
+    assert "vtk" not in content["rendering"].lower()

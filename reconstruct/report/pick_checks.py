@@ -244,7 +244,7 @@ def _node_map_png(picks: Picks, nodes: Nodes, checks: PickChecks, xyz_m) -> byte
     if (~ok).any():
         ax.scatter(xyz[~ok, 0], xyz[~ok, 1], marker="x", color=colours.NO_DATA_COLOUR, label="no pick")
         ax.legend(fontsize=7)
-    fig.colorbar(sc, ax=ax, label="median residual of the node's picks (ns)")
+    fig.colorbar(sc, ax=ax, label="median residual of the node's picks (ns):\nblue later, red earlier than the reference")
     ax.set_xlabel("x east (m)")
     ax.set_ylabel("y north (m)")
     ax.set_aspect("equal", adjustable="datalim")

@@ -225,8 +225,8 @@ def _run_layout(site, args, out: Path, say) -> tuple[list, Path]:
     layout = design_layout(site, options)
     candidates = candidate_positions(site, options, layout)
     say(f"layout of {len(layout)} nodes, {len(candidates)} candidate positions")
-    nodes_path = write_layout_csv(out / "nodes.csv", layout)
-    written = [nodes_path, write_layout_csv(out / "candidates.csv", candidates)]
+    nodes_path = write_layout_csv(out / "nodes.csv", layout, site)
+    written = [nodes_path, write_layout_csv(out / "candidates.csv", candidates, site)]
     counts = layout.counts()
     spacing = ", ".join(f"{k} {v:.2f} m" for k, v in layout.spacing_m.items() if v is not None)
     print(f"layout: {len(layout)} of {options.budget} nodes ({counts['borehole']} in holes, {counts['face']} on "
@@ -599,7 +599,9 @@ def _cmd_optimise(args) -> int:
             node_id += "-c"
         used_ids.add(node_id)
         x, y, z = table.xyz_m[k]
-        rows.append([node_id, f"{x:.3f}", f"{y:.3f}", f"{z:.3f}", table.kinds[k] or "", table.boreholes[k] or ""])
+        depth = "" if table.depth_along_hole_m is None else table.depth_along_hole_m[k]
+        rows.append([node_id, f"{x:.3f}", f"{y:.3f}", f"{z:.3f}", table.kinds[k] or "", table.boreholes[k] or "",
+                     "" if depth == "" or not np.isfinite(depth) else f"{depth:.3f}"])
     say("coverage of the start and optimised layouts on the model grid")
     full_start = compute_coverage(site, start_xyz, standard)
     full_end = compute_coverage(site, np.asarray(pool_xyz)[result.selected], standard)
@@ -620,7 +622,8 @@ def _cmd_optimise(args) -> int:
         "candidate_pairs": result.n_candidate_pairs, "standard": standard.as_dict(),
     }
     written = [
-        write_csv_atomic(out / "nodes_optimised.csv", ["node_id", "x_m", "y_m", "z_m", "kind", "borehole"], rows),
+        write_csv_atomic(out / "nodes_optimised.csv", ["node_id", "x_m", "y_m", "z_m", "kind", "borehole",
+                                                        "depth_along_hole_m"], rows),
         write_json_atomic(out / "optimise_summary.json", summary),
     ]
     _write_manifest(out, "voidcube plan optimise", {"site": args.site, "candidates": args.candidates, "nodes": args.nodes},

@@ -205,8 +205,8 @@ def _plan_layout(site, settings: ChainSettings, plan_dir: Path, say):
     counts = layout.counts()
     say(f"layout: {len(layout)} nodes ({counts['borehole']} in holes, {counts['face']} on faces, "
         f"{counts['surface']} on the surface)")
-    written = [write_layout_csv(plan_dir / "nodes.csv", layout),
-               write_layout_csv(plan_dir / "candidates.csv", candidate_positions(site, options, layout))]
+    written = [write_layout_csv(plan_dir / "nodes.csv", layout, site),
+               write_layout_csv(plan_dir / "candidates.csv", candidate_positions(site, options, layout), site)]
     nodes = read_nodes(plan_dir / "nodes.csv")
     pairs = build_pair_graph(site, nodes, link_budget_for_site(site), progress=say)
     summary = pair_graph_summary(pairs)

@@ -26,7 +26,9 @@ import numpy as np
 
 from reconstruct.model.grid import ground_top_m
 from reconstruct.report import colours, map_marks
-from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
+from reconstruct.io.surveys import hole_deviation_rows
+from reconstruct.report.html import (escape, figure_png, hole_deviation_html, html_document, png_img_html,
+                                   table_html)
 
 from plan.assess.coverage import Coverage
 
@@ -537,6 +539,7 @@ def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> t
     body.append(png_img_html(figure_png(_layout_map(site, coverage, ids, xyz, kinds, links)),
                              alt="plan view of the nodes, planned works and exclusion zones",
                              caption="; ".join(notes) if notes else None))
+    body.append(hole_deviation_html(hole_deviation_rows(site.boreholes)))
     body.append("<h2>Coverage of the target volume</h2>")
     body.append(f"<p>Target volume: {escape(tv['description'])}; {tv['cells']:,} cells "
                 f"({tv['volume_m3']:,.0f} m&sup3;). Standard: at least {std.min_rays} rays per cell and angular "

@@ -246,7 +246,10 @@ def _cmd_check_picks(args) -> int:
 
     started = utc_now_iso()
     _check_output_folder(args.out)
+    from reconstruct.pipeline import node_positions_from_surveys
+
     site, nodes, picks = _read_inputs(args, progress_printer(args.quiet))
+    nodes, _ = node_positions_from_surveys(site, nodes, progress_printer(args.quiet))
     keep = _keep_flagged(args)
     placement, checks = check_site_picks(site, nodes, picks, snap_tolerance_m=args.snap_tolerance)
     picks_for_inversion(picks, nodes, checks, rays=args.rays, keep_flagged=keep)  # checks the flag names
@@ -285,7 +288,9 @@ def _cmd_check_inputs(args) -> int:
     print(f"site: {site.name}: grid {grid.shape[0]} x {grid.shape[1]} x {grid.shape[2]} = "
           f"{grid.n_cells:,} cells, {int(ground.sum()):,} ground")
     if args.nodes:
-        nodes = read_nodes(args.nodes)
+        from reconstruct.pipeline import node_positions_from_surveys
+
+        nodes, _ = node_positions_from_surveys(site, read_nodes(args.nodes), print)
         placement = place_nodes(nodes, grid, ground, snap_tolerance_m=args.snap_tolerance)
         print(f"nodes: {len(nodes)} read, {int(placement.snapped.sum())} would be snapped to the "
               f"ground (largest shift {placement.shift_length_m.max():.2f} m)")

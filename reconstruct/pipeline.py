@@ -155,7 +155,8 @@ class ProcessingResult:
     (empty when usable), ``run`` the inversion, and, when bodies were
     searched, ``inversion`` (the cube as the interpretation reads it),
     ``analysis`` (bodies, background, threshold) and ``screening`` (ranked
-    entries).
+    entries). ``node_positions`` says which nodes took their position from
+    the deviation survey of their hole (:func:`node_positions_from_surveys`).
     """
 
     settings: ProcessingSettings
@@ -166,6 +167,7 @@ class ProcessingResult:
     inversion: InversionFolder | None = None
     analysis: object = None
     screening: tuple | None = None
+    node_positions: dict = dataclasses.field(default_factory=dict)
 
     @property
     def velocity_m_per_ns(self) -> np.ndarray:
@@ -233,6 +235,33 @@ def interpret_inversion(inversion: InversionFolder, settings: ProcessingSettings
     return analysis, tuple(screening)
 
 
+def node_positions_from_surveys(site, nodes, progress=None):
+    """Nodes placed on the surveyed paths of their holes, and what moved, for ``summary.json``.
+
+    A node with a hole and a depth along it (column ``depth_along_hole_m``)
+    in a hole with a deviation survey takes the surveyed position
+    (:func:`reconstruct.io.tables.nodes_on_surveyed_holes`); the record lists
+    the holes' planned against surveyed positions
+    (:func:`reconstruct.io.surveys.hole_deviation_rows`).
+    """
+    from reconstruct.io.surveys import hole_deviation_rows
+    from reconstruct.io.tables import nodes_on_surveyed_holes
+
+    moved_nodes, shift = nodes_on_surveyed_holes(nodes, site.boreholes)
+    moved = np.flatnonzero(shift > 0)
+    record = {
+        "holes_with_survey": hole_deviation_rows(site.boreholes),
+        "nodes_from_surveys": int(moved.size),
+        "largest_node_shift_m": float(shift.max()) if shift.size else 0.0,
+        "moved": [{"node": nodes.ids[k], "hole": nodes.boreholes[k], "shift_m": round(float(shift[k]), 3)}
+                  for k in moved],
+    }
+    if moved.size:
+        _say(progress, f"{moved.size} node(s) placed on the surveyed paths of their holes (largest move "
+                       f"{shift.max():.2f} m from the node table's position)")
+    return moved_nodes, record
+
+
 def process_survey(site, nodes, picks, settings: ProcessingSettings = ProcessingSettings(), *,
                    executor: Executor | None = None, progress=None) -> ProcessingResult:
     """Pick checks, inversion and, when asked, bodies and screening; nothing written.
@@ -254,9 +283,11 @@ def process_survey(site, nodes, picks, settings: ProcessingSettings = Processing
         Unusable picks (unless ``settings.invert_unusable``), an unknown flag
         in ``keep_flagged``, or inputs that do not fit together.
     """
+    nodes, positions = node_positions_from_surveys(site, nodes, progress)
     checks, problems, chosen, exempt, summary = _checked_picks(site, nodes, picks, settings, progress)
     run = _invert(site, nodes, chosen, exempt, settings, executor, progress)
-    result = ProcessingResult(settings=settings, checks=checks, problems=problems, check_summary=summary, run=run)
+    result = ProcessingResult(settings=settings, checks=checks, problems=problems, check_summary=summary, run=run,
+                              node_positions=positions)
     if not settings.find_bodies:
         return result
     inversion = inversion_from_run(run)
@@ -273,7 +304,8 @@ def write_inversion(result: ProcessingResult, out, *, inputs: dict, parameters: 
     from reconstruct.report.folders import write_tomography
 
     return write_tomography(result.run, out, inputs=inputs, parameters=parameters, started=started,
-                            command=command, extra_summary={"pick_checks": result.check_summary})
+                            command=command, extra_summary={"pick_checks": result.check_summary,
+                                                            "node_positions": result.node_positions})
 
 
 def write_interpretation(inversion: InversionFolder, analysis, screening, settings: ProcessingSettings, *,

@@ -445,8 +445,21 @@ def candidate_positions(site: Site, options: LayoutOptions, layout: Layout) -> L
                   tuple(kinds[k] for k in index), tuple(holes[k] for k in index), dense.spacing_m)
 
 
-def write_layout_csv(path, layout: Layout):
-    """Write a layout as a node table (``node_id,x_m,y_m,z_m,kind,borehole``), atomically."""
-    return write_csv_atomic(path, NODE_TABLE_HEADER, (
-        [layout.ids[k], *(f"{v:.3f}" for v in layout.xyz_m[k]), layout.kinds[k], layout.boreholes[k] or ""]
-        for k in range(len(layout))))
+def write_layout_csv(path, layout: Layout, site: Site | None = None):
+    """Write a layout as a node table (``node_id,x_m,y_m,z_m,kind,borehole``), atomically.
+
+    With the ``site``, a column ``depth_along_hole_m`` gives each hole node's
+    length along its hole from the collar (blank for other nodes), so that the
+    processing can place the node on the hole's deviation survey once the hole
+    is surveyed (docs/formats.md).
+    """
+    if site is None:
+        return write_csv_atomic(path, NODE_TABLE_HEADER, (
+            [layout.ids[k], *(f"{v:.3f}" for v in layout.xyz_m[k]), layout.kinds[k], layout.boreholes[k] or ""]
+            for k in range(len(layout))))
+    holes = {h.id: h for h in site.boreholes}
+    depth = [f"{float(holes[h].depth_nearest_m(layout.xyz_m[k])[0]):.3f}" if h in holes else ""
+             for k, h in enumerate(layout.boreholes)]
+    return write_csv_atomic(path, NODE_TABLE_HEADER + ("depth_along_hole_m",), (
+        [layout.ids[k], *(f"{v:.3f}" for v in layout.xyz_m[k]), layout.kinds[k], layout.boreholes[k] or "",
+         depth[k]] for k in range(len(layout))))

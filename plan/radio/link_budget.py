@@ -355,7 +355,10 @@ def antenna_axes(site: Site, nodes: Nodes) -> np.ndarray:
                                 f"in the site description (boreholes there: {known}); fix the borehole "
                                 "column or add the hole to the site")
                 continue
-            axes[k] = holes[hole_id].direction()
+            hole = holes[hole_id]
+            # along the hole where the node sits: the surveyed path's direction there, when surveyed
+            axes[k] = (hole.direction() if hole.survey is None
+                       else hole.direction_at(hole.depth_nearest_m(nodes.xyz_m[k])[0]))
         elif kind == "borehole":
             problems.append(f"{where}: node '{nodes.ids[k]}' is of kind borehole but its borehole column "
                             "is blank; give the id of its hole so its antenna axis is known")

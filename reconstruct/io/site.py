@@ -120,7 +120,7 @@ _GROUND_KEYS = _GROUND_KINDS + ("surround_elevation_m",)
 _BENCH_KEYS = ("name", "floor_m", "polygon_m")
 _ROCK_KEYS = ("velocity_m_per_ns", "relative_permittivity",
               "conductivity_ms_per_m", "antenna_frequency_mhz")
-_BOREHOLE_KEYS = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m", "kind")
+_BOREHOLE_KEYS = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m", "kind", "survey", "survey_csv")
 _BOREHOLE_REQUIRED = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m")
 _RADAR_KEYS = ("system_performance_db", "air_ground_loss_db")
 _RADIO_KEYS = ("range_m", "gateway_m")
@@ -423,7 +423,7 @@ class Rock:
 
 @dataclass(frozen=True)
 class Borehole:
-    """A straight borehole.
+    """A borehole or blast hole: planned as a straight line, optionally with its deviation survey.
 
     Parameters
     ----------
@@ -431,13 +431,20 @@ class Borehole:
     collar_m : tuple of 3 float
         Collar position (x, y, z) in metres.
     azimuth_deg : float
-        Direction of the hole in plan, degrees clockwise from north (+y).
+        Planned direction of the hole in plan, degrees clockwise from north (+y).
     dip_deg : float
-        Angle below horizontal in degrees; 90 is vertical down.
+        Planned angle below horizontal in degrees; 90 is vertical down.
     length_m : float
         Length along the hole in metres.
     kind : {'borehole', 'blast_hole'}
         What the hole is; both can hold a string of nodes.
+    survey : tuple of (measured depth m, inclination deg, azimuth deg) or None
+        The hole as drilled: stations from its deviation survey, the first at
+        measured depth 0 (the collar), depths increasing; inclination from
+        vertical down (0 vertical, 90 horizontal), azimuth clockwise from
+        north. When given, positions along the hole follow the survey by the
+        minimum curvature method (:mod:`reconstruct.model.deviation`); the
+        straight planned line stays available as :meth:`planned_point_at`.
     """
 
     id: str
@@ -446,17 +453,36 @@ class Borehole:
     dip_deg: float
     length_m: float
     kind: str = "borehole"
+    survey: tuple[tuple[float, float, float], ...] | None = None
 
     def direction(self) -> np.ndarray:
-        """Unit vector pointing down the hole, shape (3,).
+        """Unit vector pointing down the planned hole, shape (3,).
 
         ``(cos(dip) sin(az), cos(dip) cos(az), -sin(dip))``.
         """
         az, dip = np.radians(self.azimuth_deg), np.radians(self.dip_deg)
         return np.array([np.cos(dip) * np.sin(az), np.cos(dip) * np.cos(az), -np.sin(dip)])
 
+    def planned_point_at(self, distance_m) -> np.ndarray:
+        """Position on the planned straight line at a distance along it from the collar, metres.
+
+        Shape (3,) for a scalar distance, (n, 3) for an array.
+        """
+        d = np.asarray(distance_m, dtype=float)
+        return np.asarray(self.collar_m, dtype=float) + d[..., None] * self.direction()
+
+    def _surveyed(self, distance_m):
+        from reconstruct.model.deviation import positions_along_hole
+
+        stations = np.asarray(self.survey, dtype=float)
+        d = np.asarray(distance_m, dtype=float)
+        points, tangents = positions_along_hole(stations[:, 0], stations[:, 1], stations[:, 2], self.collar_m,
+                                                d.ravel())
+        return points.reshape(d.shape + (3,)), tangents.reshape(d.shape + (3,))
+
     def point_at(self, distance_m) -> np.ndarray:
-        """Position at a distance along the hole from the collar, in metres.
+        """Position at a distance along the hole from the collar, in metres: on the surveyed
+        path when the hole has a survey, else on the planned line.
 
         Parameters
         ----------
@@ -467,8 +493,40 @@ class Borehole:
         numpy.ndarray
             Shape (3,) for a scalar, (n, 3) for an array.
         """
-        d = np.asarray(distance_m, dtype=float)
-        return np.asarray(self.collar_m, dtype=float) + d[..., None] * self.direction()
+        if self.survey is None:
+            return self.planned_point_at(distance_m)
+        return self._surveyed(distance_m)[0]
+
+    def direction_at(self, distance_m) -> np.ndarray:
+        """Unit vector down the hole at a distance along it (the survey's, else the plan's)."""
+        if self.survey is None:
+            d = np.asarray(distance_m, dtype=float)
+            return np.broadcast_to(self.direction(), d.shape + (3,)).copy()
+        return self._surveyed(distance_m)[1]
+
+    def depth_nearest_m(self, points_m, step_m: float = 0.1) -> np.ndarray:
+        """Distance along the hole (metres) of the point of the hole nearest to each given point.
+
+        Exact projection on a straight hole; on a surveyed hole the nearest of
+        samples every ``step_m``, refined by a bounded scalar minimisation
+        (scipy) to well under a millimetre.
+        """
+        p = np.atleast_2d(np.asarray(points_m, dtype=float))
+        if self.survey is None:
+            along = (p - np.asarray(self.collar_m, dtype=float)) @ self.direction()
+            return np.clip(along, 0.0, self.length_m)
+        from scipy.optimize import minimize_scalar
+
+        samples = np.linspace(0.0, self.length_m, max(2, int(np.ceil(self.length_m / step_m)) + 1))
+        path = self.point_at(samples)
+        nearest = np.argmin(((p[:, None, :] - path[None, :, :]) ** 2).sum(axis=-1), axis=1)
+        out = np.empty(len(p))
+        for k, (point, i) in enumerate(zip(p, nearest)):
+            lo, hi = samples[max(i - 1, 0)], samples[min(i + 1, samples.size - 1)]
+            found = minimize_scalar(lambda d: float(np.sum((self.point_at(d) - point) ** 2)), bounds=(lo, hi),
+                                    method="bounded", options={"xatol": 1e-6})
+            out[k] = found.x
+        return out
 
     @property
     def toe_m(self) -> np.ndarray:
@@ -883,7 +941,7 @@ def _parse(data, problems: list[str], source: str, base_dir: Path) -> Site | Non
     model = _parse_model(top.get("model", _MISSING), chk)
     ground = _parse_ground(top.get("ground", _MISSING), chk, base_dir)
     rock = _parse_rock(top.get("rock", _MISSING), chk)
-    boreholes = _parse_boreholes(top.get("boreholes", _MISSING), chk)
+    boreholes = _parse_boreholes(top.get("boreholes", _MISSING), chk, base_dir)
     works = _parse_works(top.get("planned_works", _MISSING), chk)
     zones = _parse_zones(top.get("exclusion_zones", _MISSING), chk)
     radar = _parse_radar(top.get("radar", _MISSING), chk)
@@ -1190,7 +1248,30 @@ def _parse_rock(value, chk: _Checker) -> Rock | None:
     return Rock(v, k, cond, freq)
 
 
-def _parse_boreholes(value, chk: _Checker) -> list[tuple[int, Borehole]]:
+def _parse_survey(sec: dict, path: str, chk: _Checker, base_dir: Path):
+    """The hole's deviation survey (:mod:`reconstruct.io.surveys`), None when not given; ``False``
+    when given but unusable (the problems added to ``chk``)."""
+    from reconstruct.io.surveys import read_survey_csv, survey_from_list
+
+    if "survey" in sec and "survey_csv" in sec:
+        chk.add(f"{path} has both survey and survey_csv; keep one")
+        return False
+    if "survey" in sec:
+        stations, problems = survey_from_list(sec["survey"], f"{path}.survey")
+    elif "survey_csv" in sec:
+        rel = chk.text(sec["survey_csv"], f"{path}.survey_csv", what="a file path")
+        if rel is None:
+            return False
+        stations, problems = read_survey_csv(Path(rel) if Path(rel).is_absolute() else base_dir / rel,
+                                             f"{path}.survey_csv")
+    else:
+        return None
+    for problem in problems:
+        chk.add(problem)
+    return False if stations is None else stations
+
+
+def _parse_boreholes(value, chk: _Checker, base_dir: Path = Path(".")) -> list[tuple[int, Borehole]]:
     """Valid boreholes with their position in the file's list."""
     holes, first_index = [], {}
     for i, item in enumerate(chk.items(value, "boreholes")):
@@ -1214,8 +1295,9 @@ def _parse_boreholes(value, chk: _Checker) -> list[tuple[int, Borehole]]:
                             lo_open=True, unit="m")
         kind = chk.choice(sec.get("kind", "borehole"), f"{path}.kind", HOLE_KINDS,
                           otherwise="leave it out for a borehole")
-        if None not in (hid, collar, az, dip, length, kind):
-            holes.append((i, Borehole(hid, collar, az, dip, length, kind)))
+        survey = _parse_survey(sec, path, chk, base_dir)
+        if None not in (hid, collar, az, dip, length, kind) and survey is not False:
+            holes.append((i, Borehole(hid, collar, az, dip, length, kind, survey)))
     return holes
 
 

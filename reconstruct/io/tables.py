@@ -33,8 +33,11 @@ Nodes table (:func:`read_nodes`)
 --------------------------------
 Required columns ``node_id, x_m, y_m, z_m`` (metres; x east, y north,
 z elevation up). Optional ``kind`` (``surface``, ``face`` or ``borehole``,
-case-insensitive and stored lower case; blank means unspecified, ``None``) and
-``borehole`` (an id; blank is ``None``).
+case-insensitive and stored lower case; blank means unspecified, ``None``),
+``borehole`` (an id; blank is ``None``) and ``depth_along_hole_m`` (the
+node's length along its hole from the collar, metres; blank is unknown). A
+node with a hole and a depth along it in a hole that has a deviation survey
+takes its position from the survey (:func:`nodes_on_surveyed_holes`).
 
 ======================================  ===========================================
 Input                                   Decision
@@ -45,6 +48,7 @@ blank node_id                           error naming the line
 node_id repeated                        error naming the file and BOTH lines
                                         (ids are case-sensitive, trimmed)
 coordinate blank, text, NaN or inf      error naming line, column and the text
+depth_along_hole_m text, NaN, negative  error naming line, column and the text
 kind not one of the allowed values      error naming line, text and the allowed values
 no data rows (or no header at all)      error
 ======================================  ===========================================
@@ -117,6 +121,7 @@ __all__ = [
     "Picks",
     "ExcludedPick",
     "read_nodes",
+    "nodes_on_surveyed_holes",
     "read_picks",
     "write_excluded_csv",
     "NODE_KINDS",
@@ -134,7 +139,7 @@ EXCLUDED_SAME_NODE = "transmitter and receiver are the same node"
 EXCLUDED_NOT_POSITIVE = "time <= 0 ns (before time-zero)"
 
 _NODE_REQUIRED = ("node_id", "x_m", "y_m", "z_m")
-_NODE_OPTIONAL = ("kind", "borehole")
+_NODE_OPTIONAL = ("kind", "borehole", "depth_along_hole_m")
 _PICK_REQUIRED = ("tx", "rx", "time_ns")
 _PICK_OPTIONAL = ("sigma_ns", "amplitude", "quality")
 
@@ -175,6 +180,9 @@ class Nodes:
         Path of the file the nodes came from, as given.
     ignored_columns : tuple of str
         Names of columns of the file that were not read.
+    depth_along_hole_m : ndarray, shape (n,), or None
+        Length along its hole from the collar of each node (metres; NaN where
+        not given); None when the table has no such column.
 
     Raises
     ------
@@ -190,6 +198,7 @@ class Nodes:
     lines: np.ndarray
     source: str
     ignored_columns: tuple[str, ...] = ()
+    depth_along_hole_m: np.ndarray | None = None
 
     def __post_init__(self):
         ids = tuple(str(i) for i in self.ids)
@@ -217,6 +226,11 @@ class Nodes:
         object.__setattr__(self, "lines", _readonly(lines))
         object.__setattr__(self, "source", str(self.source))
         object.__setattr__(self, "ignored_columns", tuple(self.ignored_columns))
+        if self.depth_along_hole_m is not None:
+            depth = np.asarray(self.depth_along_hole_m, dtype=np.float64)
+            if depth.shape != (n,):
+                raise ValueError(f"depth_along_hole_m has shape {depth.shape}, expected ({n},)")
+            object.__setattr__(self, "depth_along_hole_m", _readonly(depth))
 
     def __len__(self) -> int:
         return len(self.ids)
@@ -519,6 +533,50 @@ def _number(text: str) -> float | None:
     return None
 
 
+def _depth_along_hole(text: str, line: int, problems: list):
+    """The depth along the hole of a node table row: NaN when blank, None (a problem added) when bad."""
+    if not text:
+        return math.nan
+    value = _number(text)
+    if value is None or not math.isfinite(value) or value < 0:
+        problems.append(f"line {line}, column depth_along_hole_m: '{text}' is not a length >= 0; give the "
+                        "node's length along its hole from the collar in metres, or leave it blank")
+        return None
+    return value
+
+
+def nodes_on_surveyed_holes(nodes: Nodes, boreholes) -> tuple[Nodes, np.ndarray]:
+    """Node positions from the deviation surveys of their holes.
+
+    A node that names a hole with a survey (``Borehole.survey``) and gives its
+    depth along the hole takes the surveyed position at that depth (minimum
+    curvature, :mod:`reconstruct.model.deviation`); every other node keeps the
+    table's position.
+
+    Parameters
+    ----------
+    nodes : Nodes
+    boreholes : sequence of reconstruct.io.site.Borehole
+
+    Returns
+    -------
+    nodes : Nodes
+        With the surveyed positions.
+    shift_m : ndarray, shape (n,)
+        How far each node moved from the table's position (0 where it kept it).
+    """
+    shift = np.zeros(len(nodes))
+    if nodes.depth_along_hole_m is None:
+        return nodes, shift
+    holes = {h.id: h for h in boreholes if h.survey is not None}
+    xyz = np.array(nodes.xyz_m, dtype=float)
+    for k, (hole_id, depth) in enumerate(zip(nodes.boreholes, nodes.depth_along_hole_m)):
+        if hole_id in holes and np.isfinite(depth):
+            xyz[k] = holes[hole_id].point_at(float(depth))
+    shift = np.linalg.norm(xyz - nodes.xyz_m, axis=1)
+    return (nodes.with_xyz(xyz) if shift.any() else nodes), shift
+
+
 def read_nodes(path) -> Nodes:
     """Read a node table (see the module docstring for the format).
 
@@ -538,7 +596,7 @@ def read_nodes(path) -> Nodes:
         Listing every problem in the file with its line.
     """
     source, rows, problems, ignored, present = _table(path, _NODE_REQUIRED, _NODE_OPTIONAL, "node")
-    ids, xyz, kinds, boreholes, lines = [], [], [], [], []
+    ids, xyz, kinds, boreholes, depths, lines = [], [], [], [], [], []
     first_line: dict[str, int] = {}
     for line, cell in rows:
         ok = True
@@ -583,11 +641,13 @@ def read_nodes(path) -> Nodes:
                     f"use one of {', '.join(NODE_KINDS)}, or leave it blank for unspecified"
                 )
                 ok = False
-        if ok:
+        depth = _depth_along_hole(cell.get("depth_along_hole_m", ""), line, problems)
+        if ok and depth is not None:
             ids.append(node_id)
             xyz.append(point)
             kinds.append(kind)
             boreholes.append(cell.get("borehole", "") or None)
+            depths.append(depth)
             lines.append(line)
     _raise_if(problems, source)
     return Nodes(
@@ -598,6 +658,7 @@ def read_nodes(path) -> Nodes:
         lines=np.asarray(lines, dtype=np.int64),
         source=source,
         ignored_columns=ignored,
+        depth_along_hole_m=np.asarray(depths, dtype=np.float64) if "depth_along_hole_m" in present else None,
     )
 
 

@@ -24,6 +24,7 @@ __all__ = [
     "cautions_html",
     "table_html",
     "png_img_html",
+    "hole_deviation_html",
     "figure_png",
     "html_document",
 ]
@@ -137,3 +138,26 @@ def html_document(title: str, body_html: str, *, generated_by: str = "voidcube")
         "Self-contained page: no network access is needed to view it.</p>"
         "</body></html>\n"
     )
+
+
+def hole_deviation_html(rows, moved_nodes: int | None = None) -> str:
+    """A section comparing each surveyed hole's planned line with its surveyed path.
+
+    ``rows`` as :func:`reconstruct.io.surveys.hole_deviation_rows` gives them;
+    ``moved_nodes`` the number of nodes placed on the surveyed paths, when known.
+    Empty when no hole has a survey.
+    """
+    if not rows:
+        return ""
+    table = table_html(
+        ["hole", "kind", "length (m)", "survey stations", "planned toe x, y, z (m)", "surveyed toe x, y, z (m)",
+         "toe off the plan (m)", "largest offset (m)", "at depth along the hole (m)"],
+        [[r["hole"], r["kind"], r["length_m"], r["survey_stations"],
+          ", ".join(f"{v:.1f}" for v in r["planned_toe_m"]), ", ".join(f"{v:.1f}" for v in r["surveyed_toe_m"]),
+          r["toe_offset_m"], r["largest_offset_m"], r["largest_offset_at_depth_m"]] for r in rows],
+        float_format=".2f", caption="Planned straight line against the surveyed path (minimum curvature)")
+    moved = ("" if moved_nodes is None else
+             f" {moved_nodes} node(s) with a depth along their hole were placed on the surveyed path.")
+    return ("<h2>Holes as drilled</h2><p>Holes with a deviation survey: the offset is the distance between "
+            "the planned straight line and the surveyed path at the same length along the hole." + moved
+            + "</p>" + table)

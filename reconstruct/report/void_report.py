@@ -16,7 +16,7 @@ import math
 from pathlib import Path
 
 from reconstruct.errors import InputError
-from reconstruct.report.html import escape, html_document, png_img_html, table_html
+from reconstruct.report.html import escape, hole_deviation_html, html_document, png_img_html, table_html
 from reconstruct.interpret.bodies import FILL_AIR, FILL_WATER_OR_CLAY, STATUS_RESOLVED
 from reconstruct.interpret.folder import read_json_object
 from reconstruct.io.outputs import extend_manifest, utc_now_iso, write_text_atomic
@@ -197,6 +197,8 @@ def build_report_html(folder, *, summary: dict | None = None, voids: dict | None
     parts.append(f"<h2>Petrophysics</h2><p>{escape(petro.get('relation', ''))}. "
                  f"{escape(petro.get('caution', ''))} The cell arrays are in interpretation.vti.</p>")
     parts.append(_quality_section(summary, voids))
+    positions = summary.get("node_positions") or {}
+    parts.append(hole_deviation_html(positions.get("holes_with_survey", []), positions.get("nodes_from_surveys")))
     notes = voids.get("notes", [])
     if notes:
         parts.append("<h2>Notes</h2><ul>" + "".join(f"<li>{escape(n)}</li>" for n in notes) + "</ul>")

@@ -157,3 +157,23 @@ def test_a_site_without_room_is_refused():
         {"name": "everything", "polygon_m": [[-1, -1], [61, -1], [61, 41], [-1, 41]]}]})
     with pytest.raises(InputError, match="leave no room"):
         design_layout(boxed_in, LayoutOptions(budget=20))
+
+
+def test_surveyed_holes_carry_their_nodes_and_the_table_gives_the_depth_along_them(tmp_path):
+    # a hole planned vertical but drilled building to 20 degrees towards the east: its nodes sit
+    # on the surveyed path (minimum curvature; checked against wellpathpy in
+    # tests/reconstruct/model/test_deviation.py) and the node table says how far down each is
+    survey = [[0, 0, 90], [5, 5, 90], [10, 10, 90], [15, 20, 90]]
+    holes = [{**BENCHED["boreholes"][0], "survey": survey}]
+    site = parse_site({**BENCHED, "boreholes": holes})
+    hole = site.boreholes[0]
+    xyz, ids = hole_positions(site, 3.0, min_hole_depth_m=1.0)
+    depth = hole.length_m - 3.0 * np.arange(len(xyz))[::-1]
+    np.testing.assert_allclose(xyz, hole.point_at(depth), atol=1e-9)
+    assert xyz[-1, 0] > 10.5  # the toe wandered east of the planned line x = 10
+    layout = design_layout(site, LayoutOptions(budget=60))
+    write_layout_csv(tmp_path / "nodes.csv", layout, site)
+    nodes = read_nodes(tmp_path / "nodes.csv")
+    in_hole = np.array([b == "BH1" for b in nodes.boreholes])
+    assert in_hole.any() and np.isnan(nodes.depth_along_hole_m[~in_hole]).all()
+    np.testing.assert_allclose(hole.point_at(nodes.depth_along_hole_m[in_hole]), nodes.xyz_m[in_hole], atol=2e-3)

@@ -284,6 +284,11 @@ def _cmd_check_inputs(args) -> int:
     grid, ground = model_grid(site)
     print(f"site: {site.name}: grid {grid.shape[0]} x {grid.shape[1]} x {grid.shape[2]} = "
           f"{grid.n_cells:,} cells, {int(ground.sum()):,} ground")
+    if site.planned_works_dxf:
+        print(f"planned works: {len(site.planned_works)}, read with those of "
+              f"{len(site.planned_works_dxf)} DXF drawing(s)")
+    for note in site.notes:
+        print(f"note: {note}")
     if args.nodes:
         nodes = read_nodes(args.nodes)
         placement = place_nodes(nodes, grid, ground, snap_tolerance_m=args.snap_tolerance)

@@ -228,6 +228,7 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
             notes.append(f"the site file {site_file} differs from the one recorded in manifest.json "
                          f"({record.get('path')}); used as given")
     site = load_site(site_file)
+    notes.extend(site.notes)
     grid, arrays = read_cell_arrays_vti(folder / "velocity.vti", _CUBE_ARRAYS)
     site_grid = site.grid()
     if (site_grid.shape != grid.shape or not np.allclose(site_grid.origin_m, grid.origin_m, atol=1e-6)

@@ -9,7 +9,9 @@ within 1 mm. Values are invented. Unit factors: 1 ft = 0.3048 m exactly
 (2012).
 """
 
+import csv
 import hashlib
+import json
 import math
 
 import ezdxf
@@ -17,9 +19,11 @@ import numpy as np
 import pytest
 import yaml
 
+from reconstruct.cli import main
 from reconstruct.errors import InputError
 from reconstruct.io.dxf import ARC_SAGITTA_M, DxfDrawing, read_planned_works_dxf, write_faces_dxf
 from reconstruct.io.site import load_site
+from tests.cli_helpers import assert_user_error, run_main
 
 TOL_M = 1e-3  # the issue's round-trip tolerance: 1 mm
 
@@ -302,3 +306,52 @@ def test_the_reader_can_be_called_without_a_site_file(tmp_path):
     works, notes = read_planned_works_dxf(drawing, (0, 0, 70), (60, 40, 110))
     assert [w.name for w in works] == [f"works.dxf HAUL_ROAD POLYLINE {works[0].name.split()[-1]}"]
     assert any("skipped" in n for n in notes)
+
+
+# ------------------------------------------------------------------ through the command
+
+def test_check_inputs_prints_the_notes_and_a_bad_drawing_is_one_clear_error(tmp_path):
+    _draw_works(tmp_path / "works.dxf")
+    site_path = tmp_path / "site.yaml"
+    site_path.write_text(yaml.safe_dump(_site_data(_entry()), sort_keys=False))
+    code, out, err = run_main(main, ["check-inputs", "--site", site_path])
+    assert code == 0, err
+    assert "planned works: 8, read with those of 1 DXF drawing(s)" in out
+    assert "note: " in out and "ANNOTATION (1)" in out
+
+    site_path.write_text(yaml.safe_dump(_site_data(_entry(units="ft")), sort_keys=False))
+    assert_user_error(*run_main(main, ["check-inputs", "--site", site_path]),
+                      "works.dxf", "metres ($INSUNITS = 6)", "set planned_works_dxf[0].units to m")
+
+
+def _rows(path):
+    with open(path, newline="", encoding="utf-8") as handle:
+        return list(csv.DictReader(handle))
+
+
+def test_a_drawn_haul_road_is_screened_like_the_same_road_typed_in(make_inversion_folder):
+    # the fixture's site has a haul road typed in from (0, 8, 20) to (30, 8, 20); the same road drawn in mm
+    folder, site_path = make_inversion_folder()
+    assert main(["voids", str(folder), "--no-pictures", "--quiet"]) == 0
+    typed = _rows(folder / "voids.csv")
+
+    doc = ezdxf.new("R2010", setup=False)
+    doc.header["$INSUNITS"] = 4
+    road = doc.modelspace().add_lwpolyline([(0, 8000), (30000, 8000)],
+                                           dxfattribs={"layer": "ROAD", "elevation": 20000})
+    doc.saveas(site_path.parent / "road.dxf")
+    text = site_path.read_text(encoding="utf-8")
+    drawn_site = site_path.parent / "site_drawn.yaml"
+    drawn_site.write_text(text[:text.index("planned_works:")] + (
+        "planned_works_dxf:\n  - {file: road.dxf, units: mm, offset_m: [0, 0, 0], layers: {ROAD: haul_road}}\n"),
+        encoding="utf-8")
+    assert main(["voids", str(folder), "--site", str(drawn_site), "--no-pictures", "--quiet"]) == 0
+    drawn = _rows(folder / "voids.csv")
+    assert typed and len(drawn) == len(typed)
+    for a, b in zip(typed, drawn):
+        assert b["nearest_work"] == f"road.dxf ROAD LWPOLYLINE {road.dxf.handle}"
+        for key in ("standoff_m", "roof_below_work_m"):
+            assert float(b[key]) == pytest.approx(float(a[key]), abs=1e-3)
+    manifest = json.loads((folder / "manifest.json").read_text())
+    assert manifest["later_runs"][-1]["inputs"]["planned_works_dxf[0]"]["sha256"] == hashlib.sha256(
+        (site_path.parent / "road.dxf").read_bytes()).hexdigest()

@@ -202,9 +202,12 @@ def read_planned_works_dxf(drawing: DxfDrawing, box_lo_m, box_hi_m) -> tuple[lis
     mapping = {name.upper(): kind for name, kind in drawing.layers}
     by_layer: dict[str, list] = {}
     unmapped: Counter = Counter()
+    spelling: dict[str, str] = {}  # CAD layer names ignore case: one group per name, first spelling shown
     for entity in doc.modelspace():
         layer = entity.dxf.get("layer", "0")
-        if layer.upper() in mapping:
+        key = layer.upper()
+        layer = spelling.setdefault(key, layer)
+        if key in mapping:
             by_layer.setdefault(layer, []).append(entity)
         else:
             unmapped[layer] += 1

@@ -17,6 +17,9 @@ folder:
 ``pictures/*.png``             oblique 3D view (when off-screen rendering
                                works) and plan and section slices per void
                                (``body_N_slices.png``)
+``voids.dxf``, ``voids.obj``,  for mine-planning software: the bodies as DXF
+``voids.stl``,                 3D faces, OBJ and STL, and the cube as a block
+``block_model.csv``            model (see ``reconstruct.report.exchange``)
 ============================  ==================================================
 
 and appends the run to ``manifest.json``. Inputs are never modified; pictures

@@ -287,6 +287,11 @@ def _cmd_check_inputs(args) -> int:
     grid, ground = model_grid(site)
     print(f"site: {site.name}: grid {grid.shape[0]} x {grid.shape[1]} x {grid.shape[2]} = "
           f"{grid.n_cells:,} cells, {int(ground.sum()):,} ground")
+    if site.planned_works_dxf:
+        print(f"planned works: {len(site.planned_works)}, read with those of "
+              f"{len(site.planned_works_dxf)} DXF drawing(s)")
+    for note in site.notes:
+        print(f"note: {note}")
     if args.nodes:
         from reconstruct.pipeline import node_positions_from_surveys
 
@@ -341,7 +346,7 @@ def _cmd_voids(args) -> int:
               f"{entry['reasons']}")
     print(f"pictures: {content['rendering']}")
     print(f"output: {Path(args.folder)} (voids.csv, voids.json, screening.csv, interpretation.vti, voids.vtp, "
-          "ground.vtp, pictures/)")
+          "ground.vtp, pictures/; for mine planning voids.dxf, voids.obj, voids.stl, block_model.csv)")
     print("screening aid, not a design: confirm by probe drilling; a null result does not prove no void")
     return 0
 
@@ -414,7 +419,8 @@ def _add_voids_parser(sub):
         description="Find bodies in the velocity cube of an inversion folder (robust background per "
                     "depth slab, threshold from the misfit and the resolution), rank them by roof "
                     "thickness, span and stand-off from planned works, and write voids.csv, voids.json, "
-                    "screening.csv, interpretation.vti, voids.vtp, ground.vtp and pictures/ into FOLDER. "
+                    "screening.csv, interpretation.vti, voids.vtp, ground.vtp, pictures/ and, for "
+                    "mine-planning software, voids.dxf, voids.obj, voids.stl and block_model.csv into FOLDER. "
                     "A screening aid, not a design.",
         epilog=_EPILOG_UNITS)
     p.add_argument("folder", metavar="FOLDER", help="output folder of 'voidcube reconstruct invert'")

@@ -17,6 +17,9 @@ folder:
 ``pictures/*.png``             oblique 3D view (when off-screen rendering
                                works) and plan and section slices per void
                                (``body_N_slices.png``)
+``voids.dxf``, ``voids.obj``,  for mine-planning software: the bodies as DXF
+``voids.stl``,                 3D faces, OBJ and STL, and the cube as a block
+``block_model.csv``            model (see ``reconstruct.report.exchange``)
 ============================  ==================================================
 
 and appends the run to ``manifest.json``. Inputs are never modified; pictures
@@ -228,6 +231,7 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
             notes.append(f"the site file {site_file} differs from the one recorded in manifest.json "
                          f"({record.get('path')}); used as given")
     site = load_site(site_file)
+    notes.extend(site.notes)
     grid, arrays = read_cell_arrays_vti(folder / "velocity.vti", _CUBE_ARRAYS)
     site_grid = site.grid()
     if (site_grid.shape != grid.shape or not np.allclose(site_grid.origin_m, grid.origin_m, atol=1e-6)

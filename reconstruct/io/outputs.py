@@ -319,7 +319,7 @@ def sha256_of_file(path) -> str:
     return digest.hexdigest()
 
 
-def package_versions(names=("voidcube", "numpy", "scipy", "networkx", "pyvista", "vtk", "pyyaml")):
+def package_versions(names=("voidcube", "numpy", "scipy", "networkx", "pyvista", "vtk", "pyyaml", "ezdxf")):
     versions = {"python": sys.version.split()[0], "platform": platform.platform()}
     for name in names:
         try:

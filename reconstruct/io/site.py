@@ -32,6 +32,16 @@ Exactly one of three descriptions:
     rows in any order, ``#`` comment lines allowed, extra columns ignored),
     interpolated bilinearly with :class:`scipy.interpolate.RegularGridInterpolator`.
 
+Planned works from DXF drawings
+-------------------------------
+``planned_works_dxf`` lists drawings of the mine plan: each gives the
+``file`` (relative to the site file), its ``units``, the ``offset_m`` added to
+its coordinates to reach site coordinates, and ``layers`` mapping layer names
+to kinds of planned work. The drawings are read by
+:func:`reconstruct.io.dxf.read_planned_works_dxf` once the model box is known;
+their works follow those of ``planned_works``, and what was skipped is in
+``Site.notes``.
+
 Radar and radio (read by the planner)
 -------------------------------------
 ``radar`` holds the system performance in dB (default
@@ -112,7 +122,7 @@ DEFAULT_RADIO_RANGE_M = 100.0
 _MISSING = object()
 
 _TOP_KEYS = ("name", "frame", "model", "ground", "rock", "boreholes",
-             "planned_works", "exclusion_zones", "radar", "radio")
+             "planned_works", "planned_works_dxf", "exclusion_zones", "radar", "radio")
 _FRAME_KEYS = ("epsg", "description")
 _MODEL_KEYS = ("origin_m", "size_m", "cell_m")
 _GROUND_KINDS = ("flat_elevation_m", "benches", "height_grid_csv")
@@ -126,6 +136,7 @@ _RADAR_KEYS = ("system_performance_db", "air_ground_loss_db")
 _RADIO_KEYS = ("range_m", "gateway_m")
 _WORK_KEYS = ("name", "kind", "polyline_m", "polygon_m")
 _ZONE_KEYS = ("name", "polygon_m", "reason")
+_DXF_KEYS = ("file", "units", "offset_m", "layers")
 
 # Where each key belongs, to tell a user who put a key in the wrong section.
 _SECTION_OF = {
@@ -158,6 +169,11 @@ _HINTS = {
     "dip_deg": "degrees below horizontal, 90 = vertical down",
     "length_m": "the logged length in m",
     "kind": "one of " + ", ".join(PLANNED_WORK_KINDS),
+    "file": "the DXF drawing's path, relative to the site file's folder",
+    "units": "the unit of the drawing's coordinates: m, cm, mm, km, ft, us_survey_ft or in",
+    "offset_m": "[x, y, z] in m added to the drawing's coordinates to reach site coordinates "
+                "([0, 0, 0] when they are the same)",
+    "layers": "the drawing's layers and the kind of planned work on each, e.g. HAUL_ROAD: haul_road",
 }
 
 
@@ -627,6 +643,8 @@ class Site:
     source_path: str | None = None
     radar: RadarSystem = RadarSystem()
     radio: RadioNetwork = RadioNetwork()
+    planned_works_dxf: tuple = ()
+    notes: tuple[str, ...] = ()
 
     def grid(self) -> Grid:
         """The voxel grid of the model box."""
@@ -943,6 +961,7 @@ def _parse(data, problems: list[str], source: str, base_dir: Path) -> Site | Non
     rock = _parse_rock(top.get("rock", _MISSING), chk)
     boreholes = _parse_boreholes(top.get("boreholes", _MISSING), chk, base_dir)
     works = _parse_works(top.get("planned_works", _MISSING), chk)
+    drawings = _parse_drawings(top.get("planned_works_dxf", _MISSING), chk, base_dir)
     zones = _parse_zones(top.get("exclusion_zones", _MISSING), chk)
     radar = _parse_radar(top.get("radar", _MISSING), chk)
     radio = _parse_radio(top.get("radio", _MISSING), chk)
@@ -951,11 +970,14 @@ def _parse(data, problems: list[str], source: str, base_dir: Path) -> Site | Non
         if grid is not None and ground is not None:
             _check_ground_covers_model(ground, grid, chk)
         _check_boreholes_in_box(boreholes, model, chk)
+        dxf_works, notes = _read_drawings(drawings, model, chk)
+        works = works + dxf_works
     if problems:
         return None
     return Site(name=name, frame=frame, model=model, ground=ground, rock=rock,
                 boreholes=tuple(hole for _, hole in boreholes), planned_works=tuple(works),
-                exclusion_zones=tuple(zones), radar=radar, radio=radio)
+                exclusion_zones=tuple(zones), radar=radar, radio=radio,
+                planned_works_dxf=tuple(drawings), notes=tuple(notes))
 
 
 def _parse_frame(value, chk: _Checker) -> Frame:
@@ -1328,6 +1350,67 @@ def _parse_works(value, chk: _Checker) -> list[PlannedWork]:
         if None not in (name, kind, pts):
             works.append(PlannedWork(name, kind, shapes[0][:-2], pts))
     return works
+
+
+def _parse_drawings(value, chk: _Checker, base_dir: Path) -> list:
+    """The entries of ``planned_works_dxf`` (the drawings are read later, against the model box)."""
+    from reconstruct.io.dxf import DXF_UNITS, DxfDrawing
+
+    drawings = []
+    for i, item in enumerate(chk.items(value, "planned_works_dxf")):
+        path = f"planned_works_dxf[{i}]"
+        sec = chk.section(item, path, _DXF_KEYS, _DXF_KEYS)
+        if sec is None:
+            continue
+        file = chk.text(sec.get("file", _MISSING), f"{path}.file", what="a file path")
+        units = sec.get("units", _MISSING)
+        if units is not _MISSING:
+            units = chk.choice(units, f"{path}.units", tuple(DXF_UNITS), show=repr,
+                               otherwise="give the unit the drawing was made in")
+        offset = chk.vector(sec.get("offset_m", _MISSING), f"{path}.offset_m")
+        layers = _parse_layer_kinds(sec.get("layers", _MISSING), f"{path}.layers", chk)
+        if None not in (file, units, offset, layers) and units is not _MISSING:
+            drawings.append(DxfDrawing(base_dir / file, units, offset, layers, key=path))
+    return drawings
+
+
+def _parse_layer_kinds(value, path: str, chk: _Checker):
+    if value is _MISSING:
+        return None
+    if not isinstance(value, dict) or not value:
+        chk.add(f"{path} must be a section of layer names and kinds, e.g. HAUL_ROAD: haul_road "
+                f"(got {_describe(value)})")
+        return None
+    pairs, seen = [], {}
+    for layer, kind in value.items():
+        layer_name = str(layer).strip()
+        if isinstance(layer, bool) or not layer_name:
+            chk.add(f"{path}: layer name {layer!r} is not a layer name; put the name in quotes")
+            return None
+        if layer_name.upper() in seen:
+            chk.add(f"{path}: layers {seen[layer_name.upper()]!r} and {layer_name!r} are the same "
+                    "layer (CAD layer names ignore case); keep one")
+            return None
+        seen[layer_name.upper()] = layer_name
+        if chk.choice(kind, f"{path}.{layer_name}", PLANNED_WORK_KINDS, show=repr) is None:
+            return None
+        pairs.append((layer_name, kind))
+    return tuple(pairs)
+
+
+def _read_drawings(drawings, model: ModelBox, chk: _Checker) -> tuple[list[PlannedWork], list[str]]:
+    from reconstruct.io.dxf import read_planned_works_dxf
+
+    works, notes = [], []
+    for drawing in drawings:
+        try:
+            found, said = read_planned_works_dxf(drawing, model.origin_m, model.end_m)
+        except InputError as exc:
+            chk.problems.extend(exc.problems)
+            continue
+        works.extend(found)
+        notes.extend(said)
+    return works, notes
 
 
 def _parse_zones(value, chk: _Checker) -> list[ExclusionZone]:

@@ -27,6 +27,8 @@ from reconstruct.io.outputs import (
 )
 from reconstruct.model.petrophysics import SOIL_FIT_CAUTION, petrophysics_arrays
 from reconstruct.report import pictures as render
+from reconstruct.report.exchange import (BLOCK_CLASSES, stl_precision_m, write_block_model_csv,
+                                         write_void_exchange)
 from reconstruct.report.html import CAUTIONS
 
 __all__ = ["write_tomography", "write_void_outputs"]
@@ -135,6 +137,26 @@ def _csv_value(value):
     return value
 
 
+def _mine_planning_note(stl_precision: float) -> dict:
+    """What ``voids.json`` says about the files for mine-planning software."""
+    note = {
+        "coordinates": "site coordinates in metres: x east, y north, z elevation",
+        "files": {
+            "voids.dxf": "each body's surface as 3DFACE triangles on layer body_<body_id>",
+            "voids.obj": "each body's surface as object and group body_<body_id>",
+            "voids.stl": "the surfaces of all bodies together (binary STL, 32-bit floats)",
+            "block_model.csv": "one row per ground cell: centre, size, every array of interpretation.vti, class",
+        },
+        "block_model_classes": dict(BLOCK_CLASSES),
+        "note": "the surfaces are the isosurfaces of voids.vtp, not cautious envelopes",
+        "stl_precision_m": stl_precision,
+    }
+    if stl_precision > 1e-3:
+        note["stl_caution"] = (f"voids.stl keeps coordinates this far from 0 only to about {stl_precision:.2g} m "
+                               "(STL stores 32-bit floats); use voids.obj or voids.dxf, which keep millimetres")
+    return note
+
+
 def _remove_stale_pictures(folder: Path, keep) -> None:
     """Remove pictures an earlier run wrote that this run did not, so none outlives its body."""
     if not folder.is_dir():
@@ -160,7 +182,7 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
     written.append(write_csv_atomic(out / "screening.csv", SCREENING_COLUMNS,
                                     ([_csv_value(r[c]) for c in SCREENING_COLUMNS] for r in screening_rows)))
     petro = petrophysics_arrays(data.velocity_m_per_ns, data.ground)
-    written.append(write_cell_arrays_vti(out / "interpretation.vti", data.grid, {
+    cube = {
         "velocity_m_per_ns": data.velocity_m_per_ns,
         **petro,
         "background_velocity_m_per_ns": 1.0 / analysis.background_slowness_ns_per_m,
@@ -168,12 +190,16 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
         "body_id": analysis.labels,
         "ray_count": data.ray_count.astype(np.int32),
         "ground": data.ground,
-    }))
+    }
+    written.append(write_cell_arrays_vti(out / "interpretation.vti", data.grid, cube))
     say(f"{len(analysis.bodies)} bodies; writing isosurfaces")
     voids_mesh = render.void_surfaces(data.grid, analysis.labels, analysis.anomaly_ns_per_m, analysis.bodies)
     ground_mesh = render.ground_surface(data.grid, data.surface_m)
     written.append(render.save_mesh(out / "voids.vtp", voids_mesh))
     written.append(render.save_mesh(out / "ground.vtp", ground_mesh))
+    say("writing the bodies and the block model for mine planning")
+    written.extend(write_void_exchange(out, voids_mesh, title=data.site.name))
+    written.append(write_block_model_csv(out / "block_model.csv", data.grid, cube, analysis.bodies))
 
     picture_list = []
     rendering = "pictures not requested (--no-pictures)"
@@ -229,13 +255,15 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
                                                    float(ground_k.max())],
             "ground_cells_with_water_content": int(np.isfinite(theta).sum()),
         },
+        "mine_planning": _mine_planning_note(stl_precision_m(voids_mesh)),
         "rendering": rendering,
         "pictures": picture_list,
         "notes": list(data.notes) + list(analysis.notes),
     }
     written.append(write_json_atomic(out / "voids.json", content))
+    drawings = {f"planned_works_dxf[{i}]": d.path for i, d in enumerate(data.site.planned_works_dxf)}
     extend_manifest(out, command="voidcube reconstruct voids", inputs={
-        "site": data.site_path, "velocity": out / "velocity.vti", "summary": out / "summary.json",
+        "site": data.site_path, **drawings, "velocity": out / "velocity.vti", "summary": out / "summary.json",
         "residuals": out / "residuals.csv"}, parameters=parameters,
         outputs=[str(Path(p).relative_to(out)) for p in written], started=started)
     return content

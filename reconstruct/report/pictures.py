@@ -180,13 +180,16 @@ def void_surfaces(grid: Grid, labels, anomaly_ns_per_m, bodies):
         level = 0.5 * abs(body.peak_anomaly_ns_per_m)
         # a band of zeros around the box keeps the surface closed where the body touches the edge
         field = np.pad(np.where(field > 0, field, 0.0), 1)
-        origin = np.asarray(grid.origin_m) + (np.array([s.start for s in padded]) - 1) * np.asarray(grid.cell_m)
+        # contoured in a frame at the grid's origin: VTK's contour points are 32-bit floats, which keep
+        # only about 0.5 m at site coordinates of 6e6 m; shifted back below in 64-bit floats
+        origin = (np.array([s.start for s in padded]) - 1) * np.asarray(grid.cell_m)
         sub_grid = Grid(tuple(origin), grid.cell_m, field.shape)
         image = _image(sub_grid, {"anomaly": field}).cell_data_to_point_data()
         surface = image.contour([level], scalars="anomaly")
         if surface.n_cells == 0:
             continue
         surface = surface.extract_surface(algorithm=None).triangulate()
+        surface.points = np.asarray(surface.points, dtype=np.float64) + np.asarray(grid.origin_m, dtype=np.float64)
         surface.clear_data()
         surface.cell_data["body_id"] = np.full(surface.n_cells, body.body_id, dtype=np.int32)
         surface.cell_data["fill_is_air"] = np.full(surface.n_cells, int(body.fill == FILL_AIR), dtype=np.uint8)

@@ -166,6 +166,41 @@ def _remove_stale_pictures(folder: Path, keep) -> None:
             path.unlink()
 
 
+def _draw_pictures(data: InversionFolder, analysis, ground_mesh, voids_mesh, max_pictures: int, written: list, say):
+    """The 3D view (when off-screen rendering works) and the slices through each void; the files
+    are appended to ``written``. Returns (the picture list of voids.json, the rendering note)."""
+    out = data.path
+    picture_list = []
+    backend, rendering = render.probe_offscreen_backend()
+    say(rendering)
+    if backend is not None:
+        path = out / "pictures" / "view_3d.png"
+        key = render.render_oblique_view(path, ground_mesh, voids_mesh, nodes_xyz_m=data.nodes_xyz_m,
+                                         works=data.site.planned_works, zones=data.site.exclusion_zones,
+                                         title=data.site.name)
+        written.append(path)
+        picture_list.append({"file": "pictures/view_3d.png", "body_id": None,
+                             "caption": "Oblique view from the south-west, from above: " + "; ".join(key)
+                                        + ". Axes in metres; the arrow points north."})
+    voids_only = [b for b in analysis.bodies if b.status == STATUS_RESOLVED]
+    for body in voids_only[:max_pictures]:
+        say(f"slices through body {body.body_id}")
+        png = render.slice_pictures(data.grid, data.velocity_m_per_ns, data.ground, data.ray_count,
+                                    analysis.labels, data.surface_m, body, works=data.site.planned_works)
+        name = f"pictures/body_{body.body_id}_slices.png"
+        written.append(render.write_png_atomic(out / name, png))
+        picture_list.append({"file": name, "body_id": body.body_id,
+                             "caption": f"Body {body.body_id}: plan (top) and west-east section looking north "
+                                        "(bottom) through its centroid, both to the same scale. Colour: "
+                                        "the velocity, from dark blue (slow) to yellow (fast); the line "
+                                        "around the body in the colour of its fill (orange: air, blue: "
+                                        "water or clay); hatched and paled: cells that no ray crossed; "
+                                        "blank: air above the ground."})
+    if len(voids_only) > max_pictures:
+        rendering += f"; slices drawn for the first {max_pictures} of {len(voids_only)} voids"
+    return picture_list, rendering
+
+
 def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: bool = True,
                        max_pictures: int = 20, parameters: dict, started: str, progress=None) -> dict:
     """Write the void outputs into the inversion folder; returns the content of ``voids.json``."""
@@ -201,36 +236,9 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
     written.extend(write_void_exchange(out, voids_mesh, title=data.site.name))
     written.append(write_block_model_csv(out / "block_model.csv", data.grid, cube, analysis.bodies))
 
-    picture_list = []
-    rendering = "pictures not requested (--no-pictures)"
+    picture_list, rendering = [], "pictures not requested (--no-pictures)"
     if pictures:
-        backend, rendering = render.probe_offscreen_backend()
-        say(rendering)
-        if backend is not None:
-            path = out / "pictures" / "view_3d.png"
-            key = render.render_oblique_view(path, ground_mesh, voids_mesh, nodes_xyz_m=data.nodes_xyz_m,
-                                             works=data.site.planned_works, zones=data.site.exclusion_zones,
-                                             title=data.site.name)
-            written.append(path)
-            picture_list.append({"file": "pictures/view_3d.png", "body_id": None,
-                                 "caption": "Oblique view from the south-west, from above: " + "; ".join(key)
-                                            + ". Axes in metres; the arrow points north."})
-        voids_only = [b for b in analysis.bodies if b.status == STATUS_RESOLVED]
-        for body in voids_only[:max_pictures]:
-            say(f"slices through body {body.body_id}")
-            png = render.slice_pictures(data.grid, data.velocity_m_per_ns, data.ground, data.ray_count,
-                                        analysis.labels, data.surface_m, body, works=data.site.planned_works)
-            name = f"pictures/body_{body.body_id}_slices.png"
-            written.append(render.write_png_atomic(out / name, png))
-            picture_list.append({"file": name, "body_id": body.body_id,
-                                 "caption": f"Body {body.body_id}: plan (top) and west-east section looking north "
-                                            "(bottom) through its centroid, both to the same scale. Colour: "
-                                            "the velocity, from dark blue (slow) to yellow (fast); the line "
-                                            "around the body in the colour of its fill (orange: air, blue: "
-                                            "water or clay); hatched and paled: cells that no ray crossed; "
-                                            "blank: air above the ground."})
-        if len(voids_only) > max_pictures:
-            rendering += f"; slices drawn for the first {max_pictures} of {len(voids_only)} voids"
+        picture_list, rendering = _draw_pictures(data, analysis, ground_mesh, voids_mesh, max_pictures, written, say)
     _remove_stale_pictures(out / "pictures", {out / p["file"] for p in picture_list})
 
     ground_k = petro["relative_permittivity"][data.ground]

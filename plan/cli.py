@@ -104,11 +104,13 @@ def _write_survey(out: Path, ids, survey) -> list:
 
     bad = np.flatnonzero(survey.outlier)
     return [
-        write_csv_atomic(out / "picks.csv", ["tx", "rx", "time_ns", "sigma_ns"],
-                         ([ids[a], ids[b], f"{t:.3f}", f"{s:.3f}"]
-                          for a, b, t, s in zip(survey.tx, survey.rx, survey.time_ns, survey.sigma_ns))),
-        write_csv_atomic(out / "true_time_zero.csv", ["node_id", "time_zero_ns"],
-                         ([ids[k], f"{survey.time_zero_ns[k]:.4f}"] for k in range(len(ids)))),
+        write_csv_atomic(out / "picks.csv", ["tx", "rx", "time_ns", "sigma_ns", "shot_time_s"],
+                         ([ids[a], ids[b], f"{t:.3f}", f"{s:.3f}", f"{h:.1f}"]
+                          for a, b, t, s, h in zip(survey.tx, survey.rx, survey.time_ns, survey.sigma_ns,
+                                                   survey.shot_time_s))),
+        write_csv_atomic(out / "true_time_zero.csv", ["node_id", "time_zero_ns", "clock_drift_ns_per_h"],
+                         ([ids[k], f"{survey.time_zero_ns[k]:.4f}", f"{survey.clock_drift_ns_per_h[k]:.4f}"]
+                          for k in range(len(ids)))),
         write_csv_atomic(out / "gross_errors.csv", ["tx", "rx", "error_ns"],
                          ([ids[survey.tx[k]], ids[survey.rx[k]], f"{survey.outlier_error_ns[k]:.3f}"] for k in bad)),
     ]

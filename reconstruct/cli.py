@@ -58,6 +58,7 @@ def progress_printer(quiet: bool):
 
 def _add_inversion_arguments(p: argparse.ArgumentParser):
     from reconstruct.inverse.options import REGULARISATIONS
+    from reconstruct.inverse.time_zero import TIME_ZERO_MODELS
     from reconstruct.inverse.solver import InversionOptions
     from reconstruct.pipeline import DEFAULT_BENT_ITERATIONS, ProcessingSettings, robust_rule
 
@@ -84,10 +85,12 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
     g.add_argument("--velocity-max", type=float, default=o.velocity_max_m_per_ns, metavar="M_PER_NS",
                    help=f"highest velocity kept, m/ns (default {o.velocity_max_m_per_ns:g}: air; never above "
                         "c = 0.2998)")
-    g.add_argument("--time-zero", choices=("clock", "delay", "none"), default=o.time_zero,
+    g.add_argument("--time-zero", choices=TIME_ZERO_MODELS, default=o.time_zero,
                    help="time-zero offset per node: 'clock' (default) t = t_ray + tau_rx - tau_tx "
                         "for node clock offsets, reported relative to their mean; 'delay' "
-                        "t = t_ray + tau_tx + tau_rx for instrument delays; 'none'")
+                        "t = t_ray + tau_tx + tau_rx for instrument delays; 'clock_drift' clock offsets "
+                        "that drift linearly during the survey (needs a shot_time_s column in the picks; "
+                        "drifts in ns per hour in time_zero.csv); 'none'")
     g.add_argument("--lsqr-iterations", type=int, default=o.max_iterations, metavar="N",
                    help=f"LSQR iteration limit per solve (default {o.max_iterations})")
     g.add_argument("--default-sigma", type=float, default=o.default_sigma_ns, metavar="NS",

@@ -6,7 +6,14 @@ exact inverse of the forward model): eikonal travel-time fields with the air
 included (``rays="bent"``, default), or straight-ray times (``rays="straight"``,
 for tests of the straight-ray inversion); plus the nodes' time-zero offsets
 (clock offsets, ``time_zero_ns[rx] - time_zero_ns[tx]``), Gaussian pick
-noise and, when the truth model asks for them, gross outliers.
+noise and, when the truth model asks for them, gross outliers and clock drift.
+
+Clock drift: each node's clock offset then changes linearly with the shot
+time, ``tau_k(t) = offset_k + drift_k (t - t_mid)`` (the ``clock_drift``
+time-zero model of :mod:`reconstruct.inverse.time_zero`), with drifts drawn
+with the spread ``clock_drift_sigma_ns_per_h`` from a stream of their own
+(switching drift on changes no other number). Node ``k`` fires at ``k``
+times ``shot_interval_s``; every pick carries its shot time.
 
 Gross outliers stand for cycle skips and picks made on noise: a seeded share
 ``outlier_fraction`` of the picks (chosen at random, exactly
@@ -45,6 +52,8 @@ class SimulatedSurvey:
     time_zero_ns: np.ndarray  # per node: the true time-zero offset (clock offset), mean zero
     node_xyz_m: np.ndarray
     outlier_error_ns: np.ndarray | None = None  # per pick: the gross error added (0 for good picks)
+    shot_time_s: np.ndarray | None = None  # per pick: when its shot was fired, s
+    clock_drift_ns_per_h: np.ndarray | None = None  # per node: the true drift, mean zero
 
     @property
     def outlier(self) -> np.ndarray:
@@ -127,10 +136,25 @@ def simulate_picks(
     offsets -= offsets.mean()
     noise = rng.normal(0.0, truth.noise_sigma_ns, tx.size) if truth.noise_sigma_ns > 0 else np.zeros(tx.size)
     time_ns = travel + offsets[rx] - offsets[tx] + noise
+    shot_s = tx * float(truth.shot_interval_s)
+    drift = _clock_drifts(truth, len(nodes))
+    if drift.any():
+        from reconstruct.inverse.time_zero import time_zero_matrix
+
+        time_ns = time_ns + time_zero_matrix(tx, rx, len(nodes), "clock_drift", shot_s) @ np.r_[
+            np.zeros(len(nodes)), drift]
     error = gross_errors(time_ns, truth.outlier_fraction, truth.outlier_size_ns, seed=truth.seed)
     time_ns = time_ns + error
     sigma = np.full(tx.size, max(truth.noise_sigma_ns, 0.01))
-    return SimulatedSurvey(tx, rx, time_ns, sigma, travel, offsets, xyz, error)
+    return SimulatedSurvey(tx, rx, time_ns, sigma, travel, offsets, xyz, error, shot_s, drift)
+
+
+def _clock_drifts(truth: TruthModel, n_nodes: int) -> np.ndarray:
+    """The nodes' true clock drifts (ns per hour, mean zero), from a random stream of their own."""
+    if truth.clock_drift_sigma_ns_per_h <= 0:
+        return np.zeros(n_nodes)
+    drift = np.random.default_rng([truth.seed, 1]).normal(0.0, truth.clock_drift_sigma_ns_per_h, n_nodes)
+    return drift - drift.mean()
 
 
 def gross_errors(time_ns, fraction: float, size_ns: float, *, seed: int) -> np.ndarray:
@@ -180,6 +204,7 @@ def drop_missed_picks(survey: SimulatedSurvey, margin_db, *, fade_sigma_db: floa
     missed = margin < 0.0
     keep = ~missed
     error = None if survey.outlier_error_ns is None else survey.outlier_error_ns[keep]
+    shot = None if survey.shot_time_s is None else survey.shot_time_s[keep]
     return SimulatedSurvey(survey.tx[keep], survey.rx[keep], survey.time_ns[keep], survey.sigma_ns[keep],
                            survey.true_travel_time_ns[keep], survey.time_zero_ns, survey.node_xyz_m,
-                           error), missed
+                           error, shot, survey.clock_drift_ns_per_h), missed

@@ -17,6 +17,8 @@ file (``yaml.safe_load`` only; unknown keys rejected; every problem listed)::
       seed: 7
       outlier_fraction: 0.02              # share of picks made gross outliers (default 0)
       outlier_size_ns: 20                 # typical size of an outlier's error, ns (default 20)
+      clock_drift_sigma_ns_per_h: 2       # spread of the nodes' clock drifts, ns per hour (default 0)
+      shot_interval_s: 30                 # time between shots: node k fires at k times this (default 30)
     refine: 2                             # simulation cells per model cell along each axis
 
 Fill velocities (Davis and Annan, 1989, table of typical properties): air
@@ -75,6 +77,8 @@ class TruthModel:
     source: str = "truth"
     outlier_fraction: float = 0.0
     outlier_size_ns: float = 20.0
+    clock_drift_sigma_ns_per_h: float = 0.0
+    shot_interval_s: float = 30.0
 
 
 def _number(value, path, problems, *, positive=False, minimum=None):
@@ -167,8 +171,11 @@ def parse_truth(data, source: str = "truth") -> TruthModel:
     if not isinstance(noise, dict):
         problems.append("noise must be a mapping")
         noise = {}
-    _unknown(noise, ["sigma_ns", "time_zero_sigma_ns", "seed", "outlier_fraction", "outlier_size_ns"],
-             "noise.", problems)
+    _unknown(noise, ["sigma_ns", "time_zero_sigma_ns", "seed", "outlier_fraction", "outlier_size_ns",
+                     "clock_drift_sigma_ns_per_h", "shot_interval_s"], "noise.", problems)
+    drift = _number(noise.get("clock_drift_sigma_ns_per_h", 0.0), "noise.clock_drift_sigma_ns_per_h", problems,
+                    minimum=0.0)
+    interval = _number(noise.get("shot_interval_s", 30.0), "noise.shot_interval_s", problems, positive=True)
     sigma = _number(noise.get("sigma_ns", 0.5), "noise.sigma_ns", problems, minimum=0.0)
     time_zero = _number(noise.get("time_zero_sigma_ns", 0.0), "noise.time_zero_sigma_ns", problems, minimum=0.0)
     outlier_fraction = _number(noise.get("outlier_fraction", 0.0), "noise.outlier_fraction", problems,
@@ -186,7 +193,8 @@ def parse_truth(data, source: str = "truth") -> TruthModel:
     if problems:
         raise InputError(problems, source=source)
     return TruthModel(background, tuple(bodies), sigma, time_zero, int(seed), int(refine), source,
-                      outlier_fraction=outlier_fraction, outlier_size_ns=outlier_size)
+                      outlier_fraction=outlier_fraction, outlier_size_ns=outlier_size,
+                      clock_drift_sigma_ns_per_h=drift, shot_interval_s=interval)
 
 
 def load_truth(path) -> TruthModel:

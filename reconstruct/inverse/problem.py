@@ -71,13 +71,17 @@ class InverseProblem:
         With ``options.regularisation == "compact"``: the model whose anomaly
         sets the first weights of the compact regularisation (a bent-ray step
         passes its current model). None: the first solve is smooth.
+    shot_time_s : ndarray, shape (n_picks,), optional
+        When each pick's shot was fired (seconds); needed by the
+        ``clock_drift`` time-zero model.
 
     Attributes
     ----------
     sigma_used_ns, weight : ndarray, shape (n_picks,)
         The sigmas used (given or default) and the data weights ``1 / sigma``.
-    time_zero_columns : scipy.sparse.csr_matrix, shape (n_picks, n_nodes)
-        :func:`reconstruct.inverse.time_zero.time_zero_matrix` for ``options.time_zero``.
+    time_zero_columns : scipy.sparse.csr_matrix, shape (n_picks, n_nodes) or (n_picks, 2 n_nodes)
+        :func:`reconstruct.inverse.time_zero.time_zero_matrix` for ``options.time_zero``
+        (offsets, then drifts with ``clock_drift``).
     ground_columns : ndarray of int
         Flat cell numbers of the unknowns.
     slowness_bounds_ns_per_m : tuple of 2 float
@@ -103,6 +107,7 @@ class InverseProblem:
     coarse: CoarseLevel | None = None
     robust_exempt: np.ndarray | None = None
     focusing_slowness_ns_per_m: np.ndarray | None = None
+    shot_time_s: np.ndarray | None = None
     sigma_used_ns: np.ndarray = field(init=False, repr=False)
     weight: np.ndarray = field(init=False, repr=False)
     time_zero_columns: sp.csr_matrix = field(init=False, repr=False)
@@ -122,7 +127,8 @@ class InverseProblem:
         object.__setattr__(self, "sigma_used_ns", sigma)
         object.__setattr__(self, "weight", 1.0 / sigma)
         object.__setattr__(self, "time_zero_columns",
-                           time_zero_matrix(self.tx, self.rx, self.n_nodes, self.options.time_zero))
+                           time_zero_matrix(self.tx, self.rx, self.n_nodes, self.options.time_zero,
+                                            self.shot_time_s))
         object.__setattr__(self, "ground_columns", np.flatnonzero(self.ground_flat))
         # 0.30 m/ns is the customary round figure; nothing travels faster than c
         bounds = (1.0 / min(self.options.velocity_max_m_per_ns, AIR_VELOCITY_M_PER_NS),
@@ -137,6 +143,11 @@ class InverseProblem:
     @property
     def n_picks(self) -> int:
         return int(self.time_ns.size)
+
+    @property
+    def n_time_zero(self) -> int:
+        """Number of time-zero unknowns (columns of ``time_zero_columns``)."""
+        return int(self.time_zero_columns.shape[1])
 
     @property
     def sigma_given(self) -> bool:
@@ -174,6 +185,11 @@ def _checked_arrays(problem: InverseProblem) -> dict:
         if exempt.shape != (n_picks,):
             raise ValueError("robust_exempt must have one entry per pick")
         out["robust_exempt"] = exempt
+    if problem.shot_time_s is not None:
+        shot = np.asarray(problem.shot_time_s, dtype=float)
+        if shot.shape != (n_picks,) or not np.all(np.isfinite(shot)):
+            raise ValueError("shot_time_s must hold one finite time per pick")
+        out["shot_time_s"] = shot
     if problem.focusing_slowness_ns_per_m is not None:
         focus = np.asarray(problem.focusing_slowness_ns_per_m, dtype=float)
         if focus.shape != s_ref.shape:
@@ -207,6 +223,7 @@ def build_inverse_problem(
     sigma_ns=None,
     options: InversionOptions = InversionOptions(),
     robust_exempt=None,
+    shot_time_s=None,
 ) -> InverseProblem:
     """The inverse problem on a grid: reference model from the rock velocity,
     first differences weighted by ``options``, and, when lambda is automatic and
@@ -214,13 +231,16 @@ def build_inverse_problem(
     (:func:`reconstruct.inverse.multilevel.choose_coarsening_factor`), the
     coarse level it is searched on.
 
+    Many parameters because each is one array or setting of the picks that
+    :class:`InverseProblem` holds (times, nodes, sigmas, shot times, exemptions).
+
     Parameters
     ----------
     grid : Grid
     ground : ndarray of bool, shape grid.shape
     rock_velocity_m_per_ns : float
         Reference velocity of every ground cell.
-    time_ns, tx, rx, n_nodes, sigma_ns, options, robust_exempt
+    time_ns, tx, rx, n_nodes, sigma_ns, options, robust_exempt, shot_time_s
         See :class:`InverseProblem`.
     """
     ground = np.asarray(ground, dtype=bool)
@@ -235,5 +255,5 @@ def build_inverse_problem(
         time_ns=time_ns, tx=tx, rx=rx, n_nodes=n_nodes, ground_flat=ground.ravel(),
         reference_slowness_ns_per_m=reference_slowness(ground, rock_velocity_m_per_ns),
         smoothing_operator=smoothing, cell_m=grid.cell_m, sigma_ns=sigma_ns, options=options,
-        coarse=coarse, robust_exempt=robust_exempt,
+        coarse=coarse, robust_exempt=robust_exempt, shot_time_s=shot_time_s,
     )

@@ -1061,14 +1061,17 @@ def _assembled_result(problem: InverseProblem, G, fine: _ScaledProblem, choice: 
     slowness = problem.reference_slowness_ns_per_m.copy()
     slowness[ground_cols] += x[:n_slowness]
     if options.time_zero == "none":
-        tau = np.zeros(n_nodes)
+        tau = np.zeros(problem.n_time_zero)
     else:
         tau = x[n_slowness:].copy()
-        if options.time_zero == "clock":
+        if options.time_zero in ("clock", "clock_drift"):
             used = np.zeros(n_nodes, dtype=bool)
             used[problem.tx] = True
             used[problem.rx] = True
-            tau[used] -= tau[used].mean()  # the gauge: a common shift changes no time
+            # the gauge: a common shift of every clock (and, with drift, a common drift) changes no time
+            for block in range(problem.n_time_zero // n_nodes):
+                part = tau[block * n_nodes:(block + 1) * n_nodes]
+                part[used] -= part[used].mean()
     s_min, s_max = problem.slowness_bounds_ns_per_m
     residual_unclipped = problem.time_ns - (G @ slowness + problem.time_zero_columns @ tau)
     ground_s = slowness[ground_cols]
@@ -1168,7 +1171,7 @@ def solve_occam_step(problem: InverseProblem, operator, *, lambda_start: float, 
         x = sol.y / fine.scale
         slowness = problem.reference_slowness_ns_per_m.copy()
         slowness[ground_cols] = np.clip(slowness[ground_cols] + x[:n_slowness], s_min, s_max)
-        tau = x[n_slowness:] if options.time_zero != "none" else np.zeros(problem.n_nodes)
+        tau = x[n_slowness:] if options.time_zero != "none" else np.zeros(problem.n_time_zero)
         residual = problem.time_ns - (G @ slowness + problem.time_zero_columns @ tau)
         return float(np.sum((problem.weight * residual) ** 2))
 

@@ -139,10 +139,17 @@ def straight_ray_tomography(
     G = straight_ray_matrix(grid, xyz[picks.tx[used]], xyz[picks.rx[used]], progress=ray_progress)
     _say(progress, f"operator: {G.shape[0]:,} rays, {G.nnz:,} non-zeros")
 
+    if options.time_zero == "clock_drift" and picks.shot_time_s is None:
+        from reconstruct.errors import InputError
+
+        raise InputError(f"{picks.source}: the clock-drift time-zero model needs the time of each shot; add a "
+                         "column shot_time_s (seconds from the start of the survey) to the pick table, or "
+                         "choose another --time-zero")
     problem = build_inverse_problem(
         grid, ground, site.rock.velocity_m_per_ns, picks.time_ns[used], picks.tx[used], picks.rx[used],
         len(nodes), sigma_ns=None if picks.sigma_ns is None else picks.sigma_ns[used], options=options,
         robust_exempt=None if robust_exempt is None else np.asarray(robust_exempt, dtype=bool)[used],
+        shot_time_s=None if picks.shot_time_s is None else picks.shot_time_s[used],
     )
     if problem.coarse is not None:
         factor = problem.coarse.factor
@@ -274,6 +281,15 @@ def _bent_record(run: TomographyRun) -> dict:
     return record
 
 
+def _time_zero_figures(time_zero, n_nodes: int) -> dict:
+    """The largest offset and, with the drift model, the largest drift."""
+    tau = np.asarray(time_zero, dtype=float)
+    out = {"largest_abs_ns": float(np.max(np.abs(tau[:n_nodes]))) if tau.size else 0.0}
+    if tau.size > n_nodes:
+        out["largest_abs_drift_ns_per_h"] = float(np.max(np.abs(tau[n_nodes:])))
+    return out
+
+
 def run_summary(run: TomographyRun) -> dict:
     r = run.result
     ground = run.ground
@@ -326,9 +342,12 @@ def run_summary(run: TomographyRun) -> dict:
             "convention": {
                 "clock": "t_obs = t_ray + tau_rx - tau_tx; tau relative to the mean over nodes",
                 "delay": "t_obs = t_ray + tau_tx + tau_rx",
+                "clock_drift": "t_obs = t_ray + tau_rx(t) - tau_tx(t), tau_k(t) = offset_k + drift_k (t - t_mid); "
+                               "offsets and drifts relative to their means over nodes; t_mid the middle of "
+                               "the shot times",
                 "none": "no time-zero terms",
             }[run.options.time_zero],
-            "largest_abs_ns": float(np.max(np.abs(r.time_zero_ns))) if r.time_zero_ns.size else 0.0,
+            **_time_zero_figures(r.time_zero_ns, len(run.nodes)),
         },
         "velocity_m_per_ns": {
             "band": [run.options.velocity_min_m_per_ns, run.options.velocity_max_m_per_ns],

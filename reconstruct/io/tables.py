@@ -57,8 +57,10 @@ Picks table (:func:`read_picks`)
 --------------------------------
 Required columns ``tx, rx, time_ns`` (node ids and first-arrival time in
 nanoseconds after time-zero). Optional ``sigma_ns`` (standard deviation of the
-pick, ns), ``amplitude`` (any unit; may be negative) and ``quality`` (free
-text, kept as a trimmed string). Read against a :class:`Nodes` table.
+pick, ns), ``amplitude`` (any unit; may be negative), ``quality`` (free
+text, kept as a trimmed string) and ``shot_time_s`` (when the shot was
+fired, seconds from any fixed origin such as the start of the survey; for
+the clock-drift time-zero model). Read against a :class:`Nodes` table.
 
 =========================================  =========================================
 Input                                      Decision
@@ -141,7 +143,7 @@ EXCLUDED_NOT_POSITIVE = "time <= 0 ns (before time-zero)"
 _NODE_REQUIRED = ("node_id", "x_m", "y_m", "z_m")
 _NODE_OPTIONAL = ("kind", "borehole", "depth_along_hole_m")
 _PICK_REQUIRED = ("tx", "rx", "time_ns")
-_PICK_OPTIONAL = ("sigma_ns", "amplitude", "quality")
+_PICK_OPTIONAL = ("sigma_ns", "amplitude", "quality", "shot_time_s")
 
 _MAX_SHOWN = 20
 _NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?", re.ASCII)
@@ -308,6 +310,7 @@ class Picks:
     source: str
     n_rows: int
     ignored_columns: tuple[str, ...] = ()
+    shot_time_s: np.ndarray | None = None
 
     def __post_init__(self):
         time_ns = np.asarray(self.time_ns, dtype=np.float64)
@@ -324,7 +327,7 @@ class Picks:
         for name in ("tx", "rx", "lines"):
             object.__setattr__(self, name, vector(name, getattr(self, name), np.int64))
         object.__setattr__(self, "time_ns", _readonly(time_ns))
-        for name in ("sigma_ns", "amplitude"):
+        for name in ("sigma_ns", "amplitude", "shot_time_s"):
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, vector(name, getattr(self, name), np.float64))
         if self.quality is not None:
@@ -371,6 +374,7 @@ class Picks:
             amplitude=take(self.amplitude),
             quality=quality,
             lines=self.lines[sel],
+            shot_time_s=take(self.shot_time_s),
         )
 
 
@@ -531,6 +535,16 @@ def _number(text: str) -> float | None:
     if _NUMBER.fullmatch(text) or _SPECIAL.fullmatch(text):
         return float(text)
     return None
+
+
+def _pick_shot_time(text: str, line: int, problems: list) -> float:
+    """The shot time of a pick row (seconds); a problem when blank or not a finite number."""
+    value = _number(text) if text else None
+    if value is None or not math.isfinite(value):
+        problems.append(f"line {line}, column shot_time_s: '{text}' is not a time in seconds; give every pick "
+                        "the time its shot was fired (seconds from the start of the survey), or drop the column")
+        return math.nan
+    return value
 
 
 def _depth_along_hole(text: str, line: int, problems: list):
@@ -750,8 +764,8 @@ def read_picks(path, nodes: Nodes) -> Picks:
     if not isinstance(nodes, Nodes):
         raise TypeError(f"nodes must be a Nodes table (got {type(nodes).__name__})")
     source, rows, problems, ignored, present = _table(path, _PICK_REQUIRED, _PICK_OPTIONAL, "pick")
-    has_sigma, has_amp, has_quality = (c in present for c in _PICK_OPTIONAL)
-    kept = {k: [] for k in ("tx", "rx", "time", "sigma", "amp", "quality", "line")}
+    has_sigma, has_amp, has_quality, has_shot_time = (c in present for c in _PICK_OPTIONAL)
+    kept = {k: [] for k in ("tx", "rx", "time", "sigma", "amp", "quality", "line", "shot")}
     excluded: list[ExcludedPick] = []
     first_line: dict[tuple[int, int], int] = {}
     for line, cell in rows:
@@ -771,6 +785,7 @@ def read_picks(path, nodes: Nodes) -> Picks:
             continue
         sigma = _pick_sigma(cell["sigma_ns"], line, problems) if has_sigma else math.nan
         amp = _pick_amplitude(cell["amplitude"], line, problems) if has_amp else math.nan
+        shot = _pick_shot_time(cell["shot_time_s"], line, problems) if has_shot_time else math.nan
         pair = (tx, rx)
         if pair in first_line:
             problems.append(
@@ -780,7 +795,7 @@ def read_picks(path, nodes: Nodes) -> Picks:
         if len(problems) > n_before:
             continue
         first_line[pair] = line
-        for key, value in zip(kept, (tx, rx, time_ns, sigma, amp, cell.get("quality", ""), line)):
+        for key, value in zip(kept, (tx, rx, time_ns, sigma, amp, cell.get("quality", ""), line, shot)):
             kept[key].append(value)
     _raise_if(problems, source)
     return Picks(
@@ -795,6 +810,7 @@ def read_picks(path, nodes: Nodes) -> Picks:
         source=source,
         n_rows=len(rows),
         ignored_columns=ignored,
+        shot_time_s=np.asarray(kept["shot"], dtype=np.float64) if has_shot_time else None,
     )
 
 

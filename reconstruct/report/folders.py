@@ -89,9 +89,12 @@ def write_tomography(run: TomographyRun, out_dir, *, inputs: dict, parameters: d
         ))
     n_tx = np.bincount(picks.tx[u], minlength=len(ids))
     n_rx = np.bincount(picks.rx[u], minlength=len(ids))
+    drift = r.time_zero_ns[len(ids):]  # the clock-drift model's second block, ns per hour
     written.append(write_csv_atomic(
-        out / "time_zero.csv", ["node_id", "time_zero_ns", "picks_as_tx", "picks_as_rx"],
-        ([ids[k], f"{r.time_zero_ns[k]:.4f}", int(n_tx[k]), int(n_rx[k])] for k in range(len(ids))),
+        out / "time_zero.csv", ["node_id", "time_zero_ns", "picks_as_tx", "picks_as_rx"]
+        + (["clock_drift_ns_per_h"] if drift.size else []),
+        ([ids[k], f"{r.time_zero_ns[k]:.4f}", int(n_tx[k]), int(n_rx[k])]
+         + ([f"{drift[k]:.4f}"] if drift.size else []) for k in range(len(ids))),
     ))
     shift = run.placement.shift_m
     written.append(write_csv_atomic(

@@ -100,7 +100,8 @@ def test_simulate_writes_a_pick_table_that_reconstruct_reads(files, tmp_path):
     # at 0.12 m/ns that is 16.7 ns before clock offsets and noise
     assert picks.time_ns.min() > 5 and picks.time_ns.max() < 300
     with open(out, newline="", encoding="utf-8") as f:
-        assert next(csv.reader(f)) == ["tx", "rx", "time_ns", "sigma_ns"]
+        assert next(csv.reader(f)) == ["tx", "rx", "time_ns", "sigma_ns", "shot_time_s"]
+    np.testing.assert_allclose(picks.shot_time_s, 30.0 * picks.tx)  # node k fires at k x 30 s by default
     assert stdout.strip() == (
         f"{N_NODES * (N_NODES - 1)} synthetic picks written to {out} (noise 0.3 ns, time-zero offsets "
         f"sd 1 ns, times {picks.time_ns.min():.1f} to {picks.time_ns.max():.1f} ns)")
@@ -126,6 +127,26 @@ def test_simulate_one_way_quiet_and_true_time_zero(files, tmp_path):
     tau = np.array([float(r["time_zero_ns"]) for r in rows])
     assert abs(tau.mean()) < 1e-3  # mean zero, written to 1e-4 ns
     assert tau.std() > 0.2
+
+
+def test_simulate_adds_clock_drift_from_a_stream_of_its_own(files, tmp_path):
+    # drifting clocks add tau_rx(t) - tau_tx(t) with tau_k(t) = drift_k (t - t_mid): the clock-drift
+    # model (reconstruct.inverse.time_zero); every other number of the survey stays the same
+    from reconstruct.inverse.time_zero import time_zero_matrix
+
+    plain, drifting = tmp_path / "a" / "picks.csv", tmp_path / "b" / "picks.csv"
+    assert _simulate(files, plain, "--quiet")[0] == 0
+    files["truth"].write_text(TRUTH_YAML.replace("seed: 3}", "seed: 3, clock_drift_sigma_ns_per_h: 4,"
+                                                             " shot_interval_s: 60}"), encoding="utf-8")
+    assert _simulate(files, drifting, "--quiet")[0] == 0
+    nodes = read_nodes(files["nodes"])
+    a, b = read_picks(plain, nodes), read_picks(drifting, nodes)
+    with open(drifting.parent / "true_time_zero.csv", newline="", encoding="utf-8") as f:
+        drift = np.array([float(r["clock_drift_ns_per_h"]) for r in csv.DictReader(f)])
+    assert abs(drift.mean()) < 1e-3 and drift.std() > 1.0
+    np.testing.assert_allclose(b.shot_time_s, 60.0 * b.tx)
+    expected = time_zero_matrix(b.tx, b.rx, len(nodes), "clock_drift", b.shot_time_s) @ np.r_[0 * drift, drift]
+    np.testing.assert_allclose(b.time_ns - a.time_ns, expected, atol=2e-3)  # written to 1e-3 ns
 
 
 def test_simulate_is_repeatable(files, tmp_path):

@@ -359,7 +359,7 @@ def scene_figure(data: SceneData):
     scene = {f"{name}axis": dict(axis_style, title={"text": title}, range=list(limits))
              for name, title, limits in zip("xyz", titles, data.box_m)}
     scene.update(aspectmode="manual", aspectratio=dict(zip("xyz", (float(r) for r in ratio))),
-                 camera={"eye": {"x": -1.4, "y": -1.6, "z": 1.1}})
+                 camera={"eye": {"x": -0.85, "y": -1.15, "z": 0.75}})
     layout = go.Layout(template="none", scene=scene, margin={"l": 0, "r": 0, "t": 10, "b": 0},
                        paper_bgcolor=colours.BACKGROUND_COLOUR, font={"color": colours.TEXT_COLOUR},
                        uirevision="keep", showlegend=False)
@@ -371,7 +371,8 @@ def _json_for_script(value) -> str:
     return json.dumps(value, separators=(",", ":")).replace("<", "\\u003c").replace(">", "\\u003e")
 
 
-def _controls_html(data: SceneData, body_ids) -> str:
+def _controls_html(data: SceneData, body_ids) -> tuple:
+    """The controls above the view (layers, section) and below it (choosing a body)."""
     boxes = []
     for key, words, colour in LAYERS:
         swatch = (f'<span class="swatch" style="background:{colour}"></span>' if colour else "")
@@ -382,9 +383,10 @@ def _controls_html(data: SceneData, body_ids) -> str:
     section = ('<p class="scene-section">Velocity section: <select id="scene-section-axis">' + axes
                + '</select> <input type="range" id="scene-section-position" min="0" max="0" value="0">'
                ' <span id="scene-section-label"></span></p>') if data.sections and data.sections["range"] else ""
-    return ('<div class="scene-layers">' + " ".join(boxes) + "</div>" + section
-            + '<p>Click a body in the view, or choose it here: <select id="scene-body-choice">'
-            '<option value="">(none)</option>' + choices + "</select></p>")
+    above = '<div class="scene-layers">' + " ".join(boxes) + "</div>" + section
+    below = ('<p>Click a body in the view, or choose it here, to see its row of the void table: '
+             '<select id="scene-body-choice"><option value="">(none)</option>' + choices + "</select></p>")
+    return above, below
 
 
 def _rows_html(data: SceneData, voids: dict, body_table: Callable[[dict], str]) -> str:
@@ -441,10 +443,9 @@ function voidcubeScene(gd, sections) {
     slider.value = Math.floor(slider.max / 2);
     return drawSection();
   };
-  var rows = Array.prototype.slice.call(document.querySelectorAll('.scene-body-row'));
   var choice = document.getElementById('scene-body-choice');
   var showBody = function (id) {
-    rows.forEach(function (r) { r.hidden = (r.dataset.body !== String(id)); });
+    document.querySelectorAll('.scene-body-row').forEach(function (r) { r.hidden = (r.dataset.body !== String(id)); });
     choice.value = (id === null) ? '' : String(id);
   };
   boxes.forEach(function (b) { b.addEventListener('change', applyLayers); });
@@ -491,15 +492,19 @@ def scene_html(folder, voids: dict, *, body_table: Callable[[dict], str]) -> str
         return f"<p>The 3D view is left out: {escape(error)}.</p>"
     figure = scene_figure(data)
     body_ids = [body_id for body_id, *_ in data.bodies]
-    post = f"voidcubeScene(document.getElementById('{_DIV_ID}'), {_json_for_script(data.sections)});"
+    # plotly draws before the parser reaches the controls below the view: start once the page is read
+    post = (f"var start = function () {{ voidcubeScene(document.getElementById('{_DIV_ID}'), "
+            f"{_json_for_script(data.sections)}); }}; if (document.readyState === 'loading') "
+            "{ document.addEventListener('DOMContentLoaded', start); } else { start(); }")
     plot = plotly.io.to_html(figure, include_plotlyjs=True, full_html=False, div_id=_DIV_ID,
                              default_height="620px", default_width="100%", post_script=post,
                              config={"displaylogo": False, "responsive": True})
     notes = "".join(f"<li>{escape(note)}</li>" for note in data.notes)
+    above, below = _controls_html(data, body_ids)
     return (_STYLE + _SCENE_SCRIPT
             + "<p>Drag to turn the scene, scroll to zoom, right-drag to move it; drawn to true scale "
               "(no vertical exaggeration). Tick or untick a layer to show or hide it. The velocity section "
               "shows only ground cells crossed by rays; cells in the air and cells no ray crosses are left "
               "blank, because the velocity there says nothing.</p>"
-            + _controls_html(data, body_ids) + plot + _rows_html(data, voids, body_table)
+            + above + plot + below + _rows_html(data, voids, body_table)
             + (f"<ul>{notes}</ul>" if notes else ""))

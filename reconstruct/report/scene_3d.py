@@ -359,7 +359,7 @@ def scene_figure(data: SceneData):
     scene = {f"{name}axis": dict(axis_style, title={"text": title}, range=list(limits))
              for name, title, limits in zip("xyz", titles, data.box_m)}
     scene.update(aspectmode="manual", aspectratio=dict(zip("xyz", (float(r) for r in ratio))),
-                 camera={"eye": {"x": -0.85, "y": -1.15, "z": 0.75}})
+                 camera={"eye": {"x": -1.0, "y": -1.35, "z": 0.85}})
     layout = go.Layout(template="none", scene=scene, margin={"l": 0, "r": 0, "t": 10, "b": 0},
                        paper_bgcolor=colours.BACKGROUND_COLOUR, font={"color": colours.TEXT_COLOUR},
                        uirevision="keep", showlegend=False)

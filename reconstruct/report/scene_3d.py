@@ -18,9 +18,11 @@ zones. A piece that is missing is left out and said so under the view; the
 report is written all the same.
 
 Colours come from :mod:`reconstruct.report.colours` only. The sections show
-the velocity in the velocity map of the static pictures, sampled from
-matplotlib's own table so that both read alike; cells in the air and cells
-crossed by no ray are left blank, because the velocity there says nothing.
+the velocity, the slowness anomaly or the ray count in the colour maps of the
+static pictures (velocity, diverging and coverage maps), sampled from
+matplotlib's own tables so that both read alike; in the velocity and the
+anomaly, cells in the air and cells crossed by no ray are left blank, because
+the velocity there says nothing.
 
 The page's own script (:data:`_SCENE_SCRIPT`) does three things: it shows a
 trace only while every layer the trace belongs to is ticked (a translucent
@@ -47,7 +49,8 @@ from reconstruct.model.grid import Grid
 from reconstruct.report import colours
 from reconstruct.report.html import escape
 
-__all__ = ["LAYERS", "SceneData", "read_scene_data", "velocity_sections", "scene_figure", "scene_html"]
+__all__ = ["LAYERS", "SECTION_QUANTITIES", "SceneData", "read_scene_data", "cube_sections", "scene_figure",
+           "scene_html"]
 
 #: The layers the reader shows or hides: key, words on the page, colour of the swatch (None: no swatch).
 LAYERS = (
@@ -59,7 +62,7 @@ LAYERS = (
     ("holes", "boreholes and blast holes", colours.HOLE_COLOUR),
     ("nodes", "nodes", colours.NODE_COLOUR),
     ("exclusion", "exclusion zones (outline on the ground)", colours.EXCLUSION_ZONE_COLOUR),
-    ("section", "velocity section", None),
+    ("section", "section through the cube", None),
 )
 #: Layers hidden when the page opens (the section would hide the bodies under it).
 _HIDDEN_AT_START = ("section",)
@@ -69,6 +72,18 @@ _SECTION_AXES = (("z", "horizontal slice (constant elevation)"),
                  ("y", "east-west section (constant y north)"),
                  ("x", "north-south section (constant x east)"))
 
+#: What a section can show: key, cell array, words with the unit, colour map, cells drawn
+#: ("covered": ground cells crossed by rays; "ground": every ground cell), decimals kept,
+#: and whether the colour scale is centred on zero (then it spans plus and minus the 99th
+#: percentile of the size of the values).
+SECTION_QUANTITIES = (
+    ("velocity", "velocity_m_per_ns", "velocity (m/ns)", colours.VELOCITY_MAP, "covered", 4, False),
+    ("anomaly", "slowness_anomaly_ns_per_m", "slowness anomaly (ns/m): slowness minus the background; "
+     "positive is slower", colours.DIVERGING_MAP, "covered", 4, True),
+    ("rays", "ray_count", "ray count (rays crossing the cell)", colours.COVERAGE_MAP, "ground", 0, False),
+)
+
+_CENTRED_PERCENTILE = 99.0
 _DIV_ID = "voidcube-scene"
 _GROUND_OPACITY = 0.35
 _INDICATION_OPACITY = 0.45
@@ -89,7 +104,7 @@ class SceneData:
     works: tuple = ()  # (name, kind, points (n, 3)), polygons closed
     holes: tuple = ()  # (id, kind, collar (3,), toe (3,))
     exclusion_zones: tuple = ()  # (name, points (n, 3)) on the ground, closed
-    sections: dict | None = None  # from velocity_sections
+    sections: tuple = ()  # one dict per quantity shown (cube_sections, with key, label, colours)
     notes: tuple = field(default_factory=tuple)  # what was left out and why
 
 
@@ -156,11 +171,37 @@ def _site_pieces(site) -> dict:
 
 
 def _read_cube(folder: Path):
+    """Grid and cell arrays for the sections: ``interpretation.vti`` with the anomaly, else
+    ``velocity.vti`` without it."""
     names = ("velocity_m_per_ns", "ray_count", "ground")
-    path = folder / "interpretation.vti"
-    if not path.is_file():
-        path = folder / "velocity.vti"
-    return read_cell_arrays_vti(path, names)
+    try:
+        return read_cell_arrays_vti(folder / "interpretation.vti", names + ("slowness_anomaly_ns_per_m",))
+    except InputError:
+        return read_cell_arrays_vti(folder / "velocity.vti", names)
+
+
+def _sections(grid: Grid, cube: dict, max_cells: int, max_sections: int) -> tuple:
+    """The sections of every quantity of :data:`SECTION_QUANTITIES` found in ``cube``."""
+    ground = np.asarray(cube["ground"], dtype=bool)
+    masks = {"ground": ground, "covered": ground & (np.asarray(cube["ray_count"]) > 0)}
+    found = []
+    for key, array, label, colour_map, cells, decimals, centred in SECTION_QUANTITIES:
+        if array not in cube:
+            continue
+        sections = cube_sections(grid, cube[array], masks[cells], decimals=decimals, max_cells=max_cells,
+                                 max_sections=max_sections)
+        if sections["range"] is None:
+            continue
+        low, high = sections["range"]
+        if centred:
+            # the 99th percentile of the size, so that a few extreme cells (air-filled voids
+            # clipped at the velocity band) do not pale the rest; beyond it the colour saturates
+            values = np.asarray(cube[array], dtype=float)[masks[cells]]
+            high = float(np.percentile(np.abs(values[np.isfinite(values)]), _CENTRED_PERCENTILE))
+            low = -high
+        found.append(dict(sections, key=key, label=label, colorscale=_colour_scale(colour_map),
+                          cmin=low, cmax=high if high > low else low + 1.0))
+    return tuple(found)
 
 
 def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_sections: int = 40) -> SceneData:
@@ -177,7 +218,7 @@ def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_s
         The content of ``voids.json`` (body rows, ``site_file``).
     max_section_cells, max_sections : int
         Limits on each section's cells and on the sections per direction
-        (see :func:`velocity_sections`), which bound the page's size.
+        (see :func:`cube_sections`), which bound the page's size.
 
     Raises
     ------
@@ -187,8 +228,7 @@ def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_s
     folder = Path(folder)
     notes = []
     grid, cube = _read_cube(folder)
-    sections = velocity_sections(grid, cube["velocity_m_per_ns"], cube["ground"] & (cube["ray_count"] > 0),
-                                 max_cells=max_section_cells, max_sections=max_sections)
+    sections = _sections(grid, cube, max_section_cells, max_sections)
     pieces = {"ground": None, "bodies": (), "nodes": ()}
     readers = (("ground", "the ground surface", lambda: _triangles(_read_mesh(folder / "ground.vtp"))),
                ("bodies", "the bodies", lambda: _read_bodies(folder, voids)),
@@ -216,16 +256,19 @@ def _strided_centres(grid: Grid, axis: int, stride: int) -> tuple:
     return indices, centres[indices]
 
 
-def velocity_sections(grid: Grid, velocity_m_per_ns, shown, *, max_cells: int = 4096,
-                      max_sections: int = 40) -> dict:
-    """Sections of the velocity cube along each axis, for the slider of the 3D view.
+def cube_sections(grid: Grid, values, shown, *, decimals: int = 4, max_cells: int = 4096,
+                  max_sections: int = 40) -> dict:
+    """Sections of a cube along each axis, for the slider of the 3D view.
 
     Parameters
     ----------
     grid : Grid
-    velocity_m_per_ns : ndarray, shape grid.shape, indexed [ix, iy, iz]
+    values : ndarray, shape grid.shape, indexed [ix, iy, iz]
+        The cell values (velocity in m/ns, ray count, ...).
     shown : ndarray of bool, shape grid.shape
-        Cells to draw (ground cells crossed by rays); the others are blank (None).
+        Cells to draw; the others are blank (None).
+    decimals : int
+        Decimals kept (rounding keeps the page small).
     max_cells : int
         Largest number of cells in one section: a section with more is thinned
         by taking every k-th cell along both of its axes.
@@ -236,24 +279,25 @@ def velocity_sections(grid: Grid, velocity_m_per_ns, shown, *, max_cells: int = 
     Returns
     -------
     dict
-        ``range`` (min, max of the shown velocity, m/ns; None when nothing is
-        shown), ``centres`` (x, y, z lists of the kept cell centres, m) and,
-        for each axis ``"x"``, ``"y"``, ``"z"``: ``positions`` (m) and
+        ``range`` (min, max of the shown values; None when nothing is
+        shown) and, for each axis ``"x"``, ``"y"``, ``"z"`` (the axis held
+        constant): ``positions`` (m) of the kept planes, ``columns`` and
+        ``rows`` (m), the kept cell centres along the section's two axes, and
         ``values``, one 2D list per section indexed [row][column], rows along
-        the later of the section's two axes (z for vertical sections, y for
-        horizontal ones), velocities in m/ns to 4 decimals.
+        the later of the two axes (z for vertical sections, y for horizontal
+        ones).
     """
-    velocity = np.asarray(velocity_m_per_ns, dtype=float)
-    shown = np.asarray(shown, dtype=bool) & np.isfinite(velocity)
+    cube = np.asarray(values, dtype=float)
+    shown = np.asarray(shown, dtype=bool) & np.isfinite(cube)
     kept = {}
     for axis, name in enumerate("xyz"):
         others = [n for a, n in enumerate(grid.shape) if a != axis]
         cell_stride = int(np.ceil(np.sqrt(others[0] * others[1] / max_cells)))
         kept[name] = cell_stride
-    result = {"range": None, "centres": {}, "x": None, "y": None, "z": None}
+    result = {"range": None, "x": None, "y": None, "z": None}
     if shown.any():
-        result["range"] = [float(velocity[shown].min()), float(velocity[shown].max())]
-    values = np.where(shown, np.round(velocity, 4), np.nan)
+        result["range"] = [float(cube[shown].min()), float(cube[shown].max())]
+    rounded = np.where(shown, np.round(cube, decimals), np.nan)
     for axis, name in enumerate("xyz"):
         plane_stride = int(np.ceil(grid.shape[axis] / max_sections))
         planes, positions = _strided_centres(grid, axis, plane_stride)
@@ -261,13 +305,13 @@ def velocity_sections(grid: Grid, velocity_m_per_ns, shown, *, max_cells: int = 
         (a, b) = [other for other in range(3) if other != axis]
         ia, _ = _strided_centres(grid, a, stride)
         ib, _ = _strided_centres(grid, b, stride)
-        cube = np.moveaxis(values, axis, 0)[planes][:, ia][:, :, ib]  # [plane, a, b]
+        kept_cells = np.moveaxis(rounded, axis, 0)[planes][:, ia][:, :, ib]  # [plane, a, b]
         result[name] = {
             "positions": [round(float(p), 3) for p in positions],
             "columns": [round(float(v), 3) for v in grid.centres_m(a)[ia]],
             "rows": [round(float(v), 3) for v in grid.centres_m(b)[ib]],
-            "values": [[[None if not np.isfinite(v) else float(v) for v in row] for row in plane.T]
-                       for plane in cube],
+            "values": [[[None if not np.isfinite(v) else (float(v) if decimals else int(v)) for v in row]
+                        for row in plane.T] for plane in kept_cells],
         }
     return result
 
@@ -338,12 +382,13 @@ def _scene_traces(data: SceneData) -> list:
                                    marker={"color": colours.NODE_COLOUR, "size": 3},
                                    hovertemplate="node %{text}<extra></extra>", meta={"layers": ["nodes"]},
                                    showlegend=False))
-    value_range = (data.sections or {}).get("range") or [0.0, 1.0]
-    traces.append(go.Surface(x=[[0.0]], y=[[0.0]], z=[[None]], surfacecolor=[[None]], name="velocity section",
-                             colorscale=_colour_scale(colours.VELOCITY_MAP), cmin=value_range[0],
-                             cmax=value_range[1], colorbar={"title": {"text": "velocity (m/ns)"}, "len": 0.6},
-                             hovertemplate="velocity %{surfacecolor:.4f} m/ns<extra></extra>",
-                             meta={"layers": ["section"]}, showlegend=False, visible=False))
+    first = data.sections[0] if data.sections else {"colorscale": _colour_scale(colours.VELOCITY_MAP),
+                                                      "cmin": 0.0, "cmax": 1.0, "label": ""}
+    traces.append(go.Surface(x=[[0.0]], y=[[0.0]], z=[[None]], surfacecolor=[[None]], name="section",
+                             colorscale=first["colorscale"], cmin=first["cmin"], cmax=first["cmax"],
+                             colorbar={"title": {"text": escape(first["label"].split(":")[0])}, "len": 0.6},
+                             hovertemplate="%{surfacecolor}<extra></extra>", meta={"layers": ["section"]},
+                             showlegend=False, visible=False))
     return traces
 
 
@@ -380,9 +425,11 @@ def _controls_html(data: SceneData, body_ids) -> tuple:
         boxes.append(f'<label><input type="checkbox" data-layer="{key}"{checked}> {swatch}{escape(words)}</label>')
     axes = "".join(f'<option value="{axis}">{escape(words)}</option>' for axis, words in _SECTION_AXES)
     choices = "".join(f'<option value="{i}">body {i}</option>' for i in body_ids)
-    section = ('<p class="scene-section">Velocity section: <select id="scene-section-axis">' + axes
+    quantities = "".join(f'<option value="{i}">{escape(q["label"])}</option>' for i, q in enumerate(data.sections))
+    section = ('<p class="scene-section">Section: <select id="scene-section-quantity">' + quantities
+               + '</select> <select id="scene-section-axis">' + axes
                + '</select> <input type="range" id="scene-section-position" min="0" max="0" value="0">'
-               ' <span id="scene-section-label"></span></p>') if data.sections and data.sections["range"] else ""
+               ' <span id="scene-section-label"></span></p>') if data.sections else ""
     above = '<div class="scene-layers">' + " ".join(boxes) + "</div>" + section
     below = ('<p>Click a body in the view, or choose it here, to see its row of the void table: '
              '<select id="scene-body-choice"><option value="">(none)</option>' + choices + "</select></p>")
@@ -420,11 +467,13 @@ function voidcubeScene(gd, sections) {
     return Plotly.restyle(gd, {visible: visible});
   };
   var axisSelect = document.getElementById('scene-section-axis');
+  var quantitySelect = document.getElementById('scene-section-quantity');
   var slider = document.getElementById('scene-section-position');
   var label = document.getElementById('scene-section-label');
   var drawSection = function () {
     if (!axisSelect) { return Promise.resolve(); }
-    var axis = axisSelect.value, s = sections[axis], k = Math.min(+slider.value, s.positions.length - 1);
+    var q = sections[+quantitySelect.value], axis = axisSelect.value, s = q[axis];
+    var k = Math.min(+slider.value, s.positions.length - 1);
     var at = s.positions[k], grid = s.values[k], xs = [], ys = [], zs = [];
     grid.forEach(function (row, r) {
       var xr = [], yr = [], zr = [];
@@ -436,10 +485,13 @@ function voidcubeScene(gd, sections) {
       xs.push(xr); ys.push(yr); zs.push(zr);
     });
     label.textContent = axis + ' = ' + at.toFixed(1) + ' m';
-    return Plotly.restyle(gd, {x: [xs], y: [ys], z: [zs], surfacecolor: [grid]}, [sectionIndex]);
+    return Plotly.restyle(gd, {x: [xs], y: [ys], z: [zs], surfacecolor: [grid], colorscale: [q.colorscale],
+                               cmin: q.cmin, cmax: q.cmax, 'colorbar.title.text': q.label.split(':')[0],
+                               hovertemplate: q.label.split(':')[0] + ': %{surfacecolor}<extra></extra>'},
+                          [sectionIndex]);
   };
   var onAxis = function () {
-    slider.max = sections[axisSelect.value].positions.length - 1;
+    slider.max = sections[+quantitySelect.value][axisSelect.value].positions.length - 1;
     slider.value = Math.floor(slider.max / 2);
     return drawSection();
   };
@@ -451,6 +503,7 @@ function voidcubeScene(gd, sections) {
   boxes.forEach(function (b) { b.addEventListener('change', applyLayers); });
   if (axisSelect) {
     axisSelect.addEventListener('change', onAxis);
+    quantitySelect.addEventListener('change', drawSection);
     slider.addEventListener('input', drawSection);
   }
   choice.addEventListener('change', function () { showBody(choice.value === '' ? null : choice.value); });
@@ -503,8 +556,9 @@ def scene_html(folder, voids: dict, *, body_table: Callable[[dict], str]) -> str
     above, below = _controls_html(data, body_ids)
     return (_STYLE + _SCENE_SCRIPT
             + "<p>Drag to turn the scene, scroll to zoom, right-drag to move it; drawn to true scale "
-              "(no vertical exaggeration). Tick or untick a layer to show or hide it. The velocity section "
-              "shows only ground cells crossed by rays; cells in the air and cells no ray crosses are left "
-              "blank, because the velocity there says nothing.</p>"
+              "(no vertical exaggeration). Tick or untick a layer to show or hide it. A section of the "
+              "velocity or of the slowness anomaly shows only ground cells crossed by rays: cells in the air "
+              "and cells no ray crosses are left blank, because the velocity there says nothing; the section "
+              "of the ray count shows every ground cell.</p>"
             + above + plot + below + _rows_html(data, voids, body_table)
             + (f"<ul>{notes}</ul>" if notes else ""))

@@ -30,7 +30,7 @@ import pytest
 from reconstruct.cli import main
 from reconstruct.model.grid import Grid
 from reconstruct.report import colours
-from reconstruct.report.scene_3d import read_scene_data, velocity_sections
+from reconstruct.report.scene_3d import cube_sections, read_scene_data
 
 
 def _folder_with_report(make_inversion_folder):
@@ -54,8 +54,10 @@ def test_sections_hold_the_cube_as_pyvista_reads_it(make_inversion_folder):
     shown = (np.asarray(cube.cell_data["ground"]).reshape(shape, order="F") > 0) & (
         np.asarray(cube.cell_data["ray_count"]).reshape(shape, order="F") > 0)
     centres = [np.asarray(cube.origin[a]) + (np.arange(shape[a]) + 0.5) * cube.spacing[a] for a in range(3)]
+    assert [q["key"] for q in data.sections] == ["velocity", "anomaly", "rays"]
+    velocity_sections = data.sections[0]
     for axis, name in enumerate("xyz"):
-        section = data.sections[name]
+        section = velocity_sections[name]
         assert len(section["positions"]) == shape[axis]  # the fixture's 20-30 planes are all kept
         a, b = [other for other in range(3) if other != axis]
         np.testing.assert_allclose(section["columns"], centres[a])
@@ -66,13 +68,20 @@ def test_sections_hold_the_cube_as_pyvista_reads_it(make_inversion_folder):
             got = np.array([[np.nan if v is None else v for v in row] for row in section["values"][k]])
             np.testing.assert_array_equal(np.isnan(got), np.isnan(expected))
             np.testing.assert_allclose(got[~np.isnan(got)], expected[~np.isnan(expected)], atol=5e-5)
-    assert data.sections["range"] == pytest.approx([velocity[shown].min(), velocity[shown].max()])
+    assert velocity_sections["range"] == pytest.approx([velocity[shown].min(), velocity[shown].max()])
+    # the ray count is drawn in every ground cell, the anomaly on a scale centred on zero
+    ground = np.asarray(cube.cell_data["ground"]).reshape(shape, order="F") > 0
+    rays = np.asarray(cube.cell_data["ray_count"]).reshape(shape, order="F")
+    assert data.sections[2]["range"] == [rays[ground].min(), rays[ground].max()]
+    anomaly = np.asarray(cube.cell_data["slowness_anomaly_ns_per_m"]).reshape(shape, order="F")[shown]
+    assert data.sections[1]["cmin"] == -data.sections[1]["cmax"]
+    assert data.sections[1]["cmax"] == pytest.approx(np.quantile(np.abs(anomaly), 0.99))
 
 
 def test_sections_are_thinned_to_the_limits():
     grid = Grid((0.0, 0.0, 0.0), (1.0, 1.0, 1.0), (200, 60, 70))
     velocity = np.full(grid.shape, 0.1)
-    sections = velocity_sections(grid, velocity, np.ones(grid.shape, bool), max_cells=1000, max_sections=25)
+    sections = cube_sections(grid, velocity, np.ones(grid.shape, bool), max_cells=1000, max_sections=25)
     for name in "xyz":
         section = sections[name]
         assert len(section["positions"]) <= 25
@@ -230,5 +239,9 @@ def test_the_velocity_section_moves_in_chromium(browser, make_inversion_folder):
     assert label.inner_text() == "z = 3.5 m"  # the fixture's cell centres: 0.5 m + k * 1 m
     moved = _scene_image(page)
     assert np.abs(moved.astype(int) - shown.astype(int)).max(axis=-1).astype(bool).sum() > 500
+    # the ray count: the fixture has 12 rays in every ground cell, so the section is one colour
+    page.locator("#scene-section-quantity").select_option(label="ray count (rays crossing the cell)")
+    page.wait_for_timeout(300)
+    assert np.abs(_scene_image(page).astype(int) - moved.astype(int)).max(axis=-1).astype(bool).sum() > 500
     assert not requests and not errors, (requests, errors)
     page.close()

@@ -112,7 +112,8 @@ def _triangles(mesh):
     """Points (n, 3) and triangles (m, 3) of a pyvista surface."""
     surface = mesh.triangulate()
     faces = np.asarray(surface.faces).reshape(-1, 4)
-    return np.asarray(surface.points, dtype=float), faces[:, 1:].astype(np.int64)
+    # points stay float64: site coordinates may be large (a national grid), where float32 rounds to metres
+    return np.asarray(surface.points, dtype=float), faces[:, 1:].astype(np.int32)
 
 
 def _read_mesh(path: Path):
@@ -126,16 +127,21 @@ def _read_mesh(path: Path):
         raise InputError(f"{path}: cannot be read ({error}); run 'voidcube reconstruct voids' again") from None
 
 
-def _read_bodies(folder: Path, voids: dict) -> tuple:
+def _read_bodies(folder: Path, voids: dict, max_triangles: int) -> tuple:
+    """Each body's surface from ``voids.vtp``, with its fill and status from the rows of ``voids.json``."""
     mesh = _read_mesh(folder / "voids.vtp")
     if mesh.n_cells == 0:
         return ()
     rows = {int(r["body_id"]): r for r in voids.get("bodies", []) if "body_id" in r}
     ids = np.asarray(mesh.cell_data["body_id"])
+    # many or large bodies are simplified, each by the same share, to bound the page's size
+    reduction = max(0.0, 1.0 - max_triangles / mesh.n_cells)
     bodies = []
     for body_id in np.unique(ids):
         row = rows.get(int(body_id), {})
-        piece = mesh.extract_cells(np.flatnonzero(ids == body_id)).extract_surface(algorithm=None)
+        piece = mesh.extract_cells(np.flatnonzero(ids == body_id)).extract_surface(algorithm=None).triangulate()
+        if reduction > 0.0:
+            piece = piece.decimate(reduction)
         points, triangles = _triangles(piece)
         bodies.append((int(body_id), row.get("fill", FILL_AIR), row.get("status", STATUS_RESOLVED), points,
                        triangles))
@@ -204,7 +210,8 @@ def _sections(grid: Grid, cube: dict, max_cells: int, max_sections: int) -> tupl
     return tuple(found)
 
 
-def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_sections: int = 40) -> SceneData:
+def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_sections: int = 40,
+                    max_body_triangles: int = 200_000) -> SceneData:
     """Read what the 3D view shows from an output folder.
 
     A missing or damaged piece is left out, with a note saying which and why;
@@ -219,6 +226,10 @@ def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_s
     max_section_cells, max_sections : int
         Limits on each section's cells and on the sections per direction
         (see :func:`cube_sections`), which bound the page's size.
+    max_body_triangles : int
+        When the bodies' surfaces hold more triangles in all, each is
+        simplified (pyvista's ``decimate``) by the same share to about this
+        many.
 
     Raises
     ------
@@ -231,7 +242,7 @@ def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_s
     sections = _sections(grid, cube, max_section_cells, max_sections)
     pieces = {"ground": None, "bodies": (), "nodes": ()}
     readers = (("ground", "the ground surface", lambda: _triangles(_read_mesh(folder / "ground.vtp"))),
-               ("bodies", "the bodies", lambda: _read_bodies(folder, voids)),
+               ("bodies", "the bodies", lambda: _read_bodies(folder, voids, max_body_triangles)),
                ("nodes", "the nodes", lambda: _read_nodes(folder / "nodes_used.csv")))
     for key, words, read in readers:
         try:

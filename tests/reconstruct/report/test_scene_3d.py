@@ -108,6 +108,17 @@ def test_each_body_mesh_has_the_bounds_of_its_cells_in_voids_vtp(make_inversion_
     assert not data.notes
 
 
+def test_many_triangles_are_simplified_to_the_limit(make_inversion_folder):
+    folder = _folder_with_report(make_inversion_folder)
+    voids = json.loads((folder / "voids.json").read_text(encoding="utf-8"))
+    full = read_scene_data(folder, voids).bodies[0]
+    simple = read_scene_data(folder, voids, max_body_triangles=len(full[4]) // 4).bodies[0]
+    assert len(simple[4]) <= 0.3 * len(full[4])
+    # the simplified surface spans the same box, to within a cell (1 m)
+    np.testing.assert_allclose(simple[3].min(axis=0), full[3].min(axis=0), atol=1.0)
+    np.testing.assert_allclose(simple[3].max(axis=0), full[3].max(axis=0), atol=1.0)
+
+
 def test_missing_pieces_are_left_out_and_said(make_inversion_folder):
     folder = _folder_with_report(make_inversion_folder)
     voids = json.loads((folder / "voids.json").read_text(encoding="utf-8"))

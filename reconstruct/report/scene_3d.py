@@ -127,6 +127,13 @@ def _read_mesh(path: Path):
         raise InputError(f"{path}: cannot be read ({error}); run 'voidcube reconstruct voids' again") from None
 
 
+def _simplified(surface, max_triangles: int):
+    """A triangulated surface with at most about ``max_triangles`` (pyvista's ``decimate``)."""
+    if surface.n_cells <= max_triangles:
+        return surface
+    return surface.decimate(1.0 - max_triangles / surface.n_cells)
+
+
 def _read_bodies(folder: Path, voids: dict, max_triangles: int) -> tuple:
     """Each body's surface from ``voids.vtp``, with its fill and status from the rows of ``voids.json``."""
     mesh = _read_mesh(folder / "voids.vtp")
@@ -211,7 +218,7 @@ def _sections(grid: Grid, cube: dict, max_cells: int, max_sections: int) -> tupl
 
 
 def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_sections: int = 40,
-                    max_body_triangles: int = 200_000) -> SceneData:
+                    max_body_triangles: int = 200_000, max_ground_triangles: int = 100_000) -> SceneData:
     """Read what the 3D view shows from an output folder.
 
     A missing or damaged piece is left out, with a note saying which and why;
@@ -230,6 +237,8 @@ def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_s
         When the bodies' surfaces hold more triangles in all, each is
         simplified (pyvista's ``decimate``) by the same share to about this
         many.
+    max_ground_triangles : int
+        The ground surface is simplified likewise beyond this many.
 
     Raises
     ------
@@ -241,7 +250,8 @@ def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_s
     grid, cube = _read_cube(folder)
     sections = _sections(grid, cube, max_section_cells, max_sections)
     pieces = {"ground": None, "bodies": (), "nodes": ()}
-    readers = (("ground", "the ground surface", lambda: _triangles(_read_mesh(folder / "ground.vtp"))),
+    readers = (("ground", "the ground surface", lambda: _triangles(_simplified(
+                   _read_mesh(folder / "ground.vtp").triangulate(), max_ground_triangles))),
                ("bodies", "the bodies", lambda: _read_bodies(folder, voids, max_body_triangles)),
                ("nodes", "the nodes", lambda: _read_nodes(folder / "nodes_used.csv")))
     for key, words, read in readers:

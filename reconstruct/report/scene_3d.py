@@ -558,8 +558,11 @@ def scene_html(folder, voids: dict, *, body_table: Callable[[dict], str]) -> str
     str
         The view with its controls, or a paragraph saying why it is left out.
     """
-    import plotly.io
-
+    try:
+        import plotly.io
+    except ImportError:  # a dependency, but an environment may predate it
+        return ("<p>The 3D view is left out: the Python package plotly is not installed here; "
+                "install it (pip install plotly) and write the report again.</p>")
     try:
         data = read_scene_data(folder, voids)
     except InputError as error:

@@ -217,6 +217,18 @@ def _sections(grid: Grid, cube: dict, max_cells: int, max_sections: int) -> tupl
     return tuple(found)
 
 
+def _site_path(folder: Path, recorded) -> Path:
+    """The site file recorded in ``voids.json``: as written, else relative to the folder or its parent
+    (a relative path was written relative to where ``voids`` ran)."""
+    if not recorded:
+        raise InputError(f"{folder / 'voids.json'}: no site_file recorded")
+    path = Path(recorded)
+    for candidate in ([path] if path.is_absolute() else [path, folder / path, folder.parent / path]):
+        if candidate.is_file():
+            return candidate
+    raise InputError(f"{folder / 'voids.json'}: the site file {recorded} recorded there is not found from here")
+
+
 def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_sections: int = 40,
                     max_body_triangles: int = 200_000, max_ground_triangles: int = 100_000) -> SceneData:
     """Read what the 3D view shows from an output folder.
@@ -259,11 +271,8 @@ def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_s
             pieces[key] = read()
         except InputError as error:
             notes.append(f"{words} left out: {error}")
-    site_file = voids.get("site_file")
     try:
-        if not site_file:
-            raise InputError("voids.json: no site_file recorded")
-        pieces.update(_site_pieces(load_site(site_file)))
+        pieces.update(_site_pieces(load_site(_site_path(folder, voids.get("site_file")))))
     except InputError as error:
         notes.append(f"planned works, holes and exclusion zones left out: {str(error).splitlines()[0]}")
     edges = [grid.edges_m(axis) for axis in range(3)]

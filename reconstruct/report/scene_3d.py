@@ -230,7 +230,7 @@ def _site_path(folder: Path, recorded) -> Path:
 
 
 def read_scene_data(folder, voids: dict, *, max_section_cells: int = 4096, max_sections: int = 40,
-                    max_body_triangles: int = 200_000, max_ground_triangles: int = 100_000) -> SceneData:
+                    max_body_triangles: int = 100_000, max_ground_triangles: int = 50_000) -> SceneData:
     """Read what the 3D view shows from an output folder.
 
     A missing or damaged piece is left out, with a note saying which and why;

@@ -90,6 +90,31 @@ def test_sections_are_thinned_to_the_limits():
         assert len(section["columns"]) == len(section["values"][0][0])
 
 
+def test_a_large_model_keeps_the_page_under_25_mb():
+    # the budget for the whole report; the model of ENVIRONMENT.md's reference speeds
+    # (200 x 60 x 70 cells), noisy values of the longest text, bodies and ground at their limits
+    import plotly.io
+
+    from reconstruct.report.scene_3d import SceneData, _json_for_script, _sections, scene_figure
+
+    rng = np.random.default_rng(1)
+    grid = Grid((500000.0, 6000000.0, 0.0), (1.0, 1.0, 1.0), (200, 60, 70))
+    cube = {"velocity_m_per_ns": rng.uniform(0.1, 0.2, grid.shape),
+            "slowness_anomaly_ns_per_m": rng.uniform(-9.0, -1.0, grid.shape),
+            "ray_count": rng.integers(100, 1000, grid.shape), "ground": np.ones(grid.shape, bool)}
+    sections = _sections(grid, cube, 4096, 40)
+
+    def mesh(n_triangles):
+        return (rng.uniform(0.0, 1.0, (n_triangles // 2, 3)) + grid.origin_m,
+                rng.integers(0, n_triangles // 2, (n_triangles, 3)).astype(np.int32))
+
+    data = SceneData(box_m=((500000.0, 500200.0), (6000000.0, 6000060.0), (0.0, 70.0)), ground=mesh(50_000),
+                     bodies=tuple((i + 1, "air", "resolved", *mesh(10_000)) for i in range(10)), sections=sections)
+    size = len(plotly.io.to_html(scene_figure(data), include_plotlyjs=True, full_html=False)) + len(
+        _json_for_script(sections))
+    assert size < 16e6  # measured 14.7 MB; the limit is 25 MB for the whole report
+
+
 def test_each_body_mesh_has_the_bounds_of_its_cells_in_voids_vtp(make_inversion_folder):
     import pyvista
 

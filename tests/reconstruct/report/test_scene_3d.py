@@ -22,6 +22,7 @@ import io
 import json
 import os
 import shutil
+import time
 from pathlib import Path
 
 import numpy as np
@@ -200,6 +201,21 @@ def _scene_image(page):
     return np.asarray(Image.open(io.BytesIO(png)).convert("RGB"))
 
 
+def _image_when(page, condition, timeout_s=15.0):
+    """The view's picture once ``condition(picture)`` holds, or the last one after ``timeout_s``
+    (software rendering draws a frame in its own time, slower on a busy machine)."""
+    deadline = time.monotonic() + timeout_s
+    while True:
+        image = _scene_image(page)
+        if condition(image) or time.monotonic() > deadline:
+            return image
+        page.wait_for_timeout(200)
+
+
+def _changed_pixels(a, b):
+    return int(np.abs(a.astype(int) - b.astype(int)).max(axis=-1).astype(bool).sum())
+
+
 def _open(browser, folder):
     page = browser.new_page(viewport={"width": 1200, "height": 900})
     requests = []
@@ -214,38 +230,46 @@ def _open(browser, folder):
     return page, requests, errors
 
 
+def _click(page, row, y, x):
+    """Click the view at (x, y) until ``row`` shows. plotly counts a click when it draws a frame while
+    the button is down; in software rendering a frame takes a while, so the button is held as a slow
+    hand would, longer at each try."""
+    box = page.locator("#voidcube-scene").bounding_box()
+    for hold_ms in (600, 1500, 3000):
+        page.mouse.move(box["x"] + x, box["y"] + y)
+        page.wait_for_timeout(300)
+        page.mouse.down()
+        page.wait_for_timeout(hold_ms)
+        page.mouse.up()
+        page.wait_for_timeout(500)
+        if row.is_visible():
+            return
+
+
 def test_the_view_draws_toggles_and_shows_a_clicked_body_in_chromium(browser, make_inversion_folder):
     folder = _folder_with_report(make_inversion_folder)
     page, requests, errors = _open(browser, folder)
     air = colours.FILL_COLOURS["air"]
-    image = _scene_image(page)
     assert page.locator("#voidcube-scene canvas").count() >= 1
+    image = _image_when(page, lambda im: _near(im, air).sum() > 200)
     assert len(np.unique(image.reshape(-1, 3), axis=0)) > 50  # drawn, not blank
-    body_pixels = _near(image, air)
-    assert body_pixels.sum() > 200, "the air-filled body is not drawn"
+    body_pixels = _near(image, air).sum()
+    assert body_pixels > 200, "the air-filled body is not drawn"
 
     # untick the air-filled bodies: they vanish; tick them again: they are back
     page.locator('input[data-layer="fast-bodies"]').uncheck()
-    page.wait_for_timeout(300)
-    assert _near(_scene_image(page), air).sum() < 0.05 * body_pixels.sum()
+    assert _near(_image_when(page, lambda im: _near(im, air).sum() < 0.05 * body_pixels), air).sum() \
+        < 0.05 * body_pixels
     page.locator('input[data-layer="fast-bodies"]').check()
-    page.wait_for_timeout(300)
-    assert _near(_scene_image(page), air).sum() > 0.9 * body_pixels.sum()
+    image = _image_when(page, lambda im: _near(im, air).sum() > 0.9 * body_pixels)
+    assert _near(image, air).sum() > 0.9 * body_pixels
 
     # click the body where it is drawn: its row of the void table appears
     row = page.locator('.scene-body-row[data-body="1"]')
     assert row.is_hidden()
-    rows, columns = np.nonzero(_near(_scene_image(page), air))
-    centre = int(np.median(rows)), int(np.median(columns))
-    box = page.locator("#voidcube-scene").bounding_box()
-    page.mouse.move(box["x"] + centre[1], box["y"] + centre[0])
-    page.wait_for_timeout(300)
-    # plotly counts a click when a frame is drawn while the button is down: in software
-    # rendering a frame takes a while, so the button is held as a slow hand would
-    page.mouse.down()
-    page.wait_for_timeout(600)
-    page.mouse.up()
-    row.wait_for(state="visible", timeout=5000)
+    rows, columns = np.nonzero(_near(image, air))
+    _click(page, row, int(np.median(rows)), int(np.median(columns)))
+    assert row.is_visible(), "a click on the body did not show its row"
     assert "air-filled (faster than the rock)" in row.inner_text() and "resolved" in row.inner_text()
     assert page.locator("#scene-body-choice").input_value() == "1"
 
@@ -258,26 +282,23 @@ def test_the_view_draws_toggles_and_shows_a_clicked_body_in_chromium(browser, ma
     page.close()
 
 
-def test_the_velocity_section_moves_in_chromium(browser, make_inversion_folder):
+def test_the_sections_move_in_chromium(browser, make_inversion_folder):
     folder = _folder_with_report(make_inversion_folder)
     page, requests, errors = _open(browser, folder)
     before = _scene_image(page)
     page.locator('input[data-layer="section"]').check()
     page.locator("#scene-section-axis").select_option("z")
-    page.wait_for_timeout(300)
-    shown = _scene_image(page)
-    assert np.abs(shown.astype(int) - before.astype(int)).max(axis=-1).astype(bool).sum() > 2000
+    shown = _image_when(page, lambda im: _changed_pixels(im, before) > 2000)
+    assert _changed_pixels(shown, before) > 2000
     label = page.locator("#scene-section-label")
     first = label.inner_text()
     assert first.startswith("z = ") and first.endswith(" m")
     page.locator("#scene-section-position").fill("3")
-    page.wait_for_timeout(300)
     assert label.inner_text() == "z = 3.5 m"  # the fixture's cell centres: 0.5 m + k * 1 m
-    moved = _scene_image(page)
-    assert np.abs(moved.astype(int) - shown.astype(int)).max(axis=-1).astype(bool).sum() > 500
-    # the ray count: the fixture has 12 rays in every ground cell, so the section is one colour
+    moved = _image_when(page, lambda im: _changed_pixels(im, shown) > 500)
+    assert _changed_pixels(moved, shown) > 500
+    # the ray count (12 in every ground cell of the fixture) in the coverage colours
     page.locator("#scene-section-quantity").select_option(label="ray count (rays crossing the cell)")
-    page.wait_for_timeout(300)
-    assert np.abs(_scene_image(page).astype(int) - moved.astype(int)).max(axis=-1).astype(bool).sum() > 500
+    assert _changed_pixels(_image_when(page, lambda im: _changed_pixels(im, moved) > 500), moved) > 500
     assert not requests and not errors, (requests, errors)
     page.close()

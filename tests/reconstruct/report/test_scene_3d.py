@@ -155,6 +155,20 @@ def test_missing_pieces_are_left_out_and_said(make_inversion_folder):
     assert any("planned works" in note and "no_such_site.yaml" in note for note in data.notes)
 
 
+def test_the_report_is_written_without_the_view_when_no_cube_can_be_read(make_inversion_folder):
+    from reconstruct.report.void_report import build_report_html
+
+    folder = _folder_with_report(make_inversion_folder)
+    page = (folder / "report.html").read_text(encoding="utf-8")
+    assert page.count("<h2>3D view</h2>") == 1 and page.count('id="voidcube-scene"') == 1
+    assert page.index("probe drilling") < page.index("<h2>3D view</h2>")  # the cautions stay first
+    (folder / "interpretation.vti").unlink()
+    (folder / "velocity.vti").unlink()
+    page = build_report_html(folder)
+    assert "The 3D view is left out:" in page and "velocity.vti: file not found" in page
+    assert 'id="voidcube-scene"' not in page and "Void table" in page and "probe drilling" in page
+
+
 # -- in a real browser --------------------------------------------------------
 
 def _browser_path():

@@ -1,7 +1,8 @@
 """What people read: pictures (isosurfaces, slices, off-screen renders), the
-pick-checks page, the void report, and writing results into output folders.
+pick-checks page, the void report with its interactive 3D view
+(:mod:`reconstruct.report.scene_3d`), and writing results into output folders.
 
-The only layer of ``reconstruct`` that draws (matplotlib, pyvista).
+The only layer of ``reconstruct`` that draws (matplotlib, pyvista, plotly).
 """
 
 from reconstruct.report.html import CAUTIONS, html_document

@@ -24,6 +24,9 @@ picture share a colour:
 - node kinds (plan maps): surface bluish green, bench face vermilion, borehole
   sky blue, with a marker shape for each kind as well; a node whose kind is
   not given, and every node of the 3D view (where kinds are not drawn), black;
+- boreholes and blast holes (the interactive 3D view of the report): sky
+  blue lines, the colour of borehole nodes on the plan maps, with the black
+  nodes on them;
 - pick classes (pick-check page): kept blue, air wave orange, reciprocity
   mismatch reddish purple, implausible velocity vermilion.
 
@@ -91,6 +94,7 @@ __all__ = [
     "PLANNED_WORK_COLOUR",
     "NODE_COLOUR",
     "NODE_KIND_COLOURS",
+    "HOLE_COLOUR",
     "UNSPECIFIED_KIND_COLOUR",
     "PICK_CLASS_COLOURS",
     "MESH_LINK_COLOUR",
@@ -100,6 +104,7 @@ __all__ = [
     "TARGET_OUTLINE_HALO",
     "GROUND_LINE_COLOUR",
     "GROUND_SURFACE_COLOUR",
+    "SCENE_GRID_COLOUR",
     "REFERENCE_LINE_COLOUR",
     "NO_DATA_COLOUR",
     "EXCLUSION_ZONE_COLOUR",
@@ -145,6 +150,8 @@ NODE_KIND_COLOURS = {
     "face": OKABE_ITO["vermilion"],
     "borehole": OKABE_ITO["sky blue"],
 }
+#: Boreholes and blast holes drawn as lines in the interactive 3D view.
+HOLE_COLOUR = OKABE_ITO["sky blue"]
 #: A node whose kind is not given.
 UNSPECIFIED_KIND_COLOUR = OKABE_ITO["black"]
 #: Pick classes of the pick-check page.
@@ -166,6 +173,8 @@ TARGET_OUTLINE_HALO = "#000000"
 GROUND_LINE_COLOUR = OKABE_ITO["black"]
 #: The ground surface in the 3D view (drawn translucent).
 GROUND_SURFACE_COLOUR = "#BBBBBB"
+#: Grid lines on the axes of the interactive 3D view: light, behind everything.
+SCENE_GRID_COLOUR = "#D9D9D9"
 #: Reference lines (constant velocity, one-to-one, +-3 sigma) and marker edges.
 REFERENCE_LINE_COLOUR = "#333333"
 #: Markers of things with no value to show (a node with no pick).

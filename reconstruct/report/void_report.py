@@ -2,8 +2,9 @@
 
 ``voidcube reconstruct report DIR`` reads the outputs of ``voidcube reconstruct invert`` and
 ``voidcube reconstruct voids`` in DIR and writes ``DIR/report.html``: the cautions at
-the top, the ranked screening list, the void table, the pictures (embedded as
-PNG, so the page opens with no network and no software of ours), the
+the top, the ranked screening list, the void table, an interactive 3D view
+(:mod:`reconstruct.report.scene_3d`; its script embedded), the pictures
+(embedded as PNG, so the page opens with no network and no software of ours), the
 data-quality and resolution summary, and the run manifest. Every piece of
 text that comes from an input (site name, planned-work names, paths) is
 escaped by :mod:`reconstruct.report.html`.
@@ -20,6 +21,7 @@ from reconstruct.report.html import escape, hole_deviation_html, html_document, 
 from reconstruct.interpret.bodies import FILL_AIR, FILL_WATER_OR_CLAY, STATUS_RESOLVED
 from reconstruct.interpret.folder import read_json_object
 from reconstruct.io.outputs import extend_manifest, utc_now_iso, write_text_atomic
+from reconstruct.report.scene_3d import scene_html
 
 __all__ = ["build_report_html", "write_report"]
 
@@ -77,6 +79,12 @@ def _table_or_none(columns, records, caption):
         return f"<p><b>{escape(caption)}:</b> none.</p>"
     return table_html([label for _, label in columns], _rows(records, columns), float_format=".3g",
                       caption=caption)
+
+
+def _body_table(row: dict) -> str:
+    """One body's row of the void table, with its status (shown when the body is chosen in the 3D view)."""
+    columns = (_VOID_COLUMNS[0], ("status", "status")) + _VOID_COLUMNS[1:]
+    return _table_or_none(columns, [row], f"Body {row.get('body_id')}")
 
 
 def _quality_section(summary: dict, voids: dict) -> str:
@@ -181,6 +189,7 @@ def build_report_html(folder, *, summary: dict | None = None, voids: dict | None
                  "more columns, is in voids.csv.</p>"
                  + _table_or_none(_VOID_COLUMNS, [b for b in voids.get("bodies", [])
                                                   if b.get("status") == STATUS_RESOLVED], "Voids"))
+    parts.append("<h2>3D view</h2>" + scene_html(folder, voids, body_table=_body_table))
     pictures = []
     for picture in voids.get("pictures", []):
         path = folder / str(picture.get("file", ""))

@@ -94,7 +94,7 @@ def test_category_colours_are_the_published_okabe_ito_colours():
         assert colours.OKABE_ITO[name] == "#{:02X}{:02X}{:02X}".format(*rgb), name
     categories = [*colours.FILL_COLOURS.values(), *colours.NODE_KIND_COLOURS.values(),
                   *colours.PICK_CLASS_COLOURS.values(), colours.PLANNED_WORK_COLOUR, colours.NODE_COLOUR,
-                  colours.UNSPECIFIED_KIND_COLOUR]
+                  colours.UNSPECIFIED_KIND_COLOUR, colours.HOLE_COLOUR]
     assert set(categories) <= set(colours.OKABE_ITO.values())
 
 
@@ -108,7 +108,7 @@ def test_every_category_of_the_vocabulary_has_a_colour():
 
 PICTURES = {
     "3D view and slices": [colours.FILL_COLOURS["air"], colours.FILL_COLOURS["water_or_clay"],
-                           colours.PLANNED_WORK_COLOUR, colours.NODE_COLOUR],
+                           colours.PLANNED_WORK_COLOUR, colours.NODE_COLOUR, colours.HOLE_COLOUR],
     "plan map": [*colours.NODE_KIND_COLOURS.values(), colours.UNSPECIFIED_KIND_COLOUR,
                  colours.PLANNED_WORK_COLOUR],
     "pick checks": list(colours.PICK_CLASS_COLOURS.values()),

@@ -30,11 +30,13 @@ import numpy as np
 from reconstruct.inverse.time_zero import (
     SECONDS_PER_HOUR,
     robust_time_zero,
+    shot_hours_from_middle,
     time_zero_covariance,
     time_zero_matrix,
 )
 
-__all__ = ["ClockDrift", "estimate_clock_drift", "clock_drift_record", "MEASURABLE_SIGMAS"]
+__all__ = ["ClockDrift", "estimate_clock_drift", "estimate_clock_drift_from_reciprocity", "clock_drift_record",
+           "drift_from_pick_checks", "MEASURABLE_SIGMAS"]
 
 #: A drift is reported as measurable when it exceeds this many standard deviations.
 MEASURABLE_SIGMAS = 3.0
@@ -55,6 +57,7 @@ class ClockDrift:
     drift_sd_ns_per_h: np.ndarray
     reduced_chi2: float
     survey_hours: float
+    trend_removed: bool = False  # drifts relative to their linear trend with each node's firing time
 
     @property
     def measurable(self) -> np.ndarray:
@@ -79,18 +82,95 @@ def estimate_clock_drift(tx, rx, residual_ns, sigma_ns, shot_time_s, n_nodes: in
     Returns
     -------
     ClockDrift
+
+    Notes
+    -----
+    Where each node fires once in turn, the shot time follows the
+    transmitter's place in the schedule, so an error of the reference model
+    that follows the transmitter's place leaks into the drifts; prefer
+    :func:`estimate_clock_drift_from_reciprocity` when the picks hold
+    reciprocal pairs.
     """
     tx, rx = np.asarray(tx, dtype=np.int64), np.asarray(rx, dtype=np.int64)
-    residual = np.asarray(residual_ns, dtype=float)
-    weight = 1.0 / np.asarray(sigma_ns, dtype=float)
+    C = time_zero_matrix(tx, rx, n_nodes, "clock_drift", np.asarray(shot_time_s, dtype=float))
+    return _fit(C, np.asarray(residual_ns, dtype=float), 1.0 / np.asarray(sigma_ns, dtype=float),
+                _used_nodes(tx, rx, n_nodes), np.asarray(shot_time_s, dtype=float))
+
+
+def estimate_clock_drift_from_reciprocity(tx, rx, time_ns, sigma_ns, shot_time_s, n_nodes: int,
+                                          partner) -> ClockDrift:
+    """Fit clock offsets and drifts to the differences of reciprocal picks, free of any model.
+
+    A pick from a to b fired at ``t_a`` and its reverse fired at ``t_b`` share
+    the travel time (reciprocity), so their difference holds the clocks alone:
+    ``t_ab - t_ba = 2 (off_b - off_a) + (drift_b - drift_a) (t_a + t_b - 2 t_mid)``.
+    ``partner`` gives each pick's reverse (-1 for none; the pick checks'
+    ``reciprocal``).
+    """
+    tx, rx = np.asarray(tx, dtype=np.int64), np.asarray(rx, dtype=np.int64)
+    partner = np.asarray(partner, dtype=np.int64)
+    first = np.flatnonzero((partner >= 0) & (np.arange(tx.size) < partner))
+    second = partner[first]
     shot = np.asarray(shot_time_s, dtype=float)
     C = time_zero_matrix(tx, rx, n_nodes, "clock_drift", shot)
-    tau, omega = robust_time_zero(C, weight, residual, loss="huber")
-    w_final = weight * np.sqrt(omega)
-    cov = time_zero_covariance(C, w_final)
+    D = (C[first] - C[second]).tocsr()
+    time = np.asarray(time_ns, dtype=float)
+    sigma = np.asarray(sigma_ns, dtype=float)
+    weight = 1.0 / np.hypot(sigma[first], sigma[second])
+    trend = _firing_trend(D, tx, shot, n_nodes)
+    return _fit(D, time[first] - time[second], weight, _used_nodes(tx[first], rx[first], n_nodes),
+                shot[np.r_[first, second]], trend)
+
+
+def _firing_trend(D, tx, shot, n_nodes):
+    """The clock pattern that reciprocal differences cannot see when each node fires at one time
+    ``f_k``: drifts ``g f_k`` with offsets ``-g (f_k^2) / 2`` (times in hours from the middle of the
+    survey) change no difference ``t_ab - t_ba``. Returns it as a vector over ``[offsets, drifts]``,
+    or None when the nodes fire at several times (then the differences see it)."""
+    hours = shot_hours_from_middle(shot)
+    firing = np.full(n_nodes, np.nan)
+    for k in np.unique(tx):
+        times = hours[tx == k]
+        if np.ptp(times) > 1e-9:
+            return None
+        firing[k] = times[0]
+    known = np.isfinite(firing)
+    if known.sum() < 3:
+        return None
+    f = np.where(known, firing, 0.0)
+    vector = np.r_[-0.5 * f**2, f]
+    if np.linalg.norm(D @ vector) > 1e-8 * max(np.linalg.norm(vector), 1.0) * max(abs(D).max(), 1.0):
+        return None
+    return vector
+
+
+def _used_nodes(tx, rx, n_nodes):
     used = np.zeros(n_nodes, dtype=bool)
     used[tx] = True
     used[rx] = True
+    return used
+
+
+def _without_trend(tau, cov, trend, used, n_nodes):
+    """Remove from the drifts their linear trend with the firing time (a pattern the data cannot
+    see, ``trend``), moving the offsets with it; the covariance is carried through the same map."""
+    f = trend[n_nodes:]
+    fu = f[used] - f[used].mean()
+    row = np.zeros(2 * n_nodes)
+    row[n_nodes:][used] = fu / float(fu @ fu)  # the slope of the drifts against the firing time
+    P = np.eye(2 * n_nodes) - np.outer(trend, row)
+    return P @ tau, P @ cov @ P.T
+
+
+def _fit(C, residual, weight, used, shot, trend=None) -> ClockDrift:
+    """Robust weighted least squares of ``C [offsets, drifts] = residual`` with standard deviations;
+    with ``trend`` (:func:`_firing_trend`), drifts relative to their trend with the firing time."""
+    n_nodes = C.shape[1] // 2
+    tau, omega = robust_time_zero(C, weight, residual, loss="huber")
+    w_final = weight * np.sqrt(omega)
+    cov = time_zero_covariance(C, w_final)
+    if trend is not None:
+        tau, cov = _without_trend(tau, cov, trend, used, n_nodes)
     n_free = 2 * (int(used.sum()) - 1)  # the gauge takes one offset and one drift
     dof = max(residual.size - n_free, 1)
     reduced = float(np.sum((w_final * (residual - C @ tau)) ** 2) / dof)
@@ -103,7 +183,8 @@ def estimate_clock_drift(tx, rx, residual_ns, sigma_ns, shot_time_s, n_nodes: in
         out[name] = (value, spread)
     return ClockDrift(offset_ns=out["offset"][0], offset_sd_ns=out["offset"][1], drift_ns_per_h=out["drift"][0],
                       drift_sd_ns_per_h=out["drift"][1], reduced_chi2=reduced,
-                      survey_hours=float(np.ptp(shot)) / SECONDS_PER_HOUR if shot.size else 0.0)
+                      survey_hours=float(np.ptp(shot)) / SECONDS_PER_HOUR if shot.size else 0.0,
+                      trend_removed=trend is not None)
 
 
 def clock_drift_record(drift: ClockDrift, node_ids) -> dict:
@@ -111,7 +192,9 @@ def clock_drift_record(drift: ClockDrift, node_ids) -> dict:
     measurable = drift.measurable
     known = np.isfinite(drift.drift_ns_per_h)
     return {
-        "model": "tau_k(t) = offset_k + drift_k (t - t_mid); offsets and drifts relative to their means",
+        "model": "tau_k(t) = offset_k + drift_k (t - t_mid); offsets and drifts relative to their means"
+                 + ("; drifts relative to their linear trend with each node's own firing time, which "
+                    "reciprocal pairs cannot see when every node fires once" if drift.trend_removed else ""),
         "survey_hours": drift.survey_hours,
         "reduced_chi2": drift.reduced_chi2,
         "measurable_above_sigmas": MEASURABLE_SIGMAS,
@@ -121,3 +204,36 @@ def clock_drift_record(drift: ClockDrift, node_ids) -> dict:
                                    "sd_ns_per_h": float(drift.drift_sd_ns_per_h[k])}
                      for k in np.flatnonzero(known)},
     }
+
+
+def drift_from_pick_checks(picks, checks, node_ids) -> dict | None:
+    """The drift record of the pick checks (:func:`clock_drift_record`), or None without shot times.
+
+    From the reciprocal pairs that agree (model-free,
+    :func:`estimate_clock_drift_from_reciprocity`) when there are at least
+    two per node; otherwise against the pick checks' reference times (a
+    homogeneous rock fitted to the picks, or the air wave), leaving out the
+    picks flagged as implausible or as reciprocal mismatches.
+    """
+    from reconstruct.checks.picks import FLAG_FASTER_THAN_AIR, FLAG_RECIPROCAL, FLAG_SLOWER_THAN_BAND
+
+    if picks.shot_time_s is None or len(picks) == 0:
+        return None
+    bad = checks.has(FLAG_RECIPROCAL) | checks.has(FLAG_FASTER_THAN_AIR) | checks.has(FLAG_SLOWER_THAN_BAND)
+    partner = np.where(bad, -1, np.asarray(checks.reciprocal, dtype=np.int64))
+    partner = np.where((partner >= 0) & bad[np.clip(partner, 0, None)], -1, partner)
+    n_pairs = int(np.sum((partner >= 0) & (np.arange(len(picks)) < partner)))
+    if n_pairs >= 2 * len(node_ids):
+        drift = estimate_clock_drift_from_reciprocity(picks.tx, picks.rx, picks.time_ns, checks.sigma_ns,
+                                                      picks.shot_time_s, len(node_ids), partner)
+        source = f"{n_pairs} reciprocal pairs (model-free)"
+    else:
+        residual = np.asarray(picks.time_ns, dtype=float) - np.asarray(checks.reference_time_ns, dtype=float)
+        keep = ~bad & np.isfinite(residual)
+        if keep.sum() < 2:
+            return None
+        drift = estimate_clock_drift(picks.tx[keep], picks.rx[keep], residual[keep], checks.sigma_ns[keep],
+                                     picks.shot_time_s[keep], len(node_ids))
+        source = (f"{int(keep.sum())} picks against the homogeneous reference (too few reciprocal pairs; an "
+                  "error of the reference that follows the shot order leaks into the drifts)")
+    return {**clock_drift_record(drift, list(node_ids)), "estimated_from": source}

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from reconstruct.checks.drift import drift_from_pick_checks
 from reconstruct.report import colours, map_marks
 from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
@@ -144,6 +145,7 @@ def pick_checks_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems
             "max_implausible_fraction": o.max_implausible_fraction,
             "max_mismatch_fraction": o.max_mismatch_fraction, "max_noise_ratio": o.max_noise_ratio,
         },
+        "clock_drift": drift_from_pick_checks(picks, checks, nodes.ids),
         "rays": rays,
         "usable": not problems,
         "problems": list(problems),
@@ -272,6 +274,31 @@ _NODE_TIME_ZERO_HEADINGS = ["node", "time-zero offset (ns)", "delay (ns)", "dept
                             "median residual (ns)"]
 
 
+def _drift_html(record) -> str:
+    """The clock drift section: measurable drifts per node with their standard deviations."""
+    if record is None:
+        return ("<h2>Clock drift</h2><p>Not estimated: the pick table has no shot_time_s column (when each "
+                "shot was fired), so a clock that drifts during the survey cannot be told from one that is "
+                "merely offset.</p>")
+    drifting = record["drifting_nodes"]
+    rows = [[node, record["per_node"][node]["drift_ns_per_h"], record["per_node"][node]["sd_ns_per_h"]]
+            for node in drifting]
+    largest = record["largest_abs_drift_ns_per_h"]
+    text = (f"<h2>Clock drift</h2><p>Each node's clock fitted as an offset plus a drift over the "
+            f"{record['survey_hours']:.2f} h of shots. {len(drifting)} node(s) drift measurably (more than "
+            f"{record['measurable_above_sigmas']:g} standard deviations); largest drift "
+            + ("-" if largest is None else f"{largest:.2f}")
+            + f" ns per hour; estimated from {escape(record.get('estimated_from', 'the picks'))}."
+            + (" The drifts are relative to their straight-line trend with each node's own firing time, "
+               "which reciprocal pairs cannot see when every node fires once." if "firing time" in record["model"]
+               else "")
+            + " Where nodes drift, invert with --time-zero clock_drift.</p>")
+    if not rows:
+        return text
+    return text + table_html(["node", "drift (ns per hour)", "standard deviation (ns per hour)"], rows,
+                             float_format=".2f")
+
+
 def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
     parts = []
     if summary["problems"]:
@@ -308,6 +335,7 @@ def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
                  "mean over the nodes; delay: half the difference between its receiving and transmitting "
                  "time-zero. A pick from A to B is corrected by the offset of B less that of A.</p>"
                  + table_html(_NODE_TIME_ZERO_HEADINGS, node_rows))
+    parts.append(_drift_html(summary.get("clock_drift")))
     flagged = [r for r in pick_check_rows(picks, nodes, checks) if r[-2]][:500]
     parts.append(f"<h2>Flagged picks (first {len(flagged)})</h2>"
                  + table_html(["input line", "transmitter", "receiver", "pick time (ns)", "flags"],

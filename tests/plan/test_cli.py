@@ -371,3 +371,37 @@ def test_simulate_offers_the_dask_executor(files, tmp_path):
     assert (args.executor, args.scheduler) == (None, "tcp://10.0.0.5:8786")  # None + scheduler: dask
     code, out, err = _simulate(files, tmp_path / "picks.csv", "--executor", "serial", "--scheduler", "tcp://h:1")
     _assert_user_error(code, out, err, "drop --scheduler or choose dask")
+
+
+def test_pick_checks_find_the_drift_that_simulate_put_in(files, tmp_path):
+    # the drift of each node's clock, drawn at random by 'plan simulate', against what the pick
+    # checks estimate from the picks and their shot times (reconstruct.checks.drift)
+    from reconstruct.cli import main as reconstruct_main
+
+    files["truth"].write_text(TRUTH_YAML.replace("seed: 3}", "seed: 3, clock_drift_sigma_ns_per_h: 10,"
+                                                             " shot_interval_s: 120}"), encoding="utf-8")
+    picks = tmp_path / "sim" / "picks.csv"
+    assert _simulate(files, picks, "--quiet")[0] == 0
+    code, _, err = run_main(reconstruct_main, ["check-picks", "--site", files["site"], "--nodes", files["nodes"],
+                                               "--picks", picks, "--out", tmp_path / "checks", "--quiet"])
+    assert code == 0, err
+    record = json.loads((tmp_path / "checks" / "pick_checks.json").read_text(encoding="utf-8"))["clock_drift"]
+    with open(picks.parent / "true_time_zero.csv", newline="", encoding="utf-8") as f:
+        rows = list(csv.DictReader(f))
+    # every node fires once (node k at k x 120 s): reciprocal pairs see the drifts relative to their
+    # straight-line trend with the firing time, so the truth is taken the same way (numpy.polyfit)
+    firing = 120.0 * np.arange(len(rows))
+    drift = np.array([float(r["clock_drift_ns_per_h"]) for r in rows])
+    drift -= np.polyval(np.polyfit(firing, drift, 1), firing)
+    truth = dict(zip((r["node_id"] for r in rows), drift - drift.mean()))
+    assert "estimated_from" in record and "reciprocal pairs" in record["estimated_from"]
+    ids = sorted(record["per_node"])
+    estimate = np.array([record["per_node"][k]["drift_ns_per_h"] for k in ids])
+    sd = np.array([record["per_node"][k]["sd_ns_per_h"] for k in ids])
+    true = np.array([truth[k] for k in ids])
+    assert np.corrcoef(estimate, true)[0, 1] > 0.9
+    assert np.all(np.abs(estimate - true) < 4 * sd)
+    assert record["drifting_nodes"] and all(np.sign(record["per_node"][k]["drift_ns_per_h"]) == np.sign(truth[k])
+                                            for k in record["drifting_nodes"])
+    page = (tmp_path / "checks" / "pick_checks.html").read_text(encoding="utf-8")
+    assert "Clock drift" in page and "--time-zero clock_drift" in page

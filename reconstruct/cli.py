@@ -145,7 +145,10 @@ def _add_input_arguments(p: argparse.ArgumentParser):
     p.add_argument("--nodes", required=True, metavar="FILE",
                    help="node table (CSV: node_id,x_m,y_m,z_m[,kind,borehole])")
     p.add_argument("--picks", required=True, metavar="FILE",
-                   help="pick table (CSV: tx,rx,time_ns[,sigma_ns,amplitude,quality]); times in ns")
+                   help="pick table (CSV: tx,rx,time_ns[,sigma_ns,amplitude,quality,shot_time_s]); times in ns")
+    p.add_argument("--schedule", metavar="FILE",
+                   help="shot schedule (CSV with transmitter,start_s, as 'voidcube plan schedule' writes): "
+                        "each pick's shot time, for clock drift, when the picks have no shot_time_s column")
     p.add_argument("--out", required=True, metavar="FOLDER", help="output folder (created if missing)")
 
 
@@ -192,6 +195,10 @@ def _read_inputs(args, say):
     nodes = read_nodes(args.nodes)
     picks = read_picks(args.picks, nodes)
     say(f"read {len(nodes)} nodes and {picks.n_rows} pick rows ({len(picks.excluded)} excluded on reading)")
+    if args.schedule:
+        from reconstruct.io.tables import shot_times_from_schedule
+
+        picks = shot_times_from_schedule(picks, nodes, args.schedule)
     return site, nodes, picks
 
 
@@ -208,7 +215,9 @@ def _cmd_invert(args) -> int:
     result = process_survey(site, nodes, picks, settings, executor=executor, progress=say)
     parameters = {k: v for k, v in vars(args).items() if k not in ("func", "quiet")}
     parameters.update(executor=executor.kind, robust_used=settings.robust_weighting)
-    summary = write_inversion(result, args.out, inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
+    inputs = {"site": args.site, "nodes": args.nodes, "picks": args.picks,
+              **({"schedule": args.schedule} if args.schedule else {})}
+    summary = write_inversion(result, args.out, inputs=inputs,
                               parameters=parameters, started=started, command="voidcube reconstruct invert")
     _print_inversion(summary, args.out)
     return 0
@@ -259,7 +268,8 @@ def _cmd_check_picks(args) -> int:
     problems = usability_problems(picks, checks)
     parameters = {k: v for k, v in vars(args).items() if k not in ("func", "quiet")}
     summary = write_pick_checks(picks, nodes, checks, problems, args.out, xyz_m=placement.xyz_m, site_name=site.name,
-                       inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks},
+                       inputs={"site": args.site, "nodes": args.nodes, "picks": args.picks,
+                               **({"schedule": args.schedule} if args.schedule else {})},
                        parameters=parameters, started=started, command="voidcube reconstruct check-picks",
                        rays=args.rays, keep_flagged=keep)
     counts = summary["picks"]["flag_counts"]

@@ -124,6 +124,7 @@ __all__ = [
     "ExcludedPick",
     "read_nodes",
     "nodes_on_surveyed_holes",
+    "shot_times_from_schedule",
     "read_picks",
     "write_excluded_csv",
     "NODE_KINDS",
@@ -862,3 +863,37 @@ def write_excluded_csv(excluded, path_or_buffer) -> None:
             "check that the folder exists and is writable",
             source=str(path),
         ) from None
+
+
+def shot_times_from_schedule(picks: Picks, nodes: Nodes, path) -> Picks:
+    """Picks with shot times taken from a shot schedule (``voidcube plan schedule``'s ``schedule.csv``).
+
+    The schedule lists one row per slot with the columns ``transmitter`` (a
+    node id) and ``start_s`` (seconds from the start of the survey); each
+    pick takes the start of its transmitter's slot. A transmitter in several
+    slots takes its first. Picks that already carry ``shot_time_s`` keep it.
+
+    Raises
+    ------
+    InputError
+        A missing or unreadable file or column, a start that is not a number
+        (naming the line), or picks whose transmitter has no slot (naming the
+        nodes).
+    """
+    if picks.shot_time_s is not None:
+        return picks
+    source, rows, problems, _, _ = _table(path, ("transmitter", "start_s"), (), "schedule")
+    start: dict[str, float] = {}
+    for line, cell in rows:
+        value = _number(cell["start_s"])
+        if value is None or not math.isfinite(value):
+            problems.append(f"line {line}, column start_s: '{cell['start_s']}' is not a time in seconds")
+            continue
+        start.setdefault(cell["transmitter"], value)
+    missing = sorted({nodes.ids[k] for k in np.unique(picks.tx)} - set(start))
+    if missing:
+        problems.append(f"no slot for transmitter(s) {', '.join(missing[:20])}"
+                        + (f" and {len(missing) - 20} more" if len(missing) > 20 else "")
+                        + "; give the schedule of this survey, or a shot_time_s column in the pick table")
+    _raise_if(problems, source)
+    return replace(picks, shot_time_s=np.array([start[nodes.ids[k]] for k in picks.tx], dtype=float))

@@ -332,3 +332,25 @@ def test_write_excluded_csv_path_and_buffer(tmp_path, nodes):
     buffer = io.StringIO()
     write_excluded_csv(picks.excluded, buffer)
     assert buffer.getvalue() == out.read_text(encoding="utf-8")
+
+
+def test_shot_times_come_from_the_schedule_by_transmitter(tmp_path):
+    # the schedule's start of each transmitter's slot is the shot time of its picks
+    # (the layout of 'voidcube plan schedule': one slot per transmitter, start_s in seconds)
+    from reconstruct.errors import InputError
+    from reconstruct.io.tables import shot_times_from_schedule
+
+    (tmp_path / "nodes.csv").write_text("node_id,x_m,y_m,z_m\nA,0,0,0\nB,1,0,0\nC,2,0,0\n", encoding="utf-8")
+    (tmp_path / "picks.csv").write_text("tx,rx,time_ns\nA,B,10\nB,A,10\nC,A,20\n", encoding="utf-8")
+    (tmp_path / "schedule.csv").write_text("slot,start_s,transmitter\n1,0.0,A\n2,25.5,B\n3,51.0,C\n4,76.5,A\n",
+                                           encoding="utf-8")
+    nodes = read_nodes(tmp_path / "nodes.csv")
+    picks = read_picks(tmp_path / "picks.csv", nodes)
+    timed = shot_times_from_schedule(picks, nodes, tmp_path / "schedule.csv")
+    assert timed.shot_time_s.tolist() == [0.0, 25.5, 51.0]  # A's first slot
+    assert picks.shot_time_s is None  # the picks read are not modified
+    (tmp_path / "schedule.csv").write_text("slot,start_s,transmitter\n1,0.0,A\n2,x,B\n", encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        shot_times_from_schedule(picks, nodes, tmp_path / "schedule.csv")
+    message = str(info.value)
+    assert "line 3, column start_s" in message and "no slot for transmitter(s) B, C" in message

@@ -91,6 +91,13 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
                         "t = t_ray + tau_tx + tau_rx for instrument delays; 'clock_drift' clock offsets "
                         "that drift linearly during the survey (needs a shot_time_s column in the picks; "
                         "drifts in ns per hour in time_zero.csv); 'none'")
+    g.add_argument("--anisotropy-ratio", type=float, default=o.anisotropy_ratio, metavar="R",
+                   help="elliptical anisotropy: velocity along the bedding over velocity across it "
+                        "(default 1: isotropic; the pick checks estimate it); the cube then holds the "
+                        "velocity along the bedding")
+    g.add_argument("--anisotropy-axis", choices=("z", "x", "y"), default=o.anisotropy_axis,
+                   help="symmetry axis of the anisotropy, the normal to the bedding (default z: "
+                        "horizontal beds)")
     g.add_argument("--lsqr-iterations", type=int, default=o.max_iterations, metavar="N",
                    help=f"LSQR iteration limit per solve (default {o.max_iterations})")
     g.add_argument("--default-sigma", type=float, default=o.default_sigma_ns, metavar="NS",
@@ -172,7 +179,8 @@ def _settings_from(args, *, find_bodies: bool = False):
         horizontal_weight=args.horizontal_weight, vertical_weight=args.vertical_weight,
         smoothing=args.smoothing, damping_ratio=args.damping_ratio, time_zero=args.time_zero,
         max_iterations=args.lsqr_iterations, default_sigma_ns=args.default_sigma,
-        regularisation=args.regularisation)
+        regularisation=args.regularisation, anisotropy_ratio=args.anisotropy_ratio,
+        anisotropy_axis=args.anisotropy_axis)
     if args.write_rays and args.rays != "bent":
         raise InputError("--write-rays needs --rays bent (straight rays are the node-to-node lines)")
     return ProcessingSettings(

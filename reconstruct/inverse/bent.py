@@ -52,6 +52,7 @@ from reconstruct.inverse.time_zero import estimate_time_zero
 from reconstruct.parallel import Executor
 from reconstruct.inverse.straight import TomographyRun, solver_progress, straight_ray_tomography
 from reconstruct.forward.straight_rays import ray_coverage
+from reconstruct.forward.anisotropy import stretched_geometry
 
 __all__ = ["BentOptions", "bent_ray_tomography"]
 
@@ -123,7 +124,10 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
     """
     start = straight_ray_tomography(site, nodes, picks, options, snap_tolerance_m=snap_tolerance_m,
                                     memory_limit_bytes=memory_limit_bytes, progress=progress)
-    steps = _BentSteps(start.problem, start.grid, start.placement.xyz_m, bent, executor, progress)
+    # elliptical anisotropy: fields and rays in the stretched geometry (reconstruct.forward.anisotropy)
+    ray_grid, ray_xyz = stretched_geometry(start.grid, start.placement.xyz_m, options.anisotropy_ratio,
+                                           options.anisotropy_axis)
+    steps = _BentSteps(start.problem, ray_grid, ray_xyz, bent, executor, progress)
     if kernels_need_compiling():
         steps.say(COMPILING_MESSAGE)
     state, history = steps.starting_point(start.result)
@@ -320,6 +324,14 @@ class _BentSteps:
             return None, None
         return candidate, step
 
+    def real_points(self, points):
+        """Points of the (possibly stretched, anisotropic) ray geometry back in site coordinates."""
+        options = self.problem.options
+        if options.anisotropy_ratio == 1.0:
+            return points
+        _, real = stretched_geometry(self.grid, points, 1.0 / options.anisotropy_ratio, options.anisotropy_axis)
+        return real
+
     def final_run(self, start: TomographyRun, state: _Model, result, history) -> TomographyRun:
         """The run of the last accepted model, with rays when kept."""
         final = state.forward
@@ -337,5 +349,6 @@ class _BentSteps:
         return dataclasses.replace(
             start, result=final_result, ray_length_m=ray_length, ray_count=ray_count, rays="bent",
             history=tuple(history),
-            polylines=None if final.polylines is None else [final.polylines[k] for k in self.pick_pair],
+            polylines=None if final.polylines is None else [self.real_points(final.polylines[k])
+                                                             for k in self.pick_pair],
         )

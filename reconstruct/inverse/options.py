@@ -80,6 +80,12 @@ class InversionOptions:
         Keep the slowness inside the band within each solve (bounded least
         squares, :func:`reconstruct.inverse.solver.bounded_lsqr`) instead of
         clipping the solved model afterwards.
+    anisotropy_ratio : float
+        Elliptical anisotropy of the rock: velocity along the bedding over
+        velocity across it (1, the default: isotropic). The cube then holds
+        the velocity along the bedding (:mod:`reconstruct.forward.anisotropy`).
+    anisotropy_axis : {'z', 'x', 'y'}
+        The symmetry axis (normal to the bedding): ``z`` for horizontal beds.
     """
 
     velocity_min_m_per_ns: float = 0.03
@@ -104,6 +110,8 @@ class InversionOptions:
     focusing_fraction: float = 0.1
     focusing_iterations: int = 6
     bounds_in_solve: bool = True
+    anisotropy_ratio: float = 1.0
+    anisotropy_axis: str = "z"
 
     def __post_init__(self):
         problems = []
@@ -148,6 +156,11 @@ class InversionOptions:
             problems.append(f"focusing_fraction must be > 0 and <= 1 (got {self.focusing_fraction})")
         if self.focusing_iterations < 1:
             problems.append(f"focusing_iterations must be >= 1 (got {self.focusing_iterations})")
+        if not 0.5 <= self.anisotropy_ratio <= 2.0:
+            problems.append(f"anisotropy_ratio must be between 0.5 and 2 (velocity along the bedding over "
+                            f"velocity across it; got {self.anisotropy_ratio})")
+        if self.anisotropy_axis not in ("x", "y", "z"):
+            problems.append(f"anisotropy_axis must be x, y or z (got {self.anisotropy_axis!r})")
         if problems:
             from reconstruct.errors import InputError
 

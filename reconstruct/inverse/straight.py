@@ -14,6 +14,7 @@ from reconstruct.model.grid import Grid
 from reconstruct.inverse.problem import InverseProblem, build_inverse_problem
 from reconstruct.inverse.solver import InversionOptions, InversionResult, solve_inverse_problem
 from reconstruct.model.placement import NodePlacement, place_nodes
+from reconstruct.forward.anisotropy import stretched_geometry
 from reconstruct.io.site import Site, model_grid
 from reconstruct.forward.straight_rays import ray_coverage
 from reconstruct.forward.straight_rays import straight_ray_matrix
@@ -136,7 +137,9 @@ def straight_ray_tomography(
     def ray_progress(done, total):
         _say(progress, f"straight rays: {done:,}/{total:,}")
 
-    G = straight_ray_matrix(grid, xyz[picks.tx[used]], xyz[picks.rx[used]], progress=ray_progress)
+    # elliptical anisotropy: straight rays in the stretched geometry (reconstruct.forward.anisotropy)
+    ray_grid, ray_xyz = stretched_geometry(grid, xyz, options.anisotropy_ratio, options.anisotropy_axis)
+    G = straight_ray_matrix(ray_grid, ray_xyz[picks.tx[used]], ray_xyz[picks.rx[used]], progress=ray_progress)
     _say(progress, f"operator: {G.shape[0]:,} rays, {G.nnz:,} non-zeros")
 
     if options.time_zero == "clock_drift" and picks.shot_time_s is None:
@@ -348,6 +351,12 @@ def run_summary(run: TomographyRun) -> dict:
                 "none": "no time-zero terms",
             }[run.options.time_zero],
             **_time_zero_figures(r.time_zero_ns, len(run.nodes)),
+        },
+        "anisotropy": {
+            "ratio": run.options.anisotropy_ratio, "axis": run.options.anisotropy_axis,
+            "model": ("isotropic" if run.options.anisotropy_ratio == 1.0 else
+                      "elliptical, velocity along the bedding over velocity across it = ratio; the cube holds "
+                      "the velocity along the bedding"),
         },
         "velocity_m_per_ns": {
             "band": [run.options.velocity_min_m_per_ns, run.options.velocity_max_m_per_ns],

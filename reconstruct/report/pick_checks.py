@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from reconstruct.checks.anisotropy import anisotropy_from_pick_checks, ray_angle_deg
 from reconstruct.checks.drift import drift_from_pick_checks
 from reconstruct.report import colours, map_marks
 from reconstruct.report.html import escape, figure_png, html_document, png_img_html, table_html
@@ -274,6 +275,39 @@ _NODE_TIME_ZERO_HEADINGS = ["node", "time-zero offset (ns)", "delay (ns)", "dept
                             "median residual (ns)"]
 
 
+def _anisotropy_png(picks, checks, xyz_m, record) -> bytes:
+    """Apparent velocity of the unflagged picks against their angle to the vertical, with the fit."""
+    fig = _figure(6.0, 4.0)
+    ax = fig.add_subplot()
+    keep = np.array([not f for f in checks.flags], dtype=bool) & (checks.corrected_time_ns > 0)
+    xyz = np.asarray(xyz_m, dtype=float)
+    angle = ray_angle_deg(xyz[picks.tx[keep]], xyz[picks.rx[keep]], "z")
+    ax.scatter(angle, checks.apparent_velocity_m_per_ns[keep], s=4, color=_COLOURS["kept"], alpha=0.6,
+               label=f"picks without a flag ({int(keep.sum())})")
+    phi = np.radians(np.linspace(0.0, 90.0, 91))
+    v_along, v_across = record["velocity_along_beds_m_per_ns"], record["velocity_across_beds_m_per_ns"]
+    curve = 1.0 / np.sqrt(np.sin(phi) ** 2 / v_along**2 + np.cos(phi) ** 2 / v_across**2)
+    ax.plot(np.degrees(phi), curve, color=colours.REFERENCE_LINE_COLOUR, linewidth=1.2,
+            label=f"elliptical fit: {v_along:.4f} along, {v_across:.4f} m/ns across the beds")
+    ax.set_xlabel("angle of the ray to the vertical (degrees; 90 = horizontal)")
+    ax.set_ylabel("apparent velocity (m/ns)")
+    ax.legend(fontsize=7, loc="lower right")
+    ax.grid(alpha=0.3)
+    return figure_png(fig)
+
+
+def _anisotropy_html(picks, checks, xyz_m, record) -> str:
+    """The anisotropy section: the fit in words and the plot."""
+    if record is None:
+        return ("<h2>Anisotropy</h2><p>Not estimated: fewer than 10 picks without a flag, or their rays span "
+                "less than 20 degrees of angle to the vertical.</p>")
+    return (f"<h2>Anisotropy</h2><p>Elliptical model, symmetry axis vertical (horizontal beds): "
+            f"{escape(record['words'])}.</p>"
+            + png_img_html(_anisotropy_png(picks, checks, xyz_m, record), "apparent velocity against ray angle",
+                           "Apparent velocity (distance over corrected time) of the picks without a flag "
+                           "against the angle of their straight ray to the vertical, with the elliptical fit."))
+
+
 def _drift_html(record) -> str:
     """The clock drift section: measurable drifts per node with their standard deviations."""
     if record is None:
@@ -336,6 +370,7 @@ def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
                  "time-zero. A pick from A to B is corrected by the offset of B less that of A.</p>"
                  + table_html(_NODE_TIME_ZERO_HEADINGS, node_rows))
     parts.append(_drift_html(summary.get("clock_drift")))
+    parts.append(_anisotropy_html(picks, checks, xyz_m, summary.get("anisotropy")))
     flagged = [r for r in pick_check_rows(picks, nodes, checks) if r[-2]][:500]
     parts.append(f"<h2>Flagged picks (first {len(flagged)})</h2>"
                  + table_html(["input line", "transmitter", "receiver", "pick time (ns)", "flags"],
@@ -357,6 +392,7 @@ def write_pick_checks(picks: Picks, nodes: Nodes, checks: PickChecks, problems, 
     out = make_output_folder(out_dir)
     excluding = excluded_flags(rays, keep_flagged)
     summary = pick_checks_summary(picks, nodes, checks, problems, rays=rays, keep_flagged=keep_flagged)
+    summary["anisotropy"] = anisotropy_from_pick_checks(picks, checks, xyz_m)
     written = [
         write_csv_atomic(out / "pick_checks.csv", PICK_CHECK_COLUMNS,
                          pick_check_rows(picks, nodes, checks, excluding)),

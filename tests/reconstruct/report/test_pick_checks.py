@@ -131,7 +131,7 @@ def test_pick_checks_write_every_output_and_flag_input_lines(tmp_path):
     assert all(html.escape(c, quote=True) in page for c in CAUTIONS)
     parser = _Images()
     parser.feed(page)
-    assert parser.images == 4  # time-distance, reciprocity, histogram, node map
+    assert parser.images == 5  # time-distance, reciprocity, histogram, node map, apparent velocity by angle
     manifest = json.loads((out / "manifest.json").read_text())
     assert set(manifest["outputs"]) == {"manifest.json", "node_time_zero.csv", "pick_checks.csv", "pick_checks.html",
                                         "pick_checks.json"}

@@ -56,6 +56,16 @@ def progress_printer(quiet: bool):
     return say
 
 
+def _ratio_or_auto(text: str):
+    """A number, or 'auto' (the anisotropy ratio from the pick checks)."""
+    if text.strip().lower() == "auto":
+        return "auto"
+    try:
+        return float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number such as 1.1, or auto (got {text!r})") from None
+
+
 def _add_inversion_arguments(p: argparse.ArgumentParser):
     from reconstruct.inverse.options import REGULARISATIONS
     from reconstruct.inverse.time_zero import TIME_ZERO_MODELS
@@ -91,10 +101,10 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
                         "t = t_ray + tau_tx + tau_rx for instrument delays; 'clock_drift' clock offsets "
                         "that drift linearly during the survey (needs a shot_time_s column in the picks; "
                         "drifts in ns per hour in time_zero.csv); 'none'")
-    g.add_argument("--anisotropy-ratio", type=float, default=o.anisotropy_ratio, metavar="R",
+    g.add_argument("--anisotropy-ratio", type=_ratio_or_auto, default=o.anisotropy_ratio, metavar="R",
                    help="elliptical anisotropy: velocity along the bedding over velocity across it "
-                        "(default 1: isotropic; the pick checks estimate it); the cube then holds the "
-                        "velocity along the bedding")
+                        "(default 1: isotropic; 'auto': the pick checks' fit, beds horizontal, when it is "
+                        "measurable); the cube then holds the velocity along the bedding")
     g.add_argument("--anisotropy-axis", choices=("z", "x", "y"), default=o.anisotropy_axis,
                    help="symmetry axis of the anisotropy, the normal to the bedding (default z: "
                         "horizontal beds)")
@@ -179,14 +189,16 @@ def _settings_from(args, *, find_bodies: bool = False):
         horizontal_weight=args.horizontal_weight, vertical_weight=args.vertical_weight,
         smoothing=args.smoothing, damping_ratio=args.damping_ratio, time_zero=args.time_zero,
         max_iterations=args.lsqr_iterations, default_sigma_ns=args.default_sigma,
-        regularisation=args.regularisation, anisotropy_ratio=args.anisotropy_ratio,
+        regularisation=args.regularisation,
+        anisotropy_ratio=1.0 if args.anisotropy_ratio == "auto" else args.anisotropy_ratio,
         anisotropy_axis=args.anisotropy_axis)
     if args.write_rays and args.rays != "bent":
         raise InputError("--write-rays needs --rays bent (straight rays are the node-to-node lines)")
     return ProcessingSettings(
         rays=args.rays, bent_iterations=args.bent_iterations, inversion=inversion, robust=args.robust,
         keep_flagged=_keep_flagged(args), invert_unusable=args.invert_unusable,
-        snap_tolerance_m=args.snap_tolerance, keep_rays=args.write_rays, find_bodies=find_bodies)
+        snap_tolerance_m=args.snap_tolerance, keep_rays=args.write_rays, find_bodies=find_bodies,
+        anisotropy_from_picks=args.anisotropy_ratio == "auto")
 
 
 def _check_output_folder(out) -> None:

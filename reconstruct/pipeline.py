@@ -103,6 +103,10 @@ class ProcessingSettings:
         derived from the false-alarm chance).
     screening : ScreeningOptions
         Rock over the voids and wall dip for the screening.
+    anisotropy_from_picks : bool
+        Take the elliptical anisotropy ratio (beds horizontal) from the pick
+        checks' fit (:mod:`reconstruct.checks.anisotropy`) when it is
+        measurable, instead of ``inversion.anisotropy_ratio``.
     """
 
     rays: str = "bent"
@@ -116,6 +120,7 @@ class ProcessingSettings:
     find_bodies: bool = True
     voids: VoidOptions = field(default_factory=VoidOptions)
     screening: ScreeningOptions = field(default_factory=ScreeningOptions)
+    anisotropy_from_picks: bool = False
 
     def __post_init__(self):
         problems = []
@@ -188,9 +193,28 @@ def check_summary(checks, problems, chosen_excluded: int, reading_excluded: int,
             "inverted_despite_problems": bool(problems), "kept_flags": list(settings.keep_flagged)}
 
 
+def _anisotropy_settings(settings: ProcessingSettings, picks, checks, placement, progress):
+    """With ``anisotropy_from_picks``: the settings with the pick checks' ratio when it is measurable
+    (beds horizontal), and the record of the choice."""
+    from reconstruct.checks.anisotropy import anisotropy_from_pick_checks
+
+    if not settings.anisotropy_from_picks:
+        return settings, None
+    record = anisotropy_from_pick_checks(picks, checks, placement.xyz_m, "z")
+    if record is None or not record["measurably_anisotropic"]:
+        _say(progress, "anisotropy: none measurable in the picks; inverting as isotropic")
+        return dataclasses.replace(settings, inversion=dataclasses.replace(
+            settings.inversion, anisotropy_ratio=1.0, anisotropy_axis="z")), record
+    ratio = float(np.clip(record["ratio"], 0.5, 2.0))
+    _say(progress, f"anisotropy from the picks: {record['words']}; inverting with ratio {ratio:.3f}")
+    return dataclasses.replace(settings, inversion=dataclasses.replace(
+        settings.inversion, anisotropy_ratio=ratio, anisotropy_axis="z")), record
+
+
 def _checked_picks(site, nodes, picks, settings: ProcessingSettings, progress):
-    """Pick checks; refuse unusable data unless ``invert_unusable``; the picks to invert."""
-    _, checks = check_site_picks(site, nodes, picks, snap_tolerance_m=settings.snap_tolerance_m)
+    """Pick checks; refuse unusable data unless ``invert_unusable``; the picks to invert (with the
+    checks, their summary and the nodes' placement)."""
+    placement, checks = check_site_picks(site, nodes, picks, snap_tolerance_m=settings.snap_tolerance_m)
     problems = tuple(usability_problems(picks, checks))
     if problems and not settings.invert_unusable:
         reasons = "; ".join(p[len(picks.source) + 2:] if p.startswith(picks.source) else p for p in problems)
@@ -202,7 +226,7 @@ def _checked_picks(site, nodes, picks, settings: ProcessingSettings, progress):
     _say(progress, "pick checks: " + (", ".join(f"{n} {f}" for f, n in counts.items() if n) or "no pick flagged"))
     exempt = reciprocal_confirmed(checks)[kept_by_flags(checks, rays=settings.rays, keep_flagged=keep)]
     summary = check_summary(checks, problems, len(chosen.excluded), len(picks.excluded), settings)
-    return checks, problems, chosen, exempt, summary
+    return checks, problems, chosen, exempt, summary, placement
 
 
 def _invert(site, nodes, chosen, exempt, settings: ProcessingSettings, executor, progress) -> TomographyRun:
@@ -284,7 +308,10 @@ def process_survey(site, nodes, picks, settings: ProcessingSettings = Processing
         in ``keep_flagged``, or inputs that do not fit together.
     """
     nodes, positions = node_positions_from_surveys(site, nodes, progress)
-    checks, problems, chosen, exempt, summary = _checked_picks(site, nodes, picks, settings, progress)
+    checks, problems, chosen, exempt, summary, placement = _checked_picks(site, nodes, picks, settings, progress)
+    settings, anisotropy = _anisotropy_settings(settings, picks, checks, placement, progress)
+    if anisotropy is not None:
+        summary["anisotropy_from_picks"] = anisotropy
     run = _invert(site, nodes, chosen, exempt, settings, executor, progress)
     result = ProcessingResult(settings=settings, checks=checks, problems=problems, check_summary=summary, run=run,
                               node_positions=positions)

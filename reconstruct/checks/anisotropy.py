@@ -70,7 +70,7 @@ class EllipticalFit:
         return bool(abs(self.ratio - 1.0) > _MEASURABLE_SIGMAS * self.ratio_sd)
 
 
-def fit_elliptical_anisotropy(a_xyz, b_xyz, time_ns, sigma_ns, axis="z") -> EllipticalFit:
+def fit_elliptical_anisotropy(a_xyz, b_xyz, time_ns, sigma_ns, axis="z", clock=None) -> EllipticalFit:
     """Fit the elliptical model to straight-ray picks through rock.
 
     Parameters
@@ -78,32 +78,70 @@ def fit_elliptical_anisotropy(a_xyz, b_xyz, time_ns, sigma_ns, axis="z") -> Elli
     a_xyz, b_xyz : ndarray, shape (m, 3)
         Transmitter and receiver positions, metres.
     time_ns : ndarray, shape (m,)
-        Picks corrected for the time-zero offsets, ns (rock arrivals only:
-        leave out air waves).
+        Pick times, ns, of rock arrivals (leave out air waves): corrected for
+        the time-zero offsets, or raw with ``clock``.
     sigma_ns : ndarray, shape (m,)
     axis : str or 3 floats
         The symmetry axis (normal to the bedding).
+    clock : tuple (tx, rx, n_nodes), optional
+        Fit a clock offset per node at the same time (``t = T + tau_rx -
+        tau_tx``; nonlinear least squares, scipy.optimize.least_squares),
+        instead of taking the times as corrected.
     """
     d = np.asarray(b_xyz, dtype=float) - np.asarray(a_xyz, dtype=float)
     u = axis_vector(axis)
     along_axis = d @ u
     across = np.linalg.norm(d - along_axis[:, None] * u, axis=1)
     t = np.asarray(time_ns, dtype=float)
+    sigma = np.asarray(sigma_ns, dtype=float)
     # t^2 = across^2 p + along^2 q, p = 1/v_perp^2, q = 1/v_axis^2; sigma(t^2) = 2 t sigma
-    weight = 1.0 / (2.0 * t * np.asarray(sigma_ns, dtype=float))
+    weight = 1.0 / (2.0 * t * sigma)
     A = np.column_stack([across**2, along_axis**2]) * weight[:, None]
-    rhs = t**2 * weight
-    (p, q), *_ = np.linalg.lstsq(A, rhs, rcond=None)
-    dof = max(t.size - 2, 1)
-    reduced = float(np.sum((A @ [p, q] - rhs) ** 2) / dof)
-    cov = np.linalg.pinv(A.T @ A) * max(reduced, 1.0)
+    (p, q), *_ = np.linalg.lstsq(A, t**2 * weight, rcond=None)
     p, q = max(p, 1e-12), max(q, 1e-12)
+    if clock is None:
+        dof = max(t.size - 2, 1)
+        reduced = float(np.sum((A @ [p, q] - t**2 * weight) ** 2) / dof)
+        cov = np.linalg.pinv(A.T @ A) * max(reduced, 1.0)
+    else:
+        p, q, cov = _fit_with_clocks(across, along_axis, t, sigma, clock, p, q)
     ratio = float(np.sqrt(q / p))  # v_perp / v_axis
     grad = np.array([-0.5 * ratio / p, 0.5 * ratio / q])
     return EllipticalFit(velocity_along_beds_m_per_ns=float(1 / np.sqrt(p)),
-                          velocity_across_beds_m_per_ns=float(1 / np.sqrt(q)), ratio=ratio,
-                          ratio_sd=float(np.sqrt(max(grad @ cov @ grad, 0.0))), n_picks=int(t.size),
-                          axis=tuple(float(v) for v in axis_vector(axis)))
+                         velocity_across_beds_m_per_ns=float(1 / np.sqrt(q)), ratio=ratio,
+                         ratio_sd=float(np.sqrt(max(grad @ cov @ grad, 0.0))), n_picks=int(t.size),
+                         axis=tuple(float(v) for v in axis_vector(axis)))
+
+
+def _fit_with_clocks(across, along, t, sigma, clock, p0, q0):
+    """``t = sqrt(across^2 p + along^2 q) + tau_rx - tau_tx`` by nonlinear least squares; returns
+    p, q and their 2 x 2 covariance (scaled by the reduced chi-square when above 1)."""
+    import scipy.sparse as sp
+    from scipy.optimize import least_squares
+
+    tx, rx, n_nodes = (np.asarray(clock[0]), np.asarray(clock[1]), int(clock[2]))
+    rows = np.arange(t.size)
+    C = sp.csr_matrix((np.r_[np.ones(t.size), -np.ones(t.size)], (np.r_[rows, rows], np.r_[rx, tx])),
+                      shape=(t.size, n_nodes))
+    scale = np.array([p0, q0])
+
+    def residual(x):
+        travel = np.sqrt(across**2 * x[0] * scale[0] + along**2 * x[1] * scale[1])
+        return (travel + C @ x[2:] - t) / sigma
+
+    def jacobian(x):
+        travel = np.sqrt(across**2 * x[0] * scale[0] + along**2 * x[1] * scale[1])
+        dp = across**2 * scale[0] / (2 * travel)
+        dq = along**2 * scale[1] / (2 * travel)
+        return sp.hstack([sp.csr_matrix(np.column_stack([dp, dq])), C]).multiply(1.0 / sigma[:, None]).tocsr()
+
+    found = least_squares(residual, np.r_[1.0, 1.0, np.zeros(n_nodes)], jac=jacobian, method="trf",
+                          x_scale="jac")
+    J = jacobian(found.x).toarray()
+    dof = max(t.size - 2 - (n_nodes - 1), 1)
+    reduced = float(np.sum(found.fun**2) / dof)
+    cov = np.linalg.pinv(J.T @ J)[:2, :2] * max(reduced, 1.0) * np.outer(scale, scale)
+    return found.x[0] * scale[0], found.x[1] * scale[1], cov
 
 
 def anisotropy_record(fit: EllipticalFit) -> dict:
@@ -122,11 +160,25 @@ def anisotropy_record(fit: EllipticalFit) -> dict:
 
 
 def anisotropy_from_pick_checks(picks, checks, xyz_m, axis="z") -> dict | None:
-    """The elliptical fit of the pick checks (:func:`anisotropy_record`) on the picks that carry no
-    flag (rock arrivals, corrected for the time-zero offsets); None with fewer than 10 such picks
-    or no spread of ray angles."""
-    keep = np.array([not f for f in checks.flags], dtype=bool) & np.isfinite(checks.corrected_time_ns)
-    keep &= checks.corrected_time_ns > 0
+    """The elliptical fit of the pick checks (:func:`anisotropy_record`), or None with fewer than 10
+    usable picks or a spread of ray angles under 20 degrees.
+
+    Fitted to the means of agreeing reciprocal pairs, in which the clock offsets cancel (the
+    fitted time-zero terms would otherwise take up part of the anisotropy: a node deep in a hole
+    sees mostly steep rays), or, with fewer than 10 such pairs, to the picks with a clock offset
+    per node fitted alongside; only picks without a flag (rock arrivals).
+    """
+    clean = np.array([not f for f in checks.flags], dtype=bool)
+    pairs = clean & np.isfinite(checks.reciprocal_mean_ns) & (np.arange(len(picks)) < checks.reciprocal)
+    pairs &= clean[np.clip(checks.reciprocal, 0, None)]
+    clock = None
+    if pairs.sum() >= 10:
+        keep, time, source = pairs, checks.reciprocal_mean_ns, "means of agreeing reciprocal pairs"
+        sigma = checks.sigma_ns / np.sqrt(2.0)
+    else:
+        keep = clean & (picks.time_ns > 0)
+        time, source, sigma = picks.time_ns, "picks, with a clock offset per node fitted alongside", checks.sigma_ns
+        clock = (picks.tx[keep], picks.rx[keep], int(max(picks.tx.max(), picks.rx.max())) + 1)
     if keep.sum() < 10:
         return None
     xyz = np.asarray(xyz_m, dtype=float)
@@ -134,5 +186,6 @@ def anisotropy_from_pick_checks(picks, checks, xyz_m, axis="z") -> dict | None:
     angles = ray_angle_deg(a, b, axis)
     if np.ptp(angles) < 20.0:
         return None  # too narrow a spread of angles to tell the two velocities apart
-    fit = fit_elliptical_anisotropy(a, b, checks.corrected_time_ns[keep], checks.sigma_ns[keep], axis)
-    return {**anisotropy_record(fit), "ray_angles_deg": [float(angles.min()), float(angles.max())]}
+    fit = fit_elliptical_anisotropy(a, b, time[keep], sigma[keep], axis, clock=clock)
+    return {**anisotropy_record(fit), "ray_angles_deg": [float(angles.min()), float(angles.max())],
+            "fitted_to": f"{int(keep.sum())} {source}"}

@@ -68,7 +68,7 @@ def test_eikonal_fields_in_the_stretched_geometry_give_the_elliptical_times():
     assert np.max(np.abs(times / exact - 1)) < 0.01  # the eikonal's own accuracy in uniform rock
 
 
-def _run(times, xyz, a, b, ratio, tmp_path):
+def _run(times, xyz, a, b, ratio, tmp_path, from_picks=False):
     from reconstruct.inverse.options import InversionOptions
     from reconstruct.io.site import parse_site
     from reconstruct.io.tables import Nodes, Picks
@@ -81,7 +81,7 @@ def _run(times, xyz, a, b, ratio, tmp_path):
                   boreholes=(None,) * n, lines=np.arange(2, n + 2), source="nodes (test)")
     picks = Picks(tx=a, rx=b, time_ns=times, sigma_ns=np.full(m, 0.3), amplitude=None, quality=None,
                   lines=np.arange(2, m + 2), excluded=(), source="picks (test)", n_rows=m)
-    settings = ProcessingSettings(rays="straight", find_bodies=True,
+    settings = ProcessingSettings(rays="straight", find_bodies=True, anisotropy_from_picks=from_picks,
                                   inversion=InversionOptions(anisotropy_ratio=ratio, anisotropy_axis="z"))
     return process_survey(site, nodes, picks, settings)
 
@@ -106,3 +106,24 @@ def test_an_anisotropic_half_space_shows_false_anomalies_only_when_inverted_as_i
     assert len(modelled.analysis.bodies) == 0
     assert modelled.run.result.chi2 / modelled.run.result.n_picks < 2.0
     assert np.median(v_mod) == pytest.approx(V_ALONG, rel=0.01)  # the cube holds the velocity along the beds
+
+
+@pytest.mark.slow
+def test_the_ratio_can_come_from_the_pick_checks(tmp_path):
+    xyz, a, b = _borehole_pairs()
+    times = _exact_ns(xyz[a], xyz[b]) + np.random.default_rng(4).normal(0, 0.3, a.size)
+    result = _run(times, xyz, a, b, 1.0, tmp_path, from_picks=True)
+    record = result.check_summary["anisotropy_from_picks"]
+    assert record["measurably_anisotropic"]
+    assert result.run.options.anisotropy_ratio == pytest.approx(V_ALONG / V_ACROSS, abs=3 * record["ratio_sd"])
+    v = result.velocity_m_per_ns[result.run.ray_count > 0]
+    assert np.ptp(np.percentile(v, [1, 99])) < 0.005
+
+
+def test_the_fit_with_clock_offsets_is_not_fooled_by_them():
+    xyz, a, b = _borehole_pairs()
+    rng = np.random.default_rng(8)
+    offsets = rng.normal(0, 3.0, len(xyz))
+    t = _exact_ns(xyz[a], xyz[b]) + offsets[b] - offsets[a] + rng.normal(0, 0.3, a.size)
+    fit = fit_elliptical_anisotropy(xyz[a], xyz[b], t, np.full(a.size, 0.3), "z", clock=(a, b, len(xyz)))
+    assert abs(fit.ratio - V_ALONG / V_ACROSS) < 3 * fit.ratio_sd and fit.measurable

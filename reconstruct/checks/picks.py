@@ -112,6 +112,7 @@ from reconstruct.errors import InputError
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 from reconstruct.inverse.time_zero import time_zero_matrix
 from reconstruct.inverse.robust import MAD_TO_SIGMA
+from reconstruct.checks.neighbours import blame_pairs, neighbour_levels, neighbour_scores
 from reconstruct.inverse.time_zero import robust_time_zero
 from reconstruct.io.tables import ExcludedPick, Nodes, Picks
 
@@ -191,12 +192,16 @@ class PickCheckOptions:
     max_implausible_fraction: float = 0.01
     max_mismatch_fraction: float = 0.10
     max_noise_ratio: float = 3.0
+    neighbours: int = 6
+    blame_score: float = 3.5
 
     def __post_init__(self):
         problems = []
         if not 0 < self.velocity_min_m_per_ns < self.velocity_max_m_per_ns:
             problems.append("velocity band must satisfy 0 < min < max")
-        for name in ("band_sigmas", "reciprocal_sigmas", "default_sigma_ns", "max_noise_ratio"):
+        if not (isinstance(self.neighbours, (int, np.integer)) and self.neighbours >= 1):
+            problems.append(f"neighbours must be a whole number >= 1 (got {self.neighbours})")
+        for name in ("band_sigmas", "reciprocal_sigmas", "default_sigma_ns", "max_noise_ratio", "blame_score"):
             if not getattr(self, name) > 0:
                 problems.append(f"{name} must be > 0 (got {getattr(self, name)})")
         for name in ("air_tolerance_fraction", "velocity_uncertainty_fraction", "max_implausible_fraction",
@@ -226,6 +231,9 @@ class PickChecks:
     air_time_ns: np.ndarray  # travel time of the air wave (direct or refracted), NaN where none
     reference_time_ns: np.ndarray  # travel time of the reference: air wave when flagged, else d * slowness_fit
     residual_ns: np.ndarray  # corrected time minus reference time
+    neighbour_residual_ns: np.ndarray  # median residual of the pick's neighbours (NaN: too few)
+    neighbour_score: np.ndarray  # |residual - neighbours' median| / max(neighbours' MAD sigma, pick sigma)
+    pair_mismatch: np.ndarray  # the pick's reciprocal pair disagrees (whichever pick is flagged)
     flags: tuple  # tuple of tuples of flag names
     # per node
     time_zero_ns: np.ndarray  # tau: the clock term, relative to its mean over the nodes with picks (NaN: no pick)
@@ -433,19 +441,6 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
         apparent = np.where(corrected > 0, distance / np.maximum(corrected, 1e-300), np.inf)
     flags = [[] for _ in range(m)]
 
-    # reciprocity
-    rec_error = np.full(m, np.nan)
-    rec_error[first] = rec_error_pairs
-    rec_error[second] = -rec_error_pairs
-    pair_sigma = np.sqrt(sigma[first] ** 2 + sigma[second] ** 2)
-    mismatch = np.abs(rec_error_pairs) > options.reciprocal_sigmas * pair_sigma
-    rec_mean = np.full(m, np.nan)
-    agree_mean = 0.5 * (t[first] + t[second])
-    rec_mean[first[~mismatch]] = agree_mean[~mismatch]
-    rec_mean[second[~mismatch]] = agree_mean[~mismatch]
-    for k in np.r_[first[mismatch], second[mismatch]]:
-        flags[k].append(FLAG_RECIPROCAL)
-
     # velocity band (with a tolerance of band_sigmas pick sigmas)
     tol = options.band_sigmas * sigma
     v_max = min(options.velocity_max_m_per_ns, c)
@@ -481,16 +476,39 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     reference = np.where(on_air, np.nan_to_num(air), rock_length * slowness_fit + distance * air_share / c)
     residual = corrected - reference
 
+    # reciprocity: of a mismatched pair, flag the pick that disagrees with its neighbours
+    rec_error = np.full(m, np.nan)
+    rec_error[first] = rec_error_pairs
+    rec_error[second] = -rec_error_pairs
+    pair_sigma = np.sqrt(sigma[first] ** 2 + sigma[second] ** 2)
+    mismatch = np.abs(rec_error_pairs) > options.reciprocal_sigmas * pair_sigma
+    rec_mean = np.full(m, np.nan)
+    agree_mean = 0.5 * (t[first] + t[second])
+    rec_mean[first[~mismatch]] = agree_mean[~mismatch]
+    rec_mean[second[~mismatch]] = agree_mean[~mismatch]
+    pair_mismatch = np.zeros(m, dtype=bool)
+    pair_mismatch[first[mismatch]] = True
+    pair_mismatch[second[mismatch]] = True
+    level, spread = neighbour_levels(tx, rx, xyz, residual, count=options.neighbours)
+    score = neighbour_scores(residual, sigma, level, spread)
+    blame_a, blame_b = blame_pairs(first[mismatch], second[mismatch], score, cut=options.blame_score)
+    for k in np.r_[first[mismatch][blame_a], second[mismatch][blame_b]]:
+        flags[k].append(FLAG_RECIPROCAL)
+    flags = [sorted(f, key=FLAGS.index) for f in flags]
+
     reciprocity = {
         "pairs": int(first.size),
         "mismatched_pairs": int(mismatch.sum()),
+        "mismatched_pairs_both_flagged": int((blame_a & blame_b).sum()),
         "mismatch_threshold_sigmas": options.reciprocal_sigmas,
         "raw_difference_ns": _stats(t[first] - t[second]),
         "time_zero_corrected_error_ns": _stats(rec_error_pairs),
         "pick_noise_sigma_ns": noise,
-        "rule": ("pairs whose time-zero corrected difference exceeds the threshold are flagged "
-                 "reciprocal_mismatch (both picks, both kept for the robust inversion); pairs that agree "
-                 "are combined as the reciprocal mean (t_ab + t_ba) / 2, free of clock terms"),
+        "rule": ("of a pair whose time-zero corrected difference exceeds the threshold, the pick that "
+                 "disagrees with its neighbours (same transmitter, nearby receivers; same receiver, nearby "
+                 "transmitters) is flagged reciprocal_mismatch, both when both disagree or neither can be "
+                 "told; flagged picks stay in the inversion for the robust weights; pairs that agree are "
+                 "combined as the reciprocal mean (t_ab + t_ba) / 2, free of clock terms"),
     }
     eta_used = np.where(used, eta, np.nan)
     tau_used = np.where(used, tau, np.nan)
@@ -498,7 +516,8 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
         distance_m=distance, sigma_ns=sigma, time_zero_correction_ns=correction, corrected_time_ns=corrected,
         apparent_velocity_m_per_ns=apparent, reciprocal=partner, reciprocal_error_ns=rec_error,
         reciprocal_mean_ns=rec_mean, air_time_ns=np.where(air_first, air, np.nan), reference_time_ns=reference,
-        residual_ns=residual, flags=tuple(tuple(f) for f in flags),
+        residual_ns=residual, neighbour_residual_ns=level, neighbour_score=score, pair_mismatch=pair_mismatch,
+        flags=tuple(tuple(f) for f in flags),
         time_zero_ns=tau_used, delay_ns=eta_used,
         depth_m=depth, sigma_source=source, noise_sigma_ns=noise, n_reciprocal_pairs=int(first.size),
         reciprocity=reciprocity, fitted_velocity_m_per_ns=1.0 / slowness_fit,
@@ -573,12 +592,12 @@ def check_site_picks(site, nodes: Nodes, picks: Picks, *, snap_tolerance_m=None,
 
 
 def reciprocal_confirmed(checks: PickChecks) -> np.ndarray:
-    """True for picks whose reciprocal pick exists and agrees (no reciprocal_mismatch).
+    """True for picks whose reciprocal pick exists and agrees (the pair does not mismatch).
 
     A picking error would not repeat in the other direction; a true travel-time
     anomaly (a void) does. Such picks keep full weight in a robust inversion.
     """
-    return (checks.reciprocal >= 0) & ~checks.has(FLAG_RECIPROCAL)
+    return (checks.reciprocal >= 0) & ~checks.pair_mismatch
 
 
 def usability_problems(picks: Picks, checks: PickChecks) -> list[str]:

@@ -113,6 +113,7 @@ from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 from reconstruct.inverse.time_zero import time_zero_matrix
 from reconstruct.inverse.robust import MAD_TO_SIGMA
 from reconstruct.checks.neighbours import blame_pairs, neighbour_levels, neighbour_scores
+from reconstruct.checks.nodes import NEAR_AIR_M, NodeChecks, check_nodes, distance_to_air_m
 from reconstruct.inverse.time_zero import robust_time_zero
 from reconstruct.io.tables import ExcludedPick, Nodes, Picks
 
@@ -152,7 +153,11 @@ EXCLUSION_REASONS = {
     FLAG_AIR_REFRACTED: "pick checks: refracted air wave along the ground surface (straight rays cannot model it)",
 }
 _AIR_FLAGS = (FLAG_AIR_DIRECT, FLAG_AIR_REFRACTED)
+#: Flags that mark a pick as wrong (the others say what kind of arrival it is).
+_ERROR_FLAGS = frozenset((FLAG_RECIPROCAL, FLAG_FASTER_THAN_AIR, FLAG_SLOWER_THAN_BAND))
 _MIN_RECIPROCAL_PAIRS = 10
+#: The reference rock velocity is fitted to the picks between buried nodes when there are at least this many.
+_MIN_BURIED_FIT_PICKS = 20
 #: Prior standard deviations of a node's clock term and of half its transmit/receive difference, ns.
 _CLOCK_PRIOR_NS = 10.0
 _DELAY_PRIOR_NS = 2.0
@@ -194,6 +199,7 @@ class PickCheckOptions:
     max_noise_ratio: float = 3.0
     neighbours: int = 6
     blame_score: float = 3.5
+    node_score: float = 3.5
 
     def __post_init__(self):
         problems = []
@@ -201,7 +207,8 @@ class PickCheckOptions:
             problems.append("velocity band must satisfy 0 < min < max")
         if not (isinstance(self.neighbours, (int, np.integer)) and self.neighbours >= 1):
             problems.append(f"neighbours must be a whole number >= 1 (got {self.neighbours})")
-        for name in ("band_sigmas", "reciprocal_sigmas", "default_sigma_ns", "max_noise_ratio", "blame_score"):
+        for name in ("band_sigmas", "reciprocal_sigmas", "default_sigma_ns", "max_noise_ratio", "blame_score",
+                     "node_score"):
             if not getattr(self, name) > 0:
                 problems.append(f"{name} must be > 0 (got {getattr(self, name)})")
         for name in ("air_tolerance_fraction", "velocity_uncertainty_fraction", "max_implausible_fraction",
@@ -239,6 +246,7 @@ class PickChecks:
     time_zero_ns: np.ndarray  # tau: the clock term, relative to its mean over the nodes with picks (NaN: no pick)
     delay_ns: np.ndarray  # eta: the delay term, half the node's receiving minus transmitting time-zero
     depth_m: np.ndarray
+    nodes: NodeChecks  # nodes whose picks are off as a group
     # overall
     sigma_source: str  # "table", "reciprocity" or "default"
     noise_sigma_ns: float | None  # pick noise from reciprocity (None: too few pairs)
@@ -471,6 +479,11 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     rock_like = ~(on_air | too_fast | too_slow) & (distance > 0)
     rock_length = distance * (1.0 - air_share)
     fit_rows = rock_like & (rock_length > 0.5 * distance)
+    # picks between two buried nodes, where enough: near the surface an air wave the checks
+    # cannot tell from the rock wave (benches, uneven ground) would make the rock look fast
+    buried = fit_rows & ~at_surface[tx] & ~at_surface[rx]
+    if buried.sum() >= _MIN_BURIED_FIT_PICKS:
+        fit_rows = buried
     slowness_fit = (float(np.median((corrected[fit_rows] - distance[fit_rows] * air_share[fit_rows] / c)
                                      / rock_length[fit_rows])) if fit_rows.any() else 1 / v_rock)
     reference = np.where(on_air, np.nan_to_num(air), rock_length * slowness_fit + distance * air_share / c)
@@ -495,6 +508,10 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     for k in np.r_[first[mismatch][blame_a], second[mismatch][blame_b]]:
         flags[k].append(FLAG_RECIPROCAL)
     flags = [sorted(f, key=FLAGS.index) for f in flags]
+    error_flagged = np.array([bool(_ERROR_FLAGS.intersection(f)) for f in flags], dtype=bool)
+    near_air = (distance_to_air_m(xyz, ground_elevation_m) <= NEAR_AIR_M) | at_surface
+    node_checks = check_nodes(tx, rx, xyz, residual, ~error_flagged, sigma, near_air,
+                              velocity_m_per_ns=1.0 / slowness_fit, cut=options.node_score)
 
     reciprocity = {
         "pairs": int(first.size),
@@ -519,7 +536,7 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
         residual_ns=residual, neighbour_residual_ns=level, neighbour_score=score, pair_mismatch=pair_mismatch,
         flags=tuple(tuple(f) for f in flags),
         time_zero_ns=tau_used, delay_ns=eta_used,
-        depth_m=depth, sigma_source=source, noise_sigma_ns=noise, n_reciprocal_pairs=int(first.size),
+        depth_m=depth, nodes=node_checks, sigma_source=source, noise_sigma_ns=noise, n_reciprocal_pairs=int(first.size),
         reciprocity=reciprocity, fitted_velocity_m_per_ns=1.0 / slowness_fit,
         rock_velocity_m_per_ns=v_rock, options=options,
     )

@@ -295,6 +295,7 @@ def _pick_checks(site_path, site, nodes, nodes_path, picks_path, checks_dir: Pat
                        rays="bent")
     counts = summary["picks"]["flag_counts"]
     say("flags: " + (", ".join(f"{n} {f}" for f, n in counts.items() if n) or "none"))
+    say(f"verdict: {summary['verdict']}" + (": " + " | ".join(summary["cautions"]) if summary["cautions"] else ""))
     if problems:
         raise InputError(f"{truth_path}: the simulated picks are not usable as they stand ({'; '.join(problems)}); "
                          f"see the pick-check page in {checks_dir} and lower noise.sigma_ns or "

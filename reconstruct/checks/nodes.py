@@ -99,6 +99,7 @@ class NodeChecks:
     level_ns: float  # M: median of the judged nodes' levels
     spread_ns: float  # S: 1.4826 MAD of the judged nodes' levels
     cut: float
+    ids: tuple = ()  # node ids, for messages
 
 
 def _direction_fit(residual, unit, velocity):
@@ -124,8 +125,9 @@ def node_cause(offset_ns: float, shift_m, direction_share: float, near_air: bool
     size = float(np.linalg.norm(shift)) if np.all(np.isfinite(shift)) else 0.0
     if direction_share >= _DIRECTION_SHARE and size >= _MIN_SHIFT_M:
         where = "height" if abs(shift[2]) >= np.hypot(shift[0], shift[1]) else "position"
-        return (f"wrong {where}: the residuals follow the direction to the other nodes as for a node "
-                f"about {size:.1f} m from its coordinates ({shift[0]:+.1f}, {shift[1]:+.1f}, {shift[2]:+.1f} m)")
+        return (f"wrong {where}: the residuals follow the direction to the other nodes as for a node whose "
+                f"true place is about {size:.1f} m from its coordinates (x {shift[0]:+.1f}, y {shift[1]:+.1f}, "
+                f"z {shift[2]:+.1f} m)")
     if offset_ns < 0:
         if near_air:
             return ("early as a group: air waves the checks could not tell from the rock wave (a node in the "

@@ -123,6 +123,10 @@ __all__ = [
     "check_picks",
     "picks_for_inversion",
     "usability_problems",
+    "usability_cautions",
+    "verdict",
+    "error_flagged",
+    "off_node_picks",
     "excluded_flags",
     "kept_by_flags",
     "reciprocal_confirmed",
@@ -183,8 +187,17 @@ class PickCheckOptions:
         weight single picks in the clock estimate.
     default_sigma_ns : float
         Pick sigma when the table has none and reciprocity cannot give one.
-    max_implausible_fraction, max_mismatch_fraction, max_noise_ratio : float
+    max_implausible_fraction, max_mismatch_fraction, max_noise_ratio, max_off_node_fraction : float
         Limits beyond which :func:`usability_problems` refuses the data.
+    caution_error_fraction, caution_flagged_fraction : float
+        Shares of the picks flagged as errors, and flagged at all, beyond which
+        :func:`usability_cautions` says to use the data with caution.
+    neighbours : int
+        Neighbours of a pick on each side (same transmitter, same receiver),
+        :mod:`reconstruct.checks.neighbours`.
+    blame_score, node_score : float
+        Robust scores beyond which a pick disagrees with its neighbours, and a
+        node's picks are off as a group (:mod:`reconstruct.checks.nodes`).
     """
 
     velocity_min_m_per_ns: float = 0.03
@@ -197,6 +210,9 @@ class PickCheckOptions:
     max_implausible_fraction: float = 0.01
     max_mismatch_fraction: float = 0.10
     max_noise_ratio: float = 3.0
+    max_off_node_fraction: float = 0.5
+    caution_error_fraction: float = 0.02
+    caution_flagged_fraction: float = 0.20
     neighbours: int = 6
     blame_score: float = 3.5
     node_score: float = 3.5
@@ -212,7 +228,8 @@ class PickCheckOptions:
             if not getattr(self, name) > 0:
                 problems.append(f"{name} must be > 0 (got {getattr(self, name)})")
         for name in ("air_tolerance_fraction", "velocity_uncertainty_fraction", "max_implausible_fraction",
-                     "max_mismatch_fraction"):
+                     "max_mismatch_fraction", "max_off_node_fraction", "caution_error_fraction",
+                     "caution_flagged_fraction"):
             if not 0 <= getattr(self, name) <= 1:
                 problems.append(f"{name} must be between 0 and 1 (got {getattr(self, name)})")
         if problems:
@@ -512,6 +529,7 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     near_air = (distance_to_air_m(xyz, ground_elevation_m) <= NEAR_AIR_M) | at_surface
     node_checks = check_nodes(tx, rx, xyz, residual, ~error_flagged, sigma, near_air,
                               velocity_m_per_ns=1.0 / slowness_fit, cut=options.node_score)
+    node_checks = dataclasses.replace(node_checks, ids=tuple(nodes.ids))
 
     reciprocity = {
         "pairs": int(first.size),
@@ -641,6 +659,12 @@ def usability_problems(picks: Picks, checks: PickChecks) -> list[str]:
         problems.append(
             f"{picks.source}: {mism} of {pairs} reciprocal pairs ({mism / pairs:.1%}) disagree by more than "
             f"{o.reciprocal_sigmas:g} sigma after the time-zero correction; check the picking and the node ids")
+    off = off_node_picks(picks, checks)
+    if off.sum() > o.max_off_node_fraction * m:
+        problems.append(
+            f"{picks.source}: {int(off.sum())} of {m} picks ({off.mean():.1%}) involve nodes whose picks are off "
+            f"as a group ({', '.join(_off_node_names(picks, checks))}); check the node positions, heights and "
+            "clocks")
     if checks.sigma_source == "table" and checks.noise_sigma_ns is not None:
         typical = float(np.median(picks.sigma_ns))
         if checks.noise_sigma_ns > o.max_noise_ratio * typical:
@@ -649,3 +673,60 @@ def usability_problems(picks: Picks, checks: PickChecks) -> list[str]:
                 f"{checks.noise_sigma_ns / typical:.1f} times the median sigma_ns {typical:.3g} ns; "
                 "the sigmas are too small or the picks noisier than stated")
     return problems
+
+
+def error_flagged(checks: PickChecks) -> np.ndarray:
+    """Boolean mask of the picks flagged as errors (reciprocal_mismatch, faster_than_air, slower_than_band)."""
+    return np.array([bool(_ERROR_FLAGS.intersection(f)) for f in checks.flags], dtype=bool)
+
+
+def off_node_picks(picks: Picks, checks: PickChecks) -> np.ndarray:
+    """Boolean mask of the picks sent or received by a node whose picks are off as a group."""
+    off = checks.nodes.off
+    return off[np.asarray(picks.tx)] | off[np.asarray(picks.rx)]
+
+
+def _off_node_names(picks: Picks, checks: PickChecks, most: int = 8) -> list[str]:
+    ids = checks.nodes.ids
+    names = [ids[k] if k < len(ids) else str(k) for k in np.flatnonzero(checks.nodes.off)]
+    return names[:most] + (["..."] if len(names) > most else [])
+
+
+def usability_cautions(picks: Picks, checks: PickChecks) -> list[str]:
+    """Reasons to use the picks with caution (empty when none); each starts with the pick table's path.
+
+    Thresholds (:class:`PickCheckOptions`; our choices, common practice, no
+    published source): more than 2 % of the picks flagged as errors (careful
+    picking leaves about 1 to 2 % gross errors); more than 20 % of the picks
+    flagged at all (air waves included: they tell little about the rock under
+    the nodes, and a straight-ray inversion leaves them out); any node whose
+    picks are off as a group.
+    """
+    o = checks.options
+    m = len(picks)
+    if m == 0:
+        return []
+    cautions = []
+    errors = error_flagged(checks)
+    if errors.sum() > o.caution_error_fraction * m:
+        cautions.append(f"{picks.source}: {int(errors.sum())} of {m} picks ({errors.mean():.1%}) are flagged as "
+                        f"errors, more than {o.caution_error_fraction:.0%}; look at the flagged picks")
+    flagged = np.array([bool(f) for f in checks.flags], dtype=bool)
+    if flagged.sum() > o.caution_flagged_fraction * m:
+        counts = ", ".join(f"{n} {f}" for f, n in checks.counts().items() if n)
+        cautions.append(f"{picks.source}: {int(flagged.sum())} of {m} picks ({flagged.mean():.1%}) are flagged "
+                        f"({counts}), more than {o.caution_flagged_fraction:.0%}: the rock is sampled by fewer "
+                        "picks than were taken")
+    off = off_node_picks(picks, checks)
+    if checks.nodes.off.any():
+        cautions.append(f"{picks.source}: {int(checks.nodes.off.sum())} nodes have picks off as a group "
+                        f"({', '.join(_off_node_names(picks, checks))}), {int(off.sum())} of {m} picks "
+                        f"({off.mean():.1%}); see their likely causes in the node table")
+    return cautions
+
+
+def verdict(problems, cautions) -> str:
+    """``"not usable as it stands"``, ``"usable with caution"`` or ``"usable"``."""
+    if problems:
+        return "not usable as it stands"
+    return "usable with caution" if cautions else "usable"

@@ -51,10 +51,12 @@ Flags (a pick can carry several):
 
 ``reciprocal_mismatch``
     ``|e_ab| > 4 sqrt(sigma_a^2 + sigma_b^2)``: the two picks of the pair
-    disagree beyond noise. Both are flagged (which one is wrong is for the
-    robust inversion to tell); they stay in the inversion. Pairs that agree
-    are combined for the report as the reciprocal mean ``(t_ab + t_ba) / 2``,
-    which is free of the clock terms.
+    disagree beyond noise. The pick that also disagrees with its neighbours
+    (same transmitter at nearby receivers, same receiver from nearby
+    transmitters; :mod:`reconstruct.checks.neighbours`) is flagged, both when
+    both do or neither can be told; flagged picks stay in the inversion for
+    the robust weights. Pairs that agree are combined for the report as the
+    reciprocal mean ``(t_ab + t_ba) / 2``, which is free of the clock terms.
 ``faster_than_air``
     the time-zero corrected time is shorter than the straight distance at the
     speed of light by more than 3 sigma: impossible, excluded.
@@ -83,10 +85,24 @@ surface point is the node itself. With straight rays the air-wave picks are
 excluded from the rock inversion; with bent rays they are kept (the air is in
 the forward model).
 
+Reference model. The residual of a pick is taken against the straight path
+through a homogeneous rock (air segments at ``c``) whose slowness is the median
+over the plausible picks, those between two buried nodes when there are at
+least 20 (near the surface an unrecognised air wave makes the rock look fast),
+or against the air-wave time for air-wave picks.
+
+Nodes. :func:`reconstruct.checks.nodes.check_nodes` finds the nodes whose
+picks are off as a group, with the likely cause in words.
+
 Usability. :func:`usability_problems` lists reasons to refuse an inversion:
 more than 1 % of the picks outside the velocity band, more than 10 % of the
-reciprocal pairs mismatched, or a pick noise from reciprocity more than three
-times the table's median ``sigma_ns``.
+reciprocal pairs mismatched, a pick noise from reciprocity more than three
+times the table's median ``sigma_ns``, or more than half of the picks from
+nodes off as a group. :func:`usability_cautions` lists reasons for caution:
+more than 2 % of the picks flagged as errors, more than 20 % flagged at all,
+any node off as a group. :func:`verdict` puts them in words: "not usable as
+it stands", "usable with caution" or "usable". These thresholds are our
+choices (common practice, no published source).
 
 References
 ----------

@@ -541,9 +541,9 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     for k in np.r_[first[mismatch][blame_a], second[mismatch][blame_b]]:
         flags[k].append(FLAG_RECIPROCAL)
     flags = [sorted(f, key=FLAGS.index) for f in flags]
-    error_flagged = np.array([bool(_ERROR_FLAGS.intersection(f)) for f in flags], dtype=bool)
+    errors = np.array([bool(_ERROR_FLAGS.intersection(f)) for f in flags], dtype=bool)
     near_air = (distance_to_air_m(xyz, ground_elevation_m) <= NEAR_AIR_M) | at_surface
-    node_checks = check_nodes(tx, rx, xyz, residual, ~error_flagged, sigma, near_air,
+    node_checks = check_nodes(tx, rx, xyz, residual, ~errors, sigma, near_air,
                               velocity_m_per_ns=1.0 / slowness_fit, cut=options.node_score)
     node_checks = dataclasses.replace(node_checks, ids=tuple(nodes.ids))
 

@@ -15,6 +15,10 @@ flagged, before (both picks of a mismatched pair, the old rule) and after (the
 pick that disagrees with its neighbours). Target: every gross error caught,
 under 0.5 % of the good picks flagged.
 
+Measured (seeds 1 to 10, 2 shared cores, 2 to 5 s each): 1,000 of 1,000 gross
+errors caught; good picks flagged 28 of 50,120 (0.06 %; 0 to 5 per case)
+after, 1,006 (2.0 %) before.
+
 Run: ``python benchmarks/bench_blame.py`` (a few seconds; ``--seed`` to vary the case).
 """
 

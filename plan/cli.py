@@ -242,6 +242,7 @@ def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
 
     from plan.radio.link_budget import link_budget_for_site
     from plan.radio.pair_graph import build_pair_graph, pair_graph_summary, write_graphml, write_pairs_csv
+    from plan.report import air_wave_warning
 
     budget = link_budget_for_site(site, system_performance_db=args.system_performance)
     pairs = build_pair_graph(site, nodes, budget, progress=say)
@@ -257,6 +258,9 @@ def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
               f"{p['heard_air_flagged']} of them flagged (first arrival may be the air wave); degree "
               f"{d['min']:g} to {d['max']:g}, mean {d['mean']:.1f}; deaf nodes: "
               f"{len(summary['deaf_nodes'])}")
+        warning = air_wave_warning(summary)
+        if warning:
+            print(f"WARNING: {warning}")
         print(f"link range: {lb['computed_range_m']:.1f} m by the link budget "
               f"({lb['attenuation_db_per_m']:.3f} dB/m exact, {lb['attenuation_low_loss_db_per_m']:.3f} dB/m "
               f"low-loss form); rule of thumb {lo:.1f} to {hi:.1f} m (10 to 15 wavelengths in resistive rock)")

@@ -128,6 +128,7 @@ class ChainResult:
     matches: tuple  # plan.synthetic.truth_match.TruthMatch per truth body
     stage_seconds: dict
     fit_lines: tuple = ()  # how the inversion ended and its warnings (reconstruct.inverse.straight.fit_warnings)
+    coverage: dict | None = None  # the ground crossed by rays, predicted by the plan and got by the inversion
 
 
 class _Stages:
@@ -213,6 +214,11 @@ def _plan_layout(site, settings: ChainSettings, plan_dir: Path, say):
     written += [write_pairs_csv(plan_dir / "pairs.csv", pairs), write_graphml(plan_dir / "pairs.graphml", pairs.graph),
                 write_json_atomic(plan_dir / "pairs_summary.json", summary)]
     say(f"pairs: {summary['pairs']['heard']} of {summary['pairs']['total']} heard by the link budget")
+    from plan.report import air_wave_warning
+
+    warning = air_wave_warning(summary)
+    if warning:
+        say(f"WARNING: {warning}")
     mesh = None
     if site.radio.gateway_m is not None:
         mesh = build_radio_mesh(site, nodes)
@@ -295,6 +301,7 @@ def _pick_checks(site_path, site, nodes, nodes_path, picks_path, checks_dir: Pat
                        rays="bent")
     counts = summary["picks"]["flag_counts"]
     say("flags: " + (", ".join(f"{n} {f}" for f, n in counts.items() if n) or "none"))
+    say(f"verdict: {summary['verdict']}" + (": " + " | ".join(summary["cautions"]) if summary["cautions"] else ""))
     if problems:
         raise InputError(f"{truth_path}: the simulated picks are not usable as they stand ({'; '.join(problems)}); "
                          f"see the pick-check page in {checks_dir} and lower noise.sigma_ns or "
@@ -329,6 +336,35 @@ def _expected_resolved(truth, data, analysis) -> list[bool | None]:
         else:
             out.append(bool(2.0 * max(body.half_size_m) >= slab["resolution_m"]))
     return out
+
+
+def coverage_against_plan(plan_coverage: dict, model_summary: dict) -> dict | None:
+    """The share of the ground crossed by rays: predicted by the plan, got by the inversion.
+
+    The plan counts the ground cells crossed by the straight rays of the heard
+    pairs (``coverage_summary.json``, key ``ground``); the inversion those
+    crossed by its final rays (``summary.json``, key ``coverage``), on the same
+    model grid. None when either figure is missing.
+    """
+    ground = (plan_coverage or {}).get("ground") or {}
+    got = ((model_summary or {}).get("coverage") or {}).get("fraction_of_ground_with_rays")
+    if not ground.get("cells") or "cells_with_rays" not in ground or got is None:
+        return None
+    predicted = ground["cells_with_rays"] / ground["cells"]
+    return {"predicted_fraction_of_ground_with_rays": predicted, "inverted_fraction_of_ground_with_rays": got,
+            "ratio": got / predicted if predicted > 0 else None,
+            "note": "the plan counts the straight rays of the heard pairs; the inversion its final rays, "
+                    "which follow the air waves along the ground and the bench faces where those come first"}
+
+
+def coverage_line(comparison: dict | None) -> str | None:
+    """One line for the closing summary, or None."""
+    if comparison is None:
+        return None
+    p, g = comparison["predicted_fraction_of_ground_with_rays"], comparison["inverted_fraction_of_ground_with_rays"]
+    return (f"ground crossed by rays: {p:.1%} predicted by the plan (straight rays of the heard pairs), "
+            f"{g:.1%} in the inversion" + (" (its bent rays follow the air waves and fast paths, not the straight "
+                                            "lines the plan counts)" if g < 0.8 * p else ""))
 
 
 def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: bool = False) -> ChainResult:
@@ -412,10 +448,21 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     manifest["total_seconds"] = round(time.perf_counter() - stages.start, 2)
     manifest["misfit_rms_ns_per_iteration"] = [h["rms_ns"] for h in summary["iterations"]]
     manifest["truth_comparison"] = [m.as_dict() for m in matches]
+    plan_coverage, _ = _read_plan_json(plan_dir / "coverage_summary.json")
+    manifest["coverage_predicted_against_inverted"] = coverage = coverage_against_plan(plan_coverage, summary)
     manifest_path = write_json_atomic(root / "manifest.json", manifest)
     return ChainResult(out=root, report_path=Path(report_path), manifest_path=manifest_path,
                        matches=tuple(matches), stage_seconds=dict(stages.seconds),
-                       fit_lines=tuple(_fit_lines(summary)))
+                       fit_lines=tuple(_fit_lines(summary)), coverage=coverage)
+
+
+def _read_plan_json(path: Path):
+    import json
+
+    try:
+        return json.loads(path.read_text(encoding="utf-8")), None
+    except (OSError, UnicodeDecodeError, ValueError) as error:
+        return None, str(error)
 
 
 def _fit_lines(summary: dict) -> list[str]:
@@ -435,10 +482,12 @@ def _fit_lines(summary: dict) -> list[str]:
 def closing_lines(result: ChainResult, truth_path, seconds: float) -> list[str]:
     """What the command prints at the end: time and manifest, the caution, the
     misfit per iteration, why the iterations stopped and the fit warnings, the
-    report's path, then one line per truth body (the comparison with the truth)."""
+    ground crossed by rays as planned and as inverted, the report's path, then
+    one line per truth body (the comparison with the truth)."""
     return [f"finished in {seconds:.0f} s; manifest: {result.manifest_path}",
             "an interpretation aid, not a guarantee: confirm voids by probe drilling",
             *result.fit_lines,
+            *([line] if (line := coverage_line(result.coverage)) else []),
             f"report: {result.report_path}",
             f"voids found against the truth model ({truth_path}):",
             *(f"  {match.line()}" for match in result.matches)]

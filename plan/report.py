@@ -32,7 +32,7 @@ from reconstruct.report.html import (escape, figure_png, hole_deviation_html, ht
 
 from plan.assess.coverage import Coverage
 
-__all__ = ["plan_report_html", "flatten_summary", "summary_rows", "find_label", "unlabelled_keys", "read_mesh_links", "OTHER_SUMMARIES", "OTHER_TABLES",
+__all__ = ["plan_report_html", "air_wave_warning", "AIR_WAVE_MOST", "flatten_summary", "summary_rows", "find_label", "unlabelled_keys", "read_mesh_links", "OTHER_SUMMARIES", "OTHER_TABLES",
            "PAIR_GRAPH_LABELS", "MESH_LABELS", "SCHEDULE_LABELS", "OPTIMISE_LABELS"]
 
 _PERCENT = "percent"  # a fraction 0..1 shown as a percentage
@@ -508,6 +508,31 @@ def _compact_per_node(data):
     return data
 
 
+#: Share of the heard pairs with the air wave first beyond which the planner warns: "most" (the
+#: issue's word; our threshold, common practice, no published source).
+AIR_WAVE_MOST = 0.5
+
+
+def air_wave_warning(pairs_summary: dict, most: float = AIR_WAVE_MOST) -> str | None:
+    """A warning when most heard pairs would have the air wave first, else None.
+
+    Reads ``pairs.heard`` and ``pairs.heard_air_wave_first`` of
+    ``pairs_summary.json`` (:func:`plan.radio.pair_graph.pair_graph_summary`).
+    Such pairs' first arrivals run through the air along the ground or a bench
+    face: they tell little about the rock under the nodes, a straight-ray
+    inversion leaves them out, and the ground the inversion covers falls short
+    of the straight-ray coverage the plan predicts.
+    """
+    pairs = pairs_summary.get("pairs", {}) if isinstance(pairs_summary, dict) else {}
+    heard, first = pairs.get("heard"), pairs.get("heard_air_wave_first")
+    if not heard or first is None or first <= most * heard:
+        return None
+    return (f"most heard pairs would have the air wave first: {first:,} of {heard:,} ({first / heard:.0%}, "
+            f"more than {most:.0%}); their first arrivals run through the air along the ground or a bench face "
+            "and tell little about the rock below, so the ground covered by the inversion will fall short of "
+            "the coverage predicted here; put more nodes in holes, deeper, or away from the faces")
+
+
 def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> tuple[str, list[str]]:
     """The plan report page and the list of plan-folder files it used.
 
@@ -535,6 +560,11 @@ def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> t
     body = [f"<p>Site: {escape(site.name)}. Layout: {coverage.n_nodes} nodes, {coverage.n_rays:,} straight rays "
             f"(one per pair). Wavelength in the rock {coverage.wavelength_m:.2f} m "
             f"({site.rock.antenna_frequency_mhz:g} MHz at {site.rock.velocity_m_per_ns:g} m/ns).</p>"]
+    pairs_summary, _ = _read_json(plan_dir / "pairs_summary.json") if (plan_dir / "pairs_summary.json").is_file() \
+        else (None, None)
+    warning = air_wave_warning(pairs_summary) if isinstance(pairs_summary, dict) else None
+    if warning:
+        body.append(f"<h2>Warning</h2><p>{escape(warning[0].upper() + warning[1:])}.</p>")
     body.append("<h2>Layout</h2>")
     body.append(png_img_html(figure_png(_layout_map(site, coverage, ids, xyz, kinds, links)),
                              alt="plan view of the nodes, planned works and exclusion zones",

@@ -304,7 +304,13 @@ def _cmd_check_picks(args) -> int:
         print(f"faster than air (impossible): {len(fast)} picks, lines {', '.join(map(str, fast[:20]))}"
               + (", ..." if len(fast) > 20 else ""))
     print(f"left out of a {args.rays}-ray inversion: {summary['picks']['excluded_by_flags']} picks")
-    print("verdict: " + ("usable" if not problems else "NOT usable as it stands: " + " | ".join(problems)))
+    off = summary["nodes_off_as_group"]
+    if off["count"]:
+        print(f"nodes off as a group: {off['count']} (" + ", ".join(
+            f"{n['node_id']} {n['median_residual_ns']:+.1f} ns" for n in off["nodes"][:8])
+            + (", ..." if off["count"] > 8 else "") + "); see node_time_zero.csv")
+    reasons = summary["problems"] + summary["cautions"]
+    print(f"verdict: {summary['verdict']}" + (": " + " | ".join(reasons) if reasons else ""))
     print(f"output: {Path(args.out)}")
     return 0
 

@@ -43,7 +43,9 @@ from reconstruct.checks.picks import (
     kept_by_flags,
     picks_for_inversion,
     reciprocal_confirmed,
+    usability_cautions,
     usability_problems,
+    verdict,
 )
 from reconstruct.errors import InputError, is_whole_number
 from reconstruct.interpret.bodies import STATUS_RESOLVED, VoidOptions
@@ -226,6 +228,9 @@ def _checked_picks(site, nodes, picks, settings: ProcessingSettings, progress):
     _say(progress, "pick checks: " + (", ".join(f"{n} {f}" for f, n in counts.items() if n) or "no pick flagged"))
     exempt = reciprocal_confirmed(checks)[kept_by_flags(checks, rays=settings.rays, keep_flagged=keep)]
     summary = check_summary(checks, problems, len(chosen.excluded), len(picks.excluded), settings)
+    summary["cautions"] = usability_cautions(picks, checks)
+    summary["verdict"] = verdict(problems, summary["cautions"])
+    summary["nodes_off_as_group"] = [nodes.ids[k] for k in np.flatnonzero(checks.nodes.off)]
     return checks, problems, chosen, exempt, summary, placement
 
 

@@ -1,4 +1,5 @@
-"""Checks of the picks before an inversion: reciprocity, node time-zero offsets,
+"""Checks of the picks before an inversion: reciprocity (blaming the pick that
+disagrees with its neighbours), node time-zero offsets, nodes off as a group,
 outliers, air-wave arrivals and whether the picks are usable at all.
 """
 
@@ -9,6 +10,8 @@ from reconstruct.checks.picks import (
     check_site_picks,
     picks_for_inversion,
     usability_problems,
+    usability_cautions,
+    verdict,
     kept_by_flags,
     FLAGS,
 )
@@ -20,6 +23,8 @@ __all__ = [
     "check_site_picks",
     "picks_for_inversion",
     "usability_problems",
+    "usability_cautions",
+    "verdict",
     "kept_by_flags",
     "FLAGS",
 ]

@@ -51,10 +51,12 @@ Flags (a pick can carry several):
 
 ``reciprocal_mismatch``
     ``|e_ab| > 4 sqrt(sigma_a^2 + sigma_b^2)``: the two picks of the pair
-    disagree beyond noise. Both are flagged (which one is wrong is for the
-    robust inversion to tell); they stay in the inversion. Pairs that agree
-    are combined for the report as the reciprocal mean ``(t_ab + t_ba) / 2``,
-    which is free of the clock terms.
+    disagree beyond noise. The pick that also disagrees with its neighbours
+    (same transmitter at nearby receivers, same receiver from nearby
+    transmitters; :mod:`reconstruct.checks.neighbours`) is flagged, both when
+    both do or neither can be told; flagged picks stay in the inversion for
+    the robust weights. Pairs that agree are combined for the report as the
+    reciprocal mean ``(t_ab + t_ba) / 2``, which is free of the clock terms.
 ``faster_than_air``
     the time-zero corrected time is shorter than the straight distance at the
     speed of light by more than 3 sigma: impossible, excluded.
@@ -83,10 +85,24 @@ surface point is the node itself. With straight rays the air-wave picks are
 excluded from the rock inversion; with bent rays they are kept (the air is in
 the forward model).
 
+Reference model. The residual of a pick is taken against the straight path
+through a homogeneous rock (air segments at ``c``) whose slowness is the median
+over the plausible picks, those between two buried nodes when there are at
+least 20 (near the surface an unrecognised air wave makes the rock look fast),
+or against the air-wave time for air-wave picks.
+
+Nodes. :func:`reconstruct.checks.nodes.check_nodes` finds the nodes whose
+picks are off as a group, with the likely cause in words.
+
 Usability. :func:`usability_problems` lists reasons to refuse an inversion:
 more than 1 % of the picks outside the velocity band, more than 10 % of the
-reciprocal pairs mismatched, or a pick noise from reciprocity more than three
-times the table's median ``sigma_ns``.
+reciprocal pairs mismatched, a pick noise from reciprocity more than three
+times the table's median ``sigma_ns``, or more than half of the picks from
+nodes off as a group. :func:`usability_cautions` lists reasons for caution:
+more than 2 % of the picks flagged as errors, more than 20 % flagged at all,
+any node off as a group. :func:`verdict` puts them in words: "not usable as
+it stands", "usable with caution" or "usable". These thresholds are our
+choices (common practice, no published source).
 
 References
 ----------
@@ -112,6 +128,8 @@ from reconstruct.errors import InputError
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 from reconstruct.inverse.time_zero import time_zero_matrix
 from reconstruct.inverse.robust import MAD_TO_SIGMA
+from reconstruct.checks.neighbours import blame_pairs, neighbour_levels, neighbour_scores
+from reconstruct.checks.nodes import NEAR_AIR_M, NodeChecks, check_nodes, distance_to_air_m
 from reconstruct.inverse.time_zero import robust_time_zero
 from reconstruct.io.tables import ExcludedPick, Nodes, Picks
 
@@ -121,6 +139,10 @@ __all__ = [
     "check_picks",
     "picks_for_inversion",
     "usability_problems",
+    "usability_cautions",
+    "verdict",
+    "error_flagged",
+    "off_node_picks",
     "excluded_flags",
     "kept_by_flags",
     "reciprocal_confirmed",
@@ -151,7 +173,11 @@ EXCLUSION_REASONS = {
     FLAG_AIR_REFRACTED: "pick checks: refracted air wave along the ground surface (straight rays cannot model it)",
 }
 _AIR_FLAGS = (FLAG_AIR_DIRECT, FLAG_AIR_REFRACTED)
+#: Flags that mark a pick as wrong (the others say what kind of arrival it is).
+_ERROR_FLAGS = frozenset((FLAG_RECIPROCAL, FLAG_FASTER_THAN_AIR, FLAG_SLOWER_THAN_BAND))
 _MIN_RECIPROCAL_PAIRS = 10
+#: The reference rock velocity is fitted to the picks between buried nodes when there are at least this many.
+_MIN_BURIED_FIT_PICKS = 20
 #: Prior standard deviations of a node's clock term and of half its transmit/receive difference, ns.
 _CLOCK_PRIOR_NS = 10.0
 _DELAY_PRIOR_NS = 2.0
@@ -177,8 +203,17 @@ class PickCheckOptions:
         weight single picks in the clock estimate.
     default_sigma_ns : float
         Pick sigma when the table has none and reciprocity cannot give one.
-    max_implausible_fraction, max_mismatch_fraction, max_noise_ratio : float
+    max_implausible_fraction, max_mismatch_fraction, max_noise_ratio, max_off_node_fraction : float
         Limits beyond which :func:`usability_problems` refuses the data.
+    caution_error_fraction, caution_flagged_fraction : float
+        Shares of the picks flagged as errors, and flagged at all, beyond which
+        :func:`usability_cautions` says to use the data with caution.
+    neighbours : int
+        Neighbours of a pick on each side (same transmitter, same receiver),
+        :mod:`reconstruct.checks.neighbours`.
+    blame_score, node_score : float
+        Robust scores beyond which a pick disagrees with its neighbours, and a
+        node's picks are off as a group (:mod:`reconstruct.checks.nodes`).
     """
 
     velocity_min_m_per_ns: float = 0.03
@@ -191,16 +226,26 @@ class PickCheckOptions:
     max_implausible_fraction: float = 0.01
     max_mismatch_fraction: float = 0.10
     max_noise_ratio: float = 3.0
+    max_off_node_fraction: float = 0.5
+    caution_error_fraction: float = 0.02
+    caution_flagged_fraction: float = 0.20
+    neighbours: int = 6
+    blame_score: float = 3.5
+    node_score: float = 3.5
 
     def __post_init__(self):
         problems = []
         if not 0 < self.velocity_min_m_per_ns < self.velocity_max_m_per_ns:
             problems.append("velocity band must satisfy 0 < min < max")
-        for name in ("band_sigmas", "reciprocal_sigmas", "default_sigma_ns", "max_noise_ratio"):
+        if not (isinstance(self.neighbours, (int, np.integer)) and self.neighbours >= 1):
+            problems.append(f"neighbours must be a whole number >= 1 (got {self.neighbours})")
+        for name in ("band_sigmas", "reciprocal_sigmas", "default_sigma_ns", "max_noise_ratio", "blame_score",
+                     "node_score"):
             if not getattr(self, name) > 0:
                 problems.append(f"{name} must be > 0 (got {getattr(self, name)})")
         for name in ("air_tolerance_fraction", "velocity_uncertainty_fraction", "max_implausible_fraction",
-                     "max_mismatch_fraction"):
+                     "max_mismatch_fraction", "max_off_node_fraction", "caution_error_fraction",
+                     "caution_flagged_fraction"):
             if not 0 <= getattr(self, name) <= 1:
                 problems.append(f"{name} must be between 0 and 1 (got {getattr(self, name)})")
         if problems:
@@ -226,11 +271,15 @@ class PickChecks:
     air_time_ns: np.ndarray  # travel time of the air wave (direct or refracted), NaN where none
     reference_time_ns: np.ndarray  # travel time of the reference: air wave when flagged, else d * slowness_fit
     residual_ns: np.ndarray  # corrected time minus reference time
+    neighbour_residual_ns: np.ndarray  # median residual of the pick's neighbours (NaN: too few)
+    neighbour_score: np.ndarray  # |residual - neighbours' median| / max(neighbours' MAD sigma, pick sigma)
+    pair_mismatch: np.ndarray  # the pick's reciprocal pair disagrees (whichever pick is flagged)
     flags: tuple  # tuple of tuples of flag names
     # per node
     time_zero_ns: np.ndarray  # tau: the clock term, relative to its mean over the nodes with picks (NaN: no pick)
     delay_ns: np.ndarray  # eta: the delay term, half the node's receiving minus transmitting time-zero
     depth_m: np.ndarray
+    nodes: NodeChecks  # nodes whose picks are off as a group
     # overall
     sigma_source: str  # "table", "reciprocity" or "default"
     noise_sigma_ns: float | None  # pick noise from reciprocity (None: too few pairs)
@@ -433,19 +482,6 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
         apparent = np.where(corrected > 0, distance / np.maximum(corrected, 1e-300), np.inf)
     flags = [[] for _ in range(m)]
 
-    # reciprocity
-    rec_error = np.full(m, np.nan)
-    rec_error[first] = rec_error_pairs
-    rec_error[second] = -rec_error_pairs
-    pair_sigma = np.sqrt(sigma[first] ** 2 + sigma[second] ** 2)
-    mismatch = np.abs(rec_error_pairs) > options.reciprocal_sigmas * pair_sigma
-    rec_mean = np.full(m, np.nan)
-    agree_mean = 0.5 * (t[first] + t[second])
-    rec_mean[first[~mismatch]] = agree_mean[~mismatch]
-    rec_mean[second[~mismatch]] = agree_mean[~mismatch]
-    for k in np.r_[first[mismatch], second[mismatch]]:
-        flags[k].append(FLAG_RECIPROCAL)
-
     # velocity band (with a tolerance of band_sigmas pick sigmas)
     tol = options.band_sigmas * sigma
     v_max = min(options.velocity_max_m_per_ns, c)
@@ -476,21 +512,54 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
     rock_like = ~(on_air | too_fast | too_slow) & (distance > 0)
     rock_length = distance * (1.0 - air_share)
     fit_rows = rock_like & (rock_length > 0.5 * distance)
+    # picks between two buried nodes, where enough: near the surface an air wave the checks
+    # cannot tell from the rock wave (benches, uneven ground) would make the rock look fast
+    buried = fit_rows & ~at_surface[tx] & ~at_surface[rx]
+    if buried.sum() >= _MIN_BURIED_FIT_PICKS:
+        fit_rows = buried
     slowness_fit = (float(np.median((corrected[fit_rows] - distance[fit_rows] * air_share[fit_rows] / c)
                                      / rock_length[fit_rows])) if fit_rows.any() else 1 / v_rock)
     reference = np.where(on_air, np.nan_to_num(air), rock_length * slowness_fit + distance * air_share / c)
     residual = corrected - reference
 
+    # reciprocity: of a mismatched pair, flag the pick that disagrees with its neighbours
+    rec_error = np.full(m, np.nan)
+    rec_error[first] = rec_error_pairs
+    rec_error[second] = -rec_error_pairs
+    pair_sigma = np.sqrt(sigma[first] ** 2 + sigma[second] ** 2)
+    mismatch = np.abs(rec_error_pairs) > options.reciprocal_sigmas * pair_sigma
+    rec_mean = np.full(m, np.nan)
+    agree_mean = 0.5 * (t[first] + t[second])
+    rec_mean[first[~mismatch]] = agree_mean[~mismatch]
+    rec_mean[second[~mismatch]] = agree_mean[~mismatch]
+    pair_mismatch = np.zeros(m, dtype=bool)
+    pair_mismatch[first[mismatch]] = True
+    pair_mismatch[second[mismatch]] = True
+    level, spread = neighbour_levels(tx, rx, xyz, residual, count=options.neighbours)
+    score = neighbour_scores(residual, sigma, level, spread)
+    blame_a, blame_b = blame_pairs(first[mismatch], second[mismatch], score, cut=options.blame_score)
+    for k in np.r_[first[mismatch][blame_a], second[mismatch][blame_b]]:
+        flags[k].append(FLAG_RECIPROCAL)
+    flags = [sorted(f, key=FLAGS.index) for f in flags]
+    errors = np.array([bool(_ERROR_FLAGS.intersection(f)) for f in flags], dtype=bool)
+    near_air = (distance_to_air_m(xyz, ground_elevation_m) <= NEAR_AIR_M) | at_surface
+    node_checks = check_nodes(tx, rx, xyz, residual, ~errors, sigma, near_air,
+                              velocity_m_per_ns=1.0 / slowness_fit, cut=options.node_score)
+    node_checks = dataclasses.replace(node_checks, ids=tuple(nodes.ids))
+
     reciprocity = {
         "pairs": int(first.size),
         "mismatched_pairs": int(mismatch.sum()),
+        "mismatched_pairs_both_flagged": int((blame_a & blame_b).sum()),
         "mismatch_threshold_sigmas": options.reciprocal_sigmas,
         "raw_difference_ns": _stats(t[first] - t[second]),
         "time_zero_corrected_error_ns": _stats(rec_error_pairs),
         "pick_noise_sigma_ns": noise,
-        "rule": ("pairs whose time-zero corrected difference exceeds the threshold are flagged "
-                 "reciprocal_mismatch (both picks, both kept for the robust inversion); pairs that agree "
-                 "are combined as the reciprocal mean (t_ab + t_ba) / 2, free of clock terms"),
+        "rule": ("of a pair whose time-zero corrected difference exceeds the threshold, the pick that "
+                 "disagrees with its neighbours (same transmitter, nearby receivers; same receiver, nearby "
+                 "transmitters) is flagged reciprocal_mismatch, both when both disagree or neither can be "
+                 "told; flagged picks stay in the inversion for the robust weights; pairs that agree are "
+                 "combined as the reciprocal mean (t_ab + t_ba) / 2, free of clock terms"),
     }
     eta_used = np.where(used, eta, np.nan)
     tau_used = np.where(used, tau, np.nan)
@@ -498,9 +567,10 @@ def check_picks(nodes: Nodes, picks: Picks, xyz_m, ground_elevation_m, rock_velo
         distance_m=distance, sigma_ns=sigma, time_zero_correction_ns=correction, corrected_time_ns=corrected,
         apparent_velocity_m_per_ns=apparent, reciprocal=partner, reciprocal_error_ns=rec_error,
         reciprocal_mean_ns=rec_mean, air_time_ns=np.where(air_first, air, np.nan), reference_time_ns=reference,
-        residual_ns=residual, flags=tuple(tuple(f) for f in flags),
+        residual_ns=residual, neighbour_residual_ns=level, neighbour_score=score, pair_mismatch=pair_mismatch,
+        flags=tuple(tuple(f) for f in flags),
         time_zero_ns=tau_used, delay_ns=eta_used,
-        depth_m=depth, sigma_source=source, noise_sigma_ns=noise, n_reciprocal_pairs=int(first.size),
+        depth_m=depth, nodes=node_checks, sigma_source=source, noise_sigma_ns=noise, n_reciprocal_pairs=int(first.size),
         reciprocity=reciprocity, fitted_velocity_m_per_ns=1.0 / slowness_fit,
         rock_velocity_m_per_ns=v_rock, options=options,
     )
@@ -573,12 +643,12 @@ def check_site_picks(site, nodes: Nodes, picks: Picks, *, snap_tolerance_m=None,
 
 
 def reciprocal_confirmed(checks: PickChecks) -> np.ndarray:
-    """True for picks whose reciprocal pick exists and agrees (no reciprocal_mismatch).
+    """True for picks whose reciprocal pick exists and agrees (the pair does not mismatch).
 
     A picking error would not repeat in the other direction; a true travel-time
     anomaly (a void) does. Such picks keep full weight in a robust inversion.
     """
-    return (checks.reciprocal >= 0) & ~checks.has(FLAG_RECIPROCAL)
+    return (checks.reciprocal >= 0) & ~checks.pair_mismatch
 
 
 def usability_problems(picks: Picks, checks: PickChecks) -> list[str]:
@@ -605,6 +675,12 @@ def usability_problems(picks: Picks, checks: PickChecks) -> list[str]:
         problems.append(
             f"{picks.source}: {mism} of {pairs} reciprocal pairs ({mism / pairs:.1%}) disagree by more than "
             f"{o.reciprocal_sigmas:g} sigma after the time-zero correction; check the picking and the node ids")
+    off = off_node_picks(picks, checks)
+    if off.sum() > o.max_off_node_fraction * m:
+        problems.append(
+            f"{picks.source}: {int(off.sum())} of {m} picks ({off.mean():.1%}) involve nodes whose picks are off "
+            f"as a group ({', '.join(_off_node_names(picks, checks))}); check the node positions, heights and "
+            "clocks")
     if checks.sigma_source == "table" and checks.noise_sigma_ns is not None:
         typical = float(np.median(picks.sigma_ns))
         if checks.noise_sigma_ns > o.max_noise_ratio * typical:
@@ -613,3 +689,60 @@ def usability_problems(picks: Picks, checks: PickChecks) -> list[str]:
                 f"{checks.noise_sigma_ns / typical:.1f} times the median sigma_ns {typical:.3g} ns; "
                 "the sigmas are too small or the picks noisier than stated")
     return problems
+
+
+def error_flagged(checks: PickChecks) -> np.ndarray:
+    """Boolean mask of the picks flagged as errors (reciprocal_mismatch, faster_than_air, slower_than_band)."""
+    return np.array([bool(_ERROR_FLAGS.intersection(f)) for f in checks.flags], dtype=bool)
+
+
+def off_node_picks(picks: Picks, checks: PickChecks) -> np.ndarray:
+    """Boolean mask of the picks sent or received by a node whose picks are off as a group."""
+    off = checks.nodes.off
+    return off[np.asarray(picks.tx)] | off[np.asarray(picks.rx)]
+
+
+def _off_node_names(picks: Picks, checks: PickChecks, most: int = 8) -> list[str]:
+    ids = checks.nodes.ids
+    names = [ids[k] if k < len(ids) else str(k) for k in np.flatnonzero(checks.nodes.off)]
+    return names[:most] + (["..."] if len(names) > most else [])
+
+
+def usability_cautions(picks: Picks, checks: PickChecks) -> list[str]:
+    """Reasons to use the picks with caution (empty when none); each starts with the pick table's path.
+
+    Thresholds (:class:`PickCheckOptions`; our choices, common practice, no
+    published source): more than 2 % of the picks flagged as errors (careful
+    picking leaves about 1 to 2 % gross errors); more than 20 % of the picks
+    flagged at all (air waves included: they tell little about the rock under
+    the nodes, and a straight-ray inversion leaves them out); any node whose
+    picks are off as a group.
+    """
+    o = checks.options
+    m = len(picks)
+    if m == 0:
+        return []
+    cautions = []
+    errors = error_flagged(checks)
+    if errors.sum() > o.caution_error_fraction * m:
+        cautions.append(f"{picks.source}: {int(errors.sum())} of {m} picks ({errors.mean():.1%}) are flagged as "
+                        f"errors, more than {o.caution_error_fraction:.0%}; look at the flagged picks")
+    flagged = np.array([bool(f) for f in checks.flags], dtype=bool)
+    if flagged.sum() > o.caution_flagged_fraction * m:
+        counts = ", ".join(f"{n} {f}" for f, n in checks.counts().items() if n)
+        cautions.append(f"{picks.source}: {int(flagged.sum())} of {m} picks ({flagged.mean():.1%}) are flagged "
+                        f"({counts}), more than {o.caution_flagged_fraction:.0%}: the rock is sampled by fewer "
+                        "picks than were taken")
+    off = off_node_picks(picks, checks)
+    if checks.nodes.off.any():
+        cautions.append(f"{picks.source}: {int(checks.nodes.off.sum())} nodes have picks off as a group "
+                        f"({', '.join(_off_node_names(picks, checks))}), {int(off.sum())} of {m} picks "
+                        f"({off.mean():.1%}); see their likely causes in the node table")
+    return cautions
+
+
+def verdict(problems, cautions) -> str:
+    """``"not usable as it stands"``, ``"usable with caution"`` or ``"usable"``."""
+    if problems:
+        return "not usable as it stands"
+    return "usable with caution" if cautions else "usable"

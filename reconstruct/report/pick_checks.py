@@ -34,12 +34,16 @@ from reconstruct.checks.picks import (
     FLAG_SLOWER_THAN_BAND,
     FLAGS,
     PickChecks,
+    error_flagged,
     excluded_flags,
+    off_node_picks,
+    usability_cautions,
+    verdict,
 )
 from reconstruct.io.tables import Nodes, Picks
 
 __all__ = ["PICK_CHECK_COLUMNS", "NODE_TIME_ZERO_COLUMNS", "pick_check_rows", "node_time_zero_rows",
-           "pick_checks_summary", "write_pick_checks"]
+           "pick_checks_summary", "time_distance_classes", "summary_rows", "write_pick_checks"]
 
 #: Columns of ``pick_checks.csv``: one row per pick read.
 PICK_CHECK_COLUMNS = ["input_line", "tx", "rx", "time_ns", "sigma_ns", "distance_m", "time_zero_correction_ns",
@@ -48,7 +52,7 @@ PICK_CHECK_COLUMNS = ["input_line", "tx", "rx", "time_ns", "sigma_ns", "distance
                       "residual_ns", "flags", "action"]
 #: Columns of ``node_time_zero.csv``: one row per node.
 NODE_TIME_ZERO_COLUMNS = ["node_id", "time_zero_ns", "delay_ns", "depth_m", "picks_as_tx", "picks_as_rx",
-                          "reciprocal_pairs", "median_residual_ns"]
+                          "reciprocal_pairs", "median_residual_ns", "group_score", "off_as_group", "likely_cause"]
 
 
 def _f(value, digits=4) -> str:
@@ -74,20 +78,6 @@ def pick_check_rows(picks: Picks, nodes: Nodes, checks: PickChecks, excluding=()
         yield [e.line, e.tx, e.rx, e.time_text, "", "", "", "", "", "", "", "", "", "", "", e.reason, "excluded"]
 
 
-def _node_residuals(picks: Picks, checks: PickChecks, n_nodes: int) -> np.ndarray:
-    median = np.full(n_nodes, np.nan)
-    order = np.r_[picks.tx, picks.rx]
-    values = np.r_[checks.residual_ns, checks.residual_ns]
-    sort = np.argsort(order, kind="stable")
-    order, values = order[sort], values[sort]
-    starts = np.searchsorted(order, np.arange(n_nodes))
-    ends = np.searchsorted(order, np.arange(n_nodes), side="right")
-    for k in range(n_nodes):
-        if ends[k] > starts[k]:
-            median[k] = float(np.median(values[starts[k]:ends[k]]))
-    return median
-
-
 def node_time_zero_rows(picks: Picks, nodes: Nodes, checks: PickChecks):
     """Rows of ``node_time_zero.csv``: one per node."""
     n = len(nodes)
@@ -95,10 +85,25 @@ def node_time_zero_rows(picks: Picks, nodes: Nodes, checks: PickChecks):
     n_rx = np.bincount(picks.rx, minlength=n)
     has_partner = checks.reciprocal >= 0
     n_rec = np.bincount(picks.tx[has_partner], minlength=n)
-    median = _node_residuals(picks, checks, n)
+    nc = checks.nodes
     for k in range(n):
         yield [nodes.ids[k], _f(checks.time_zero_ns[k]), _f(checks.delay_ns[k]),
-               _f(checks.depth_m[k], 3), int(n_tx[k]), int(n_rx[k]), int(n_rec[k]), _f(median[k])]
+               _f(checks.depth_m[k], 3), int(n_tx[k]), int(n_rx[k]), int(n_rec[k]), _f(nc.median_residual_ns[k]),
+               _f(nc.score[k], 2), "yes" if nc.off[k] else "no", nc.cause[k]]
+
+
+def _nodes_off_summary(nodes: Nodes, checks: PickChecks) -> dict:
+    nc = checks.nodes
+    return {
+        "rule": ("a node's median residual (its picks against the reference model after the time-zero "
+                 "correction, picks flagged as errors left out) is off when it lies more than cut times "
+                 "max(1.4826 MAD of the nodes' medians, median pick sigma) from the median of the nodes' medians"),
+        "median_of_node_medians_ns": nc.level_ns, "spread_of_node_medians_ns": nc.spread_ns, "cut": nc.cut,
+        "count": int(nc.off.sum()),
+        "nodes": [{"node_id": nodes.ids[k], "median_residual_ns": float(nc.median_residual_ns[k]),
+                   "picks": int(nc.picks[k]), "group_score": float(nc.score[k]), "likely_cause": nc.cause[k]}
+                  for k in np.flatnonzero(nc.off)],
+    }
 
 
 def pick_checks_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems, *, rays: str = "straight",
@@ -109,10 +114,15 @@ def pick_checks_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems
     flagged_out = np.array([bool(set(excluding).intersection(f)) for f in checks.flags], dtype=bool)
     time_zero = checks.time_zero_ns
     known = np.isfinite(time_zero)
+    cautions = usability_cautions(picks, checks)
     return {
         "picks": {
             "rows_read": picks.n_rows, "checked": len(picks), "excluded_on_reading": len(picks.excluded),
             "flag_counts": checks.counts(),
+            "flagged": sum(1 for f in checks.flags if f),
+            "not_flagged": sum(1 for f in checks.flags if not f),
+            "flagged_as_errors": int(error_flagged(checks).sum()),
+            "of_nodes_off_as_group": int(off_node_picks(picks, checks).sum()),
             "excluded_by_flags": int(flagged_out.sum()),
             "flags_that_exclude": list(excluding),
             "kept": int(len(picks) - flagged_out.sum()),
@@ -145,11 +155,17 @@ def pick_checks_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems
             "velocity_uncertainty_fraction": o.velocity_uncertainty_fraction,
             "max_implausible_fraction": o.max_implausible_fraction,
             "max_mismatch_fraction": o.max_mismatch_fraction, "max_noise_ratio": o.max_noise_ratio,
+            "max_off_node_fraction": o.max_off_node_fraction, "caution_error_fraction": o.caution_error_fraction,
+            "caution_flagged_fraction": o.caution_flagged_fraction, "neighbours": o.neighbours,
+            "blame_score": o.blame_score, "node_score": o.node_score,
         },
         "clock_drift": drift_from_pick_checks(picks, checks, nodes.ids),
+        "nodes_off_as_group": _nodes_off_summary(nodes, checks),
         "rays": rays,
+        "verdict": verdict(problems, cautions),
         "usable": not problems,
         "problems": list(problems),
+        "cautions": cautions,
         "put_back": ("nothing in the pick table is changed; rerun with --keep-flagged FLAG[,FLAG] to keep "
                      "flagged picks in the inversion"),
     }
@@ -159,14 +175,37 @@ def pick_checks_summary(picks: Picks, nodes: Nodes, checks: PickChecks, problems
 # figures
 
 _COLOURS = colours.PICK_CLASS_COLOURS
+#: Colour class and marker of each flag on the time-distance plot: the two air waves share the air colour
+#: ("orange means air") and the two implausible velocities theirs, told apart by the marker.
+_FLAG_STYLE = {
+    FLAG_RECIPROCAL: ("reciprocal", "D"),
+    FLAG_FASTER_THAN_AIR: ("implausible", "^"),
+    FLAG_SLOWER_THAN_BAND: ("implausible", "v"),
+    FLAG_AIR_DIRECT: ("air", "o"),
+    FLAG_AIR_REFRACTED: ("air", "s"),
+}
+#: Words of the picks that carry no flag, on the plot and in the table.
+NOT_FLAGGED_WORDS = "not flagged"
+#: Words of the reciprocal pairs, on the reciprocity plot and in the table.
+PAIRS_AGREE_WORDS = "reciprocal pairs that agree"
+PAIRS_DISAGREE_WORDS = "reciprocal pairs that disagree"
 
 
-def _category(checks: PickChecks) -> np.ndarray:
-    cat = np.full(len(checks.flags), "kept", dtype=object)
-    cat[checks.has(FLAG_RECIPROCAL)] = "reciprocal"
-    cat[checks.has(FLAG_AIR_DIRECT) | checks.has(FLAG_AIR_REFRACTED)] = "air"
-    cat[checks.has(FLAG_FASTER_THAN_AIR) | checks.has(FLAG_SLOWER_THAN_BAND)] = "implausible"
-    return cat
+def time_distance_classes(checks: PickChecks) -> list:
+    """Legend entries of the time-distance plot: ``(label, mask, colour class, marker)``.
+
+    One entry for the picks without a flag and one per flag present, each with
+    the words and count of the summary table (a pick with two flags is drawn
+    under both), so that the legend and the table agree.
+    """
+    plain = np.array([not f for f in checks.flags], dtype=bool)
+    out = [(f"{NOT_FLAGGED_WORDS} ({int(plain.sum())})", plain, "kept", ".")]
+    for flag in FLAGS:
+        sel = checks.has(flag)
+        if sel.any():
+            colour_class, marker = _FLAG_STYLE[flag]
+            out.append((f"{FLAG_WORDS[flag]} ({int(sel.sum())})", sel, colour_class, marker))
+    return out
 
 
 def _figure(width=7.0, height=4.5):
@@ -178,12 +217,10 @@ def _figure(width=7.0, height=4.5):
 def _time_distance_png(checks: PickChecks) -> bytes:
     fig = _figure()
     ax = fig.add_subplot()
-    cat = _category(checks)
     d, t = checks.distance_m, checks.corrected_time_ns
-    for name, colour in _COLOURS.items():
-        sel = cat == name
-        if sel.any():
-            ax.scatter(d[sel], t[sel], s=4, color=colour, label=f"{name} ({int(sel.sum())})", alpha=0.7)
+    for label, sel, colour_class, marker in time_distance_classes(checks):
+        ax.scatter(d[sel], t[sel], s=4 if marker == "." else 8, marker="o" if marker == "." else marker,
+                   color=_COLOURS[colour_class], alpha=0.7, label=label)
     dmax = float(d.max()) if d.size else 1.0
     xs = np.array([0.0, dmax])
     o = checks.options
@@ -206,11 +243,12 @@ def _reciprocity_png(picks: Picks, checks: PickChecks) -> bytes:
     ax = fig.add_subplot()
     k = np.flatnonzero((checks.reciprocal >= 0) & (np.arange(len(picks)) < checks.reciprocal))
     j = checks.reciprocal[k]
-    bad = checks.has(FLAG_RECIPROCAL)[k]
+    bad = checks.pair_mismatch[k]
     t = picks.time_ns
-    ax.scatter(t[k][~bad], t[j][~bad], s=4, color=_COLOURS["kept"], label=f"agree ({int((~bad).sum())})")
+    ax.scatter(t[k][~bad], t[j][~bad], s=4, color=_COLOURS["kept"], label=f"{PAIRS_AGREE_WORDS} ({int((~bad).sum())})")
     if bad.any():
-        ax.scatter(t[k][bad], t[j][bad], s=10, color=_COLOURS["reciprocal"], label=f"mismatch ({int(bad.sum())})")
+        ax.scatter(t[k][bad], t[j][bad], s=10, color=_COLOURS["reciprocal"],
+                   label=f"{PAIRS_DISAGREE_WORDS} ({int(bad.sum())})")
     top = float(max(t.max(), 1.0)) if t.size else 1.0
     ax.plot([0, top], [0, top], color=colours.REFERENCE_LINE_COLOUR, linewidth=1, label="t(A->B) = t(B->A)")
     ax.set_xlabel("t(A->B) as picked (ns)")
@@ -238,14 +276,19 @@ def _histogram_png(checks: PickChecks) -> bytes:
 def _node_map_png(picks: Picks, nodes: Nodes, checks: PickChecks, xyz_m) -> bytes:
     fig = _figure(6.5, 5.0)
     ax = fig.add_subplot()
-    median = _node_residuals(picks, checks, len(nodes))
+    median = checks.nodes.median_residual_ns
     xyz = np.asarray(xyz_m)
     ok = np.isfinite(median)
     lim = float(np.nanmax(np.abs(median))) if ok.any() else 1.0
     sc = ax.scatter(xyz[ok, 0], xyz[ok, 1], c=median[ok], cmap=colours.DIVERGING_MAP, vmin=-lim, vmax=lim, s=30,
                     edgecolors=colours.REFERENCE_LINE_COLOUR, linewidths=0.5)
+    off = checks.nodes.off
+    if off.any():
+        ax.scatter(xyz[off, 0], xyz[off, 1], s=140, facecolors="none", edgecolors=colours.REFERENCE_LINE_COLOUR,
+                   linewidths=1.5, label=f"{NODES_OFF_WORDS} ({int(off.sum())})")
     if (~ok).any():
         ax.scatter(xyz[~ok, 0], xyz[~ok, 1], marker="x", color=colours.NO_DATA_COLOUR, label="no pick")
+    if off.any() or (~ok).any():
         ax.legend(fontsize=7)
     fig.colorbar(sc, ax=ax, label="median residual of the node's picks (ns):\nblue later, red earlier than the reference")
     ax.set_xlabel("x east (m)")
@@ -265,6 +308,8 @@ FLAG_WORDS = {
     FLAG_AIR_DIRECT: "direct air wave",
     FLAG_AIR_REFRACTED: "refracted air wave",
 }
+#: Words of the nodes whose picks are off as a group, on the node map and in the table.
+NODES_OFF_WORDS = "nodes off as a group"
 _SIGMA_SOURCE_WORDS = {
     "table": "the pick table's sigma_ns column",
     "reciprocity": "the spread of the reciprocal pairs",
@@ -272,7 +317,7 @@ _SIGMA_SOURCE_WORDS = {
 }
 _NODE_TIME_ZERO_HEADINGS = ["node", "time-zero offset (ns)", "delay (ns)", "depth below ground (m)",
                             "picks as transmitter", "picks as receiver", "reciprocal pairs",
-                            "median residual (ns)"]
+                            "median residual (ns)", "group score", "off as a group", "likely cause"]
 
 
 def _anisotropy_png(picks, checks, xyz_m, record) -> bytes:
@@ -333,25 +378,71 @@ def _drift_html(record) -> str:
                              float_format=".2f")
 
 
-def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
-    parts = []
+def _verdict_html(summary) -> str:
+    """The verdict, its reasons and the rules behind it."""
+    o = summary["thresholds"]
+    word = summary["verdict"]
     if summary["problems"]:
-        items = "".join(f"<li>{escape(p)}</li>" for p in summary["problems"])
-        parts.append(f"<h2>Verdict: not usable as it stands</h2><ul>{items}</ul>"
-                     "<p>voidcube reconstruct invert refuses these picks unless --invert-unusable is given.</p>")
+        items = "".join(f"<li>{escape(p)}</li>" for p in summary["problems"] + summary["cautions"])
+        text = ("<p>voidcube reconstruct invert refuses these picks unless --invert-unusable is given.</p>")
+    elif summary["cautions"]:
+        items = "".join(f"<li>{escape(p)}</li>" for p in summary["cautions"])
+        text = ("<p>No check stops an inversion, but a good share of the data is flagged or suspect: look at "
+                "the flagged picks and the nodes off as a group before trusting the result.</p>")
     else:
-        parts.append("<h2>Verdict: usable</h2><p>No check stops an inversion. Flagged picks are listed below.</p>")
-    counts = summary["picks"]["flag_counts"]
-    rows = [["rows read", summary["picks"]["rows_read"]], ["picks checked", summary["picks"]["checked"]],
-            ["excluded on reading", summary["picks"]["excluded_on_reading"]]]
+        items, text = "", "<p>No check stops an inversion and nothing calls for caution. Flagged picks are listed below.</p>"
+    rules = (f"Not usable as it stands: more than {o['max_implausible_fraction']:.0%} of the picks outside the "
+             f"velocity band, more than {o['max_mismatch_fraction']:.0%} of the reciprocal pairs disagreeing, "
+             f"a pick noise over {o['max_noise_ratio']:g} times the table's sigma, or more than "
+             f"{o['max_off_node_fraction']:.0%} of the picks from nodes off as a group. Usable with caution: "
+             f"more than {o['caution_error_fraction']:.0%} of the picks flagged as errors, more than "
+             f"{o['caution_flagged_fraction']:.0%} flagged at all, or any node off as a group (our thresholds: "
+             "common practice, no published source).")
+    return (f"<h2>Verdict: {escape(word)}</h2>" + (f"<ul>{items}</ul>" if items else "") + text
+            + f"<p>{escape(rules)}</p>")
+
+
+def summary_rows(summary, checks: PickChecks) -> list:
+    """Rows ``[words, value]`` of the summary table of the page."""
+    p = summary["picks"]
+    counts = p["flag_counts"]
+    rows = [["rows read", p["rows_read"]], ["picks checked", p["checked"]],
+            ["excluded on reading", p["excluded_on_reading"]], [NOT_FLAGGED_WORDS, p["not_flagged"]],
+            ["flagged (a pick may carry several flags)", p["flagged"]]]
     rows += [[f"flagged: {FLAG_WORDS[f]} ({f})", counts[f]] for f in FLAGS]
-    rows += [["left out of the inversion by flags", summary["picks"]["excluded_by_flags"]],
+    rows += [["flagged as errors (reciprocal, faster than air, slower than the band)", p["flagged_as_errors"]],
+             [NODES_OFF_WORDS, summary["nodes_off_as_group"]["count"]],
+             ["picks of nodes off as a group", p["of_nodes_off_as_group"]],
+             ["left out of the inversion by flags", p["excluded_by_flags"]],
              ["pick uncertainty taken from", _SIGMA_SOURCE_WORDS.get(checks.sigma_source, checks.sigma_source)],
              ["pick noise from reciprocal pairs (ns)",
               "-" if checks.noise_sigma_ns is None else f"{checks.noise_sigma_ns:.3f}"],
              ["reciprocal pairs", checks.n_reciprocal_pairs],
+             [PAIRS_AGREE_WORDS, checks.n_reciprocal_pairs - checks.reciprocity["mismatched_pairs"]],
+             [PAIRS_DISAGREE_WORDS, checks.reciprocity["mismatched_pairs"]],
              ["site rock velocity (m/ns)", f"{checks.rock_velocity_m_per_ns:.4f}"],
              ["velocity fitted to the picks (m/ns)", f"{checks.fitted_velocity_m_per_ns:.4f}"]]
+    return rows
+
+
+def _nodes_off_html(summary) -> str:
+    off = summary["nodes_off_as_group"]
+    if not off["nodes"]:
+        return (f"<h2>Nodes off as a group</h2><p>None: every node's median residual lies within "
+                f"{off['cut']:g} robust standard deviations of the others'.</p>")
+    rows = [[n["node_id"], f"{n['median_residual_ns']:.2f}", n["picks"], f"{n['group_score']:.1f}", n["likely_cause"]]
+            for n in off["nodes"]]
+    return ("<h2>Nodes off as a group</h2><p>The median residual of these nodes' picks lies more than "
+            f"{off['cut']:g} robust standard deviations from the median of all nodes' medians "
+            f"({off['median_of_node_medians_ns']:.2f} ns, spread {off['spread_of_node_medians_ns']:.2f} ns). "
+            "Negative: earlier than the reference. The likely cause is read from the pattern of the residuals; "
+            "check the node's coordinates, height, clock and coupling.</p>"
+            + table_html(["node", "median residual (ns)", "picks", "group score", "likely cause"], rows))
+
+
+def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
+    parts = [_verdict_html(summary)]
+    rows = summary_rows(summary, checks)
     parts.append("<h2>Summary</h2>" + table_html(["item", "value"], [[str(a), str(b)] for a, b in rows]))
     parts.append("<h2>Plots</h2>")
     parts.append(png_img_html(_time_distance_png(checks), "time against distance",
@@ -363,7 +454,9 @@ def _html(picks, nodes, checks, summary, xyz_m, site_name) -> str:
                               "Residuals against the reference: a homogeneous rock fitted to the picks (air "
                               "segments at c), or the air-wave time for air-wave picks."))
     parts.append(png_img_html(_node_map_png(picks, nodes, checks, xyz_m), "residual per node",
-                              "Plan map of the nodes coloured by the median residual of their picks."))
+                              "Plan map of the nodes coloured by the median residual of their picks; "
+                              "rings: nodes off as a group."))
+    parts.append(_nodes_off_html(summary))
     node_rows = [["-" if v == "" else v for v in row] for row in node_time_zero_rows(picks, nodes, checks)]
     parts.append("<h2>Node time-zero offsets</h2><p>Time-zero offset: the node's clock term, relative to the "
                  "mean over the nodes; delay: half the difference between its receiving and transmitting "

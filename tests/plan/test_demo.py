@@ -140,6 +140,31 @@ def test_command_ends_with_the_report_path_and_one_line_per_truth_body(reduced_r
     assert f"bent-ray iterations stopped: {summary['bent_rays']['stop_reason']}" in lines
     assert any(line.startswith("WARNING: target misfit not reached") for line in lines) == (
         summary["fit"]["target_reached"] is False)
+    # the ground crossed by rays, as the plan predicted it and as the inversion got it (issue 17 part 7),
+    # read back from the two summaries with json
+    plan = json.loads((result.out / "plan" / "coverage_summary.json").read_text(encoding="utf-8"))["ground"]
+    predicted = plan["cells_with_rays"] / plan["cells"]
+    got = summary["coverage"]["fraction_of_ground_with_rays"]
+    assert lines[-6].startswith(f"ground crossed by rays: {predicted:.1%} predicted by the plan")
+    assert f"{got:.1%} in the inversion" in lines[-6]
+    manifest = json.loads(result.manifest_path.read_text(encoding="utf-8"))
+    assert manifest["coverage_predicted_against_inverted"]["predicted_fraction_of_ground_with_rays"] == (
+        pytest.approx(predicted))
+
+
+def test_coverage_comparison_needs_both_figures():
+    from plan.demo import coverage_against_plan, coverage_line
+
+    # the demo's figures (issue 17): 6,561 of 17,000 ground cells planned, 19.4 % got
+    plan = {"ground": {"cells": 17000, "cells_with_rays": 6561}}
+    got = {"coverage": {"fraction_of_ground_with_rays": 0.194}}
+    comparison = coverage_against_plan(plan, got)
+    assert comparison["predicted_fraction_of_ground_with_rays"] == pytest.approx(6561 / 17000)
+    assert comparison["ratio"] == pytest.approx(0.194 / (6561 / 17000))
+    assert coverage_line(comparison).startswith("ground crossed by rays: 38.6% predicted by the plan")
+    assert "19.4% in the inversion (its bent rays follow" in coverage_line(comparison)
+    assert coverage_against_plan({}, got) is None and coverage_against_plan(plan, {}) is None
+    assert coverage_line(None) is None
 
 
 def test_missing_truth_file_exits_2_naming_it(tmp_path, capsys):

@@ -21,6 +21,7 @@ from plan.report import (
     OPTIMISE_LABELS,
     PAIR_GRAPH_LABELS,
     SCHEDULE_LABELS,
+    air_wave_warning,
     flatten_summary,
     read_mesh_links,
     summary_rows,
@@ -70,6 +71,39 @@ def files(tmp_path):
 
 def _run(argv):
     return run_main(main, argv)
+
+
+@pytest.mark.parametrize("first, warned", [(1487, True), (1073, False), (1074, True), (0, False)])
+def test_air_wave_warning_when_most_heard_pairs_have_the_air_wave_first(first, warned):
+    # "most" is more than half (common practice, no published source); the demo plan: 1,487 of 2,147 (69 %)
+    summary = {"pairs": {"heard": 2147, "heard_air_wave_first": first}}
+    warning = air_wave_warning(summary)
+    assert (warning is not None) == warned == (first > 2147 / 2)
+    if warned:
+        assert f"{first:,} of 2,147 ({first / 2147:.0%}" in warning
+    assert air_wave_warning({"pairs": {"heard": 0, "heard_air_wave_first": 0}}) is None
+    assert air_wave_warning({}) is None
+
+
+def test_pairs_and_report_warn_when_the_layout_is_all_on_the_surface(files):
+    # nodes on the ground surface only: between two of them the direct air wave (d / c) comes before the
+    # wave through the rock (d / v, v = 0.12 m/ns < c = 0.2998 m/ns, scipy.constants.c), so every heard
+    # pair has the air wave first
+    folder, site, _ = files
+    plan = folder / "plan"
+    nodes = folder / "surface.csv"
+    nodes.write_text("node_id,x_m,y_m,z_m,kind\n" + "".join(f"S{k},{2 + 4 * k},5,18,surface\n" for k in range(5)),
+                     encoding="utf-8")
+    code, out, err = _run(["pairs", "--site", site, "--nodes", nodes, "--out", plan, "--quiet"])
+    assert code == 0, err
+    summary = json.loads((plan / "pairs_summary.json").read_text())
+    assert summary["pairs"]["heard_air_wave_first"] == summary["pairs"]["heard"] > 0
+    assert "WARNING: most heard pairs would have the air wave first" in out
+    (plan / "nodes.csv").write_text(nodes.read_text(encoding="utf-8"), encoding="utf-8")
+    code, out, err = _run(["report", plan, "--site", site, "--quiet"])
+    assert code == 0, err
+    page = (plan / "plan_report.html").read_text(encoding="utf-8")
+    assert "<h2>Warning</h2><p>Most heard pairs would have the air wave first" in page
 
 
 def test_flatten_summary_gives_key_paths():

@@ -123,7 +123,10 @@ def test_pick_checks_write_every_output_and_flag_input_lines(tmp_path):
     time_zero = _read_csv(out / "node_time_zero.csv")
     assert [r["node_id"] for r in time_zero] == list(xyz)
     assert list(time_zero[0]) == ["node_id", "time_zero_ns", "delay_ns", "depth_m", "picks_as_tx", "picks_as_rx",
-                                  "reciprocal_pairs", "median_residual_ns"]
+                                  "reciprocal_pairs", "median_residual_ns", "group_score", "off_as_group",
+                                  "likely_cause"]
+    assert {r["off_as_group"] for r in time_zero} <= {"yes", "no"}
+    assert summary["nodes_off_as_group"]["count"] == sum(r["off_as_group"] == "yes" for r in time_zero)
     page = (out / "pick_checks.html").read_text(encoding="utf-8")
     text = re.sub(r"data:image/png;base64,[A-Za-z0-9+/=]+", "", page)
     assert "QC" not in text and "quality control" not in text.lower()  # docs/glossary.md: "pick checks"
@@ -136,9 +139,34 @@ def test_pick_checks_write_every_output_and_flag_input_lines(tmp_path):
     assert set(manifest["outputs"]) == {"manifest.json", "node_time_zero.csv", "pick_checks.csv", "pick_checks.html",
                                         "pick_checks.json"}
     assert {k for k in manifest["inputs"]} == {"site", "nodes", "picks"}
-    assert "flagged: " in stdout and "verdict: usable" in stdout
+    assert "flagged: " in stdout and f"verdict: {summary['verdict']}" in stdout
+    assert summary["verdict"] in ("usable", "usable with caution")  # one impossible pick: not refused
+    assert summary["picks"]["flagged"] + summary["picks"]["not_flagged"] == n_picks
     assert 5 in summary["picks"]["faster_than_air_input_lines"]
     assert "faster than air (impossible)" in stdout and "lines 5" in stdout
+
+
+def test_plot_legend_and_table_use_the_same_words_and_counts(tmp_path):
+    from reconstruct.checks.picks import check_site_picks, usability_problems
+    from reconstruct.io.tables import read_picks
+    from reconstruct.report.pick_checks import pick_checks_summary, summary_rows, time_distance_classes
+
+    site, nodes, picks, xyz = _inputs(tmp_path / "in")
+    _plant_faster_than_air(picks, xyz, [5, 9])
+    node_table = read_nodes(nodes)
+    pick_table = read_picks(picks, node_table)
+    _, checks = check_site_picks(load_site(site), node_table, pick_table)
+    summary = pick_checks_summary(pick_table, node_table, checks, usability_problems(pick_table, checks))
+    table = {str(words): value for words, value in summary_rows(summary, checks)}
+    entries = time_distance_classes(checks)
+    assert len(entries) >= 2  # not flagged, and at least the two impossible picks
+    for label, mask, _, _ in entries:
+        words, count = re.fullmatch(r"(.+) \((\d+)\)", label).groups()
+        # the table says "flagged: <words> (<flag>)" per flag and "not flagged" for the rest
+        match = [v for k, v in table.items() if k == words or k.startswith(f"flagged: {words} (")]
+        assert match == [int(count)] and int(count) == int(mask.sum())
+    # every pick is counted once, as flagged or as not flagged
+    assert table["not flagged"] + table["flagged (a pick may carry several flags)"] == len(pick_table)
 
 
 def test_invert_refuses_unusable_picks_then_accepts_with_the_flag(tmp_path):

@@ -105,9 +105,9 @@ def _add_inversion_arguments(p: argparse.ArgumentParser):
                    help="elliptical anisotropy: velocity along the bedding over velocity across it "
                         "(default 1: isotropic; 'auto': the pick checks' fit, beds horizontal, when it is "
                         "measurable); the cube then holds the velocity along the bedding")
-    g.add_argument("--anisotropy-axis", choices=("z", "x", "y"), default=o.anisotropy_axis,
-                   help="symmetry axis of the anisotropy, the normal to the bedding (default z: "
-                        "horizontal beds)")
+    g.add_argument("--anisotropy-axis", default=o.anisotropy_axis, metavar="AXIS",
+                   help="symmetry axis of the anisotropy, the normal to the bedding: z (default, horizontal "
+                        "beds), x, y, or the beds' DIP/DIPDIRECTION in degrees such as 30/120")
     g.add_argument("--lsqr-iterations", type=int, default=o.max_iterations, metavar="N",
                    help=f"LSQR iteration limit per solve (default {o.max_iterations})")
     g.add_argument("--default-sigma", type=float, default=o.default_sigma_ns, metavar="NS",

@@ -52,7 +52,7 @@ from reconstruct.inverse.time_zero import estimate_time_zero
 from reconstruct.parallel import Executor
 from reconstruct.inverse.straight import TomographyRun, solver_progress, straight_ray_tomography
 from reconstruct.forward.straight_rays import ray_coverage
-from reconstruct.forward.anisotropy import stretched_geometry
+from reconstruct.forward.anisotropy import anisotropic_geometry
 
 __all__ = ["BentOptions", "bent_ray_tomography"]
 
@@ -125,9 +125,9 @@ def bent_ray_tomography(site, nodes, picks, options: InversionOptions = Inversio
     start = straight_ray_tomography(site, nodes, picks, options, snap_tolerance_m=snap_tolerance_m,
                                     memory_limit_bytes=memory_limit_bytes, progress=progress)
     # elliptical anisotropy: fields and rays in the stretched geometry (reconstruct.forward.anisotropy)
-    ray_grid, ray_xyz = stretched_geometry(start.grid, start.placement.xyz_m, options.anisotropy_ratio,
-                                           options.anisotropy_axis)
-    steps = _BentSteps(start.problem, ray_grid, ray_xyz, bent, executor, progress)
+    geometry = anisotropic_geometry(start.grid, start.placement.xyz_m, options.anisotropy_ratio,
+                                    options.anisotropy_axis)
+    steps = _BentSteps(start.problem, geometry, bent, executor, progress)
     if kernels_need_compiling():
         steps.say(COMPILING_MESSAGE)
     state, history = steps.starting_point(start.result)
@@ -171,10 +171,11 @@ class _Model:
 class _BentSteps:
     """The forward model and the Gauss-Newton steps of the bent-ray iterations."""
 
-    def __init__(self, problem: InverseProblem, grid, xyz, bent: BentOptions, executor, progress):
+    def __init__(self, problem: InverseProblem, geometry, bent: BentOptions, executor, progress):
         self.problem = problem
-        self.grid = grid
-        self.xyz = xyz
+        self.geometry = geometry  # reconstruct.forward.anisotropy.AnisotropicGeometry
+        self.grid = geometry.grid
+        self.xyz = geometry.xyz_m
         self.bent = bent
         self.executor = executor
         self.progress = progress
@@ -191,9 +192,12 @@ class _BentSteps:
         def fw_progress(done, total):
             if done == total or done % max(1, total // 10) == 0:
                 self.say(f"travel-time fields: {done}/{total}")
-        return bent_ray_forward(self.grid, model.reshape(self.grid.shape), self.xyz, self.pair_a, self.pair_b,
-                                executor=self.executor, eikonal_options=self.bent.eikonal, keep_rays=keep,
-                                progress=fw_progress)
+        slowness = self.geometry.slowness(model, self.problem.slowness_bounds_ns_per_m[1])
+        fwd = bent_ray_forward(self.grid, slowness, self.xyz, self.pair_a, self.pair_b,
+                               executor=self.executor, eikonal_options=self.bent.eikonal, keep_rays=keep,
+                               progress=fw_progress)
+        # the per-cell lengths onto the model's cells (the identity without resampling)
+        return dataclasses.replace(fwd, operator=self.geometry.operator(fwd.operator))
 
     def predicted(self, fwd, tau):
         return fwd.time_ns[self.pick_pair] + self.problem.time_zero_columns @ tau
@@ -326,11 +330,7 @@ class _BentSteps:
 
     def real_points(self, points):
         """Points of the (possibly stretched, anisotropic) ray geometry back in site coordinates."""
-        options = self.problem.options
-        if options.anisotropy_ratio == 1.0:
-            return points
-        _, real = stretched_geometry(self.grid, points, 1.0 / options.anisotropy_ratio, options.anisotropy_axis)
-        return real
+        return points if self.problem.options.anisotropy_ratio == 1.0 else self.geometry.to_site(points)
 
     def final_run(self, start: TomographyRun, state: _Model, result, history) -> TomographyRun:
         """The run of the last accepted model, with rays when kept."""
@@ -345,7 +345,7 @@ class _BentSteps:
             residual_ns=residual, rms_ns=float(np.sqrt(np.mean(residual**2))),
             chi2=float(np.sum((residual / sigma) ** 2)) if sigma is not None else None,
         )
-        ray_length, ray_count = ray_coverage(final.operator[self.pick_pair], self.grid)
+        ray_length, ray_count = ray_coverage(final.operator[self.pick_pair], start.grid)
         return dataclasses.replace(
             start, result=final_result, ray_length_m=ray_length, ray_count=ray_count, rays="bent",
             history=tuple(history),

@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from reconstruct.inverse.robust import ROBUST_LOSSES
+from reconstruct.forward.anisotropy import axis_from_text
 from reconstruct.inverse.time_zero import TIME_ZERO_MODELS
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 
@@ -84,8 +85,9 @@ class InversionOptions:
         Elliptical anisotropy of the rock: velocity along the bedding over
         velocity across it (1, the default: isotropic). The cube then holds
         the velocity along the bedding (:mod:`reconstruct.forward.anisotropy`).
-    anisotropy_axis : {'z', 'x', 'y'}
-        The symmetry axis (normal to the bedding): ``z`` for horizontal beds.
+    anisotropy_axis : str
+        The symmetry axis (normal to the bedding): ``z`` for horizontal beds,
+        ``x`` or ``y``, or the beds' ``DIP/DIPDIRECTION`` in degrees (``30/120``).
     """
 
     velocity_min_m_per_ns: float = 0.03
@@ -159,8 +161,10 @@ class InversionOptions:
         if not 0.5 <= self.anisotropy_ratio <= 2.0:
             problems.append(f"anisotropy_ratio must be between 0.5 and 2 (velocity along the bedding over "
                             f"velocity across it; got {self.anisotropy_ratio})")
-        if self.anisotropy_axis not in ("x", "y", "z"):
-            problems.append(f"anisotropy_axis must be x, y or z (got {self.anisotropy_axis!r})")
+        try:
+            axis_from_text(self.anisotropy_axis)
+        except ValueError as error:
+            problems.append(f"anisotropy_{error}")
         if problems:
             from reconstruct.errors import InputError
 

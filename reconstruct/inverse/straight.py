@@ -14,7 +14,7 @@ from reconstruct.model.grid import Grid
 from reconstruct.inverse.problem import InverseProblem, build_inverse_problem
 from reconstruct.inverse.solver import InversionOptions, InversionResult, solve_inverse_problem
 from reconstruct.model.placement import NodePlacement, place_nodes
-from reconstruct.forward.anisotropy import stretched_geometry
+from reconstruct.forward.anisotropy import anisotropic_geometry
 from reconstruct.io.site import Site, model_grid
 from reconstruct.forward.straight_rays import ray_coverage
 from reconstruct.forward.straight_rays import straight_ray_matrix
@@ -138,8 +138,9 @@ def straight_ray_tomography(
         _say(progress, f"straight rays: {done:,}/{total:,}")
 
     # elliptical anisotropy: straight rays in the stretched geometry (reconstruct.forward.anisotropy)
-    ray_grid, ray_xyz = stretched_geometry(grid, xyz, options.anisotropy_ratio, options.anisotropy_axis)
-    G = straight_ray_matrix(ray_grid, ray_xyz[picks.tx[used]], ray_xyz[picks.rx[used]], progress=ray_progress)
+    geometry = anisotropic_geometry(grid, xyz, options.anisotropy_ratio, options.anisotropy_axis)
+    G = geometry.operator(straight_ray_matrix(geometry.grid, geometry.xyz_m[picks.tx[used]],
+                                              geometry.xyz_m[picks.rx[used]], progress=ray_progress))
     _say(progress, f"operator: {G.shape[0]:,} rays, {G.nnz:,} non-zeros")
 
     if options.time_zero == "clock_drift" and picks.shot_time_s is None:

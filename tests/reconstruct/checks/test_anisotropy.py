@@ -127,3 +127,64 @@ def test_the_fit_with_clock_offsets_is_not_fooled_by_them():
     t = _exact_ns(xyz[a], xyz[b]) + offsets[b] - offsets[a] + rng.normal(0, 0.3, a.size)
     fit = fit_elliptical_anisotropy(xyz[a], xyz[b], t, np.full(a.size, 0.3), "z", clock=(a, b, len(xyz)))
     assert abs(fit.ratio - V_ALONG / V_ACROSS) < 3 * fit.ratio_sd and fit.measurable
+
+
+def _exact_tilted_ns(a, b, axis, v_along=V_ALONG, v_across=V_ACROSS):
+    d = np.asarray(b, dtype=float) - np.asarray(a, dtype=float)
+    along_axis = d @ axis
+    across = np.linalg.norm(d - along_axis[:, None] * axis, axis=1)
+    return np.sqrt((across / v_along) ** 2 + (along_axis / v_across) ** 2)
+
+
+def test_dipping_beds_by_resampling_keep_straight_ray_and_field_times():
+    # beds dipping 30 degrees towards azimuth 120: the axis is their normal
+    from reconstruct.forward.anisotropy import anisotropic_geometry, axis_from_text
+    from reconstruct.forward.first_arrivals import first_arrival_times
+    from reconstruct.forward.straight_rays import straight_ray_matrix
+    from reconstruct.parallel import Executor
+
+    axis = axis_from_text("30/120")
+    d, az = np.radians(30.0), np.radians(120.0)
+    assert np.allclose(axis, [np.sin(d) * np.sin(az), np.sin(d) * np.cos(az), np.cos(d)])
+    grid = Grid((0.0, 0.0, 0.0), (1.0, 1.0, 1.0), (20, 10, 20))
+    xyz, a, b = _borehole_pairs()
+    geometry = anisotropic_geometry(grid, xyz, V_ALONG / V_ACROSS, "30/120")
+    exact = _exact_tilted_ns(xyz[a], xyz[b], axis)
+    G = geometry.operator(straight_ray_matrix(geometry.grid, geometry.xyz_m[a], geometry.xyz_m[b]))
+    np.testing.assert_allclose(G @ np.full(grid.n_cells, 1 / V_ALONG), exact, rtol=1e-6)
+    slowness = geometry.slowness(np.full(grid.n_cells, 1 / V_ALONG), 1 / 0.03)
+    times = first_arrival_times(geometry.grid, slowness, geometry.xyz_m, a, b, executor=Executor(kind="serial"))
+    assert np.max(np.abs(times / exact - 1)) < 0.01
+    np.testing.assert_allclose(geometry.to_site(geometry.xyz_m), xyz, atol=1e-9)
+
+
+@pytest.mark.slow
+def test_dipping_beds_modelled_leave_a_uniform_cube(tmp_path):
+    from reconstruct.forward.anisotropy import axis_from_text
+
+    xyz, a, b = _borehole_pairs()
+    times = _exact_tilted_ns(xyz[a], xyz[b], axis_from_text("30/120")) + np.random.default_rng(5).normal(0, 0.3, a.size)
+    results = {}
+    for name, ratio in (("isotropic", 1.0), ("modelled", V_ALONG / V_ACROSS)):
+        from reconstruct.inverse.options import InversionOptions
+        from reconstruct.io.site import parse_site
+        from reconstruct.io.tables import Nodes, Picks
+        from reconstruct.inverse.straight import straight_ray_tomography
+        from tests.reconstruct.small_site import SITE_YAML
+
+        site = parse_site(yaml.safe_load(SITE_YAML.format(cell=1.0)))
+        n, m = len(xyz), a.size
+        nodes = Nodes(ids=tuple(f"N{k}" for k in range(n)), xyz_m=xyz, kinds=("borehole",) * n,
+                      boreholes=(None,) * n, lines=np.arange(2, n + 2), source="nodes (test)")
+        picks = Picks(tx=a, rx=b, time_ns=times, sigma_ns=np.full(m, 0.3), amplitude=None, quality=None,
+                      lines=np.arange(2, m + 2), excluded=(), source="picks (test)", n_rows=m)
+        # one-way picks without clock offsets: no time-zero terms (with them the weight search of
+        # this small case stops at chi^2/N 3.7-3.9 whatever the axis: measured, left for later)
+        run = straight_ray_tomography(site, nodes, picks, InversionOptions(
+            anisotropy_ratio=ratio, anisotropy_axis="30/120", time_zero="none"))
+        results[name] = run.result.velocity_m_per_ns[run.ray_count.ravel() > 0]
+    # measured: modelled 0.1248-0.1249 m/ns (chi^2/N 1.03); inverted as isotropic, false structure
+    # of about ten per cent
+    spread = {k: np.ptp(np.percentile(v, [1, 99])) for k, v in results.items()}
+    assert spread["modelled"] < 0.25 * spread["isotropic"]
+    assert np.median(results["modelled"]) == pytest.approx(V_ALONG, rel=0.01)

@@ -73,11 +73,10 @@ def _cmd_simulate(args) -> int:
                             progress=say)
     missed_note = ""
     if args.link_budget:
-        from plan.radio.link_budget import antenna_axes, link_budget_for_site, pair_links
+        from plan.radio.link_budget import link_budget_for_site, site_pair_links
         from plan.synthetic.simulate import drop_missed_picks
 
-        links = pair_links(site, link_budget_for_site(site), nodes.xyz_m, antenna_axes(site, nodes),
-                           survey.tx, survey.rx)
+        links = site_pair_links(site, link_budget_for_site(site), nodes, survey.tx, survey.rx)
         survey, missed = drop_missed_picks(survey, links.margin_db, fade_sigma_db=args.fade_sigma,
                                            seed=truth.seed)
         missed_note = f"; {int(missed.sum())} picks missed below the link budget"
@@ -258,7 +257,19 @@ def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
         print(f"link range: {lb['computed_range_m']:.1f} m by the link budget "
               f"({lb['attenuation_db_per_m']:.3f} dB/m exact, {lb['attenuation_low_loss_db_per_m']:.3f} dB/m "
               f"low-loss form); rule of thumb {lo:.1f} to {hi:.1f} m (10 to 15 wavelengths in resistive rock)")
+        _print_range_check(summary)
     return pairs, written
+
+
+def _print_range_check(summary):
+    """The heard lengths against the rule of thumb 35 / conductivity, and its warning."""
+    check, lengths = summary["range_check"], summary["pairs"]["heard_length_m_percentiles"]
+    if lengths is not None and check["rule_range_m"] is not None:
+        print(f"heard pairs: median {lengths['50']:.1f} m, 95th percentile {lengths['95']:.1f} m long; "
+              f"{check['heard_beyond_rule']} ({100 * check['share_of_heard_beyond_rule']:.0f} %) longer than "
+              f"the {check['rule_range_m']:.0f} m of the rule of thumb 35 / conductivity (from memory)")
+    if check["warning"]:
+        print(f"WARNING: {check['warning']}")
 
 
 def _run_mesh(site, nodes, args, out: Path, *, write=True):

@@ -213,6 +213,8 @@ def _plan_layout(site, settings: ChainSettings, plan_dir: Path, say):
     written += [write_pairs_csv(plan_dir / "pairs.csv", pairs), write_graphml(plan_dir / "pairs.graphml", pairs.graph),
                 write_json_atomic(plan_dir / "pairs_summary.json", summary)]
     say(f"pairs: {summary['pairs']['heard']} of {summary['pairs']['total']} heard by the link budget")
+    if summary["range_check"]["warning"]:
+        say(f"warning: {summary['range_check']['warning']}")
     mesh = None
     if site.radio.gateway_m is not None:
         mesh = build_radio_mesh(site, nodes)

@@ -443,12 +443,14 @@ def _cmd_recover(args) -> int:
     standard = _standard_from(args)
     options = RecoveryOptions(void_sizes_m=args.void_sizes or (), depths_m=args.depths or (),
                               fills=tuple(args.fills.split(",")), noise_sigma_ns=args.noise,
-                              max_cells=args.max_cells, checker_size_m=args.checker_size, seed=args.seed)
+                              max_cells=args.max_cells, checker_size_m=args.checker_size, seed=args.seed,
+                              link_budget=not args.every_pair, noise_reference_margin_db=args.noise_reference_margin,
+                              system_performance_db=args.system_performance)
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
     executor = executor_from_args(args)
     result = run_recovery_tests(site, nodes, standard, options, executor=executor, progress=say)
-    columns = ["fill", "velocity_m_per_ns", "depth_m", "diameter_m", "largest_time_change_ns",
+    columns = ["work", "fill", "velocity_m_per_ns", "depth_m", "diameter_m", "largest_time_change_ns",
                "pairs_changed_beyond_2_sigma", "seen_in_data", "recovered_change_m_per_ns",
                "true_cell_change_m_per_ns", "background_spread_m_per_ns", "strongest_anomaly_distance_m",
                "resolved", "note"]
@@ -460,7 +462,10 @@ def _cmd_recover(args) -> int:
     _write_manifest(out, "voidcube plan recover", {"site": args.site, "nodes": args.nodes}, args, written, started)
     c = result.checkerboard
     corr = "n/a" if c["correlation"] is None else f"{c['correlation']:.3f}"
-    print(f"recovery grid: cells of {result.grid.cell_m[0]:g} m; {result.n_pairs:,} pairs")
+    pairs = result.pairs
+    print(f"recovery grid: cells of {result.grid.cell_m[0]:g} m; {result.n_pairs:,} pairs"
+          + (f" heard by the link budget (of {pairs['pairs_within_range']:,}); pick noise {pairs['noise']}"
+             if pairs.get("link_budget") else " (every pair, --every-pair)"))
     print(f"checkerboard ({c['cube_m']:g} m cubes): correlation {corr}")
     for statement in result.statements:
         print(statement)
@@ -740,9 +745,10 @@ def _add_assess_parsers(sub):
     p = sub.add_parser(
         "recover", help="checkerboard and void recovery tests of a layout with the real inversion",
         description="Invert synthetic data of a checkerboard and of voids (air, water or clay) of chosen "
-                    "sizes at chosen depths under the planned works, on a coarser copy of the model grid; "
-                    "report the smallest void resolved at each depth and the voids no first arrival can "
-                    "show. Writes recovery_summary.json, recovery.csv and manifest.json into OUT.",
+                    "sizes at chosen depths under each planned work, on a coarser copy of the model grid, "
+                    "with the pairs the link budget hears and pick noise that grows as their signal weakens; "
+                    "report the smallest void resolved at each work and depth and the voids no first arrival "
+                    "can show. Writes recovery_summary.json, recovery.csv and manifest.json into OUT.",
         epilog=_UNITS)
     p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
     p.add_argument("--nodes", required=True, help="node table (CSV) of the layout")
@@ -760,6 +766,14 @@ def _add_assess_parsers(sub):
     p.add_argument("--checker-size", type=float, default=None, metavar="M",
                    help="checkerboard cube edge, metres (default 4 recovery cells)")
     p.add_argument("--seed", type=int, default=0, help="seed of the noise (default 0)")
+    p.add_argument("--noise-reference-margin", type=float, default=20.0, metavar="DB",
+                   help="link margin, dB, from which picks have the --noise figure; weaker pairs get noise "
+                        "growing as 10^((DB - margin) / 20), at most a quarter period (default 20)")
+    p.add_argument("--every-pair", action="store_true",
+                   help="test with every pair within --max-distance and --noise on every pick (default: only "
+                        "the pairs the link budget hears, noisier as their margin falls)")
+    p.add_argument("--system-performance", type=float, default=None, metavar="DB",
+                   help="system performance, dB, for the link budget (default radar.system_performance_db)")
     add_executor_arguments(p)
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     _add_standard_arguments(p)

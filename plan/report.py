@@ -423,13 +423,42 @@ def _recovery_html(recovery: dict) -> str:
                                       _fmt(b.get("correlation"))) for b in bands]))
         if checker.get("caution"):
             parts.append(f"<p><strong>Caution.</strong> {escape(checker['caution'])}</p>")
+    parts.append(_recovery_by_work_html(recovery))
     voids = recovery.get("voids") or []
     if voids:
         parts.append(table_html(
-            ["fill", "depth (m)", "diameter (m)", "largest time change (ns)", "seen in data", "resolved"],
-            [(v.get("fill"), v.get("depth_m"), v.get("diameter_m"), _fmt(v.get("largest_time_change_ns")),
-              "yes" if v.get("seen_in_data") else "no", "yes" if v.get("resolved") else "no") for v in voids],
+            ["planned work", "fill", "depth (m)", "diameter (m)", "largest time change (ns)", "seen in data",
+             "resolved"],
+            [(v.get("work", ""), v.get("fill"), v.get("depth_m"), v.get("diameter_m"),
+              _fmt(v.get("largest_time_change_ns")), "yes" if v.get("seen_in_data") else "no",
+              "yes" if v.get("resolved") else "no") for v in voids],
             caption="Inserted voids"))
+    return "".join(parts)
+
+
+def _recovery_by_work_html(recovery: dict) -> str:
+    """The smallest void resolved at each planned work, by fill and depth, and the pairs used."""
+    parts = []
+    pairs = recovery.get("link_budget") or {}
+    if pairs.get("link_budget"):
+        parts.append(f"<p>The tests use the {escape(pairs.get('pairs_heard'))} pairs the link budget hears (of "
+                     f"{escape(pairs.get('pairs_within_range'))}); pick noise: {escape(pairs.get('noise'))}.</p>")
+    elif pairs:
+        parts.append(f"<p>The tests use every pair ({escape(pairs.get('pairs_heard'))}), with "
+                     f"{escape(pairs.get('noise'))}: the link budget was not applied.</p>")
+    places = recovery.get("smallest_resolved_void_by_work") or []
+    depths = (recovery.get("settings") or {}).get("depths_m") or []
+    if not places or not depths:
+        return "".join(parts)
+    rows = []
+    for place in places:
+        for fill, per_depth in (place.get("smallest_resolved_void_m") or {}).items():
+            rows.append([place.get("work"), fill]
+                        + [_fmt(per_depth.get(f"{d:g}")) if per_depth.get(f"{d:g}") is not None else "none"
+                           for d in depths])
+    parts.append(table_html(["planned work", "fill"] + [f"at {d:g} m depth (m)" for d in depths], rows,
+                            caption="Smallest void resolved at each planned work (diameter; none: no size "
+                                    "tested was resolved)"))
     return "".join(parts)
 
 

@@ -15,8 +15,11 @@ layout:
   checkerboard does not prove that larger structures are resolved, and a
   checkerboard tests the linear problem only.
 - **Voids**: a sphere of each diameter in ``void_sizes_m`` at each depth in
-  ``depths_m`` below the ground at the centre of the target volume, filled
-  with each of ``fills`` (air is fast; water and clay are slow). The data are
+  ``depths_m`` under each planned work (:func:`void_locations`: the area
+  centroid of a polygon, half-way along a polyline; the centre of the target
+  volume when the site has no planned works), filled with each of ``fills``
+  (air is fast; water and clay are slow). The smallest void resolved is
+  reported per work, fill and depth. The data are
   *first-arrival* time changes from our eikonal solver
   (:func:`reconstruct.forward.first_arrivals.first_arrival_times`): the times with
   the void minus the times without it, on the same grid, so that the
@@ -24,6 +27,11 @@ layout:
   voids but go round slow ones, so a slow void heals: it may change no time
   by more than the noise, and then no processing can show it. Noise is
   added and the change is inverted around the rock velocity.
+
+Only the pairs the link budget hears (:mod:`plan.radio.link_budget`) take
+part, and each pair's pick noise grows as its margin falls
+(:func:`weak_signal_noise_ns`); ``link_budget=False`` uses every pair with
+the same noise.
 
 The voids are inverted with the smoothing weight the discrepancy principle
 chose for the checkerboard (same layout and noise), one solve each.
@@ -39,7 +47,7 @@ of its centre (the inversion puts it in the right place). The recovered
 amplitude of an air void is always far below the true one (smoothing, and
 straight rays in the inversion while first arrivals bend); it is reported. A void counts as
 *seen in the data* when at least one pair's first arrival changes by more
-than twice the noise.
+than twice that pair's pick noise.
 
 Run time is held down by working on a coarser copy of the model grid: the
 smallest whole multiple of the model cell that keeps the ground cells at or

@@ -73,11 +73,10 @@ def _cmd_simulate(args) -> int:
                             progress=say)
     missed_note = ""
     if args.link_budget:
-        from plan.radio.link_budget import antenna_axes, link_budget_for_site, pair_links
+        from plan.radio.link_budget import link_budget_for_site, site_pair_links
         from plan.synthetic.simulate import drop_missed_picks
 
-        links = pair_links(site, link_budget_for_site(site), nodes.xyz_m, antenna_axes(site, nodes),
-                           survey.tx, survey.rx)
+        links = site_pair_links(site, link_budget_for_site(site), nodes, survey.tx, survey.rx)
         survey, missed = drop_missed_picks(survey, links.margin_db, fade_sigma_db=args.fade_sigma,
                                            seed=truth.seed)
         missed_note = f"; {int(missed.sum())} picks missed below the link budget"
@@ -264,7 +263,19 @@ def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
         print(f"link range: {lb['computed_range_m']:.1f} m by the link budget "
               f"({lb['attenuation_db_per_m']:.3f} dB/m exact, {lb['attenuation_low_loss_db_per_m']:.3f} dB/m "
               f"low-loss form); rule of thumb {lo:.1f} to {hi:.1f} m (10 to 15 wavelengths in resistive rock)")
+        _print_range_check(summary)
     return pairs, written
+
+
+def _print_range_check(summary):
+    """The heard lengths against the rule of thumb 35 / conductivity, and its warning."""
+    check, lengths = summary["range_check"], summary["pairs"]["heard_length_m_percentiles"]
+    if lengths is not None and check["rule_range_m"] is not None:
+        print(f"heard pairs: median {lengths['50']:.1f} m, 95th percentile {lengths['95']:.1f} m long; "
+              f"{check['heard_beyond_rule']} ({100 * check['share_of_heard_beyond_rule']:.0f} %) longer than "
+              f"the {check['rule_range_m']:.0f} m of the rule of thumb 35 / conductivity (from memory)")
+    if check["warning"]:
+        print(f"WARNING: {check['warning']}")
 
 
 def _run_mesh(site, nodes, args, out: Path, *, write=True):
@@ -438,12 +449,14 @@ def _cmd_recover(args) -> int:
     standard = _standard_from(args)
     options = RecoveryOptions(void_sizes_m=args.void_sizes or (), depths_m=args.depths or (),
                               fills=tuple(args.fills.split(",")), noise_sigma_ns=args.noise,
-                              max_cells=args.max_cells, checker_size_m=args.checker_size, seed=args.seed)
+                              max_cells=args.max_cells, checker_size_m=args.checker_size, seed=args.seed,
+                              link_budget=not args.every_pair, noise_reference_margin_db=args.noise_reference_margin,
+                              system_performance_db=args.system_performance)
     site = load_site(args.site)
     nodes = read_nodes(args.nodes)
     executor = executor_from_args(args)
     result = run_recovery_tests(site, nodes, standard, options, executor=executor, progress=say)
-    columns = ["fill", "velocity_m_per_ns", "depth_m", "diameter_m", "largest_time_change_ns",
+    columns = ["work", "fill", "velocity_m_per_ns", "depth_m", "diameter_m", "largest_time_change_ns",
                "pairs_changed_beyond_2_sigma", "seen_in_data", "recovered_change_m_per_ns",
                "true_cell_change_m_per_ns", "background_spread_m_per_ns", "strongest_anomaly_distance_m",
                "resolved", "note"]
@@ -455,7 +468,10 @@ def _cmd_recover(args) -> int:
     _write_manifest(out, "voidcube plan recover", {"site": args.site, "nodes": args.nodes}, args, written, started)
     c = result.checkerboard
     corr = "n/a" if c["correlation"] is None else f"{c['correlation']:.3f}"
-    print(f"recovery grid: cells of {result.grid.cell_m[0]:g} m; {result.n_pairs:,} pairs")
+    pairs = result.pairs
+    print(f"recovery grid: cells of {result.grid.cell_m[0]:g} m; {result.n_pairs:,} pairs"
+          + (f" heard by the link budget (of {pairs['pairs_within_range']:,}); pick noise {pairs['noise']}"
+             if pairs.get("link_budget") else " (every pair, --every-pair)"))
     print(f"checkerboard ({c['cube_m']:g} m cubes): correlation {corr}")
     for statement in result.statements:
         print(statement)
@@ -735,9 +751,10 @@ def _add_assess_parsers(sub):
     p = sub.add_parser(
         "recover", help="checkerboard and void recovery tests of a layout with the real inversion",
         description="Invert synthetic data of a checkerboard and of voids (air, water or clay) of chosen "
-                    "sizes at chosen depths under the planned works, on a coarser copy of the model grid; "
-                    "report the smallest void resolved at each depth and the voids no first arrival can "
-                    "show. Writes recovery_summary.json, recovery.csv and manifest.json into OUT.",
+                    "sizes at chosen depths under each planned work, on a coarser copy of the model grid, "
+                    "with the pairs the link budget hears and pick noise that grows as their signal weakens; "
+                    "report the smallest void resolved at each work and depth and the voids no first arrival "
+                    "can show. Writes recovery_summary.json, recovery.csv and manifest.json into OUT.",
         epilog=_UNITS)
     p.add_argument("--site", required=True, metavar="FILE", help="site description (YAML)")
     p.add_argument("--nodes", required=True, help="node table (CSV) of the layout")
@@ -755,6 +772,14 @@ def _add_assess_parsers(sub):
     p.add_argument("--checker-size", type=float, default=None, metavar="M",
                    help="checkerboard cube edge, metres (default 4 recovery cells)")
     p.add_argument("--seed", type=int, default=0, help="seed of the noise (default 0)")
+    p.add_argument("--noise-reference-margin", type=float, default=20.0, metavar="DB",
+                   help="link margin, dB, from which picks have the --noise figure; weaker pairs get noise "
+                        "growing as 10^((DB - margin) / 20), at most a quarter period (default 20)")
+    p.add_argument("--every-pair", action="store_true",
+                   help="test with every pair within --max-distance and --noise on every pick (default: only "
+                        "the pairs the link budget hears, noisier as their margin falls)")
+    p.add_argument("--system-performance", type=float, default=None, metavar="DB",
+                   help="system performance, dB, for the link budget (default radar.system_performance_db)")
     add_executor_arguments(p)
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     _add_standard_arguments(p)

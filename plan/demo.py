@@ -219,6 +219,8 @@ def _plan_layout(site, settings: ChainSettings, plan_dir: Path, say):
     warning = air_wave_warning(summary)
     if warning:
         say(f"WARNING: {warning}")
+    if summary["range_check"]["warning"]:
+        say(f"WARNING: {summary['range_check']['warning']}")
     mesh = None
     if site.radio.gateway_m is not None:
         mesh = build_radio_mesh(site, nodes)

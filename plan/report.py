@@ -54,6 +54,8 @@ PAIR_GRAPH_LABELS = {
     "pairs.margin_db_percentiles.50": "link margin of the heard pairs, median (dB)",
     "pairs.margin_db_percentiles.95": "link margin of the heard pairs, 95th percentile (dB)",
     "pairs.longest_heard_m": "longest heard pair (m)",
+    "pairs.heard_length_m_percentiles.50": "length of the heard pairs, median (m)",
+    "pairs.heard_length_m_percentiles.95": "length of the heard pairs, 95th percentile (m)",
     "degree.min": "fewest nodes heard by one node",
     "degree.mean": "nodes heard by one node, mean",
     "degree.median": "nodes heard by one node, median",
@@ -71,6 +73,15 @@ PAIR_GRAPH_LABELS = {
     "link_budget.computed_range_m": "range by the link budget (m)",
     "link_budget.rule_of_thumb_range_m": "range by the rule of thumb, shortest and longest (m)",
     "link_budget.rule_of_thumb_note": "rule of thumb",
+    "link_budget.near_surface_loss_db": "loss at each surface or face node (dB)",
+    "link_budget.refractive_index": "refractive index of the rock (c / v)",
+    "link_budget.conductivity_rule_range_m": "range by the rule of thumb 35 / conductivity (m)",
+    "link_budget.antennas": "antennas",
+    "range_check.rule_range_m": "range by the rule of thumb 35 / conductivity (m)",
+    "range_check.heard_beyond_rule": "heard pairs longer than that range",
+    "range_check.share_of_heard_beyond_rule": ("share of the heard pairs longer than that range (%)", _PERCENT),
+    "range_check.warning": "warning",
+    "range_check.note": "rule of thumb, 35 / conductivity",
 }
 #: Words, with units, for the figures of ``mesh_summary.json``.
 MESH_LABELS = {
@@ -160,7 +171,8 @@ OTHER_SUMMARIES = (
 PAIRS_CSV_WORDS = {
     "node_a": "node A", "node_b": "node B", "distance_m": "distance (m)", "margin_db": "link margin (dB)",
     "heard": "heard", "spreading_db": "spreading loss (dB)", "attenuation_db": "loss in the rock (dB)",
-    "pattern_db": "antenna pattern loss (dB)", "crossing_db": "air-ground crossing loss (dB)",
+    "pattern_db": "antenna pattern loss (dB)", "near_surface_db": "near-surface loss (dB)",
+    "crossing_db": "air-ground crossing loss (dB)",
     "air_length_m": "straight line in the air (m)", "crossings": "air-ground crossings",
     "air_wave_first": "air wave first", "air_flag": "first arrival may be the air wave",
     "azimuth_deg": "azimuth (degrees)", "inclination_deg": "inclination (degrees)",
@@ -385,6 +397,15 @@ def _key_value_table(data, caption, labels):
     return table_html(["figure", "value"], summary_rows(data, labels), caption=caption)
 
 
+def _range_warning_html(pairs_summary) -> str:
+    """The warning of the range check of ``pairs_summary.json``, when it has one."""
+    check = pairs_summary.get("range_check") if isinstance(pairs_summary, dict) else None
+    if not isinstance(check, dict) or not check.get("warning"):
+        return ""
+    return ('<div class="cautions"><h2>Warning: pairs beyond the rule of thumb</h2>'
+            f"<p>{escape(check['warning'])}.</p><p>{escape(check.get('note') or '')}.</p></div>")
+
+
 def _recovery_html(recovery: dict) -> str:
     parts = ["<h2>Recovery tests</h2>"]
     statements = recovery.get("statements") or []
@@ -402,13 +423,42 @@ def _recovery_html(recovery: dict) -> str:
                                       _fmt(b.get("correlation"))) for b in bands]))
         if checker.get("caution"):
             parts.append(f"<p><strong>Caution.</strong> {escape(checker['caution'])}</p>")
+    parts.append(_recovery_by_work_html(recovery))
     voids = recovery.get("voids") or []
     if voids:
         parts.append(table_html(
-            ["fill", "depth (m)", "diameter (m)", "largest time change (ns)", "seen in data", "resolved"],
-            [(v.get("fill"), v.get("depth_m"), v.get("diameter_m"), _fmt(v.get("largest_time_change_ns")),
-              "yes" if v.get("seen_in_data") else "no", "yes" if v.get("resolved") else "no") for v in voids],
+            ["planned work", "fill", "depth (m)", "diameter (m)", "largest time change (ns)", "seen in data",
+             "resolved"],
+            [(v.get("work", ""), v.get("fill"), v.get("depth_m"), v.get("diameter_m"),
+              _fmt(v.get("largest_time_change_ns")), "yes" if v.get("seen_in_data") else "no",
+              "yes" if v.get("resolved") else "no") for v in voids],
             caption="Inserted voids"))
+    return "".join(parts)
+
+
+def _recovery_by_work_html(recovery: dict) -> str:
+    """The smallest void resolved at each planned work, by fill and depth, and the pairs used."""
+    parts = []
+    pairs = recovery.get("link_budget") or {}
+    if pairs.get("link_budget"):
+        parts.append(f"<p>The tests use the {escape(pairs.get('pairs_heard'))} pairs the link budget hears (of "
+                     f"{escape(pairs.get('pairs_within_range'))}); pick noise: {escape(pairs.get('noise'))}.</p>")
+    elif pairs:
+        parts.append(f"<p>The tests use every pair ({escape(pairs.get('pairs_heard'))}), with "
+                     f"{escape(pairs.get('noise'))}: the link budget was not applied.</p>")
+    places = recovery.get("smallest_resolved_void_by_work") or []
+    depths = (recovery.get("settings") or {}).get("depths_m") or []
+    if not places or not depths:
+        return "".join(parts)
+    rows = []
+    for place in places:
+        for fill, per_depth in (place.get("smallest_resolved_void_m") or {}).items():
+            rows.append([place.get("work"), fill]
+                        + [_fmt(per_depth.get(f"{d:g}")) if per_depth.get(f"{d:g}") is not None else "none"
+                           for d in depths])
+    parts.append(table_html(["planned work", "fill"] + [f"at {d:g} m depth (m)" for d in depths], rows,
+                            caption="Smallest void resolved at each planned work (diameter; none: no size "
+                                    "tested was resolved)"))
     return "".join(parts)
 
 
@@ -610,6 +660,7 @@ def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> t
         if path.is_file():
             data, problem = _read_json(path)
             body.append(f"<h2>{escape(title)}</h2>")
+            body.append(_range_warning_html(data) if name == "pairs_summary.json" else "")
             body.append(_key_value_table(data, f"from {name}", labels) if data is not None
                         else f"<p>{escape(problem)}</p>")
             used.append(name)

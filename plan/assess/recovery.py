@@ -15,8 +15,11 @@ layout:
   checkerboard does not prove that larger structures are resolved, and a
   checkerboard tests the linear problem only.
 - **Voids**: a sphere of each diameter in ``void_sizes_m`` at each depth in
-  ``depths_m`` below the ground at the centre of the target volume, filled
-  with each of ``fills`` (air is fast; water and clay are slow). The data are
+  ``depths_m`` under each planned work (:func:`void_locations`: the area
+  centroid of a polygon, half-way along a polyline; the centre of the target
+  volume when the site has no planned works), filled with each of ``fills``
+  (air is fast; water and clay are slow). The smallest void resolved is
+  reported per work, fill and depth. The data are
   *first-arrival* time changes from our eikonal solver
   (:func:`reconstruct.forward.first_arrivals.first_arrival_times`): the times with
   the void minus the times without it, on the same grid, so that the
@@ -24,6 +27,11 @@ layout:
   voids but go round slow ones, so a slow void heals: it may change no time
   by more than the noise, and then no processing can show it. Noise is
   added and the change is inverted around the rock velocity.
+
+Only the pairs the link budget hears (:mod:`plan.radio.link_budget`) take
+part, and each pair's pick noise grows as its margin falls
+(:func:`weak_signal_noise_ns`); ``link_budget=False`` uses every pair with
+the same noise.
 
 The voids are inverted with the smoothing weight the discrepancy principle
 chose for the checkerboard (same layout and noise), one solve each.
@@ -39,7 +47,7 @@ of its centre (the inversion puts it in the right place). The recovered
 amplitude of an air void is always far below the true one (smoothing, and
 straight rays in the inversion while first arrivals bend); it is reported. A void counts as
 *seen in the data* when at least one pair's first arrival changes by more
-than twice the noise.
+than twice that pair's pick noise.
 
 Run time is held down by working on a coarser copy of the model grid: the
 smallest whole multiple of the model cell that keeps the ground cells at or
@@ -84,10 +92,12 @@ from reconstruct.forward.straight_rays import straight_ray_matrix
 from reconstruct.io.tables import Nodes
 
 from plan.assess.coverage import CoverageStandard, target_mask
+from plan.radio.link_budget import link_budget_for_site, site_pair_links
 from plan.synthetic.simulate import all_pairs, refined_grid
 from plan.synthetic.truth import FILL_VELOCITY_M_PER_NS, Body
 
-__all__ = ["RecoveryOptions", "RecoveryResult", "recovery_grid", "run_recovery_tests"]
+__all__ = ["RecoveryOptions", "RecoveryResult", "recovery_grid", "run_recovery_tests", "box_elevation",
+           "weak_signal_noise_ns", "void_locations"]
 
 _SUBSAMPLES = 4  # points per cell and axis for the partial volume of a void
 # no refined local solve around each source: ten times faster, and the time
@@ -123,6 +133,16 @@ class RecoveryOptions:
         that a section would show (default 0.01, i.e. 1 %).
     seed : int
         Seed of the noise (default 0).
+    link_budget : bool
+        Keep only the pairs the link budget hears and let the pick noise grow
+        as their margin falls (:func:`weak_signal_noise_ns`); default True.
+        False: every pair within the standard's ``max_distance_m``, with
+        ``noise_sigma_ns`` on every pick.
+    noise_reference_margin_db : float
+        Link margin in dB at and above which a pick has ``noise_sigma_ns``
+        (default 20 dB).
+    system_performance_db : float or None
+        Overrides ``site.radar.system_performance_db``.
     """
 
     void_sizes_m: tuple = ()
@@ -134,6 +154,9 @@ class RecoveryOptions:
     checker_contrast: float = 0.05
     min_visible_change: float = 0.01
     seed: int = 0
+    link_budget: bool = True
+    noise_reference_margin_db: float = 20.0
+    system_performance_db: float | None = None
 
     def __post_init__(self):
         problems = []
@@ -165,6 +188,9 @@ class RecoveryOptions:
             problems.append(f"checker_size_m must be > 0 metres (got {self.checker_size_m!r})")
         if not is_whole_number(self.max_cells, 100):
             problems.append(f"max_cells must be a whole number >= 100 (got {self.max_cells!r})")
+        ref = self.noise_reference_margin_db
+        if not (isinstance(ref, (int, float)) and math.isfinite(ref) and ref >= 0):
+            problems.append(f"noise_reference_margin_db must be a number >= 0 in dB (got {ref!r})")
         if not is_whole_number(self.seed, 0):
             problems.append(f"seed must be a whole number >= 0 (got {self.seed!r})")
         if problems:
@@ -178,20 +204,44 @@ class RecoveryResult:
     n_pairs: int
     checkerboard: dict
     voids: tuple
-    smallest_resolved_m: dict  # fill -> {depth: diameter or None}
+    smallest_resolved_m: dict  # fill -> {depth: diameter resolved at every place, or None}
     statements: tuple
     settings: dict = field(default_factory=dict)
+    by_work: tuple = ()  # per place: work, kind, plan_m, level_m, smallest_resolved_void_m
+    pairs: dict = field(default_factory=dict)  # the pairs kept by the link budget and their noise
 
     def summary(self) -> dict:
         return {
             "recovery_grid": {"cell_m": list(self.grid.cell_m), "shape": list(self.grid.shape),
                               "origin_m": list(self.grid.origin_m)},
             "nodes": self.n_nodes, "pairs": self.n_pairs, "settings": self.settings,
+            "link_budget": self.pairs,
             "checkerboard": self.checkerboard,
             "voids": list(self.voids),
             "smallest_resolved_void_m": self.smallest_resolved_m,
+            "smallest_resolved_void_by_work": list(self.by_work),
             "statements": list(self.statements),
         }
+
+
+def box_elevation(site: Site):
+    """The site's ground elevation with plan positions held inside the model box.
+
+    A coarse recovery grid may reach past the box by part of a cell (its cell
+    count is rounded up); its last cells' centres then fall on or past the
+    box's edge, where the ground may be undefined. They take the ground at the
+    nearest point of the box instead, so that nodes on the box's edge keep
+    ground cells under them.
+    """
+    lo = np.asarray(site.model.origin_m[:2], dtype=float)
+    hi = lo + np.asarray(site.model.size_m[:2], dtype=float)
+    inset = 1e-6 * max(1.0, float(np.max(hi - lo)))
+
+    def elevation(x_m, y_m):
+        return site.ground.elevation_m(np.clip(x_m, lo[0] + inset, hi[0] - inset),
+                                       np.clip(y_m, lo[1] + inset, hi[1] - inset))
+
+    return elevation
 
 
 def recovery_grid(site: Site, max_cells: int):
@@ -202,10 +252,49 @@ def recovery_grid(site: Site, max_cells: int):
         cell = tuple(c * factor for c in site.model.cell_m) if isinstance(site.model.cell_m, tuple) \
             else site.model.cell_m * factor
         grid = Grid.from_box(site.model.origin_m, site.model.size_m, cell)
-        ground = ground_mask(grid, site.ground.elevation_m)
+        ground = ground_mask(grid, box_elevation(site))
         if int(ground.sum()) <= max_cells or min(grid.shape) <= 2:
             return grid, ground, factor
         factor += 1
+
+
+def weak_signal_noise_ns(margin_db, sigma_ns: float, reference_margin_db: float, cap_ns: float):
+    """Pick noise that grows as the signal weakens, ns.
+
+    ``sigma = sigma_ns * 10^((reference_margin_db - margin_db) / 20)`` below
+    the reference margin, ``sigma_ns`` at and above it, at most ``cap_ns``.
+
+    Parameters
+    ----------
+    margin_db : array
+        Link margin of each pick's pair, dB (the signal above the smallest
+        pickable one).
+    sigma_ns : float
+        Pick noise of strong signals, ns.
+    reference_margin_db : float
+        Margin from which a signal counts as strong, dB.
+    cap_ns : float
+        Largest noise, ns (the recovery tests use a quarter of the antenna
+        period: beyond it a picker jumps cycles, which Gaussian noise does not
+        describe).
+
+    Notes
+    -----
+    The accuracy of a time-delay measurement is inversely proportional to
+    the amplitude signal-to-noise ratio, ``delta_T = 1 / (B sqrt(2 E / N0))``
+    (Skolnik 2001, from memory); the margin stands for the signal-to-noise
+    ratio in dB less a constant, hence the factor ``10^(-margin / 20)``. The
+    reference margin and the cap are choices of this module, stated in the
+    results.
+
+    References
+    ----------
+    Skolnik, M. I. (2001). Introduction to Radar Systems, 3rd ed.,
+        McGraw-Hill, chapter 6 (accuracy of range measurement; from memory).
+    """
+    margin = np.asarray(margin_db, dtype=float)
+    grow = 10.0 ** (np.maximum(reference_margin_db - margin, 0.0) / 20.0)
+    return np.minimum(sigma_ns * grow, max(cap_ns, sigma_ns))
 
 
 def _body_fraction(grid: Grid, body: Body) -> np.ndarray:
@@ -278,13 +367,17 @@ def run_recovery_tests(
     depths = options.depths_m or tuple(round(standard.depth_of_interest_m * f, 2) for f in (0.25, 0.5, 0.75))
     sizes = options.void_sizes_m or tuple(round(layout.cell * f, 2) for f in (1.5, 3.0, 5.0))
     checker, smoothing = _checkerboard_test(layout, depths, say)
-    voids, void_centre = _void_tests(layout, executor or Executor(kind="serial"), depths, sizes, smoothing, say)
-    smallest, statements = _statements(voids, options, depths, sizes, layout.rock_v)
+    voids, places = _void_tests(layout, executor or Executor(kind="serial"), depths, sizes, smoothing, say)
+    by_work, statements = _statements(voids, places, options, depths, sizes, layout)
     settings = {
         "recovery_cell_m": layout.cell, "model_cells_per_recovery_cell": layout.factor,
         "void_sizes_m": list(sizes), "depths_m": list(depths), "fills": list(options.fills),
         "noise_sigma_ns": options.noise_sigma_ns, "min_visible_change": options.min_visible_change,
-        "void_centre_plan_m": void_centre[:2], "ground_at_void_m": void_centre[2], "seed": options.seed,
+        "noise_reference_margin_db": options.noise_reference_margin_db,
+        "void_places": ("one per planned work (area centroid of a polygon, half-way along a polyline), depths "
+                        "below the lower of the ground and the work; the centre of the target volume without "
+                        "planned works"),
+        "seed": options.seed,
         "inversion": ("straight rays, clock time-zero terms, both directions of every pair; smoothing "
                       "chosen by the discrepancy principle (chi^2 = N) on the checkerboard data and kept "
                       "for the voids"),
@@ -292,8 +385,9 @@ def run_recovery_tests(
         "void_data": "first-arrival time changes from the eikonal solver, pairs passing near the void",
     }
     return RecoveryResult(grid=layout.grid, n_nodes=len(layout.xyz), n_pairs=int(layout.a.size),
-                          checkerboard=checker, voids=tuple(voids), smallest_resolved_m=smallest,
-                          statements=tuple(statements), settings=settings)
+                          checkerboard=checker, voids=tuple(voids), smallest_resolved_m=_at_every_place(by_work),
+                          statements=tuple(statements), settings=settings, by_work=tuple(by_work),
+                          pairs=layout.pairs_note)
 
 
 @dataclass
@@ -315,6 +409,8 @@ class _RecoveryLayout:
     operator: sp.csr_matrix  # straight rays, both directions of every pair
     problem: InverseProblem
     rng: np.random.Generator
+    sigma_ns: np.ndarray  # pick noise of every pair, ns
+    pairs_note: dict  # the pairs kept and their noise, for the results
 
     @property
     def cell(self) -> float:
@@ -335,6 +431,7 @@ class _RecoveryLayout:
         a, b = a[keep], b[keep]
         if a.size == 0:
             raise InputError("recovery tests need at least two nodes at different positions")
+        a, b, sigma, pairs_note = _heard_pairs_and_noise(site, nodes, a, b, options, say)
         say(f"recovery grid: {grid.shape[0]} x {grid.shape[1]} x {grid.shape[2]} cells of "
             f"{float(max(grid.cell_m)):g} m ({factor} model cells), {int(ground.sum()):,} ground cells; "
             f"{a.size:,} pairs")
@@ -346,20 +443,20 @@ class _RecoveryLayout:
         # separate node clock offsets from the rock (one-way picks let them absorb a void)
         problem = build_inverse_problem(
             grid, ground, site.rock.velocity_m_per_ns, np.zeros(2 * a.size), np.concatenate([a, b]),
-            np.concatenate([b, a]), len(xyz), sigma_ns=np.full(2 * a.size, options.noise_sigma_ns),
+            np.concatenate([b, a]), len(xyz), sigma_ns=np.concatenate([sigma, sigma]),
             options=InversionOptions())
         # the recovery grid is already held under max_cells: lambda is searched on it directly
         problem = replace(problem, coarse=None)
         return cls(site=site, standard=standard, options=options, grid=grid, ground=ground, factor=factor,
                    xyz=xyz, a=a, b=b, crossed=crossed, target=target, operator=sp.vstack([G, G], format="csr"),
-                   problem=problem, rng=rng)
+                   problem=problem, rng=rng, sigma_ns=sigma, pairs_note=pairs_note)
 
     def invert(self, delta_t, smoothing=None):
         """Velocity change recovered from the time changes ``delta_t`` (one per pair,
         both directions) plus noise, and the inversion result."""
         reference = self.problem.reference_slowness_ns_per_m
         data = self.operator @ reference + np.concatenate([delta_t, delta_t])
-        data = data + self.rng.normal(0.0, self.options.noise_sigma_ns, data.size)
+        data = data + self.rng.normal(0.0, 1.0, data.size) * np.concatenate([self.sigma_ns, self.sigma_ns])
         posed = self.problem.with_times(data)
         if smoothing is not None:
             posed = replace(posed, options=replace(posed.options, smoothing=smoothing))
@@ -371,6 +468,34 @@ class _RecoveryLayout:
         return top, top[:, :, None] - self.grid.centres_m(2)[None, None, :]
 
 
+def _heard_pairs_and_noise(site, nodes, a, b, options: RecoveryOptions, say):
+    """The pairs the link budget hears and their pick noise (:func:`weak_signal_noise_ns`);
+    every pair with the same noise when ``options.link_budget`` is off."""
+    if not options.link_budget:
+        note = {"link_budget": False, "pairs_within_range": int(a.size), "pairs_heard": int(a.size),
+                "noise": f"{options.noise_sigma_ns:g} ns on every pick"}
+        return a, b, np.full(a.size, options.noise_sigma_ns), note
+    budget = link_budget_for_site(site, system_performance_db=options.system_performance_db)
+    links = site_pair_links(site, budget, nodes, a, b)
+    heard = links.heard
+    if int(heard.sum()) == 0:
+        raise InputError("recovery tests: the link budget hears no pair of this layout; place the nodes closer "
+                         "together, check radar.system_performance_db, or test every pair with --every-pair")
+    cap = 0.25 * 1000.0 / site.rock.antenna_frequency_mhz  # a quarter period, ns
+    sigma = weak_signal_noise_ns(links.margin_db[heard], options.noise_sigma_ns,
+                                 options.noise_reference_margin_db, cap)
+    note = {
+        "link_budget": True, "pairs_within_range": int(a.size), "pairs_heard": int(heard.sum()),
+        "noise_ns_percentiles": {str(p): float(np.percentile(sigma, p)) for p in (5, 50, 95)},
+        "noise": (f"{options.noise_sigma_ns:g} ns at a link margin of {options.noise_reference_margin_db:g} dB "
+                  "or more, growing as 10^((reference - margin) / 20) below it (amplitude signal-to-noise; "
+                  f"Skolnik 2001), at most a quarter period ({cap:g} ns)"),
+    }
+    say(f"link budget: {note['pairs_heard']:,} of {a.size:,} pairs heard; pick noise median "
+        f"{note['noise_ns_percentiles']['50']:.2f} ns, 95th percentile {note['noise_ns_percentiles']['95']:.2f} ns")
+    return a[heard], b[heard], sigma, note
+
+
 def _checkerboard_test(layout: _RecoveryLayout, depths, say):
     """Checkerboard: straight-ray times on a grid twice as fine, linear in the slowness
     change; returns the summary and the smoothing the discrepancy principle chose."""
@@ -378,7 +503,7 @@ def _checkerboard_test(layout: _RecoveryLayout, depths, say):
     rock_s = 1.0 / layout.rock_v
     size_m = options.checker_size_m or 4.0 * layout.cell
     fine = refined_grid(grid, 2)
-    fine_ground = ground_mask(fine, layout.site.ground.elevation_m)
+    fine_ground = ground_mask(fine, box_elevation(layout.site))
     pattern_fine = _checkerboard(fine, fine_ground, rock_s, size_m, options.checker_contrast)
     say(f"checkerboard of {size_m:g} m cubes, +/-{100 * options.checker_contrast:g} % velocity")
     delta_t = straight_ray_matrix(fine, layout.xyz[layout.a], layout.xyz[layout.b]) @ pattern_fine.ravel()
@@ -422,7 +547,7 @@ class _VoidTimes:
     def forward_grid(self, refine):
         if refine not in self.forward_grids:
             fine_v = refined_grid(self.layout.grid, refine)
-            fine_ground_v = ground_mask(fine_v, self.layout.site.ground.elevation_m)
+            fine_ground_v = ground_mask(fine_v, box_elevation(self.layout.site))
             self.forward_grids = {refine: (fine_v, fine_ground_v, reference_slowness(fine_ground_v,
                                                                                      self.layout.rock_v))}
             self.background.clear()
@@ -451,34 +576,90 @@ class _VoidTimes:
         return delta, near
 
 
+def void_locations(site: Site, grid: Grid, ground: np.ndarray, target: np.ndarray) -> list[dict]:
+    """Where the test voids go: one place per planned work, else the centre of the target volume.
+
+    A polygon work (a blast pattern, a bench) gives its area centroid, a
+    polyline (a haul road) the point half-way along it. The voids' depths are
+    counted from the lower of the ground top there and the work's lowest
+    point (as the target volume's). Returns dicts with ``work``, ``kind``,
+    ``plan_m`` (x, y) and ``level_m``; places outside the model's ground are
+    left out.
+    """
+    top = ground_top_m(grid, ground)
+    places = []
+    for work in site.planned_works:
+        pts = np.asarray(work.points_m, dtype=float)
+        x, y = (_polygon_centroid(pts[:, :2]) if work.geometry == "polygon" and len(pts) >= 3
+                else _halfway_along(pts[:, :2]))
+        places.append({"work": work.name, "kind": work.kind, "plan_m": [float(x), float(y)],
+                       "work_level_m": float(pts[:, 2].min())})
+    if not places:
+        columns = np.argwhere(target.any(axis=2))
+        if columns.size == 0:
+            raise InputError("the target volume holds no ground cell; check the planned works and depth of "
+                             "interest")
+        places.append({"work": "centre of the target volume", "kind": None,
+                       "plan_m": [float(np.mean(grid.centres_m(0)[columns[:, 0]])),
+                                  float(np.mean(grid.centres_m(1)[columns[:, 1]]))], "work_level_m": np.inf})
+    located = []
+    for place in places:
+        x, y = place.pop("plan_m")
+        ic = grid.cell_index([[x, y, grid.origin_m[2]]])[0]
+        inside = all(0 <= ic[k] < grid.shape[k] for k in (0, 1))
+        z_top = float(top[ic[0], ic[1]]) if inside else math.nan
+        if not math.isfinite(z_top):
+            continue
+        level = min(z_top, place.pop("work_level_m"))
+        located.append({**place, "plan_m": [x, y], "level_m": level})
+    if not located:
+        raise InputError("no planned work lies over ground of the model box; check planned_works in the site")
+    return located
+
+
+def _polygon_centroid(xy):
+    x, y = xy[:, 0], xy[:, 1]
+    cross = x * np.roll(y, -1) - np.roll(x, -1) * y
+    area = cross.sum() / 2.0
+    if abs(area) < 1e-12:
+        return xy.mean(axis=0)
+    return ((x + np.roll(x, -1)) * cross).sum() / (6 * area), ((y + np.roll(y, -1)) * cross).sum() / (6 * area)
+
+
+def _halfway_along(xy):
+    steps = np.linalg.norm(np.diff(xy, axis=0), axis=1)
+    if steps.sum() == 0:
+        return xy[0]
+    along = np.concatenate([[0.0], np.cumsum(steps)])
+    half = along[-1] / 2.0
+    k = min(int(np.searchsorted(along, half, side="right")) - 1, len(steps) - 1)
+    t = (half - along[k]) / steps[k] if steps[k] > 0 else 0.0
+    return xy[k] + t * (xy[k + 1] - xy[k])
+
+
 def _void_tests(layout: _RecoveryLayout, executor, depths, sizes, smoothing, say):
-    """Voids at the centre of the target volume in plan, one per fill, depth and size;
-    returns the entries and the void centre in plan with the ground elevation there."""
-    grid = layout.grid
-    columns = np.argwhere(layout.target.any(axis=2))
-    if columns.size == 0:
-        raise InputError("the target volume holds no ground cell; check the planned works and depth of interest")
-    cx = float(np.mean(grid.centres_m(0)[columns[:, 0]]))
-    cy = float(np.mean(grid.centres_m(1)[columns[:, 1]]))
-    ic = grid.cell_index([[cx, cy, grid.origin_m[2]]])[0]
-    top, _ = layout.depth_below_ground()
-    z_top = float(top[ic[0], ic[1]])
+    """Voids at each planned work (:func:`void_locations`), one per fill, depth and size;
+    returns the entries and the places."""
+    places = void_locations(layout.site, layout.grid, layout.ground, layout.target)
     times = _VoidTimes(layout, executor)
     voids = []
-    total = len(layout.options.fills) * len(depths) * len(sizes)
-    for fill in layout.options.fills:
-        for depth in depths:
-            for diameter in sizes:
-                body = Body(name=f"{fill} {diameter:g} m at {depth:g} m", shape="ellipsoid",
-                            centre_m=(cx, cy, z_top - depth), half_size_m=(diameter / 2,) * 3, fill=fill,
-                            velocity_m_per_ns=FILL_VELOCITY_M_PER_NS[fill])
-                entry = _void_test(layout, times, body, fill, depth, diameter, smoothing)
-                voids.append(entry)
-                if "largest_time_change_ns" in entry:
-                    say(f"void {len(voids)}/{total}: {body.name}: largest time change "
-                        f"{entry['largest_time_change_ns']:.2f} ns, "
-                        f"{'resolved' if entry['resolved'] else 'not resolved'}")
-    return voids, [cx, cy, z_top]
+    total = len(places) * len(layout.options.fills) * len(depths) * len(sizes)
+    for place in places:
+        cx, cy = place["plan_m"]
+        for fill in layout.options.fills:
+            for depth in depths:
+                for diameter in sizes:
+                    body = Body(name=f"{fill} {diameter:g} m at {depth:g} m", shape="ellipsoid",
+                                centre_m=(cx, cy, place["level_m"] - depth), half_size_m=(diameter / 2,) * 3,
+                                fill=fill, velocity_m_per_ns=FILL_VELOCITY_M_PER_NS[fill])
+                    entry = {"work": place["work"], **_void_test(layout, times, body, fill, depth, diameter,
+                                                                 smoothing)}
+                    voids.append(entry)
+                    if "largest_time_change_ns" in entry:
+                        say(f"void {len(voids)}/{total} ({place['work']}): {body.name}: largest time change "
+                            f"{entry['largest_time_change_ns']:.2f} ns, "
+                            f"{'resolved' if entry['resolved'] else 'not resolved'}")
+    return voids, places
 
 
 def _void_test(layout: _RecoveryLayout, times: _VoidTimes, body, fill, depth, diameter, smoothing) -> dict:
@@ -526,43 +707,66 @@ def _void_test(layout: _RecoveryLayout, times: _VoidTimes, body, fill, depth, di
                 and abs(got) >= layout.options.min_visible_change * layout.rock_v
                 and peak_distance <= diameter / 2 + cell)
     largest = float(np.max(np.abs(delta)))
-    noise = layout.options.noise_sigma_ns
+    beyond = np.abs(delta) > 2 * layout.sigma_ns
     entry.update(
         recovered_change_m_per_ns=got, true_cell_change_m_per_ns=want,
         background_spread_m_per_ns=spread, strongest_anomaly_distance_m=peak_distance,
         resolved=bool(resolved),
         largest_time_change_ns=largest,
-        pairs_changed_beyond_2_sigma=int(np.sum(np.abs(delta) > 2 * noise)),
-        seen_in_data=bool(largest > 2 * noise), pairs_near=int(near.size),
+        pairs_changed_beyond_2_sigma=int(np.sum(beyond)),
+        seen_in_data=bool(beyond.any()), pairs_near=int(near.size),
     )
     return entry
 
 
-def _statements(voids, options: RecoveryOptions, depths, sizes, rock_v):
-    """Smallest resolved void per fill and depth, and the sentences of the report."""
-    smallest: dict = {}
-    statements = []
-    for fill in options.fills:
-        smallest[fill] = {}
-        for depth in depths:
-            rows = [v for v in voids if v["fill"] == fill and v["depth_m"] == depth]
-            ok = sorted(v["diameter_m"] for v in rows if v["resolved"])
-            smallest[fill][f"{depth:g}"] = ok[0] if ok else None
-            unseen = [v for v in rows if "largest_time_change_ns" in v and not v["seen_in_data"]]
-            kind = "fast" if FILL_VELOCITY_M_PER_NS[fill] > rock_v else "slow"
-            if ok:
-                missed = sorted(v["diameter_m"] for v in rows if v["diameter_m"] > ok[0] and not v["resolved"])
-                statements.append(f"{fill}-filled ({kind}) voids at {depth:g} m depth: the smallest resolved "
-                                  f"by this layout is {ok[0]:g} m across"
-                                  + (f"; larger ones were not all resolved ({', '.join(f'{m:g}' for m in missed)} m "
-                                     "not): resolution is not a size threshold, check the table." if missed else "."))
-            else:
-                statements.append(f"{fill}-filled ({kind}) voids at {depth:g} m depth: none of the sizes "
-                                  f"tested ({', '.join(f'{s:g}' for s in sizes)} m) is resolved by this layout.")
-            for v in unseen:
-                statements.append(
-                    f"A {fill}-filled void {v['diameter_m']:g} m across at {depth:g} m depth changes no first "
-                    f"arrival by more than twice the noise (largest change {v['largest_time_change_ns']:.2f} ns, "
-                    f"noise {options.noise_sigma_ns:g} ns): this layout cannot show it"
-                    + (", because first arrivals go round slow bodies (they heal)." if kind == "slow" else "."))
-    return smallest, statements
+def _at_every_place(by_work) -> dict:
+    """Per fill and depth, the smallest diameter resolved at every place: the largest of the
+    places' smallest, None where some place resolves none."""
+    out: dict = {}
+    for place in by_work:
+        for fill, per_depth in place["smallest_resolved_void_m"].items():
+            for depth, diameter in per_depth.items():
+                now = out.setdefault(fill, {}).get(depth, 0.0)
+                out[fill][depth] = None if (now is None or diameter is None) else max(now, diameter)
+    return out
+
+
+def _statements(voids, places, options: RecoveryOptions, depths, sizes, layout):
+    """Smallest resolved void per place, fill and depth, and the sentences of the report."""
+    by_work, statements = [], []
+    tried = ", ".join(f"{s:g}" for s in sizes)
+    for place in places:
+        smallest: dict = {}
+        for fill in options.fills:
+            smallest[fill] = {}
+            kind = "fast" if FILL_VELOCITY_M_PER_NS[fill] > layout.rock_v else "slow"
+            found = []
+            for depth in depths:
+                rows = [v for v in voids if v["work"] == place["work"] and v["fill"] == fill and v["depth_m"] == depth]
+                ok = sorted(v["diameter_m"] for v in rows if v["resolved"])
+                smallest[fill][f"{depth:g}"] = ok[0] if ok else None
+                missed = sorted(v["diameter_m"] for v in rows if ok and v["diameter_m"] > ok[0]
+                                and not v["resolved"] and "largest_time_change_ns" in v)  # tested, missed
+                found.append(f"{ok[0]:g} m at {depth:g} m depth" + (
+                    f" (larger ones not all: {', '.join(f'{m:g}' for m in missed)} m not)" if missed else "")
+                    if ok else f"none at {depth:g} m depth")
+                statements.extend(_unseen_statements(rows, place, fill, kind, depth, options))
+            statements.append(f"{place['work']}: smallest {fill}-filled ({kind}) void resolved "
+                              f"(of {tried} m tried): " + "; ".join(found) + ".")
+        by_work.append({**place, "smallest_resolved_void_m": smallest})
+    if any("larger ones not all" in s for s in statements):
+        statements.append("Resolution is not a size threshold: where a larger void was missed, check the table.")
+    return by_work, statements
+
+
+def _unseen_statements(rows, place, fill, kind, depth, options):
+    out = []
+    for v in rows:
+        if "largest_time_change_ns" in v and not v["seen_in_data"]:
+            out.append(
+                f"{place['work']}: a {fill}-filled void {v['diameter_m']:g} m across at {depth:g} m depth changes "
+                f"no first arrival by more than twice its pick noise (largest change "
+                f"{v['largest_time_change_ns']:.2f} ns, noise {options.noise_sigma_ns:g} ns or more): this layout "
+                "cannot show it" + (", because first arrivals go round slow bodies (they heal)." if kind == "slow"
+                                    else "."))
+    return out

@@ -25,10 +25,11 @@ from reconstruct.io.tables import Nodes
 from plan.radio.link_budget import (
     LinkBudget,
     PairLinks,
-    antenna_axes,
+    conductivity_rule_range_m,
     link_range_m,
-    pair_links,
+    range_check,
     rule_of_thumb_range_m,
+    site_pair_links,
 )
 
 __all__ = ["MAX_NODES", "PairGraph", "check_nodes_in_site", "build_pair_graph", "pair_graph_summary", "write_pairs_csv",
@@ -39,7 +40,7 @@ MAX_NODES = 3000
 
 #: Columns of ``pairs.csv``.
 PAIRS_CSV_HEADER = ("node_a", "node_b", "distance_m", "margin_db", "heard", "spreading_db", "attenuation_db",
-                    "pattern_db", "crossing_db", "air_length_m", "crossings", "air_wave_first", "air_flag",
+                    "pattern_db", "near_surface_db", "crossing_db", "air_length_m", "crossings", "air_wave_first", "air_flag",
                     "azimuth_deg", "inclination_deg")
 
 
@@ -88,13 +89,12 @@ def build_pair_graph(site: Site, nodes: Nodes, budget: LinkBudget, *, progress=N
     if len(nodes) < 2:
         raise InputError(f"{nodes.source}: {len(nodes)} node; pairs need at least two nodes")
     check_nodes_in_site(site, nodes)
-    axes = antenna_axes(site, nodes)
     a, b = np.triu_indices(len(nodes), 1)
     if progress:
         progress(f"link budget of {a.size:,} pairs of {len(nodes)} nodes")
-    links = pair_links(site, budget, nodes.xyz_m, axes, a, b,
-                       progress=(lambda done, total: progress(f"air check: {done:,}/{total:,} pairs"))
-                       if progress else None)
+    links = site_pair_links(site, budget, nodes, a, b,
+                            progress=(lambda done, total: progress(f"air check: {done:,}/{total:,} pairs"))
+                            if progress else None)
     graph = nx.Graph()
     for k, node_id in enumerate(nodes.ids):
         x, y, z = (float(v) for v in nodes.xyz_m[k])
@@ -114,9 +114,12 @@ def pair_graph_summary(pairs: PairGraph) -> dict:
     """Figures of the pair graph for ``pairs_summary.json``.
 
     Keys: ``nodes``, ``pairs`` (total, heard, heard fraction, heard and
-    air-flagged, margin percentiles), ``degree`` (min, mean, median, max, by
-    kind), ``deaf_nodes``, ``components``, ``link_budget`` (settings,
-    computed range, rule-of-thumb range).
+    air-flagged, margin percentiles, median and 95th percentile of the heard
+    lengths), ``degree`` (min, mean, median, max, by kind), ``deaf_nodes``,
+    ``components``, ``link_budget`` (settings, computed range, rule-of-thumb
+    ranges), ``range_check`` (the heard pairs against the rule of thumb
+    35 / conductivity, :func:`plan.radio.link_budget.range_check`, with its
+    warning).
     """
     g, links, budget = pairs.graph, pairs.links, pairs.budget
     degree = np.array([d for _, d in g.degree()], dtype=float)
@@ -128,6 +131,8 @@ def pair_graph_summary(pairs: PairGraph) -> dict:
     heard = links.heard
     margins = links.margin_db[heard]
     lo, hi = rule_of_thumb_range_m(budget.wavelength_m)
+    check = range_check(links.length_m, heard, budget.conductivity_ms_per_m)
+    rule = conductivity_rule_range_m(budget.conductivity_ms_per_m)
     return {
         "nodes": g.number_of_nodes(),
         "pairs": {
@@ -140,6 +145,7 @@ def pair_graph_summary(pairs: PairGraph) -> dict:
             "margin_db_percentiles": ({str(p): float(np.percentile(margins, p)) for p in (5, 50, 95)}
                                       if margins.size else None),
             "longest_heard_m": float(links.length_m[heard].max()) if heard.any() else None,
+            "heard_length_m_percentiles": check["heard_length_m_percentiles"],
         },
         "degree": {
             "min": float(degree.min()) if degree.size else 0.0,
@@ -156,12 +162,18 @@ def pair_graph_summary(pairs: PairGraph) -> dict:
             "attenuation_low_loss_db_per_m": budget.attenuation_low_loss_db_per_m,
             "wavelength_m": budget.wavelength_m,
             "interface_loss_db": budget.interface_loss_db,
+            "near_surface_loss_db": budget.near_surface_loss_db,
+            "refractive_index": budget.refractive_index,
             "velocity_m_per_ns": budget.velocity_m_per_ns,
             "computed_range_m": link_range_m(budget),
             "rule_of_thumb_range_m": [lo, hi],
             "rule_of_thumb_note": "ten to fifteen wavelengths in resistive, low-loss rock "
                                   "(common practice, no published source)",
+            "conductivity_rule_range_m": None if rule == float("inf") else rule,
+            "antennas": "borehole nodes: short dipoles along the hole (sin^2 pattern); surface and face nodes: "
+                        "dipoles on the ground, half-space pattern averaged over azimuth; others isotropic",
         },
+        "range_check": {k: v for k, v in check.items() if k != "heard_length_m_percentiles"},
     }
 
 
@@ -173,7 +185,7 @@ def write_pairs_csv(path, pairs: PairGraph):
     return write_csv_atomic(path, PAIRS_CSV_HEADER, (
         [ids[links.a[i]], ids[links.b[i]], f"{links.length_m[i]:.3f}", f"{links.margin_db[i]:.2f}",
          int(heard[i]), f"{links.spreading_db[i]:.2f}", f"{links.attenuation_db[i]:.2f}",
-         f"{links.pattern_db[i]:.2f}", f"{links.crossing_db[i]:.2f}", f"{links.air_length_m[i]:.3f}",
+         f"{links.pattern_db[i]:.2f}", f"{links.near_surface_db[i]:.2f}", f"{links.crossing_db[i]:.2f}", f"{links.air_length_m[i]:.3f}",
          int(links.crossings[i]), int(links.air_wave_first[i]), int(air[i]), f"{links.azimuth_deg[i]:.2f}",
          f"{links.inclination_deg[i]:.2f}"]
         for i in range(links.a.size)))

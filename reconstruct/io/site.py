@@ -46,7 +46,8 @@ Radar and radio (read by the planner)
 -------------------------------------
 ``radar`` holds the system performance in dB (default
 :data:`DEFAULT_SYSTEM_PERFORMANCE_DB`) and, optionally, the loss per crossing
-of the air-ground boundary; ``radio`` the range of the node radios (default
+of the air-ground boundary and the loss at each surface or face node
+(``near_surface_loss_db``, default 0); ``radio`` the range of the node radios (default
 :data:`DEFAULT_RADIO_RANGE_M`) and the gateway position. Both sections are
 optional; ``boreholes[i].kind`` tells boreholes from blast holes.
 
@@ -132,7 +133,7 @@ _ROCK_KEYS = ("velocity_m_per_ns", "relative_permittivity",
               "conductivity_ms_per_m", "antenna_frequency_mhz")
 _BOREHOLE_KEYS = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m", "kind", "survey", "survey_csv")
 _BOREHOLE_REQUIRED = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m")
-_RADAR_KEYS = ("system_performance_db", "air_ground_loss_db")
+_RADAR_KEYS = ("system_performance_db", "air_ground_loss_db", "near_surface_loss_db")
 _RADIO_KEYS = ("range_m", "gateway_m")
 _WORK_KEYS = ("name", "kind", "polyline_m", "polygon_m")
 _ZONE_KEYS = ("name", "polygon_m", "reason")
@@ -604,10 +605,14 @@ class RadarSystem:
         straight line between two nodes (>= 0). None: computed from the
         rock's permittivity as the power transmission loss at normal
         incidence (see ``plan.radio.link_budget``).
+    near_surface_loss_db : float
+        Loss in dB at each surface or face node of a pair (weathered, broken
+        or wet rock under the node, imperfect contact), >= 0; default 0.
     """
 
     system_performance_db: float = DEFAULT_SYSTEM_PERFORMANCE_DB
     air_ground_loss_db: float | None = None
+    near_surface_loss_db: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -1442,7 +1447,10 @@ def _parse_radar(value, chk: _Checker) -> RadarSystem:
     loss = sec.get("air_ground_loss_db", _MISSING)
     loss = None if loss is _MISSING else chk.number(loss, "radar.air_ground_loss_db", lo=0.0,
                                                     unit="dB", fix="leave it out to have it computed")
-    return RadarSystem(performance if performance is not None else DEFAULT_SYSTEM_PERFORMANCE_DB, loss)
+    near = chk.number(sec.get("near_surface_loss_db", 0.0), "radar.near_surface_loss_db", lo=0.0, unit="dB",
+                      fix="the loss at each surface or face node; measure it with a test shot or leave it out")
+    return RadarSystem(performance if performance is not None else DEFAULT_SYSTEM_PERFORMANCE_DB, loss,
+                       near if near is not None else 0.0)
 
 
 def _parse_radio(value, chk: _Checker) -> RadioNetwork:

@@ -230,15 +230,49 @@ def test_optimise_command_writes_a_node_table_that_scores_no_lower(files):
 
 def test_recover_command_and_its_statements(files):
     folder, site, nodes = files
-    code, out, err = _run(["recover", "--site", site, "--nodes", nodes, "--out", folder / "rec",
-                           "--void-sizes", "6", "--depths", "9", "--fills", "air,water", "--max-cells", "600",
-                           "--executor", "serial", "--quiet"])
+    argv = ["recover", "--site", site, "--nodes", nodes, "--out", folder / "rec", "--void-sizes", "6",
+            "--depths", "9", "--fills", "air,water", "--max-cells", "600", "--executor", "serial", "--quiet"]
+    # the link budget needs each hole's axis: the site here has no boreholes, one clear error
+    code, out, err = _run(argv)
+    assert code == 2 and "names borehole 'BH1', which is not in the site description" in err
+    assert "Traceback" not in err
+    code, out, err = _run(argv + ["--every-pair"])
     assert code == 0, err
-    assert "checkerboard" in out and "water-filled" in out
+    assert "checkerboard" in out and "water-filled" in out and "every pair" in out
+    assert "road: smallest air-filled (fast) void resolved" in out
     summary = json.loads((folder / "rec" / "recovery_summary.json").read_text())
     assert {v["fill"] for v in summary["voids"]} == {"air", "water"}
     with open(folder / "rec" / "recovery.csv", newline="") as handle:
-        assert len(list(csv.DictReader(handle))) == 2
+        rows = list(csv.DictReader(handle))
+    assert len(rows) == 2 and {r["work"] for r in rows} == {"road"}
+    (folder / "rec" / "nodes.csv").write_text(_node_rows(), encoding="utf-8")
+    code, _, err = _run(["report", folder / "rec", "--site", site, "--quiet"])
+    assert code == 0, err
+    page = (folder / "rec" / "plan_report.html").read_text(encoding="utf-8")
+    assert "Smallest void resolved at each planned work" in page and "at 9 m depth (m)" in page
+
+
+def test_report_warns_when_the_layout_relies_on_pairs_beyond_the_rule_of_thumb(files, tmp_path):
+    # the rule of thumb: range about 35 / conductivity[mS/m] metres (Annan, from memory); the
+    # pairs command computes the share, the report must show its warning
+    folder, site, nodes = files
+    site.write_text(SITE_YAML + "boreholes:\n"
+                    "  - {id: BH1, collar_m: [4, 5, 18], azimuth_deg: 0, dip_deg: 90, length_m: 16}\n"
+                    "  - {id: BH2, collar_m: [16, 5, 18], azimuth_deg: 0, dip_deg: 90, length_m: 16}\n",
+                    encoding="utf-8")
+    out = folder / "pairs"
+    code, stdout, err = _run(["pairs", "--site", site, "--nodes", nodes, "--out", out, "--quiet"])
+    assert code == 0, err
+    summary = json.loads((out / "pairs_summary.json").read_text())
+    check = summary["range_check"]
+    assert check["rule_range_m"] == pytest.approx(35 / 2.5)  # the test site's 2.5 mS/m
+    assert check["warning"] is not None and check["share_of_heard_beyond_rule"] >= 0.1
+    assert f"WARNING: {check['warning']}" in stdout
+    (out / "nodes.csv").write_text(_node_rows(), encoding="utf-8")
+    code, _, err = _run(["report", out, "--site", site, "--quiet"])
+    assert code == 0, err
+    page = (out / "plan_report.html").read_text(encoding="utf-8")
+    assert "Warning: pairs beyond the rule of thumb" in page and escape(check["warning"]) in page
 
 
 @pytest.mark.parametrize("argv, message", [

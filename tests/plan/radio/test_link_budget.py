@@ -5,7 +5,14 @@ with scipy.constants); the textbook closed form of the attenuation constant of
 a conductive dielectric; Davis & Annan (1989) table of typical properties;
 the Friis (1946) transmission equation and the free-space loss formula of
 ITU-R P.525; the Fresnel equations at normal incidence; the head-wave example
-of REFERENCES.md; a sin^2 dipole pattern (common practice, no published source).
+of REFERENCES.md; the short dipole's sin^2 power pattern (Balanis, C. A. (2016),
+Antenna Theory, 4th ed., chapter 4, from memory); the pattern of a dipole on a
+dielectric half-space (Engheta, Papas & Elachi (1982), Radio Science 17(6);
+Smith (1984), IEEE Trans. Antennas Propag. 32(3); from memory): the value
+straight down is the Fresnel normal-incidence transmission, the far field
+vanishes along the surface, and without a boundary the pattern is the free
+dipole's; the rule of thumb range = 35 / conductivity attributed to Annan
+(from memory).
 """
 
 from __future__ import annotations
@@ -19,19 +26,28 @@ import scipy.constants
 from plan.radio.link_budget import (
     LOW_LOSS_DB_PER_M,
     LinkBudget,
+    link_budget_for_site,
     air_wave_arrives_first,
     attenuation_db_per_m,
     attenuation_low_loss_db_per_m,
+    conductivity_rule_range_m,
     dipole_pattern_loss_db,
+    ground_normals,
+    ground_wave_loss_db,
+    half_space_pattern_loss_db,
     interface_loss_db,
     link_range_m,
     pair_links,
     phase_velocity_m_per_ns,
+    range_check,
     rule_of_thumb_range_m,
+    site_pair_links,
     spreading_loss_db,
     straight_line_air_path,
 )
+from reconstruct.errors import InputError
 from reconstruct.io.site import parse_site
+from reconstruct.io.tables import Nodes
 
 SPEED_OF_LIGHT_M_PER_NS = scipy.constants.c * 1e-9
 
@@ -109,7 +125,8 @@ def test_spreading_is_the_friis_free_space_loss():
 
 
 def test_dipole_pattern_follows_sin_squared_with_a_null_on_the_axis():
-    # common practice, no published source: a borehole dipole radiates as sin^2(theta)
+    # Balanis (2016), chapter 4 (from memory): the short dipole's power pattern is sin^2(theta),
+    # zero along its axis, largest broadside
     axis = np.tile([0.0, 0.0, -1.0], (4, 1))
     theta = np.radians([90.0, 30.0, 60.0, 0.0])
     direction = np.column_stack([np.sin(theta), np.zeros(4), np.cos(theta)])
@@ -203,3 +220,109 @@ def test_link_budget_refuses_bad_settings():
 
     with pytest.raises(InputError, match="system_performance_db must be a finite number > 0"):
         _budget(system_performance_db=-1.0)
+
+
+def _directions_at(theta_deg, phi_deg=0.0):
+    """Unit directions at theta from straight down (the inward normal), azimuth phi."""
+    t, p = np.radians(np.atleast_1d(theta_deg)), math.radians(phi_deg)
+    return np.column_stack([np.sin(t) * math.cos(p), np.sin(t) * math.sin(p), -np.cos(t)])
+
+
+def test_half_space_pattern_without_a_boundary_is_the_free_dipole_averaged_over_azimuth():
+    # n = 1: no boundary. A horizontal short dipole radiates as sin^2 of the angle to its axis
+    # (Balanis 2016); averaged over the dipole's azimuth that is 1 - sin^2(theta) / 2
+    theta = np.array([0.0, 20.0, 45.0, 70.0, 85.0])
+    d = _directions_at(theta)
+    up = np.tile([0.0, 0.0, 1.0], (theta.size, 1))
+    free = 1.0 - np.sin(np.radians(theta)) ** 2 / 2.0
+    np.testing.assert_allclose(half_space_pattern_loss_db(up, d, 1.0), -10 * np.log10(free), atol=1e-9)
+    # the same average of the textbook sin^2 pattern, numerically over azimuth
+    phi = np.radians(np.arange(0.0, 360.0, 1.0))
+    for t in np.radians(theta):
+        axis_cos = np.sin(t) * np.cos(phi)
+        assert np.mean(1.0 - axis_cos**2) == pytest.approx(1.0 - np.sin(t) ** 2 / 2.0, abs=1e-9)
+
+
+def test_half_space_pattern_straight_down_is_the_fresnel_transmission_and_null_along_the_surface():
+    n = math.sqrt(6.8)
+    up = np.array([[0.0, 0.0, 1.0]])
+    # straight down: the field transmission at normal incidence, 2 n / (1 + n), squared (Fresnel;
+    # by reciprocity, a wave from the rock arriving at the dipole); a gain of about 3.2 dB
+    nadir = half_space_pattern_loss_db(up, _directions_at(0.0), n)[0]
+    assert nadir == pytest.approx(-20 * math.log10(2 * n / (1 + n)), abs=1e-9)
+    assert -3.4 < nadir < -3.0
+    # along the surface the far field of a dipole on the ground vanishes (Engheta et al. 1982)
+    assert half_space_pattern_loss_db(up, _directions_at(90.0), n)[0] == 60.0
+    # at the critical angle sin(theta) = 1 / n the TE field doubles (total reflection) and the TM
+    # tangential field vanishes: power (4 + 0) / 2 = 2
+    critical = math.degrees(math.asin(1 / n))
+    assert half_space_pattern_loss_db(up, _directions_at(critical), n)[0] == pytest.approx(
+        -10 * math.log10(2.0), abs=1e-6)
+    # straight up into the air: transmission 2 / (1 + n) from the air side (Fresnel), a loss
+    zenith = half_space_pattern_loss_db(up, -_directions_at(0.0), n)[0]
+    assert zenith == pytest.approx(-20 * math.log10(2 / (1 + n)), abs=1e-9)
+    # a node not on the ground (NaN normal) has no half-space pattern
+    assert half_space_pattern_loss_db(np.full((1, 3), np.nan), _directions_at(30.0), n)[0] == 0.0
+
+
+def test_ground_wave_bound_falls_as_one_over_r_squared():
+    # Annan (1973), from memory: the ground wave's amplitude falls as 1/r^2, a further
+    # 20 log10(k r) dB over the path, half at each end
+    lam = 1.15
+    for r in (5.0, 20.0, 40.0):
+        assert 2 * ground_wave_loss_db(r, lam) == pytest.approx(20 * math.log10(2 * math.pi * r / lam))
+    assert ground_wave_loss_db(0.05, lam) == 0.0
+
+
+def test_rule_of_thumb_range_is_35_over_the_conductivity_and_the_warning_counts_the_pairs():
+    # attributed to Annan, from memory: range in metres about 35 / sigma[mS/m] in low-loss rock
+    assert conductivity_rule_range_m(1.0) == 35.0
+    assert conductivity_rule_range_m(0.5) == 70.0
+    assert conductivity_rule_range_m(0.0) == math.inf
+    length = np.array([10.0, 20.0, 30.0, 40.0, 50.0, 80.0])
+    heard = np.array([True, True, True, True, True, False])
+    check = range_check(length, heard, 1.0)
+    assert check["heard_beyond_rule"] == 2 and check["share_of_heard_beyond_rule"] == pytest.approx(0.4)
+    assert "2 of the 5 heard pairs (40 %)" in check["warning"] and "35 m" in check["warning"]
+    assert check["heard_length_m_percentiles"]["50"] == pytest.approx(np.median(length[heard]))
+    quiet = range_check(length, length < 35, 1.0)
+    assert quiet["heard_beyond_rule"] == 0 and quiet["warning"] is None
+    assert range_check(length, heard, 0.0)["rule_range_m"] is None
+
+
+def _bench_site(near_surface_loss_db=0.0):
+    return parse_site({
+        "name": "test benches",
+        "model": {"origin_m": [0, 0, 0], "size_m": [40, 20, 20], "cell_m": 1.0},
+        "ground": {"benches": [
+            {"name": "low", "floor_m": 10, "polygon_m": [[0, 0], [40, 0], [40, 10], [0, 10]]},
+            {"name": "high", "floor_m": 15, "polygon_m": [[0, 10], [40, 10], [40, 20], [0, 20]]}]},
+        "rock": {"velocity_m_per_ns": 0.12, "conductivity_ms_per_m": 1.0, "antenna_frequency_mhz": 100},
+        "boreholes": [{"id": "BH1", "collar_m": [20, 5, 10], "azimuth_deg": 0, "dip_deg": 90, "length_m": 9}],
+        "radar": {"near_surface_loss_db": near_surface_loss_db},
+    })
+
+
+def _bench_nodes():
+    xyz = np.array([[20.0, 4.0, 10.0], [20.0, 10.05, 12.5], [20.0, 5.0, 3.0], [30.0, 4.0, 10.0]])
+    return Nodes(ids=("S1", "F1", "B1", "S2"), xyz_m=xyz, kinds=("surface", "face", "borehole", "surface"),
+                 boreholes=(None, None, "BH1", None), lines=np.arange(2, 6), source="test nodes")
+
+
+def test_ground_normals_point_up_on_a_bench_and_out_of_a_face():
+    normals = ground_normals(_bench_site(), _bench_nodes())
+    np.testing.assert_allclose(normals[0], [0, 0, 1], atol=1e-12)  # flat bench floor
+    np.testing.assert_allclose(normals[1], [0, -1, 0], atol=1e-12)  # the face looks south, to the lower bench
+    assert np.isnan(normals[2]).all()  # borehole node: a dipole along its hole instead
+
+
+def test_near_surface_loss_is_charged_at_each_node_on_the_ground():
+    site = _bench_site(near_surface_loss_db=2.5)
+    budget = link_budget_for_site(site)
+    links = site_pair_links(site, budget, _bench_nodes(), [0, 0, 2], [2, 3, 3])
+    # surface to borehole: one end on the ground; surface to surface: two; the terms add up
+    np.testing.assert_allclose(links.near_surface_db, [2.5, 5.0, 2.5])
+    total = links.spreading_db + links.attenuation_db + links.pattern_db + links.near_surface_db + links.crossing_db
+    np.testing.assert_allclose(links.margin_db, budget.system_performance_db - total)
+    with pytest.raises(InputError, match="radar.near_surface_loss_db"):
+        _bench_site(near_surface_loss_db=-1.0)

@@ -7,11 +7,13 @@ and its fill. The fill class of an air-filled void is "fast" because air
 Annan, A. P. (1989), Ground-penetrating radar for high-resolution mapping of
 soil and rock stratigraphy, Geophysical Prospecting 37(5), 531-551.
 
-Reduced size: the demo site with 2.5 m model cells instead of 2 m (picks
-simulated on 1.25 m cells, the truth model's refine of 2), 2 bent-ray
-iterations instead of 3 and no pictures; layout and noise as in the demo.
-Measured on 2 cores with a warm numba cache: 33 s on a quiet machine, 140 s
-on a busy one (compiling the kernels adds about 30 s).
+The chain runs as the demo does (2 m model cells, picks simulated on 1 m
+cells, the default bent-ray iterations) without the pictures. A cheaper run
+no longer finds the cavity since the link budget hears fewer pairs (antenna
+patterns and near-surface loss, issue 17): measured, 2.5 m cells with 2 or 6
+iterations find nothing within 9 m of it, 2 m cells with 2 iterations only an
+unresolved indication 2.2 m off. Measured on 2 cores with a warm numba cache:
+103 s on a quiet machine (compiling the kernels adds about 30 s).
 """
 
 from __future__ import annotations
@@ -33,7 +35,7 @@ from reconstruct.io.outputs import atomic_path
 from reconstruct.io.tables import write_excluded_csv
 
 DEMO = Path(__file__).resolve().parents[2] / "demo_site"
-REDUCED_CELL_M = 2.5
+DEMO_CELL_M = 2.0  # the demo site's model cells (demo_site/site.yaml)
 
 #: The temporary names the writers create beside a file before moving it into place:
 #: reconstruct.io.outputs.atomic_path (every writer of io.outputs and report.pictures.write_png_atomic)
@@ -62,10 +64,10 @@ def _digest(folder: Path) -> dict:
 
 @pytest.fixture(scope="module")
 def reduced_run(tmp_path_factory):
-    folder = _demo_copy(tmp_path_factory.mktemp("site"), cell_m=REDUCED_CELL_M)
+    folder = _demo_copy(tmp_path_factory.mktemp("site"))
     before = _digest(folder)
     out = tmp_path_factory.mktemp("run") / "demo_output"
-    result = run_demo(folder, out, ChainSettings(bent_iterations=2, pictures=False), quiet=True)
+    result = run_demo(folder, out, ChainSettings(pictures=False), quiet=True)
     return folder, before, result
 
 
@@ -79,7 +81,7 @@ def test_reduced_chain_finds_the_air_cavity_within_two_cells(reduced_run):
     # the truth model is the reference: centroid within 2 model cells of the truth centre
     # (2 cells: common practice, no published source)
     offset = np.linalg.norm(np.subtract(match.found_centre_m, air.centre_m))
-    assert offset <= 2 * REDUCED_CELL_M, match.line()
+    assert offset <= 2 * DEMO_CELL_M, match.line()
     # fill class: an air-filled void is fast (Davis and Annan 1989)
     assert match.expected_fill == FILL_AIR
     rows = (result.out / "model" / "voids.csv").read_text(encoding="utf-8").splitlines()

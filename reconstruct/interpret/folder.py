@@ -105,16 +105,21 @@ def read_json_object(path: Path, hint: str) -> dict:
     return data
 
 
+def recorded_file_candidates(folder: Path, recorded) -> list[Path]:
+    """Where a file recorded in an output folder may be: as written if absolute; else as written,
+    relative to the folder, or to its parent (a relative path was written relative to where the
+    command ran, usually the folder's parent or the working directory)."""
+    path = Path(recorded)
+    return [path] if path.is_absolute() else [path, folder / path, folder.parent / path]
+
+
 def _find_site(folder: Path, manifest: dict | None) -> Path:
     record = (manifest or {}).get("inputs", {}).get("site") if isinstance(manifest, dict) else None
     if not isinstance(record, dict) or not record.get("path"):
         raise InputError(f"{folder / 'manifest.json'}: no site file recorded; give the site "
                          "description with --site")
-    recorded = Path(record["path"])
-    candidates = [recorded] if recorded.is_absolute() else [recorded, folder / recorded,
-                                                             folder.parent / recorded]
     changed = []
-    for candidate in candidates:
+    for candidate in recorded_file_candidates(folder, record["path"]):
         if candidate.is_file():
             if sha256_of_file(candidate) == record.get("sha256"):
                 return candidate

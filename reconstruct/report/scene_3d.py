@@ -43,6 +43,7 @@ import numpy as np
 
 from reconstruct.errors import InputError
 from reconstruct.interpret.bodies import FILL_AIR, FILL_WATER_OR_CLAY, STATUS_RESOLVED
+from reconstruct.interpret.folder import recorded_file_candidates
 from reconstruct.io.outputs import read_cell_arrays_vti
 from reconstruct.io.site import load_site
 from reconstruct.model.grid import Grid
@@ -222,8 +223,7 @@ def _site_path(folder: Path, recorded) -> Path:
     (a relative path was written relative to where ``voids`` ran)."""
     if not recorded:
         raise InputError(f"{folder / 'voids.json'}: no site_file recorded")
-    path = Path(recorded)
-    for candidate in ([path] if path.is_absolute() else [path, folder / path, folder.parent / path]):
+    for candidate in recorded_file_candidates(folder, recorded):
         if candidate.is_file():
             return candidate
     raise InputError(f"{folder / 'voids.json'}: the site file {recorded} recorded there is not found from here")

@@ -119,10 +119,10 @@ def _fit_with_clocks(across, along, t, sigma, clock, p0, q0):
     import scipy.sparse as sp
     from scipy.optimize import least_squares
 
-    tx, rx, n_nodes = (np.asarray(clock[0]), np.asarray(clock[1]), int(clock[2]))
-    rows = np.arange(t.size)
-    C = sp.csr_matrix((np.r_[np.ones(t.size), -np.ones(t.size)], (np.r_[rows, rows], np.r_[rx, tx])),
-                      shape=(t.size, n_nodes))
+    from reconstruct.inverse.time_zero import time_zero_matrix
+
+    n_nodes = int(clock[2])
+    C = time_zero_matrix(clock[0], clock[1], n_nodes, "clock")
     scale = np.array([p0, q0])
 
     def residual(x):

@@ -128,13 +128,14 @@ def _firing_trend(D, tx, shot, n_nodes):
     survey) change no difference ``t_ab - t_ba``. Returns it as a vector over ``[offsets, drifts]``,
     or None when the nodes fire at several times (then the differences see it)."""
     hours = shot_hours_from_middle(shot)
-    firing = np.full(n_nodes, np.nan)
-    for k in np.unique(tx):
-        times = hours[tx == k]
-        if np.ptp(times) > 1e-9:
-            return None
-        firing[k] = times[0]
-    known = np.isfinite(firing)
+    earliest = np.full(n_nodes, np.inf)
+    latest = np.full(n_nodes, -np.inf)
+    np.minimum.at(earliest, tx, hours)
+    np.maximum.at(latest, tx, hours)
+    known = np.isfinite(earliest)
+    if np.any(latest[known] - earliest[known] > 1e-9):
+        return None  # a node fires at several times
+    firing = np.where(known, earliest, np.nan)
     if known.sum() < 3:
         return None
     f = np.where(known, firing, 0.0)

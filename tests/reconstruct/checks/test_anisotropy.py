@@ -68,11 +68,10 @@ def test_eikonal_fields_in_the_stretched_geometry_give_the_elliptical_times():
     assert np.max(np.abs(times / exact - 1)) < 0.01  # the eikonal's own accuracy in uniform rock
 
 
-def _run(times, xyz, a, b, ratio, tmp_path, from_picks=False):
-    from reconstruct.inverse.options import InversionOptions
+def _inputs(times, xyz, a, b):
+    """The small test site, borehole nodes at ``xyz`` and one-way picks ``a -> b`` (sigma 0.3 ns)."""
     from reconstruct.io.site import parse_site
     from reconstruct.io.tables import Nodes, Picks
-    from reconstruct.pipeline import ProcessingSettings, process_survey
     from tests.reconstruct.small_site import SITE_YAML
 
     site = parse_site(yaml.safe_load(SITE_YAML.format(cell=1.0)))
@@ -81,6 +80,14 @@ def _run(times, xyz, a, b, ratio, tmp_path, from_picks=False):
                   boreholes=(None,) * n, lines=np.arange(2, n + 2), source="nodes (test)")
     picks = Picks(tx=a, rx=b, time_ns=times, sigma_ns=np.full(m, 0.3), amplitude=None, quality=None,
                   lines=np.arange(2, m + 2), excluded=(), source="picks (test)", n_rows=m)
+    return site, nodes, picks
+
+
+def _run(times, xyz, a, b, ratio, tmp_path, from_picks=False):
+    from reconstruct.inverse.options import InversionOptions
+    from reconstruct.pipeline import ProcessingSettings, process_survey
+
+    site, nodes, picks = _inputs(times, xyz, a, b)
     settings = ProcessingSettings(rays="straight", find_bodies=True, anisotropy_from_picks=from_picks,
                                   inversion=InversionOptions(anisotropy_ratio=ratio, anisotropy_axis="z"))
     return process_survey(site, nodes, picks, settings)
@@ -165,22 +172,13 @@ def test_dipping_beds_modelled_leave_a_uniform_cube(tmp_path):
     xyz, a, b = _borehole_pairs()
     times = _exact_tilted_ns(xyz[a], xyz[b], axis_from_text("30/120")) + np.random.default_rng(5).normal(0, 0.3, a.size)
     results = {}
-    for name, ratio in (("isotropic", 1.0), ("modelled", V_ALONG / V_ACROSS)):
-        from reconstruct.inverse.options import InversionOptions
-        from reconstruct.io.site import parse_site
-        from reconstruct.io.tables import Nodes, Picks
-        from reconstruct.inverse.straight import straight_ray_tomography
-        from tests.reconstruct.small_site import SITE_YAML
+    from reconstruct.inverse.options import InversionOptions
+    from reconstruct.inverse.straight import straight_ray_tomography
 
-        site = parse_site(yaml.safe_load(SITE_YAML.format(cell=1.0)))
-        n, m = len(xyz), a.size
-        nodes = Nodes(ids=tuple(f"N{k}" for k in range(n)), xyz_m=xyz, kinds=("borehole",) * n,
-                      boreholes=(None,) * n, lines=np.arange(2, n + 2), source="nodes (test)")
-        picks = Picks(tx=a, rx=b, time_ns=times, sigma_ns=np.full(m, 0.3), amplitude=None, quality=None,
-                      lines=np.arange(2, m + 2), excluded=(), source="picks (test)", n_rows=m)
+    for name, ratio in (("isotropic", 1.0), ("modelled", V_ALONG / V_ACROSS)):
         # one-way picks without clock offsets: no time-zero terms (with them the weight search of
         # this small case stops at chi^2/N 3.7-3.9 whatever the axis: measured, left for later)
-        run = straight_ray_tomography(site, nodes, picks, InversionOptions(
+        run = straight_ray_tomography(*_inputs(times, xyz, a, b), InversionOptions(
             anisotropy_ratio=ratio, anisotropy_axis="30/120", time_zero="none"))
         results[name] = run.result.velocity_m_per_ns[run.ray_count.ravel() > 0]
     # measured: modelled 0.1248-0.1249 m/ns (chi^2/N 1.03); inverted as isotropic, false structure

@@ -35,6 +35,16 @@ def _ellipsoid_analysis():
     return grid, analysis, centre, semi_axes
 
 
+def _backend_or_skip() -> str:
+    """The off-screen backend's message; skip where none works (fail on CI, which must render)."""
+    backend, message = render.probe_offscreen_backend()
+    if backend is None:
+        if os.environ.get("CI"):
+            pytest.fail(f"CI must render off-screen: {message}")
+        pytest.skip(message)
+    return message
+
+
 def test_isosurface_encloses_the_ellipsoid():
     grid, analysis, centre, semi_axes = _ellipsoid_analysis()
     mesh = render.void_surfaces(grid, analysis.labels, analysis.anomaly_ns_per_m, analysis.bodies)
@@ -66,11 +76,7 @@ def test_scale_bar_is_a_round_length():
 
 @pytest.mark.slow
 def test_offscreen_picture_has_the_stated_size_and_several_colours(tmp_path):
-    backend, message = render.probe_offscreen_backend()
-    if backend is None:
-        if os.environ.get("CI"):
-            pytest.fail(f"CI must render off-screen: {message}")
-        pytest.skip(message)
+    _backend_or_skip()
     grid, analysis, _, _ = _ellipsoid_analysis()
     voids = render.void_surfaces(grid, analysis.labels, analysis.anomaly_ns_per_m, analysis.bodies)
     ground = render.ground_surface(grid, np.full((40, 30), 28.0))
@@ -106,11 +112,7 @@ def test_oblique_view_key_names_only_what_is_drawn(tmp_path):
     # a key that names a thing not drawn misleads the reader (common practice, no published source)
     from reconstruct.io.site import ExclusionZone
 
-    backend, message = render.probe_offscreen_backend()
-    if backend is None:
-        if os.environ.get("CI"):
-            pytest.fail(f"CI must render off-screen: {message}")
-        pytest.skip(message)
+    message = _backend_or_skip()
     assert "vtk" not in message.lower()  # words for the reader, not the renderer's class name
     grid, analysis, _, _ = _ellipsoid_analysis()  # one air-filled body, nothing slow
     voids = render.void_surfaces(grid, analysis.labels, analysis.anomaly_ns_per_m, analysis.bodies)

@@ -264,6 +264,17 @@ def spreading_loss_db(distance_m, wavelength):
     return out if out.ndim else float(out)
 
 
+def _unit_rows(vectors, direction):
+    """``(missing, vectors, direction)``: rows of NaN in ``vectors`` marked missing (and zeroed),
+    both arrays scaled to unit length row by row."""
+    v = np.asarray(vectors, dtype=float)
+    d = np.asarray(direction, dtype=float)
+    missing = np.isnan(v).any(axis=-1)
+    v = np.where(missing[..., None], 0.0, v)
+    v = v / np.maximum(np.linalg.norm(v, axis=-1, keepdims=True), 1e-300)
+    return missing, v, d / np.maximum(np.linalg.norm(d, axis=-1, keepdims=True), 1e-300)
+
+
 def dipole_pattern_loss_db(axis, direction):
     """Loss of a dipole along ``axis`` towards ``direction``, ``-20 log10(sin theta)`` dB.
 
@@ -279,12 +290,7 @@ def dipole_pattern_loss_db(axis, direction):
     numpy.ndarray, shape (n,)
         Loss in dB, between 0 (broadside) and :data:`PATTERN_NULL_DB` (along the axis).
     """
-    a = np.asarray(axis, dtype=float)
-    d = np.asarray(direction, dtype=float)
-    isotropic = np.isnan(a).any(axis=-1)
-    a_unit = np.where(isotropic[..., None], 0.0, a)
-    a_unit = a_unit / np.maximum(np.linalg.norm(a_unit, axis=-1, keepdims=True), 1e-300)
-    d_unit = d / np.maximum(np.linalg.norm(d, axis=-1, keepdims=True), 1e-300)
+    isotropic, a_unit, d_unit = _unit_rows(axis, direction)
     cos_theta = np.clip(np.abs(np.sum(a_unit * d_unit, axis=-1)), 0.0, 1.0)
     sin_theta = np.sqrt(1.0 - cos_theta**2)
     floor = 10.0 ** (-PATTERN_NULL_DB / 20.0)
@@ -327,12 +333,7 @@ def half_space_pattern_loss_db(normal, direction, refractive_index: float):
     n_rock = float(refractive_index)
     if not (math.isfinite(n_rock) and n_rock >= 1.0):
         raise ValueError(f"refractive_index must be a finite number >= 1 (got {refractive_index!r})")
-    nrm = np.asarray(normal, dtype=float)
-    d = np.asarray(direction, dtype=float)
-    flat = np.isnan(nrm).any(axis=-1)
-    nrm = np.where(flat[..., None], 0.0, nrm)
-    nrm = nrm / np.maximum(np.linalg.norm(nrm, axis=-1, keepdims=True), 1e-300)
-    d_unit = d / np.maximum(np.linalg.norm(d, axis=-1, keepdims=True), 1e-300)
+    flat, nrm, d_unit = _unit_rows(normal, direction)
     up = np.sum(nrm * d_unit, axis=-1)  # > 0: towards the air
     cos1 = np.clip(np.abs(up), 0.0, 1.0)
     n1 = np.where(up > 0, 1.0, n_rock)  # the medium the far point lies in

@@ -237,6 +237,11 @@ class VoidBody:
     ``standoff_m`` is the shortest distance, in 3D, between the body's cells
     and the nearest planned work (``nearest_work``), infinite when the site
     has none.
+
+    ``refined`` is None until the body has been fitted as a parametric
+    shape against the picks (:mod:`reconstruct.interpret.refine`); it then
+    holds that fit, whose sizes carry 1-sigma and cautious 95 % bounds
+    (:class:`reconstruct.interpret.estimates.Estimate`).
     """
 
     body_id: int
@@ -268,6 +273,7 @@ class VoidBody:
     mean_ray_count: float
     confidence: str
     confidence_reason: str
+    refined: object = None
 
 
 @dataclass(frozen=True)

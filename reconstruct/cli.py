@@ -377,14 +377,19 @@ def _cmd_voids(args) -> int:
                                    max_pictures=args.max_pictures, started=started, progress=say)
     counts = content["counts"]
     print(f"site: {content['site']}")
-    print(f"voids: {counts['resolved']}, unresolved indications: {counts['unresolved']} "
-          f"(threshold {content['method']['threshold_sigmas']:.2f} robust standard deviations of the anomaly; "
-          "see voids.json)")
+    print(f"voids: {counts['resolved']}, unresolved bodies: {counts['unresolved']}, weak indications: "
+          f"{counts['weak_indications']} (threshold {content['method']['threshold_sigmas']:.2f} robust standard "
+          "deviations of the anomaly; see voids.json)")
+    if content["threshold_override"]["overridden"]:
+        print(content["threshold_override"]["words"])
+    for entry in content["detectability"]:
+        print(f"  {entry['work']}: {entry['words']}")
     for entry in content["screening"]["ranked"][:5]:
         print(f"  {entry['rank']}. body {entry['body_id']} ({entry['status']}, confidence {entry['confidence']}): "
               f"{entry['reasons']}")
     print(f"pictures: {content['rendering']}")
-    print(f"output: {Path(args.folder)} (voids.csv, voids.json, screening.csv, interpretation.vti, voids.vtp, "
+    print(f"output: {Path(args.folder)} (voids.csv, voids.json, weak_indications.csv, screening.csv, "
+          "interpretation.vti, voids.vtp, "
           "ground.vtp, pictures/; for mine planning voids.dxf, voids.obj, voids.stl, block_model.csv)")
     print("screening aid, not a design: confirm by probe drilling; a null result does not prove no void")
     return 0

@@ -78,7 +78,13 @@ __all__ = [
     "robust_background",
     "smoothness_fwhm_cells",
     "search_volume_resels",
+    "expected_noise_clusters",
     "detection_sigmas",
+    "TIER_VOID",
+    "TIER_UNRESOLVED_BODY",
+    "TIER_WEAK_INDICATION",
+    "body_tier",
+    "size_words",
     "find_voids",
     "VOID_TABLE_COLUMNS",
     "void_table_rows",
@@ -90,6 +96,14 @@ FILL_WATER_OR_CLAY = "water_or_clay"
 #: Statuses (column ``status``): larger than the resolution (a void), or an indication only.
 STATUS_RESOLVED = "resolved"
 STATUS_UNRESOLVED = "unresolved"
+#: Tiers (column ``tier``), one vocabulary for everything the cube shows: a void (a resolved body),
+#: an unresolved body (past the detection threshold, smaller than the resolution) and a weak
+#: indication (past the noise floor, short of the detection threshold;
+#: :mod:`reconstruct.interpret.detectability`). Unresolved bodies and weak indications are the
+#: *indications*.
+TIER_VOID = "void"
+TIER_UNRESOLVED_BODY = "unresolved_body"
+TIER_WEAK_INDICATION = "weak_indication"
 
 
 @dataclass(frozen=True)
@@ -188,6 +202,27 @@ def search_volume_resels(mask, fwhm_cells) -> tuple:
     return (1.0, r1, r2, r3)
 
 
+def expected_noise_clusters(resels, u: float) -> float:
+    """Expected Euler characteristic of the excursion set above ``u`` of one sign.
+
+    For a smooth Gaussian field of resel counts ``R0..R3`` this is about the
+    number of clusters that pure noise lifts above ``u`` standard deviations
+    (and, when small, the chance of any); the formulas are listed in
+    :func:`detection_sigmas`. Dimensionless.
+
+    References
+    ----------
+    Worsley et al. (1996); see :func:`detection_sigmas`.
+    """
+    from scipy.stats import norm
+
+    r0, r1, r2, r3 = (float(r) for r in resels)
+    c = 4.0 * math.log(2.0)
+    e = math.exp(-u * u / 2.0)
+    return (r0 * norm.sf(u) + r1 * math.sqrt(c) * e / (2 * math.pi)
+            + r2 * c * u * e / (2 * math.pi) ** 1.5 + r3 * c**1.5 * (u * u - 1) * e / (2 * math.pi) ** 2)
+
+
 def detection_sigmas(resels, false_alarm: float) -> float:
     """Threshold in standard deviations at which pure noise yields any body with chance ``false_alarm``.
 
@@ -212,17 +247,8 @@ def detection_sigmas(resels, false_alarm: float) -> float:
         Mapping, 4(1), 58-73.
     """
     from scipy.optimize import brentq
-    from scipy.stats import norm
 
-    r0, r1, r2, r3 = (float(r) for r in resels)
-    c = 4.0 * math.log(2.0)
-
-    def expected_clusters(u):
-        e = math.exp(-u * u / 2.0)
-        return (r0 * norm.sf(u) + r1 * math.sqrt(c) * e / (2 * math.pi)
-                + r2 * c * u * e / (2 * math.pi) ** 1.5 + r3 * c**1.5 * (u * u - 1) * e / (2 * math.pi) ** 2)
-
-    return float(brentq(lambda u: 2.0 * expected_clusters(u) - false_alarm, 1.0, 40.0))
+    return float(brentq(lambda u: 2.0 * expected_noise_clusters(resels, u) - false_alarm, 1.0, 40.0))
 
 
 @dataclass(frozen=True)
@@ -274,6 +300,7 @@ class VoidBody:
     confidence: str
     confidence_reason: str
     refined: object = None
+    noise_floor_ns_per_m: float = math.nan  # the slab's threshold over the threshold in sigmas
 
 
 @dataclass(frozen=True)
@@ -604,6 +631,7 @@ def find_voids(
             threshold_ns_per_m=float(threshold[tuple(a[peak_at] for a in ijk)]),
             ray_covered_fraction=covered_fraction, mean_ray_count=float(rays[ijk].mean()),
             confidence=grade, confidence_reason=reason, _ijk=ijk,
+            noise_floor_ns_per_m=float(threshold[tuple(a[peak_at] for a in ijk)] / sigmas),
         ))
     drafts.sort(key=lambda d: (d["status"] != STATUS_RESOLVED, -d["volume_m3"]))
     bodies = []
@@ -655,7 +683,51 @@ VOID_TABLE_COLUMNS = (
     "equivalent_diameter_m", "resolution_m", "mean_velocity_m_per_ns", "extreme_velocity_m_per_ns",
     "background_velocity_m_per_ns", "peak_anomaly_ns_per_m", "threshold_ns_per_m",
     "ray_covered_fraction", "mean_ray_count", "confidence", "confidence_reason",
+    "tier", "strength_noise_floors", "size_up_to_m", "lower_bound", "size_words",
 )
+
+#: Why a slow body's extent is a lower bound, in words (the reason given beside every such body).
+SLOW_BODY_REASON = ("first arrivals go around a slower body, so a travel-time cube sees only part "
+                    "of it (Wielandt 1987, from memory)")
+
+
+def body_tier(status: str) -> str:
+    """Tier of a body (column ``tier``): ``void`` when resolved, else ``unresolved_body``."""
+    return TIER_VOID if status == STATUS_RESOLVED else TIER_UNRESOLVED_BODY
+
+
+def _m3_words(volume_m3: float) -> str:
+    return f"{volume_m3:.0f} m^3" if volume_m3 >= 10 else f"{volume_m3:.1f} m^3"
+
+
+def size_words(tier: str, fill: str, volume_m3: float, span_m: float, resolution_m: float) -> str:
+    """The size of a body or indication in words, with what it means.
+
+    A void (resolved, air) is "about" its cut volume; an unresolved body or a
+    weak indication is "up to about" the resolution across, since anything
+    smaller than the resolution shows at about the resolution's size; a
+    water- or clay-filled one is "at least" what the cube shows, because
+    first arrivals go around slow bodies (:data:`SLOW_BODY_REASON`), and may
+    be larger.
+
+    Parameters
+    ----------
+    tier : {"void", "unresolved_body", "weak_indication"}
+    fill : {"air", "water_or_clay"}
+    volume_m3, span_m, resolution_m : float
+        Volume cut from the cube (m^3), largest horizontal width (m) and the
+        resolution at its depth (m).
+    """
+    if tier == TIER_VOID:
+        if fill == FILL_AIR:
+            return (f"about {_m3_words(volume_m3)}, {span_m:.0f} m across, as cut from the cube at half "
+                    "its peak anomaly")
+        return (f"at least {_m3_words(volume_m3)} and {span_m:.0f} m across, and may be larger: "
+                + SLOW_BODY_REASON)
+    up_to = f"up to about {resolution_m:.0f} m across (smaller than the resolution of {resolution_m:.1f} m here"
+    if fill == FILL_AIR:
+        return up_to + ", so its size cannot be measured)"
+    return (up_to + " as it shows); as a slow body it may be larger than it shows: " + SLOW_BODY_REASON)
 
 
 def void_table_rows(bodies) -> list[dict]:
@@ -671,8 +743,13 @@ def void_table_rows(bodies) -> list[dict]:
                                ("bbox_max", b.bbox_max_m)):
             for axis, value in zip("xyz", values):
                 row[f"{prefix}_{axis}_m"] = value
+        tier = body_tier(b.status)
+        derived = {"tier": tier, "lower_bound": b.fill == FILL_WATER_OR_CLAY,
+                   "strength_noise_floors": abs(b.peak_anomaly_ns_per_m) / b.noise_floor_ns_per_m,
+                   "size_up_to_m": b.resolution_m if tier != TIER_VOID else math.nan,
+                   "size_words": size_words(tier, b.fill, b.volume_m3, b.span_m, b.resolution_m)}
         for key in VOID_TABLE_COLUMNS[13:]:
-            value = getattr(b, key)
+            value = derived[key] if key in derived else getattr(b, key)
             row[key] = None if isinstance(value, float) and not math.isfinite(value) else value
         rows.append(row)
     return rows

@@ -13,6 +13,8 @@ from pathlib import Path
 import numpy as np
 
 from reconstruct.interpret.bodies import STATUS_RESOLVED, VOID_TABLE_COLUMNS, void_table_rows
+from reconstruct.interpret.detectability import (WEAK_INDICATION_COLUMNS, assess_detectability, detectability_rows,
+                                                 weak_indication_rows)
 from reconstruct.interpret.folder import InversionFolder
 from reconstruct.interpret.screening import SCREENING_COLUMNS, SCREENING_NOTE
 from reconstruct.inverse.straight import TomographyRun, run_summary
@@ -165,13 +167,43 @@ def _remove_stale_pictures(folder: Path, keep) -> None:
     if not folder.is_dir():
         return
     for path in folder.glob("*.png"):
-        if path not in keep and re.fullmatch(r"view_3d\.png|body_\d+_slices\.png", path.name):
+        if path not in keep and re.fullmatch(r"view_3d\.png|(body|indication)_\d+_slices\.png", path.name):
             path.unlink()
 
 
-def _draw_pictures(data: InversionFolder, analysis, ground_mesh, voids_mesh, max_pictures: int, written: list, say):
-    """The 3D view (when off-screen rendering works) and the slices through each void; the files
-    are appended to ``written``. Returns (the picture list of voids.json, the rendering note)."""
+def _slices_caption(name: str, what: str) -> str:
+    return (f"{name}: plan (top) and west-east section looking north (bottom) through its centroid, both to "
+            f"the same scale. Colour: the velocity, from dark blue (slow) to yellow (fast); the line around the "
+            f"{what} in the colour of its fill (orange: air, blue: water or clay); hatched and paled: cells that "
+            "no ray crossed; blank: air above the ground.")
+
+
+def _draw_slices(data: InversionFolder, analysis, detectability, max_pictures: int, written: list, say):
+    """Plan and section slices through every body (voids first) and every weak indication, up to
+    ``max_pictures`` in all; the files are appended to ``written``. Returns (picture entries, note)."""
+    out = data.path
+    subjects = [(b, "body", b.body_id, analysis.labels) for b in analysis.bodies]
+    subjects += [(w, "weak indication", w.indication_id, detectability.labels) for w in detectability.weak_indications]
+    entries = []
+    for subject, what, number, labels in subjects[:max_pictures]:
+        say(f"slices through {what} {number}")
+        png = render.slice_pictures(data.grid, data.velocity_m_per_ns, data.ground, data.ray_count, labels,
+                                    data.surface_m, subject, works=data.site.planned_works, what=what, label=number)
+        name = f"pictures/{'body' if what == 'body' else 'indication'}_{number}_slices.png"
+        written.append(render.write_png_atomic(out / name, png))
+        entries.append({"file": name, "body_id": number if what == "body" else None,
+                        "indication_id": number if what != "body" else None,
+                        "caption": _slices_caption(f"{what[0].upper()}{what[1:]} {number}", what)})
+    note = (f"; slices drawn for the first {max_pictures} of {len(subjects)} bodies and weak indications"
+            if len(subjects) > max_pictures else "")
+    return entries, note
+
+
+def _draw_pictures(data: InversionFolder, analysis, detectability, ground_mesh, voids_mesh, max_pictures: int,
+                   written: list, say):
+    """The 3D view (when off-screen rendering works) and the slices through each body and weak
+    indication (:func:`_draw_slices`); the files are appended to ``written``. Returns (the picture
+    list of voids.json, the rendering note)."""
     out = data.path
     picture_list = []
     backend, rendering = render.probe_offscreen_backend()
@@ -182,31 +214,23 @@ def _draw_pictures(data: InversionFolder, analysis, ground_mesh, voids_mesh, max
                                          works=data.site.planned_works, zones=data.site.exclusion_zones,
                                          title=data.site.name)
         written.append(path)
-        picture_list.append({"file": "pictures/view_3d.png", "body_id": None,
+        picture_list.append({"file": "pictures/view_3d.png", "body_id": None, "indication_id": None,
                              "caption": "Oblique view from the south-west, from above: " + "; ".join(key)
                                         + ". Axes in metres; the arrow points north."})
-    voids_only = [b for b in analysis.bodies if b.status == STATUS_RESOLVED]
-    for body in voids_only[:max_pictures]:
-        say(f"slices through body {body.body_id}")
-        png = render.slice_pictures(data.grid, data.velocity_m_per_ns, data.ground, data.ray_count,
-                                    analysis.labels, data.surface_m, body, works=data.site.planned_works)
-        name = f"pictures/body_{body.body_id}_slices.png"
-        written.append(render.write_png_atomic(out / name, png))
-        picture_list.append({"file": name, "body_id": body.body_id,
-                             "caption": f"Body {body.body_id}: plan (top) and west-east section looking north "
-                                        "(bottom) through its centroid, both to the same scale. Colour: "
-                                        "the velocity, from dark blue (slow) to yellow (fast); the line "
-                                        "around the body in the colour of its fill (orange: air, blue: "
-                                        "water or clay); hatched and paled: cells that no ray crossed; "
-                                        "blank: air above the ground."})
-    if len(voids_only) > max_pictures:
-        rendering += f"; slices drawn for the first {max_pictures} of {len(voids_only)} voids"
-    return picture_list, rendering
+    slices, note = _draw_slices(data, analysis, detectability, max_pictures, written, say)
+    return picture_list + slices, rendering + note
 
 
 def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: bool = True,
-                       max_pictures: int = 20, parameters: dict, started: str, progress=None) -> dict:
-    """Write the void outputs into the inversion folder; returns the content of ``voids.json``."""
+                       max_pictures: int = 20, parameters: dict, started: str, progress=None,
+                       detectability=None) -> dict:
+    """Write the void outputs into the inversion folder; returns the content of ``voids.json``.
+
+    ``detectability`` is the :func:`reconstruct.interpret.detectability.assess_detectability`
+    of ``analysis`` (computed here when not given): weak indications (``weak_indications.csv``
+    and key ``weak_indications``), the ``detectability`` of each planned work, its
+    ``detectability_method`` and the ``threshold_override`` record.
+    """
     def say(message):
         if progress is not None:
             progress(message)
@@ -216,6 +240,11 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
     rows = void_table_rows(analysis.bodies)
     written.append(write_csv_atomic(out / "voids.csv", VOID_TABLE_COLUMNS,
                                     ([_csv_value(r[c]) for c in VOID_TABLE_COLUMNS] for r in rows)))
+    if detectability is None:
+        detectability = assess_detectability(data, analysis)
+    weak_rows = weak_indication_rows(detectability.weak_indications)
+    written.append(write_csv_atomic(out / "weak_indications.csv", WEAK_INDICATION_COLUMNS,
+                                    ([_csv_value(r[c]) for c in WEAK_INDICATION_COLUMNS] for r in weak_rows)))
     screening_rows = [{c: getattr(e, c) for c in SCREENING_COLUMNS} for e in screening]
     written.append(write_csv_atomic(out / "screening.csv", SCREENING_COLUMNS,
                                     ([_csv_value(r[c]) for c in SCREENING_COLUMNS] for r in screening_rows)))
@@ -241,7 +270,8 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
 
     picture_list, rendering = [], "pictures not requested (--no-pictures)"
     if pictures:
-        picture_list, rendering = _draw_pictures(data, analysis, ground_mesh, voids_mesh, max_pictures, written, say)
+        picture_list, rendering = _draw_pictures(data, analysis, detectability, ground_mesh, voids_mesh,
+                                                 max_pictures, written, say)
     _remove_stale_pictures(out / "pictures", {out / p["file"] for p in picture_list})
 
     ground_k = petro["relative_permittivity"][data.ground]
@@ -254,10 +284,15 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
         "counts": {
             "resolved": sum(b.status == STATUS_RESOLVED for b in analysis.bodies),
             "unresolved": sum(b.status != STATUS_RESOLVED for b in analysis.bodies),
+            "weak_indications": len(detectability.weak_indications),
         },
+        "threshold_override": detectability.threshold_override.as_dict(),
         "method": analysis.parameters,
         "depth_slabs": analysis.slabs,
         "bodies": rows,
+        "weak_indications": weak_rows,
+        "detectability": detectability_rows(detectability),
+        "detectability_method": detectability.method,
         "screening": {"note": SCREENING_NOTE, "options": parameters.get("screening", {}), "ranked": screening_rows},
         "petrophysics": {
             "relation": "K = (c/v)^2 (low-loss); theta by Topp et al. (1980)",
@@ -269,7 +304,7 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
         "mine_planning": _mine_planning_note(stl_precision_m(voids_mesh)),
         "rendering": rendering,
         "pictures": picture_list,
-        "notes": list(data.notes) + list(analysis.notes),
+        "notes": list(data.notes) + list(analysis.notes) + list(detectability.notes),
     }
     written.append(write_json_atomic(out / "voids.json", content))
     drawings = {f"planned_works_dxf[{i}]": d.path for i, d in enumerate(data.site.planned_works_dxf)}

@@ -360,14 +360,14 @@ def _draw_no_rays(axes, no_rays, extent):
         axes.contourf(xs, ys, stepped, levels=[0.5, 1.5], colors="none", hatches=[colours.NO_RAYS_HATCH])
 
 
-def _key_entries(outline_shown, outline_colour, fill_words, no_rays_shown, ground_shown, works_shown):
-    """Key entries for only the things a slice shows."""
+def _key_entries(outline_shown, outline_colour, fill_words, no_rays_shown, ground_shown, works_shown, what="body"):
+    """Key entries for only the things a slice shows; ``what`` names the outlined thing."""
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
     entries = []
     if outline_shown:
-        entries.append((Line2D([], [], color=outline_colour, lw=1.8), f"outline of the body ({fill_words})"))
+        entries.append((Line2D([], [], color=outline_colour, lw=1.8), f"outline of the {what} ({fill_words})"))
     if no_rays_shown:
         entries.append((Patch(facecolor=colours.NO_RAYS_VEIL_COLOUR, edgecolor=colours.NO_RAYS_HATCH_COLOUR,
                               hatch=colours.NO_RAYS_HATCH), "no ray crossed these cells"))
@@ -438,15 +438,25 @@ def _work_lines(works, window_xy):
     return lines
 
 
-def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works=()) -> bytes:
+def slice_pictures(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works=(),
+                   *, what: str = "body", label: int | None = None) -> bytes:
     """PNG bytes of :func:`slice_figure`."""
     from reconstruct.report.html import figure_png
 
-    return figure_png(slice_figure(grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works))
+    return figure_png(slice_figure(grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works,
+                                   what=what, label=label))
 
 
-def slice_figure(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works=()):
+def slice_figure(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surface_m, body, works=(),
+                 *, what: str = "body", label: int | None = None):
     """A matplotlib figure of a plan slice and an east-west section through a body's centroid.
+
+    ``body`` is a :class:`reconstruct.interpret.bodies.VoidBody` or any object
+    with ``centroid_m``, ``bbox_min_m``, ``bbox_max_m`` and ``fill``, such as a
+    :class:`reconstruct.interpret.detectability.WeakIndication`; its cells are
+    those where ``labels == label`` (default ``body.body_id``) and ``what``
+    names it in the titles and the key (default "body": "Body 3"; "weak
+    indication": "Weak indication 2").
 
     One picture, plan above section, both around the body (:func:`_window`)
     and drawn to the same scale (the same horizontal extent, equal aspect and
@@ -470,7 +480,9 @@ def slice_figure(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surfa
     wx, wy, wz = _window(grid, body)
     edges = [grid.edges_m(a) for a in range(3)]
     ex, ey, ez = edges[0][wx.start:wx.stop + 1], edges[1][wy.start:wy.stop + 1], edges[2][wz.start:wz.stop + 1]
-    inside = labels == body.body_id
+    label = body.body_id if label is None else label
+    name = f"{what[0].upper()}{what[1:]} {label}"
+    inside = labels == label
     air = body.fill == FILL_AIR
     outline_colour = FAST_COLOUR if air else SLOW_COLOUR
     fill_words = "air-filled: faster than the rock" if air else "water- or clay-filled: slower than the rock"
@@ -479,12 +491,12 @@ def slice_figure(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surfa
     plan = dict(values=velocity[wx, wy, iz], covered=covered[wx, wy, iz], outline=inside[wx, wy, iz],
                 extent=plan_extent, works=_work_lines(works, plan_extent),
                 labels=("x east (m)", "y north (m)",
-                        f"Body {body.body_id}: plan at z = {grid.centres_m(2)[iz]:.1f} m elevation"))
+                        f"{name}: plan at z = {grid.centres_m(2)[iz]:.1f} m elevation"))
     section = dict(values=velocity[wx, iy, wz], covered=covered[wx, iy, wz], outline=inside[wx, iy, wz],
                    extent=section_extent,
                    ground_line=(grid.centres_m(0)[wx], np.asarray(surface_m)[wx, iy]),
                    labels=("x east (m)", "z elevation (m)",
-                           f"Body {body.body_id}: section west-east at y = {grid.centres_m(1)[iy]:.1f} m, "
+                           f"{name}: section west-east at y = {grid.centres_m(1)[iy]:.1f} m, "
                            "looking north"))
     figure = Figure(figsize=(7.5, 8.0), layout="constrained")
     plan_axes, section_axes = figure.subplots(
@@ -495,7 +507,8 @@ def slice_figure(grid: Grid, velocity_m_per_ns, ground, ray_count, labels, surfa
         shown = {k: shown.get(k, False) or v for k, v in flags.items()}
     plan_axes.tick_params(labelbottom=True)
     map_marks.draw_north_arrow(plan_axes)
-    map_marks.draw_key(figure, _key_entries(outline_colour=outline_colour, fill_words=fill_words, **shown),
+    map_marks.draw_key(figure, _key_entries(outline_colour=outline_colour, fill_words=fill_words, what=what,
+                                            **shown),
                        loc="outside lower center", fontsize=8)
     figure.colorbar(image, ax=[plan_axes, section_axes], shrink=0.6).set_label(
         "velocity (m/ns): dark blue slow, yellow fast")

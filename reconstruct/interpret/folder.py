@@ -8,15 +8,22 @@ folder:
 ============================  ==================================================
 ``voids.csv``, ``voids.json``  the void table (``voids.json`` also holds the
                                threshold and resolution per depth, the
-                               screening, the cautions and the rendering note)
+                               screening, the cautions, the rendering note,
+                               the weak indications, the ``detectability``
+                               of each planned work and the
+                               ``threshold_override`` record)
+``weak_indications.csv``       anomalies past the noise floor but short of
+                               the detection threshold
+                               (:mod:`reconstruct.interpret.detectability`)
 ``screening.csv``              the ranked screening list with reasons
 ``interpretation.vti``         the cube with petrophysics, background, anomaly
                                and body ids
 ``voids.vtp``, ``ground.vtp``  isosurfaces of the bodies (cell array
                                ``body_id``) and the ground surface
 ``pictures/*.png``             oblique 3D view (when off-screen rendering
-                               works) and plan and section slices per void
-                               (``body_N_slices.png``)
+                               works) and plan and section slices per body
+                               and weak indication (``body_N_slices.png``,
+                               ``indication_N_slices.png``)
 ``voids.dxf``, ``voids.obj``,  for mine-planning software: the bodies as DXF
 ``voids.stl``,                 3D faces, OBJ and STL, and the cube as a block
 ``block_model.csv``            model (see ``reconstruct.report.exchange``)

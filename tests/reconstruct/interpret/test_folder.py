@@ -38,7 +38,8 @@ def test_voids_command_writes_the_table_meshes_and_manifest(make_inversion_folde
     assert main(["voids", str(folder), "--no-pictures", "--quiet"]) == 0
     out = capsys.readouterr().out
     assert "voids: 1," in out and "not a design" in out
-    for name in ("voids.csv", "voids.json", "screening.csv", "interpretation.vti", "voids.vtp", "ground.vtp"):
+    for name in ("voids.csv", "voids.json", "weak_indications.csv", "screening.csv", "interpretation.vti",
+                 "voids.vtp", "ground.vtp"):
         assert (folder / name).is_file(), name
     # inputs untouched (the manifest is extended, not an input)
     after = _hashes(folder)
@@ -64,7 +65,8 @@ def test_voids_command_writes_the_table_meshes_and_manifest(make_inversion_folde
     for key in ("roof_thickness_m", "roof_below_work_m", "span_m", "standoff_m"):
         assert screening[0][key] == void[0][key], key
     assert content["screening"]["ranked"][0]["body_id"] == int(void[0]["body_id"])
-    assert content["counts"] == {"resolved": 1, "unresolved": content["counts"]["unresolved"]}
+    assert content["counts"] == {"resolved": 1, "unresolved": content["counts"]["unresolved"],
+                                 "weak_indications": len(content["weak_indications"])}
     manifest = json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
     assert manifest["command"] == "voidcube reconstruct invert"
     assert manifest["later_runs"][-1]["command"] == "voidcube reconstruct voids"

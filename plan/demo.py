@@ -320,8 +320,8 @@ def _write_model(result, model_dir: Path, inputs: dict, pictures: bool, say) -> 
     summary, content = write_processing(result, model_dir, inputs=inputs, parameters=parameters,
                                         started=utc_now_iso(), command="voidcube demo (inversion and voids)",
                                         pictures=pictures, progress=say)
-    say(f"{content['counts']['resolved']} voids, {content['counts']['unresolved']} unresolved "
-        f"indications; {content['rendering']}")
+    say(f"{content['counts']['resolved']} voids, {content['counts']['unresolved']} unresolved bodies, "
+        f"{content['counts']['weak_indications']} weak indications; {content['rendering']}")
     return summary
 
 

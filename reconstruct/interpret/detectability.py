@@ -63,9 +63,10 @@ FWHM ``w`` is our choice (no published source), and a cautious one: on the
 demo site (invented truth) it predicts a peak of 1.7 ns/m for the 147 m^3
 air-filled cavity that the bent-ray inversion shows at 4.5 ns/m, and
 0.38 ns/m for the 198 m^3 clay-filled pocket that it shows at 0.57 ns/m, so
-the smallest detectable sizes it gives are, if anything, too large. The first factor is the contrast:
-``|s1 - s0|`` for an air-filled void (first arrivals run through a fast
-body). A slow body is avoided: the first arrival goes around it as soon as
+the smallest detectable sizes it gives are, if anything, too large.
+
+The first factor is the contrast: ``|s1 - s0|`` for an air-filled void
+(first arrivals run through a fast body). A slow body is avoided: the first arrival goes around it as soon as
 the detour is quicker than the way through, so its delay is at most ``s0``
 times the detour around a sphere centred between transmitter and receiver
 (``L`` apart, the median pick distance; tangents plus arc, plain geometry;

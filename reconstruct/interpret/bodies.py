@@ -735,6 +735,11 @@ def void_table_rows(bodies) -> list[dict]:
 
     Distances to planned works are None when the site has none (or, for
     ``roof_below_work_m``, when no work lies over the body in plan).
+    ``tier`` is :func:`body_tier` of the status; ``strength_noise_floors``
+    the peak anomaly over the noise floor of its depth slab (None when the
+    body carries no noise floor); ``size_up_to_m`` the resolution at its
+    depth for an unresolved body (None for a void); ``lower_bound`` true for
+    a slow body; ``size_words`` from :func:`size_words`.
     """
     rows = []
     for b in bodies:

@@ -630,6 +630,11 @@ def assess_detectability(inversion, analysis, *, margin_m: float = ZONE_MARGIN_M
                                  "their peak"),
         "weak_indication_floors": floors,
         "weak_indications_expected_from_noise": expected,
+        "weak_indications_words": (
+            f"{len(weak)} weak indication{'' if len(weak) == 1 else 's'} past {floors:g} noise floors but below "
+            f"the detection threshold; pure noise of this cube's smoothness would give about {expected:.1f}. "
+            "A weak indication is a place to look again (another layout, a probe hole), not a finding; its "
+            "size is not known beyond 'up to about the resolution'."),
         "per_depth_slab": [{"depth_from_m": s["depth_from_m"], "depth_to_m": s["depth_to_m"],
                             "noise_floor_ns_per_m": float(f), "smallest_void_across_m": _finite(a),
                             "smallest_slow_body_across_m": _finite(b)}

@@ -283,7 +283,9 @@ def test_empty_tables_never_read_as_a_verdict_and_a_body_in_the_zone_is_named():
     data = _inversion(site, rays)
     empty = find_voids(data.grid, data.velocity_m_per_ns, data.ground, rays, data.surface_m, frequency_mhz=100.0,
                        path_length_m=25.0, rms_ns=0.5, planned_works=site.planned_works)
-    row, = detectability_rows(assess_detectability(data, empty))
+    assessed = assess_detectability(data, empty)
+    row, = detectability_rows(assessed)
+    assert assessed.method["weak_indications_words"].startswith("0 weak indications past 2 noise floors")
     assert row["covered_percent"] == 100.0
     assert row["words"].startswith(f"No void larger than {row['smallest_void_m3']:.0f} m^3")
     assert "found in the covered 100 % of this zone; 0 % not covered" in row["words"]

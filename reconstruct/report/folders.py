@@ -14,7 +14,7 @@ import numpy as np
 
 from reconstruct.interpret.bodies import STATUS_RESOLVED, VOID_TABLE_COLUMNS, void_table_rows
 from reconstruct.interpret.folder import InversionFolder
-from reconstruct.interpret.screening import SCREENING_COLUMNS, SCREENING_NOTE
+from reconstruct.interpret.screening import RANKING_RULE, SCREENING_COLUMNS, SCREENING_NOTE
 from reconstruct.inverse.straight import TomographyRun, run_summary
 from reconstruct.io.outputs import (
     build_manifest,
@@ -258,7 +258,8 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
         "method": analysis.parameters,
         "depth_slabs": analysis.slabs,
         "bodies": rows,
-        "screening": {"note": SCREENING_NOTE, "options": parameters.get("screening", {}), "ranked": screening_rows},
+        "screening": {"note": SCREENING_NOTE, "rule": RANKING_RULE, "options": parameters.get("screening", {}),
+                      "ranked": screening_rows},
         "petrophysics": {
             "relation": "K = (c/v)^2 (low-loss); theta by Topp et al. (1980)",
             "caution": SOIL_FIT_CAUTION,

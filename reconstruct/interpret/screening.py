@@ -398,9 +398,12 @@ def _body_box_m(b, fig):
 
 
 def _holes_met(b, fig, planned_works, standoff_m: float):
-    """``(text, nearest distance m or None, any met)``: holes whose charged column or subdrill come near."""
+    """Holes whose charged column or subdrill zone come near a body.
+
+    Returns ``(text, nearest distance m or None, the nearest hole's name, any met)``.
+    """
     lo, hi = _body_box_m(b, fig)
-    near, nearest, met = [], None, False
+    near, nearest, nearest_name, met = [], None, None, False
     for work in planned_works:
         if not work.has_holes:
             continue
@@ -411,7 +414,8 @@ def _holes_met(b, fig, planned_works, standoff_m: float):
                else np.full(len(xy), np.inf))
         for hole, dc, ds in zip(work.holes, charge, sub):
             d = min(dc, ds)
-            nearest = d if nearest is None else min(nearest, d)
+            if nearest is None or d < nearest:
+                nearest, nearest_name = d, f"{hole.id} ({work.name})"
             if d > standoff_m:
                 continue
             part = "charged column" if dc <= ds else "subdrill zone"
@@ -419,7 +423,7 @@ def _holes_met(b, fig, planned_works, standoff_m: float):
             met = met or meets
             near.append((d, f"{hole.id} ({work.name}): {part} " + ("meets it" if meets else f"{d:.1f} m from it")))
     near.sort(key=lambda item: item[0])
-    return "; ".join(text for _, text in near), nearest, met
+    return "; ".join(text for _, text in near), nearest, nearest_name, met
 
 
 def _crown_words(cs, sc, fos, cls, options, at_least) -> str:
@@ -435,7 +439,7 @@ def _crown_words(cs, sc, fos, cls, options, at_least) -> str:
             f"over scaled span {shown}); {cls.words()}")
 
 
-def _reasons(b, fig, cs, sc, thickness, options, holes_text) -> tuple[list, int]:
+def _reasons(b, fig, cs, sc, thickness, options, holes) -> tuple[list, int]:
     """Plain-language reasons for a body's place and the number of concerns."""
     kind = ("air-filled (faster than the rock)" if b.fill == FILL_AIR
             else "water- or clay-filled (slower than the rock)")
@@ -461,9 +465,14 @@ def _reasons(b, fig, cs, sc, thickness, options, holes_text) -> tuple[list, int]
     elif fig["c_standoff"] is not None and fig["c_standoff"] < CLOSE_STANDOFF_SPANS * fig["c_span"]:
         concerns += 1
         reasons.append(f"it is {fig['c_standoff']:.1f} m from '{b.nearest_work}', closer than its own span")
+    holes_text, nearest_hole, nearest_name, _ = holes
     if holes_text:
         concerns += 1
         reasons.append(f"blast holes within {options.hole_standoff_m:g} m: {holes_text}")
+    elif nearest_hole is not None and nearest_hole < CLOSE_STANDOFF_SPANS * fig["c_span"]:
+        concerns += 1
+        reasons.append(f"blast hole {nearest_name} comes within {nearest_hole:.1f} m of it, closer than its own "
+                       "span")
     if b.status != STATUS_RESOLVED:
         reasons.append("below the resolution at its depth: confirm or rule out by drilling if near works")
     reasons.append(f"confidence {b.confidence}; sizes: {fig['bounds']}")
@@ -479,8 +488,11 @@ def _screen_one(b, options: ScreeningOptions, planned_works) -> dict:
     sc = critical_span_m(options.rock_mass_q) if options.rock_mass_q is not None else None
     fos = crown_factor_of_safety(sc, cs) if sc is not None else None
     cls = crown_class(fos) if fos is not None else None
-    holes_text, nearest_hole, met = _holes_met(b, fig, planned_works, options.hole_standoff_m)
-    reasons, concerns = _reasons(b, fig, cs, sc, thickness, options, holes_text)
+    holes = _holes_met(b, fig, planned_works, options.hole_standoff_m)
+    holes_text, nearest_hole, _, met = holes
+    reasons, concerns = _reasons(b, fig, cs, sc, thickness, options, holes)
+    crown = _crown_words(cs, sc, fos, cls, options, fig["at_least"])
+    reasons.insert(-1, crown if sc is not None else "factor of safety not given (Q not known)")
     distance = fig["c_standoff"] if fig["c_standoff"] is not None else math.inf
     if met or (fig["c_below"] is not None and fig["c_below"] <= 0):
         distance = 0.0
@@ -493,7 +505,7 @@ def _screen_one(b, options: ScreeningOptions, planned_works) -> dict:
         bounds=fig["bounds"], cautious_roof_m=thickness, cautious_span_m=fig["c_span"],
         cautious_width_m=fig["c_width"], cautious_length_m=fig["c_length"], extent_at_least=fig["at_least"],
         scaled_span_m=cs, critical_span_m=sc, crown_fos=fos, crown_class=cls.letter if cls else None,
-        crown_assessment=_crown_words(cs, sc, fos, cls, options, fig["at_least"]),
+        crown_assessment=crown,
         standoff_m=fig["standoff"], cautious_standoff_m=fig["c_standoff"], nearest_work=b.nearest_work,
         holes_met=holes_text, nearest_hole_m=nearest_hole, concerns=concerns, reasons="; ".join(reasons))
     band = math.floor(distance / RANKING_BAND_M) if math.isfinite(distance) else math.inf

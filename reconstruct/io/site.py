@@ -143,6 +143,7 @@ _BLAST_KEYS = ("hole_depth_m", "subdrill_m", "holes", "burden_m", "spacing_m")
 _BLAST_HOLE_KEYS = ("id", "collar_m")
 _ZONE_KEYS = ("name", "polygon_m", "reason")
 _DXF_KEYS = ("file", "units", "offset_m", "layers")
+_DXF_OPTIONAL_KEYS = ("hole_depth_m", "subdrill_m")
 
 # Where each key belongs, to tell a user who put a key in the wrong section.
 _SECTION_OF = {
@@ -1529,7 +1530,7 @@ def _parse_drawings(value, chk: _Checker, base_dir: Path) -> list:
     drawings = []
     for i, item in enumerate(chk.items(value, "planned_works_dxf")):
         path = f"planned_works_dxf[{i}]"
-        sec = chk.section(item, path, _DXF_KEYS, _DXF_KEYS)
+        sec = chk.section(item, path, _DXF_KEYS + _DXF_OPTIONAL_KEYS, _DXF_KEYS)
         if sec is None:
             continue
         file = chk.text(sec.get("file", _MISSING), f"{path}.file", what="a file path")
@@ -1539,8 +1540,15 @@ def _parse_drawings(value, chk: _Checker, base_dir: Path) -> list:
                                otherwise="give the unit the drawing was made in")
         offset = chk.vector(sec.get("offset_m", _MISSING), f"{path}.offset_m")
         layers = _parse_layer_kinds(sec.get("layers", _MISSING), f"{path}.layers", chk)
-        if None not in (file, units, offset, layers) and units is not _MISSING:
-            drawings.append(DxfDrawing(base_dir / file, units, offset, layers, key=path))
+        depth = chk.number(sec.get("hole_depth_m", _MISSING), f"{path}.hole_depth_m", lo=0.0, lo_open=True,
+                           unit="m", fix="give the depth of the blast holes drawn as POINT collars")
+        subdrill = chk.number(sec.get("subdrill_m", 0.0), f"{path}.subdrill_m", lo=0.0, unit="m")
+        if "subdrill_m" in sec and "hole_depth_m" not in sec:
+            chk.add(f"{path}.subdrill_m needs {path}.hole_depth_m (the depth of the blast holes); add it")
+        if None not in (file, units, offset, layers, subdrill) and units is not _MISSING and (
+                depth is not None or "hole_depth_m" not in sec):
+            drawings.append(DxfDrawing(base_dir / file, units, offset, layers, key=path, hole_depth_m=depth,
+                                       subdrill_m=subdrill))
     return drawings
 
 

@@ -285,3 +285,12 @@ def test_columns_follow_the_entry_and_carry_the_new_figures():
 def test_bad_hole_standoff_names_the_field():
     with pytest.raises(InputError, match="hole_standoff_m"):
         ScreeningOptions(hole_standoff_m=-1.0)
+
+
+def test_a_hole_beyond_the_standoff_but_closer_than_the_span_is_named():
+    # body box x -3..3, y -2..2, z 78..82, span 7.2 m; hole 6 m east of the box, charge reaching 82 m
+    entry = screen_voids([_body()], planned_works=[_pattern([("H5", (9.0, 0.0, 94.0))])])[0]
+    assert entry.holes_met == "" and entry.nearest_hole_m == pytest.approx(6.0)
+    assert "blast hole H5 (next blast) comes within 6.0 m of it, closer than its own span" in entry.reasons
+    far = screen_voids([_body()], planned_works=[_pattern([("H6", (12.0, 0.0, 94.0))])])[0]
+    assert "H6" not in far.reasons and far.nearest_hole_m == pytest.approx(9.0)

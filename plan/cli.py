@@ -233,7 +233,17 @@ def _run_layout(site, args, out: Path, say) -> tuple[list, Path]:
     print(f"layout: {len(layout)} of {options.budget} nodes ({counts['borehole']} in holes, {counts['face']} on "
           f"faces, {counts['surface']} on the surface; spacing {spacing or 'none'}); "
           f"{len(candidates)} candidate positions")
+    _warn_blast_holes(site, layout.ids, layout.xyz_m)
     return written, nodes_path
+
+
+def _warn_blast_holes(site, ids, xyz_m) -> None:
+    """Print the warning about nodes placed in blast holes (radio near explosives), if any."""
+    from plan.layout.blast_holes import blast_hole_warning
+
+    warning = blast_hole_warning(site, ids, xyz_m)
+    if warning:
+        print(f"WARNING: {warning}")
 
 
 def _run_pairs(site, nodes, args, out: Path, say, *, write=True):
@@ -654,6 +664,7 @@ def _cmd_optimise(args) -> int:
           f"(gain {result.gain:+.4f}; {summary['swaps']} swaps, {summary['adds']} adds; {result.stop_reason})")
     print(f"on the model grid: covered {100 * full_start.covered_fraction:.1f} % -> "
           f"{100 * full_end.covered_fraction:.1f} % of the target volume")
+    _warn_blast_holes(site, [r[0] for r in rows], np.asarray(pool_xyz)[result.selected])
     print(f"output: {out}")
     return 0
 
@@ -694,6 +705,7 @@ def _cmd_report(args) -> int:
     inputs.update({name: str(folder / name) for name in used})
     _write_manifest(folder, "voidcube plan report", inputs, args, written, started)
     _print_coverage(coverage, folder)
+    _warn_blast_holes(site, nodes.ids, xyz)
     print(f"report: {folder / 'plan_report.html'}" + (f" (also shows {', '.join(used)})" if used else ""))
     return 0
 

@@ -31,6 +31,7 @@ from reconstruct.report.html import (escape, figure_png, hole_deviation_html, ht
                                    table_html)
 
 from plan.assess.coverage import Coverage
+from plan.layout.blast_holes import blast_hole_warning
 
 __all__ = ["plan_report_html", "air_wave_warning", "AIR_WAVE_MOST", "flatten_summary", "summary_rows", "find_label", "unlabelled_keys", "read_mesh_links", "OTHER_SUMMARIES", "OTHER_TABLES",
            "PAIR_GRAPH_LABELS", "MESH_LABELS", "SCHEDULE_LABELS", "OPTIMISE_LABELS"]
@@ -615,6 +616,9 @@ def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> t
     warning = air_wave_warning(pairs_summary) if isinstance(pairs_summary, dict) else None
     if warning:
         body.append(f"<h2>Warning</h2><p>{escape(warning[0].upper() + warning[1:])}.</p>")
+    in_holes = blast_hole_warning(site, ids, xyz)
+    if in_holes:
+        body.append(f'<div class="cautions"><h2>Warning: nodes in blast holes</h2><p>{escape(in_holes)}</p></div>')
     body.append("<h2>Layout</h2>")
     body.append(png_img_html(figure_png(_layout_map(site, coverage, ids, xyz, kinds, links)),
                              alt="plan view of the nodes, planned works and exclusion zones",

@@ -355,7 +355,7 @@ def _void_settings(args):
     return ProcessingSettings(
         voids=VoidOptions(sigmas=args.threshold_sigmas, false_alarm=args.false_alarm),
         screening=ScreeningOptions(specific_gravity=args.specific_gravity, dip_deg=args.wall_dip_deg,
-                                rock_mass_q=args.rock_mass_q))
+                                rock_mass_q=args.rock_mass_q, hole_standoff_m=args.hole_standoff))
 
 
 def _cmd_voids(args) -> int:
@@ -482,8 +482,11 @@ def _add_voids_parser(sub):
                    help=f"dip of the void walls for the scaled span, degrees (default {h.dip_deg:g}, the "
                         "cautious value)")
     p.add_argument("--rock-mass-q", type=float, default=h.rock_mass_q, metavar="Q",
-                   help="rock mass quality Q of the crown (dimensionless); when given, the critical span is "
-                        "compared")
+                   help="rock mass quality Q of the crown (dimensionless); when given, the critical span, the "
+                        "crown factor of safety and its acceptance class (Carter 2014) are reported")
+    p.add_argument("--hole-standoff", type=float, default=h.hole_standoff_m, metavar="M",
+                   help="list the blast holes whose charged column or subdrill comes within this distance of "
+                        f"a body, metres (default {h.hole_standoff_m:g}, about one burden)")
     p.add_argument("--no-pictures", action="store_true", help="write tables and meshes but no PNG pictures")
     p.add_argument("--max-pictures", type=int, default=20, metavar="N",
                    help="draw plan and section slices for at most N voids (default 20)")

@@ -379,4 +379,5 @@ def interpretation_parameters(settings: ProcessingSettings, site_path, pictures:
             "site": str(site_path), "pictures": pictures, "max_pictures": max_pictures,
             "screening": {"specific_gravity": settings.screening.specific_gravity,
                        "wall_dip_deg": settings.screening.dip_deg,
-                       "rock_mass_q": settings.screening.rock_mass_q}}
+                       "rock_mass_q": settings.screening.rock_mass_q,
+                       "hole_standoff_m": settings.screening.hole_standoff_m}}

@@ -409,7 +409,19 @@ def _plan_extent(grid: Grid, columns):
 
 
 def _work_points_m(work: PlannedWork, spacing_m: float):
-    """Points along a polyline, or over a polygon (interior lattice and outline), m."""
+    """Points along a polyline, or over a polygon (interior lattice and outline), m.
+
+    A blast pattern whose holes are known is its holes instead, each from
+    the collar down to the toe (charged column and subdrill): distances to it
+    are to the holes, not to the outline on the bench floor.
+    """
+    if work.has_holes:
+        columns = work.hole_columns_m()
+        n = max(int(np.ceil((columns[:, 0] - columns[:, 2]).max() / spacing_m)), 1)
+        t = np.linspace(0.0, 1.0, n + 1)
+        z = columns[:, :1] + t[None, :] * (columns[:, 2:] - columns[:, :1])
+        xy = np.array([h.collar_m[:2] for h in work.holes], dtype=float)
+        return np.column_stack([np.repeat(xy, n + 1, axis=0), z.ravel()])
     pts = np.asarray(work.points_m, dtype=float)
     if work.geometry == "polygon":
         pts = np.vstack([pts, pts[:1]])

@@ -275,7 +275,7 @@ def screen_folder(data: InversionFolder, void_options=VoidOptions(), screening_o
         data.grid, data.velocity_m_per_ns, data.ground, data.ray_count, data.surface_m,
         frequency_mhz=data.site.rock.antenna_frequency_mhz, path_length_m=data.path_length_m,
         rms_ns=data.rms_ns, planned_works=data.site.planned_works, options=void_options)
-    return analysis, screen_voids(analysis.bodies, screening_options)
+    return analysis, screen_voids(analysis.bodies, screening_options, data.site.planned_works)
 
 
 

@@ -19,11 +19,14 @@ Entities read from the model space of a mapped layer:
     A ``polyline`` work of two points. On a ``blast_pattern`` layer a line is
     one blast hole from its collar (the higher end) to its toe.
 ``POINT``
-    On a ``blast_pattern`` layer only: hole collars. A planned work cannot
-    hold single holes yet, so the points of one layer become one ``polygon``
-    work, the outline (convex hull in plan) of the collars, each corner at its
-    collar's elevation; the depth of the holes is not known from points (draw
-    holes as LINEs from collar to toe to keep it).
+    On a ``blast_pattern`` layer only: hole collars. The points of one layer
+    become one ``polygon`` work, the outline (convex hull in plan) of the
+    collars, each corner at its collar's elevation. The depth of the holes is
+    not known from points: when the drawing's entry gives ``hole_depth_m``
+    (and optionally ``subdrill_m``), each point becomes a vertical blast hole
+    of the work, named by its handle, and screening checks along the holes;
+    otherwise the work is the outline only (or draw holes as LINEs from collar
+    to toe).
 
 A layer not in the mapping is skipped with a note. Layer names are compared
 without regard to case, as CAD programs do. Every problem names the file, the
@@ -52,7 +55,7 @@ import numpy as np
 
 from reconstruct.errors import InputError
 from reconstruct.io.outputs import atomic_path
-from reconstruct.io.site import PlannedWork
+from reconstruct.io.site import BlastHole, PlannedWork
 
 __all__ = [
     "DXF_UNITS",
@@ -107,6 +110,11 @@ class DxfDrawing:
         Layer name and the kind of planned work its entities are.
     key : str
         Where the entry sits in the site file (``planned_works_dxf[0]``), for messages.
+    hole_depth_m : float or None
+        Depth of the blast holes whose collars are drawn as POINTs, m (the
+        entry's ``hole_depth_m``); None when not given.
+    subdrill_m : float
+        Their drilling below ``hole_depth_m``, m (the entry's ``subdrill_m``).
     """
 
     path: Path
@@ -114,6 +122,8 @@ class DxfDrawing:
     offset_m: tuple[float, float, float]
     layers: tuple[tuple[str, str], ...]
     key: str = "planned_works_dxf[0]"
+    hole_depth_m: float | None = None
+    subdrill_m: float = 0.0
 
     @property
     def metres_per_unit(self) -> float:
@@ -434,12 +444,23 @@ def _collar_outline(reading: _Reading, layer: str, collars) -> None:
         corners = points_m[[int(np.argmin(along)), int(np.argmax(along))]]
         geometry = "polyline"
     name = f"{reading.drawing.path.name} {layer} blast-hole collars"
-    reading.works.append(PlannedWork(name, "blast_pattern", geometry,
-                                     tuple(tuple(float(v) for v in p) for p in corners)))
+    outline = tuple(tuple(float(v) for v in p) for p in corners)
+    drawing = reading.drawing
+    if drawing.hole_depth_m is not None:
+        holes = tuple(BlastHole(e.dxf.handle, tuple(float(v) for v in p)) for e, p in collars)
+        reading.works.append(PlannedWork(name, "blast_pattern", geometry, outline, drawing.hole_depth_m,
+                                         drawing.subdrill_m, holes))
+        reading.notes.append(
+            f"{reading.where}: layer {layer!r}: {len(collars)} hole collars (POINT, handles {handles}) kept as "
+            f"vertical blast holes {drawing.hole_depth_m:g} m deep with {drawing.subdrill_m:g} m of subdrill "
+            f"(from {drawing.key}.hole_depth_m and subdrill_m), named by their handles")
+        return
+    reading.works.append(PlannedWork(name, "blast_pattern", geometry, outline))
     reading.notes.append(
         f"{reading.where}: layer {layer!r}: {len(collars)} hole collars (POINT, handles {handles}) kept as "
         f"the outline of the blast pattern at collar elevation; the holes' depth is not known from "
-        "points and not used yet (draw holes as LINEs from collar to toe to screen along them)")
+        f"points: give {drawing.key}.hole_depth_m (and subdrill_m) to screen along the holes, or draw "
+        "holes as LINEs from collar to toe")
 
 
 def write_faces_dxf(path, faces_by_layer: dict, *, title: str = "") -> Path:

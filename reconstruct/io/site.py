@@ -88,7 +88,9 @@ __all__ = [
     "GroundSurface",
     "Rock",
     "Borehole",
+    "BlastHole",
     "PlannedWork",
+    "blast_grid_holes",
     "ExclusionZone",
     "RadarSystem",
     "RadioNetwork",
@@ -135,9 +137,13 @@ _BOREHOLE_KEYS = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m", "kind"
 _BOREHOLE_REQUIRED = ("id", "collar_m", "azimuth_deg", "dip_deg", "length_m")
 _RADAR_KEYS = ("system_performance_db", "air_ground_loss_db", "near_surface_loss_db")
 _RADIO_KEYS = ("range_m", "gateway_m")
-_WORK_KEYS = ("name", "kind", "polyline_m", "polygon_m")
+_WORK_KEYS = ("name", "kind", "polyline_m", "polygon_m", "hole_depth_m", "subdrill_m", "holes",
+              "burden_m", "spacing_m")
+_BLAST_KEYS = ("hole_depth_m", "subdrill_m", "holes", "burden_m", "spacing_m")
+_BLAST_HOLE_KEYS = ("id", "collar_m")
 _ZONE_KEYS = ("name", "polygon_m", "reason")
 _DXF_KEYS = ("file", "units", "offset_m", "layers")
+_DXF_OPTIONAL_KEYS = ("hole_depth_m", "subdrill_m")
 
 # Where each key belongs, to tell a user who put a key in the wrong section.
 _SECTION_OF = {
@@ -175,6 +181,7 @@ _HINTS = {
     "offset_m": "[x, y, z] in m added to the drawing's coordinates to reach site coordinates "
                 "([0, 0, 0] when they are the same)",
     "layers": "the drawing's layers and the kind of planned work on each, e.g. HAUL_ROAD: haul_road",
+    "hole_depth_m": "the depth of the blast holes below their collars down to the planned floor, in m",
 }
 
 
@@ -552,6 +559,14 @@ class Borehole:
 
 
 @dataclass(frozen=True)
+class BlastHole:
+    """One planned hole of a blast pattern: its name and collar (x, y, z) in metres."""
+
+    id: str
+    collar_m: tuple[float, float, float]
+
+
+@dataclass(frozen=True)
 class PlannedWork:
     """A planned excavation to check against found voids.
 
@@ -562,12 +577,90 @@ class PlannedWork:
     geometry : {'polyline', 'polygon'}
     points_m : tuple of (x, y, z)
         Vertices in metres.
+    hole_depth_m : float or None
+        Blast patterns only: depth of the holes below their collars down to
+        the planned floor, m. The *charged column* of a hole is taken from
+        its collar to this depth (the stemming is not subtracted: cautious).
+    subdrill_m : float
+        Blast patterns only: drilling below ``hole_depth_m``, m (the
+        *subdrill zone*, from ``hole_depth_m`` to ``hole_depth_m +
+        subdrill_m``); 0 by default.
+    holes : tuple of BlastHole
+        Blast patterns only: the planned holes, vertical from their collars
+        (site keys ``holes``, or ``burden_m`` and ``spacing_m`` for a grid
+        inside the outline: :func:`blast_grid_holes`). Empty for other works
+        and for a pattern planned as an area only.
     """
 
     name: str
     kind: str
     geometry: str
     points_m: tuple[tuple[float, float, float], ...]
+    hole_depth_m: float | None = None
+    subdrill_m: float = 0.0
+    holes: tuple[BlastHole, ...] = ()
+
+    @property
+    def has_holes(self) -> bool:
+        """True for a blast pattern whose holes and their depth are known."""
+        return bool(self.holes) and self.hole_depth_m is not None
+
+    def hole_columns_m(self) -> np.ndarray:
+        """Each hole as three elevations, shape (n, 3): collar, bottom of the charge, toe, m.
+
+        The holes are vertical: the charged column runs from the collar down
+        ``hole_depth_m``, the subdrill zone from there down ``subdrill_m``
+        to the toe.
+        """
+        if not self.has_holes:
+            return np.zeros((0, 3))
+        z = np.array([h.collar_m[2] for h in self.holes], dtype=float)
+        return np.column_stack([z, z - self.hole_depth_m, z - self.hole_depth_m - self.subdrill_m])
+
+
+def blast_grid_holes(polygon_m, burden_m: float, spacing_m: float) -> tuple[BlastHole, ...]:
+    """Holes of a blast pattern laid out on a burden x spacing grid inside its outline.
+
+    Rows run parallel to the outline's first edge (from its first corner to
+    its second, taken as the free face), the first row half a burden inside
+    it and each further row one burden farther in; along a row the holes
+    stand one spacing apart, the first half a spacing from the outline's end.
+    Holes outside the outline (even-odd rule) are left out. The collars lie
+    on the least-squares plane through the outline's corners (exact for a
+    flat or evenly sloping bench floor). Holes are named ``R<row>H<hole>``,
+    counted from 1 (row 1 nearest the first edge).
+
+    Parameters
+    ----------
+    polygon_m : sequence of (x, y, z)
+        The pattern's outline, m, at least three corners.
+    burden_m, spacing_m : float
+        Distance between rows and between holes in a row, m, > 0.
+
+    Returns
+    -------
+    tuple of BlastHole
+    """
+    corners = np.asarray(polygon_m, dtype=float)
+    edge = corners[1, :2] - corners[0, :2]
+    along = edge / np.linalg.norm(edge)
+    across = np.array([-along[1], along[0]])
+    rel = corners[:, :2] - corners[0, :2]
+    if (rel @ across).sum() < 0:  # point the rows into the outline
+        across = -across
+    u, v = rel @ along, rel @ across
+    design = np.column_stack([np.ones(len(corners)), corners[:, 0], corners[:, 1]])
+    plane = np.linalg.lstsq(design, corners[:, 2], rcond=None)[0]
+    holes = []
+    rows = np.arange(0.5 * burden_m, v.max(), burden_m)
+    for r, v_row in enumerate(rows, start=1):
+        u_holes = np.arange(u.min() + 0.5 * spacing_m, u.max(), spacing_m)
+        xy = corners[0, :2] + u_holes[:, None] * along + v_row * across
+        inside = points_in_polygon(xy[:, 0], xy[:, 1], corners[:, :2])
+        for k, (x, y) in enumerate(xy[inside], start=1):
+            z = plane[0] + plane[1] * x + plane[2] * y
+            holes.append(BlastHole(f"R{r}H{k:02d}", (float(x), float(y), round(float(z), 9))))
+    return tuple(holes)
 
 
 @dataclass(frozen=True)
@@ -1352,9 +1445,82 @@ def _parse_works(value, chk: _Checker) -> list[PlannedWork]:
                 chk.add(f"{path}.polygon_m has zero area (all points lie on one line); "
                         "give the corners of a real outline, or use polyline_m for a line")
                 pts = None
-        if None not in (name, kind, pts):
-            works.append(PlannedWork(name, kind, shapes[0][:-2], pts))
+        blast = _parse_blast_holes(sec, path, kind, shapes[0][:-2], pts, chk)
+        if None not in (name, kind, pts) and blast is not None:
+            works.append(PlannedWork(name, kind, shapes[0][:-2], pts, *blast))
     return works
+
+
+def _parse_blast_holes(sec: dict, path: str, kind, geometry: str, pts, chk: _Checker):
+    """``(hole_depth_m, subdrill_m, holes)`` of a planned work; None after a problem.
+
+    Only a ``blast_pattern`` may carry holes: either ``holes`` (a list of
+    ``{id, collar_m}``) or ``burden_m`` and ``spacing_m`` (a grid inside its
+    ``polygon_m``: :func:`blast_grid_holes`), with ``hole_depth_m`` and
+    optionally ``subdrill_m``.
+    """
+    given = [k for k in _BLAST_KEYS if k in sec]
+    if not given:
+        return (None, 0.0, ())
+    if kind is not None and kind != "blast_pattern":
+        chk.add(f"{path}: {', '.join(given)} belong(s) to a blast_pattern only, this work is a {kind}; "
+                "remove them or set kind: blast_pattern")
+        return None
+    n_problems = len(chk.problems)
+    depth = chk.number(sec.get("hole_depth_m", _MISSING), f"{path}.hole_depth_m", lo=0.0, lo_open=True, unit="m")
+    subdrill = chk.number(sec.get("subdrill_m", 0.0), f"{path}.subdrill_m", lo=0.0, unit="m",
+                          fix="give the drilling below the planned floor, 0 for none")
+    grid_keys = [k for k in ("burden_m", "spacing_m") if k in sec]
+    if "hole_depth_m" not in sec:
+        chk.add(f"{path}.hole_depth_m is missing; add it ({_HINTS['hole_depth_m']})")
+    if ("holes" in sec) == bool(grid_keys) or len(grid_keys) == 1:
+        layout = [k for k in ("holes", "burden_m", "spacing_m") if k in sec]
+        chk.add(f"{path}: give the blast holes either as holes (a list of {{id, collar_m}}) or as both burden_m "
+                f"and spacing_m (a grid inside polygon_m); got {' and '.join(layout) or 'neither'}")
+        return None
+    if "holes" in sec:
+        holes = _parse_hole_list(sec["holes"], f"{path}.holes", chk)
+    else:
+        burden = chk.number(sec["burden_m"], f"{path}.burden_m", lo=0.0, lo_open=True, unit="m")
+        spacing = chk.number(sec["spacing_m"], f"{path}.spacing_m", lo=0.0, lo_open=True, unit="m")
+        holes = None
+        if geometry != "polygon":
+            chk.add(f"{path}: burden_m and spacing_m lay holes out inside polygon_m; give the outline as "
+                    "polygon_m, or list the holes under holes")
+        elif None not in (burden, spacing, pts):
+            holes = blast_grid_holes(pts, burden, spacing)
+            if not holes:
+                chk.add(f"{path}: no hole of a {burden:g} m x {spacing:g} m grid falls inside polygon_m; "
+                        "check burden_m and spacing_m against the outline")
+                holes = None
+    if len(chk.problems) > n_problems or holes is None:
+        return None
+    return (depth, subdrill, holes)
+
+
+def _parse_hole_list(value, path: str, chk: _Checker):
+    """Blast holes ``[{id, collar_m}, ...]``; None after a problem."""
+    items = chk.items(value, path)
+    if not items:
+        chk.add(f"{path} is empty; list the holes as {{id: B01, collar_m: [x, y, z]}}")
+        return None
+    holes, seen, ok = [], set(), True
+    for i, item in enumerate(items):
+        sec = chk.section(item, f"{path}[{i}]", _BLAST_HOLE_KEYS, _BLAST_HOLE_KEYS)
+        if sec is None:
+            ok = False
+            continue
+        hid = chk.text(sec.get("id", _MISSING), f"{path}[{i}].id")
+        collar = chk.vector(sec.get("collar_m", _MISSING), f"{path}[{i}].collar_m")
+        if hid in seen:
+            chk.add(f"{path}[{i}].id {hid!r} repeats an earlier hole; give every hole its own id")
+            ok = False
+        seen.add(hid)
+        if None in (hid, collar):
+            ok = False
+        else:
+            holes.append(BlastHole(hid, collar))
+    return tuple(holes) if ok else None
 
 
 def _parse_drawings(value, chk: _Checker, base_dir: Path) -> list:
@@ -1364,7 +1530,7 @@ def _parse_drawings(value, chk: _Checker, base_dir: Path) -> list:
     drawings = []
     for i, item in enumerate(chk.items(value, "planned_works_dxf")):
         path = f"planned_works_dxf[{i}]"
-        sec = chk.section(item, path, _DXF_KEYS, _DXF_KEYS)
+        sec = chk.section(item, path, _DXF_KEYS + _DXF_OPTIONAL_KEYS, _DXF_KEYS)
         if sec is None:
             continue
         file = chk.text(sec.get("file", _MISSING), f"{path}.file", what="a file path")
@@ -1374,8 +1540,15 @@ def _parse_drawings(value, chk: _Checker, base_dir: Path) -> list:
                                otherwise="give the unit the drawing was made in")
         offset = chk.vector(sec.get("offset_m", _MISSING), f"{path}.offset_m")
         layers = _parse_layer_kinds(sec.get("layers", _MISSING), f"{path}.layers", chk)
-        if None not in (file, units, offset, layers) and units is not _MISSING:
-            drawings.append(DxfDrawing(base_dir / file, units, offset, layers, key=path))
+        depth = chk.number(sec.get("hole_depth_m", _MISSING), f"{path}.hole_depth_m", lo=0.0, lo_open=True,
+                           unit="m", fix="give the depth of the blast holes drawn as POINT collars")
+        subdrill = chk.number(sec.get("subdrill_m", 0.0), f"{path}.subdrill_m", lo=0.0, unit="m")
+        if "subdrill_m" in sec and "hole_depth_m" not in sec:
+            chk.add(f"{path}.subdrill_m needs {path}.hole_depth_m (the depth of the blast holes); add it")
+        if None not in (file, units, offset, layers, subdrill) and units is not _MISSING and (
+                depth is not None or "hole_depth_m" not in sec):
+            drawings.append(DxfDrawing(base_dir / file, units, offset, layers, key=path, hole_depth_m=depth,
+                                       subdrill_m=subdrill))
     return drawings
 
 

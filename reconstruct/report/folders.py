@@ -16,7 +16,7 @@ from reconstruct.interpret.bodies import STATUS_RESOLVED, VOID_TABLE_COLUMNS, vo
 from reconstruct.interpret.detectability import (WEAK_INDICATION_COLUMNS, assess_detectability, detectability_rows,
                                                  weak_indication_rows)
 from reconstruct.interpret.folder import InversionFolder
-from reconstruct.interpret.screening import SCREENING_COLUMNS, SCREENING_NOTE
+from reconstruct.interpret.screening import RANKING_RULE, SCREENING_COLUMNS, SCREENING_NOTE
 from reconstruct.inverse.straight import TomographyRun, run_summary
 from reconstruct.io.outputs import (
     build_manifest,
@@ -293,7 +293,8 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
         "weak_indications": weak_rows,
         "detectability": detectability_rows(detectability),
         "detectability_method": detectability.method,
-        "screening": {"note": SCREENING_NOTE, "options": parameters.get("screening", {}), "ranked": screening_rows},
+        "screening": {"note": SCREENING_NOTE, "rule": RANKING_RULE, "options": parameters.get("screening", {}),
+                      "ranked": screening_rows},
         "petrophysics": {
             "relation": "K = (c/v)^2 (low-loss); theta by Topp et al. (1980)",
             "caution": SOIL_FIT_CAUTION,

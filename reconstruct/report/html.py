@@ -42,9 +42,14 @@ CAUTIONS = (
     "practice; this output is a screening aid, not a design.",
     "Radar transmitters fall under local radio-spectrum rules; check the licence "
     "conditions before fieldwork.",
-    "Radio-frequency energy can fire electric detonators: where nodes sit in blast "
-    "holes, keep nodes and radios away from primed holes as the explosives rules in "
-    "force require, and never place a node in a charged or primed hole.",
+    # the standard and the guide are cited from memory (titles not checked)
+    "Radio-frequency energy can fire electric detonators. Where nodes sit in or near blast "
+    "holes, keep every node, radio and gateway at least the separation distances of the "
+    "applicable standard from charged or primed holes and from electric detonators, for "
+    "example BS 6657 (Assessment of inadvertent initiation of bridge wire electro-explosive "
+    "devices by radio-frequency radiation) or the explosives industry's guide to "
+    "radio-frequency risks with commercial electric detonators (both cited from memory); "
+    "never place a node in a charged or primed hole, and defer to the site's explosives rules.",
 )
 
 # the page colours are CSS custom properties set from reconstruct.report.colours

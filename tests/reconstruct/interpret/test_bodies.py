@@ -16,7 +16,7 @@ from scipy import ndimage
 
 from reconstruct.errors import InputError
 from reconstruct.model.grid import Grid
-from reconstruct.io.site import PlannedWork
+from reconstruct.io.site import BlastHole, PlannedWork
 from reconstruct.interpret.bodies import (
     FILL_AIR,
     FILL_WATER_OR_CLAY,
@@ -124,6 +124,28 @@ def test_box_void_under_flat_ground_roof_thickness_and_work_distances():
     assert over.nearest_work == "road over it" and over.roof_below_work_name == "road over it"
     assert over.roof_below_work_m == pytest.approx(15.0)
     assert over.standoff_m == pytest.approx(15.0)
+
+
+def test_distances_to_a_blast_pattern_are_to_its_holes_not_its_outline():
+    # the same box void (x 10-16, y 8-12, z 80-85 m) under a blast pattern whose outline lies on the
+    # bench floor 15 m above its roof; a hole over it, 12 m deep with 1 m of subdrill, ends at 87 m:
+    # plain geometry gives 2 m of rock between its toe and the roof
+    grid, ground, slowness, surface = _cube((40, 30, 45), (0, 0, 60), 100.0, 0.02, seed=7)
+    slowness[10:16, 8:12, 20:25] = 1.0 / AIR
+    outline = ((6.0, 4.0, 100.0), (20.0, 4.0, 100.0), (20.0, 16.0, 100.0), (6.0, 16.0, 100.0))
+    area = PlannedWork("blast as an area", "blast_pattern", "polygon", outline)
+    body = _find(grid, slowness, ground, surface, planned_works=(area,)).bodies[0]
+    assert body.standoff_m == pytest.approx(15.0) and body.roof_below_work_m == pytest.approx(15.0)
+    over = PlannedWork("blast with holes", "blast_pattern", "polygon", outline, 12.0, 1.0,
+                       (BlastHole("H1", (13.0, 10.0, 100.0)),))
+    body = _find(grid, slowness, ground, surface, planned_works=(over,)).bodies[0]
+    assert body.standoff_m == pytest.approx(2.0, abs=1e-6) and body.roof_below_work_m == pytest.approx(2.0)
+    # a hole 4 m east of the box, toe 2 m above the roof's level: hypot(4, 2)
+    beside = PlannedWork("blast beside", "blast_pattern", "polygon", outline, 12.0, 1.0,
+                         (BlastHole("H2", (20.0, 10.0, 100.0)),))
+    body = _find(grid, slowness, ground, surface, planned_works=(beside,)).bodies[0]
+    assert body.standoff_m == pytest.approx(math.hypot(4.0, 2.0), abs=1e-6)
+    assert math.isinf(body.roof_below_work_m)
 
 
 def test_slow_body_is_water_or_clay_and_a_small_one_is_unresolved():

@@ -153,6 +153,22 @@ def test_round_trip_gives_the_same_geometry_within_1_mm(tmp_path, units, scale, 
     assert site.planned_works_dxf[0].units == units
 
 
+def test_collar_points_become_blast_holes_with_the_depth_of_the_entry(tmp_path):
+    _draw_works(tmp_path / "works.dxf")
+    site = _load(tmp_path, {**_entry(), "hole_depth_m": 10.5, "subdrill_m": 1.0})
+    (pattern,) = [w for w in site.planned_works if "COLLARS" in w.name]
+    assert pattern.has_holes and len(pattern.holes) == len(COLLARS)
+    assert sorted(h.collar_m for h in pattern.holes) == pytest.approx(sorted(COLLARS), abs=TOL_M)
+    # collar elevation, then 10.5 m down to the end of the charge and 1 m more to the toe
+    for hole, (top, charge, toe) in zip(pattern.holes, pattern.hole_columns_m()):
+        assert (top - charge, charge - toe) == pytest.approx((10.5, 1.0))
+    assert any("vertical blast holes 10.5 m deep" in note for note in site.notes)
+    assert "planned_works_dxf[0].subdrill_m needs planned_works_dxf[0].hole_depth_m" in _message(
+        tmp_path, {**_entry(), "subdrill_m": 1.0})
+    assert "planned_works_dxf[0].hole_depth_m must be greater than 0 m (got 0)" in _message(
+        tmp_path, {**_entry(), "hole_depth_m": 0})
+
+
 def test_arcs_of_a_polyline_become_chords_on_the_circle(tmp_path):
     # a half circle of radius 5 m from (10, 20) to (20, 20): bulge = tan(180 deg / 4) = 1
     def extra(msp):

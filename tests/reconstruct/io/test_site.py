@@ -362,3 +362,72 @@ def test_duplicate_yaml_key_is_reported_with_its_line(tmp_path):
 def test_missing_file_names_the_path(tmp_path):
     with pytest.raises(InputError, match="nowhere.yaml: file not found"):
         load_site(tmp_path / "nowhere.yaml")
+
+
+# ---------------------------------------------------------------- blast patterns with holes
+
+def _blast(**keys):
+    work = {"name": "next blast", "kind": "blast_pattern",
+            "polygon_m": [[2, 1, 8], [14, 1, 8], [14, 9, 8], [2, 9, 8]]}
+    work.update(keys)
+    return _site(planned_works=[work])
+
+
+def test_blast_pattern_with_listed_holes_depth_and_subdrill(tmp_path):
+    site = load_site(_write(tmp_path, _blast(hole_depth_m=6, subdrill_m=0.8, holes=[
+        {"id": "B1", "collar_m": [4, 5, 8]}, {"id": "B2", "collar_m": [7, 5, 8]}])))
+    work = site.planned_works[0]
+    assert work.has_holes and [h.id for h in work.holes] == ["B1", "B2"]
+    # collar 8 m; the charge ends 6 m down (2 m), the subdrill 0.8 m further (1.2 m)
+    assert work.hole_columns_m().ravel().tolist() == pytest.approx([8.0, 2.0, 1.2, 8.0, 2.0, 1.2])
+
+
+def test_blast_pattern_grid_of_burden_and_spacing(tmp_path):
+    # outline x 2..14, y 1..9 (first edge along x): rows half a burden in, at y = 2, 4, 6, 8 for a
+    # 2 m burden; holes at x = 3.5, 6.5, 9.5, 12.5 for a 3 m spacing: 4 x 4 = 16 holes, counted by hand
+    site = load_site(_write(tmp_path, _blast(hole_depth_m=5, burden_m=2, spacing_m=3)))
+    work = site.planned_works[0]
+    xy = sorted((h.collar_m[0], h.collar_m[1]) for h in work.holes)
+    assert xy == [(x, y) for x in (3.5, 6.5, 9.5, 12.5) for y in (2.0, 4.0, 6.0, 8.0)]
+    assert all(h.collar_m[2] == pytest.approx(8.0) for h in work.holes) and work.subdrill_m == 0.0
+    assert work.holes[0].id == "R1H01"
+
+
+@pytest.mark.parametrize("keys, expected", [
+    ({"hole_depth_m": 6}, "planned_works[0]: give the blast holes either as holes (a list of {id, collar_m}) "
+                          "or as both burden_m and spacing_m (a grid inside polygon_m); got neither"),
+    ({"burden_m": 2, "spacing_m": 3}, "planned_works[0].hole_depth_m is missing; add it"),
+    ({"hole_depth_m": -1, "burden_m": 2, "spacing_m": 3},
+     "planned_works[0].hole_depth_m must be greater than 0 m (got -1)"),
+    ({"hole_depth_m": 6, "subdrill_m": -0.5, "burden_m": 2, "spacing_m": 3},
+     "planned_works[0].subdrill_m must be at least 0 m (got -0.5)"),
+    ({"hole_depth_m": 6, "burden_m": 2}, "got burden_m"),
+    ({"hole_depth_m": 6, "burden_m": 40, "spacing_m": 3}, "no hole of a 40 m x 3 m grid falls inside polygon_m"),
+    ({"hole_depth_m": 6, "holes": [{"id": "B1", "collar_m": [4, 5]}]},
+     "planned_works[0].holes[0].collar_m must be a list of 3 numbers [x, y, z] in m"),
+    ({"hole_depth_m": 6, "holes": [{"id": "B1", "collar_m": [4, 5, 8]}, {"id": "B1", "collar_m": [6, 5, 8]}]},
+     "planned_works[0].holes[1].id 'B1' repeats an earlier hole"),
+    ({"hole_depth_m": 6, "holes": [{"id": "B1", "colar_m": [4, 5, 8]}]},
+     "planned_works[0].holes[0].colar_m is not a known key; did you mean 'collar_m'?"),
+    ({"hole_depht_m": 6}, "planned_works[0].hole_depht_m is not a known key; did you mean 'hole_depth_m'?"),
+])
+def test_bad_blast_holes_name_the_field_and_the_fix(tmp_path, keys, expected):
+    assert expected in _message(tmp_path, _blast(**keys))
+
+
+def test_holes_only_on_a_blast_pattern(tmp_path):
+    data = _site(planned_works=[{"name": "road", "kind": "haul_road", "polyline_m": [[0, 0, 8], [9, 0, 8]],
+                                 "hole_depth_m": 6}])
+    assert ("planned_works[0]: hole_depth_m belong(s) to a blast_pattern only, this work is a haul_road; "
+            "remove them or set kind: blast_pattern") in _message(tmp_path, data)
+
+
+def test_demo_site_next_blast_has_holes_with_depth():
+    # the demo's next blast: holes of 12 m (as drilled in B07 and B12) and an invented 1 m subdrill
+    site = load_site(REFERENCE.parent / "site.yaml")
+    blast = next(w for w in site.planned_works if w.kind == "blast_pattern")
+    assert blast.hole_depth_m == 12.0 and blast.subdrill_m == 1.0
+    drilled = {b.id: b for b in site.boreholes if b.kind == "blast_hole"}
+    planned = {h.id: h for h in blast.holes}
+    for hid, hole in drilled.items():
+        assert planned[hid].collar_m == pytest.approx(hole.collar_m) and hole.length_m == blast.hole_depth_m

@@ -242,7 +242,7 @@ def _plan_report(site, nodes, pairs, plan_dir: Path, say):
     from reconstruct.io.site import model_grid
 
     from plan.assess.coverage import compute_coverage, coverage_cell_arrays
-    from plan.report import plan_report_html
+    from plan.report import low_coverage_warning, plan_report_html
 
     grid, ground = model_grid(site)
     xyz = place_nodes(nodes, grid, ground).xyz_m
@@ -251,6 +251,8 @@ def _plan_report(site, nodes, pairs, plan_dir: Path, say):
     page, _ = plan_report_html(site, coverage, nodes.ids, xyz, nodes.kinds, plan_dir)
     tv = coverage.summary()["target_volume"]
     say(f"target volume covered to the standard: {100 * tv['covered_fraction']:.1f} %")
+    if warning := low_coverage_warning(tv):
+        say(f"WARNING: {warning}")
     return [write_cell_arrays_vti(plan_dir / "coverage.vti", coverage.grid, coverage_cell_arrays(coverage)),
             write_json_atomic(plan_dir / "coverage_summary.json", coverage.summary()),
             write_text_atomic(plan_dir / "plan_report.html", page)]

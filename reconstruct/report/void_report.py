@@ -47,7 +47,7 @@ STATUS_WORDS = {STATUS_RESOLVED: "void", "unresolved": "indication (below the re
 
 #: Words for the keys the page shows; a key not here is shown as words made from it (:func:`label_for`).
 LABELS = {
-    "rank": "rank", "body_id": "body", "status": "tier", "fill": "likely fill", "confidence": "confidence",
+    "rank": "rank", "body_id": "body", "status": "status", "fill": "likely fill", "confidence": "confidence",
     "nearest_work": "nearest planned work", "standoff_m": "stand-off (m)",
     "thinnest_roof_m": "thinnest roof (m)", "roof_thickness_m": "roof thickness to the ground (m)",
     "roof_below_work_m": "roof below the planned work above (m)", "roof_depth_m": "roof depth (m)",
@@ -149,8 +149,6 @@ def cell_value(key: str, value):
         return 0.0
     if key == "fill":
         return FILL_WORDS.get(value, value)
-    if key == "status":
-        return STATUS_WORDS.get(value, str(value).replace("_", " "))
     if isinstance(value, bool):
         return "yes" if value else "no"
     if _is_estimate(value):
@@ -190,10 +188,10 @@ def _cell_html(value) -> str:
 def _ranked_table(ranked, keys) -> str:
     """The ranked table: one row of figures per body or indication, and below it, across the whole
     table, its reasons in words (so that the figures stay narrow on a laptop screen)."""
-    head = "".join(f"<th>{escape(label_for(k))}</th>" for k in keys)
+    head = "".join(f"<th>{escape('tier' if k == 'status' else label_for(k))}</th>" for k in keys)
     body = []
     for record in ranked:
-        body.append("<tr>" + "".join(_cell_html(_short_fill(k, cell_value(k, record.get(k)))) for k in keys)
+        body.append("<tr>" + "".join(_cell_html(_in_short(k, cell_value(k, record.get(k)))) for k in keys)
                     + "</tr>")
         if record.get("reasons"):
             body.append(f'<tr><td class="text" colspan="{len(keys)}"><b>Why:</b> '
@@ -202,8 +200,11 @@ def _ranked_table(ranked, keys) -> str:
             f"<tbody>{''.join(body)}</tbody></table></div>")
 
 
-def _short_fill(key: str, value):
-    """The fill in the ranked table in two words (the reasons below say faster or slower)."""
+def _in_short(key: str, value):
+    """The ranked table's words: the tier (void or indication) for the status, the fill without
+    its explanation (the reasons below say faster or slower)."""
+    if key == "status":
+        return STATUS_WORDS.get(value, str(value).replace("_", " "))
     return value.split(" (")[0] if key == "fill" and isinstance(value, str) else value
 
 

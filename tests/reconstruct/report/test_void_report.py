@@ -21,6 +21,7 @@ import pytest
 from reconstruct.cli import main
 from reconstruct.report.html import CAUTIONS
 from reconstruct.report.void_report import build_report_html
+from tests.reconstruct.report.test_scene_3d import browser  # noqa: F401 (the headless Chromium, a fixture)
 
 
 class _Elements(HTMLParser):
@@ -274,3 +275,28 @@ def test_the_truth_check_shows_only_when_the_demo_wrote_it(void_folder):
     assert cavity[head.index("roof error (m; below 0: found roof shallower)")] == "-1.5"
     assert clay[head.index("outcome")] == "not found" and clay[head.index("volume error (%)")] == "-"
     assert "This section is not about real ground" in section
+
+
+def test_first_screen_of_a_laptop_shows_the_fit_the_override_the_cautions_and_the_top_ranked_body(
+        void_folder, browser):
+    # what a reader sees before scrolling: the top 900 px of a 1366 px wide window (a common laptop
+    # screen: common practice, no published source), as a real browser (headless Chromium) lays it out
+    summary = _read(void_folder, "summary.json")
+    summary["fit"] = dict(n_picks=100, rms_ns=3.4, chi2=4560.0, chi2_per_pick=45.6, target_reached=False,
+                          words="Warning: the model does not explain the picks to their uncertainties: chi^2/N 45.6")
+    voids = _read(void_folder, "voids.json")
+    voids["threshold_override"] = {"words": "a default run would have reported 1 void"}
+    path = void_folder / "report.html"
+    path.write_text(build_report_html(void_folder, summary=summary, voids=voids), encoding="utf-8")
+    page = browser.new_page(viewport={"width": 1366, "height": 900})
+    try:
+        page.goto(path.as_uri())
+        for text in ("Warning: the model does not explain the data", "The detection threshold was changed",
+                     "Read this first", "Bodies and indications, ranked"):
+            box = page.get_by_text(text).first.bounding_box()
+            assert box is not None and box["y"] + box["height"] <= 900, text
+        first_row = page.locator("table").first.locator("tbody tr").first
+        box = first_row.bounding_box()
+        assert box["y"] + box["height"] <= 900 and "void" in first_row.inner_text()
+    finally:
+        page.close()

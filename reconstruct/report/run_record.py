@@ -50,7 +50,7 @@ def _input_rows(runs) -> list[list]:
             seen.add((path, digest))
             size = record.get("bytes")
             rows.append([str(role), PurePath(path).name, digest[:SHORT_HASH_CHARS],
-                         f"{size:,}" if isinstance(size, int) else "-", path, str(run.get("command", "-"))])
+                         size if isinstance(size, int) else "-", path, str(run.get("command", "-"))])
     return rows
 
 

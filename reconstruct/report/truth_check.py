@@ -22,7 +22,7 @@ from pathlib import Path
 from reconstruct.interpret.folder import read_json_object
 from reconstruct.report.html import escape, table_html
 
-__all__ = ["TRUTH_CHECK_FILE", "truth_check_html", "truth_check_rows"]
+__all__ = ["TRUTH_CHECK_FILE", "truth_check_html", "truth_check_rows", "refined_against_truth_rows"]
 
 #: The file the demo alone writes into its model folder.
 TRUTH_CHECK_FILE = "truth_check.json"
@@ -63,8 +63,45 @@ def truth_check_rows(check: dict) -> list[list]:
     return rows
 
 
-def truth_check_html(folder) -> str:
-    """The framed section when ``folder`` holds :data:`TRUTH_CHECK_FILE`, else empty."""
+#: Sizes of a body's ``refined`` block set against the truth, when the demo's bodies were refined.
+_REFINED_SIZES = (("volume_m3", "truth_volume_m3", "volume", "m³"), ("roof_depth_m", "truth_roof_depth_m",
+                                                                     "roof depth", "m"))
+
+
+def refined_against_truth_rows(check: dict, bodies) -> list[list]:
+    """Per matched truth body and refined size (volume, roof depth): the truth, the fitted value and its
+    cautious 95 % interval, and whether the interval holds the truth. Empty when no body was refined."""
+    refined = {b.get("body_id"): b["refined"] for b in bodies or []
+               if isinstance(b, dict) and isinstance(b.get("refined"), dict)}
+    rows = []
+    for entry in check.get("bodies", []):
+        fit = refined.get(entry.get("body_id")) if isinstance(entry, dict) else None
+        for key, truth_key, words, unit in _REFINED_SIZES if fit else ():
+            estimate, truth = fit.get(key), _number(entry.get(truth_key))
+            if not isinstance(estimate, dict) or truth is None or _number(estimate.get("value")) is None:
+                continue
+            low = _number(estimate.get("low95"))
+            high = None if fit.get("lower_bound") else _number(estimate.get("high95"))
+            inside = (low is None or low <= truth) and (high is None or truth <= high)
+            rows.append([str(entry.get("name", "-")), f"{words} ({unit})", truth, _number(estimate["value"]),
+                         "-" if low is None else low, "open" if high is None else high, "yes" if inside else "no"])
+    return rows
+
+
+def _refined_table(check: dict, bodies) -> str:
+    rows = refined_against_truth_rows(check, bodies)
+    if not rows:
+        return ""
+    return table_html(["truth body", "size", "truth", "fitted", "95 % low", "95 % high", "truth inside the interval"],
+                      rows, float_format=".3g", caption="Sizes fitted against the picks, against the invented truth")
+
+
+def truth_check_html(folder, bodies=None) -> str:
+    """The framed section when ``folder`` holds :data:`TRUTH_CHECK_FILE`, else empty.
+
+    ``bodies`` are those of ``voids.json``; their ``refined`` blocks, when there, are set against the
+    truth too.
+    """
     path = Path(folder) / TRUTH_CHECK_FILE
     if not path.is_file():
         return ""
@@ -80,4 +117,4 @@ def truth_check_html(folder) -> str:
         "section, because there is no truth to compare with.</p>"
         f"<p>Rule: {escape(check.get('match_rule', '-'))}</p>"
         + table_html(_COLUMNS, rows, float_format=".3g", caption="Invented bodies against the bodies found")
-        + "</section>")
+        + _refined_table(check, bodies) + "</section>")

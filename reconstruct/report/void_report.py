@@ -445,7 +445,7 @@ def build_report_html(folder, *, summary: dict | None = None, voids: dict | None
     manifest = manifest if manifest is not None else read_json_object(folder / "manifest.json", hint)
     site = voids.get("site", summary.get("site", "-"))
     lead = _fit_html(folder, summary) + _threshold_override_html(voids)
-    parts = [_ranked_html(voids), _detectability_html(voids), _refined_html(voids), truth_check_html(folder),
+    parts = [_ranked_html(voids), _detectability_html(voids), _refined_html(voids), truth_check_html(folder, voids.get("bodies")),
              _void_table_html(voids), "<h2>3D view</h2>" + scene_html(folder, voids, body_table=_body_table),
              _pictures_html(folder, voids)]
     petro = voids.get("petrophysics", {})

@@ -11,6 +11,7 @@ import base64
 import csv
 import hashlib
 import json
+import math
 import re
 import statistics
 from html.parser import HTMLParser
@@ -300,3 +301,26 @@ def test_first_screen_of_a_laptop_shows_the_fit_the_override_the_cautions_and_th
         assert box["y"] + box["height"] <= 900 and "void" in first_row.inner_text()
     finally:
         page.close()
+
+
+def test_the_truth_check_sets_refined_sizes_against_the_truth(void_folder):
+    # the 95 % interval from scipy.stats' normal quantile; the truth volume of an ellipsoid, 4/3 pi abc
+    from scipy.stats import norm
+
+    from reconstruct.report.truth_check import TRUTH_CHECK_FILE
+
+    z = norm.ppf(0.975)
+    truth = 4 / 3 * math.pi * 4 * 3.5 * 2.5
+    check = {"truth_file": "truth.yaml", "match_rule": "nearest first",
+             "bodies": [{"name": "cavity", "outcome": "found", "body_id": 1, "truth_volume_m3": truth,
+                         "found_volume_m3": 192.0, "truth_roof_depth_m": 7.5, "found_roof_depth_m": 8.0}]}
+    (void_folder / TRUTH_CHECK_FILE).write_text(json.dumps(check), encoding="utf-8")
+    voids = _read(void_folder, "voids.json")
+    for fitted, sigma, inside in ((150.0, 5.0, "yes"), (190.0, 5.0, "no")):
+        refined = {"volume_m3": {"value": fitted, "sigma": sigma, "low95": fitted - z * sigma,
+                                 "high95": fitted + z * sigma}, "lower_bound": False}
+        voids["bodies"] = [dict(voids["bodies"][0], body_id=1, refined=refined)]
+        page = build_report_html(void_folder, voids=voids)
+        table = next(t for t in _tables(page) if t and t[0][:2] == ["truth body", "size"])
+        assert table[1][:4] == ["cavity", "volume (m³)", f"{truth:.3g}", f"{fitted:.3g}"]
+        assert table[1][-1] == inside == ("yes" if fitted - z * sigma <= truth <= fitted + z * sigma else "no")

@@ -288,9 +288,9 @@ def _threshold_override_html(voids: dict) -> str:
     override = voids.get("threshold_override")
     if not override:
         return ""
-    words = override.get("words") if isinstance(override, dict) else str(override)
+    words = str((override.get("words") if isinstance(override, dict) else override) or "")
     return ('<div class="warning"><b>The detection threshold was changed by the user.</b> '
-            f"{escape(words or '')}</div>")
+            f"{escape(words[:1].upper() + words[1:])}</div>")
 
 
 def _ranked_html(voids: dict) -> str:
@@ -326,7 +326,8 @@ def _detectability_html(voids: dict) -> str:
     entries = [e for e in voids.get("detectability") or [] if isinstance(e, dict)]
     if not entries:
         return ""
-    words = "".join(f"<li>{escape(e['words'])}</li>" for e in entries if e.get("words"))
+    words = "".join(f"<li>{escape(str(e['words'])[:1].upper() + str(e['words'])[1:])}</li>"
+                    for e in entries if e.get("words"))
     keys = _keys_in_order(entries, first=("work",), skip=("words",))
     return ("<h2>What each planned work's zone could hide</h2>"
             + (f"<ul>{words}</ul>" if words else "")

@@ -198,7 +198,7 @@ def test_an_empty_ranking_says_it_is_no_proof_and_never_gives_a_verdict(void_fol
                                "smallest_air_void_m3": 40.0}]
     page = build_report_html(void_folder, voids=voids)
     assert "No body passed the detection threshold" in page and "not proof" in page
-    assert "no void larger than 40 m^3 found in the covered 62 % of this zone; 38 % not covered" in page
+    assert "No void larger than 40 m^3 found in the covered 62 % of this zone; 38 % not covered" in page
     table = next(t for t in _tables(page) if t and "planned work" in t[0])
     assert table[1][table[0].index("zone crossed by rays (%)")] == "62"
     # the page never gives the ground a verdict (issue 15: the words "safe" or "clear" never appear)

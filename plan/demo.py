@@ -242,7 +242,7 @@ def _plan_report(site, nodes, pairs, plan_dir: Path, say):
     from reconstruct.io.site import model_grid
 
     from plan.assess.coverage import compute_coverage, coverage_cell_arrays
-    from plan.report import plan_report_html
+    from plan.report import low_coverage_warning, plan_report_html
 
     grid, ground = model_grid(site)
     xyz = place_nodes(nodes, grid, ground).xyz_m
@@ -251,6 +251,8 @@ def _plan_report(site, nodes, pairs, plan_dir: Path, say):
     page, _ = plan_report_html(site, coverage, nodes.ids, xyz, nodes.kinds, plan_dir)
     tv = coverage.summary()["target_volume"]
     say(f"target volume covered to the standard: {100 * tv['covered_fraction']:.1f} %")
+    if warning := low_coverage_warning(tv):
+        say(f"WARNING: {warning}")
     return [write_cell_arrays_vti(plan_dir / "coverage.vti", coverage.grid, coverage_cell_arrays(coverage)),
             write_json_atomic(plan_dir / "coverage_summary.json", coverage.summary()),
             write_text_atomic(plan_dir / "plan_report.html", page)]
@@ -340,6 +342,40 @@ def _expected_resolved(truth, data, analysis) -> list[bool | None]:
     return out
 
 
+def _truth_roof_depths_m(truth, site) -> list[float]:
+    """Per truth body, the depth of its top below the ground surface over its centre, m (the
+    bodies are axis-aligned ellipsoids or boxes: the top is the centre plus the vertical half-size)."""
+    return [float(site.ground.elevation_m(np.array(b.centre_m[0]), np.array(b.centre_m[1])))
+            - (b.centre_m[2] + b.half_size_m[2]) for b in truth.bodies]
+
+
+def _write_truth_check(truth, truth_path, result, settings: ChainSettings, model_dir: Path) -> list:
+    """Match the truth bodies with the bodies found and write the comparison into the model folder
+    (:data:`reconstruct.report.truth_check.TRUTH_CHECK_FILE`, which the void report shows in a section
+    of its own; no other command writes it). Returns the matches."""
+    from reconstruct.interpret.bodies import void_table_rows
+    from reconstruct.io.outputs import write_json_atomic
+    from reconstruct.report.truth_check import TRUTH_CHECK_FILE
+
+    from plan.synthetic.truth_match import match_truth_bodies
+
+    data, analysis = result.inversion, result.analysis
+    background = truth.background_velocity_m_per_ns or data.site.rock.velocity_m_per_ns
+    tolerance_m = settings.match_tolerance_cells * max(data.grid.cell_m)
+    matches = match_truth_bodies(
+        truth.bodies, void_table_rows(analysis.bodies), background_velocity_m_per_ns=background,
+        tolerance_m=tolerance_m, expected_resolved=_expected_resolved(truth, data, analysis),
+        truth_roof_depths_m=_truth_roof_depths_m(truth, data.site))
+    write_json_atomic(model_dir / TRUTH_CHECK_FILE, {
+        "truth_file": str(truth_path),
+        "match_rule": (f"a body found matches an invented body when its fill class is the invented one and its "
+                       f"centre lies within the invented body's largest half-size plus {tolerance_m:g} m of the "
+                       "invented centre; nearest pairs first, one to one. Roof depth: the top of the body below "
+                       "the ground surface."),
+        "bodies": [m.as_dict() for m in matches]})
+    return matches
+
+
 def coverage_against_plan(plan_coverage: dict, model_summary: dict) -> dict | None:
     """The share of the ground crossed by rays: predicted by the plan, got by the inversion.
 
@@ -379,10 +415,8 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     from reconstruct.pipeline import process_survey
     from reconstruct.report.void_report import write_report
     from reconstruct.io.site import load_site
-    from reconstruct.interpret.bodies import void_table_rows
 
     from plan.synthetic.truth import load_truth
-    from plan.synthetic.truth_match import match_truth_bodies
 
     started = utc_now_iso()
     stages = _Stages(quiet)
@@ -423,15 +457,9 @@ def run_demo(folder, out, settings: ChainSettings = ChainSettings(), *, quiet: b
     stages.begin("writing the model folder and report")
     summary = _write_model(result, model_dir, {"site": site_path, "nodes": nodes_path, "picks": picks_path},
                            settings.pictures, say)
+    matches = _write_truth_check(truth, truth_path, result, settings, model_dir)
     report_path = write_report(model_dir)
     stages.end()
-    data, analysis = result.inversion, result.analysis
-
-    background = truth.background_velocity_m_per_ns or site.rock.velocity_m_per_ns
-    matches = match_truth_bodies(
-        truth.bodies, void_table_rows(analysis.bodies), background_velocity_m_per_ns=background,
-        tolerance_m=settings.match_tolerance_cells * max(data.grid.cell_m),
-        expected_resolved=_expected_resolved(truth, data, analysis))
     grid = site.grid()
     parameters = {
         "settings": dataclasses.asdict(settings),

@@ -584,6 +584,27 @@ def air_wave_warning(pairs_summary: dict, most: float = AIR_WAVE_MOST) -> str | 
             "the coverage predicted here; put more nodes in holes, deeper, or away from the faces")
 
 
+#: Share of the target volume covered to the standard below which the planner warns: less than half
+#: leaves more of the ground under the planned works unseen than seen (our threshold, common
+#: practice, no published source).
+LOW_COVERAGE_SHARE = 0.5
+
+
+def low_coverage_warning(target_volume: dict, least: float = LOW_COVERAGE_SHARE) -> str | None:
+    """A warning when the layout covers less than ``least`` of the target volume to the standard, else None.
+
+    Reads ``covered_fraction`` of the ``target_volume`` block of ``coverage_summary.json``
+    (:meth:`plan.assess.coverage.Coverage.summary`).
+    """
+    covered = target_volume.get("covered_fraction") if isinstance(target_volume, dict) else None
+    if covered is None or covered >= least:
+        return None
+    return (f"this layout covers only {100 * covered:.1f} % of the target volume to the standard (less than "
+            f"{least:.0%}): voids in the other {100 * (1 - covered):.1f} % may go unseen, and an empty void table "
+            "would say little about them; add nodes or holes where the coverage slices below are weak, or "
+            "narrow the target volume to what matters")
+
+
 def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> tuple[str, list[str]]:
     """The plan report page and the list of plan-folder files it used.
 
@@ -613,9 +634,9 @@ def plan_report_html(site, coverage: Coverage, ids, xyz_m, kinds, plan_dir) -> t
             f"({site.rock.antenna_frequency_mhz:g} MHz at {site.rock.velocity_m_per_ns:g} m/ns).</p>"]
     pairs_summary, _ = _read_json(plan_dir / "pairs_summary.json") if (plan_dir / "pairs_summary.json").is_file() \
         else (None, None)
-    warning = air_wave_warning(pairs_summary) if isinstance(pairs_summary, dict) else None
-    if warning:
-        body.append(f"<h2>Warning</h2><p>{escape(warning[0].upper() + warning[1:])}.</p>")
+    for warning in (low_coverage_warning(tv), air_wave_warning(pairs_summary) if isinstance(pairs_summary, dict)
+                    else None):
+        body.append(f"<h2>Warning</h2><p>{escape(warning[0].upper() + warning[1:])}.</p>" if warning else "")
     in_holes = blast_hole_warning(site, ids, xyz)
     if in_holes:
         body.append(f'<div class="cautions"><h2>Warning: nodes in blast holes</h2><p>{escape(in_holes)}</p></div>')

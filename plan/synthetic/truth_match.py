@@ -72,6 +72,8 @@ class TruthMatch:
     found_centre_m: tuple | None = None
     expected_resolved: bool | None = None
     note: str = ""
+    truth_roof_depth_m: float | None = None
+    found_roof_depth_m: float | None = None
 
     @property
     def found(self) -> bool:
@@ -99,6 +101,7 @@ class TruthMatch:
             "found_volume_m3": self.found_volume_m3,
             "found_centre_m": None if self.found_centre_m is None else list(self.found_centre_m),
             "expected_resolved": self.expected_resolved, "note": self.note, "summary": self.line(),
+            "truth_roof_depth_m": self.truth_roof_depth_m, "found_roof_depth_m": self.found_roof_depth_m,
         }
 
 
@@ -107,12 +110,16 @@ def expected_fill(body: Body, background_velocity_m_per_ns: float) -> str:
     return FILL_AIR if body.velocity_m_per_ns > background_velocity_m_per_ns else FILL_WATER_OR_CLAY
 
 
+def _optional_float(value) -> float | None:
+    return None if value is None or not math.isfinite(float(value)) else float(value)
+
+
 def _centre(row) -> np.ndarray:
     return np.array([float(row["centroid_x_m"]), float(row["centroid_y_m"]), float(row["centroid_z_m"])])
 
 
 def match_truth_bodies(truth_bodies, found_rows, *, background_velocity_m_per_ns: float, tolerance_m: float,
-                       expected_resolved=None) -> list[TruthMatch]:
+                       expected_resolved=None, truth_roof_depths_m=None) -> list[TruthMatch]:
     """Match truth bodies to found bodies (see the module notes for the rule).
 
     Parameters
@@ -128,6 +135,9 @@ def match_truth_bodies(truth_bodies, found_rows, *, background_velocity_m_per_ns
         Added to each body's largest half-size to give its reach, m (>= 0).
     expected_resolved : sequence of bool or None, optional
         Per truth body, whether it is larger than the resolution at its depth.
+    truth_roof_depths_m : sequence of float or None, optional
+        Per truth body, the depth of its top below the ground surface, m; kept
+        beside the found body's ``roof_depth_m`` (when its row has one).
 
     Returns
     -------
@@ -139,8 +149,11 @@ def match_truth_bodies(truth_bodies, found_rows, *, background_velocity_m_per_ns
         raise ValueError(f"tolerance_m must be a number >= 0 (got {tolerance_m!r})")
     if expected_resolved is None:
         expected_resolved = [None] * len(bodies)
-    if len(expected_resolved) != len(bodies):
-        raise ValueError(f"expected_resolved has {len(expected_resolved)} entries, expected {len(bodies)}")
+    if truth_roof_depths_m is None:
+        truth_roof_depths_m = [None] * len(bodies)
+    for name, values in (("expected_resolved", expected_resolved), ("truth_roof_depths_m", truth_roof_depths_m)):
+        if len(values) != len(bodies):
+            raise ValueError(f"{name} has {len(values)} entries, expected {len(bodies)}")
     fills = [expected_fill(b, background_velocity_m_per_ns) for b in bodies]
     reach = [max(b.half_size_m) + tolerance_m for b in bodies]
     centres = [_centre(r) for r in rows]
@@ -159,14 +172,16 @@ def match_truth_bodies(truth_bodies, found_rows, *, background_velocity_m_per_ns
     for i, body in enumerate(bodies):
         common = dict(name=body.name, expected_fill=fills[i], truth_centre_m=tuple(body.centre_m),
                       truth_volume_m3=float(body.volume_m3), reach_m=float(reach[i]),
-                      expected_resolved=expected_resolved[i])
+                      expected_resolved=expected_resolved[i],
+                      truth_roof_depth_m=None if truth_roof_depths_m[i] is None else float(truth_roof_depths_m[i]))
         if i in chosen:
             j = chosen[i]
             row = rows[j]
             outcome = "found" if row["status"] == STATUS_RESOLVED else "indication"
             matches.append(TruthMatch(**common, outcome=outcome, body_id=int(row["body_id"]),
                                       offset_m=float(distance[i, j]), found_volume_m3=float(row["volume_m3"]),
-                                      found_centre_m=tuple(float(v) for v in centres[j])))
+                                      found_centre_m=tuple(float(v) for v in centres[j]),
+                                      found_roof_depth_m=_optional_float(row.get("roof_depth_m"))))
             continue
         wrong = [j for j in range(len(rows)) if rows[j]["fill"] != fills[i] and distance[i, j] <= reach[i]]
         if wrong:

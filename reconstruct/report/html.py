@@ -65,6 +65,9 @@ th { background: var(--table-head); } td.text { text-align: left; }
 figure { margin: 1em 0; } figcaption { font-size: 0.9em; color: var(--muted-text); }
 img { max-width: 100%; }
 .meta { font-size: 0.85em; color: var(--muted-text); }
+.warning { border: 3px solid var(--caution-border); padding: 0.4em 1em; margin: 0.6em 0; }
+.wide { overflow-x: auto; } .fit td, .fit th { padding: 0.1em 0.5em; }
+.invented { border: 3px dashed var(--muted-text); padding: 0.4em 1em; margin: 1.2em 0; }
 """
 
 
@@ -129,16 +132,18 @@ def figure_png(figure, dpi: int = 110) -> bytes:
     return buffer.getvalue()
 
 
-def html_document(title: str, body_html: str, *, generated_by: str = "voidcube") -> str:
-    """A complete page: title, cautions at the top, then ``body_html``.
+def html_document(title: str, body_html: str, *, generated_by: str = "voidcube", lead_html: str = "") -> str:
+    """A complete page: title, ``lead_html``, the cautions, then ``body_html``.
 
-    ``body_html`` must already be built from escaped parts (:func:`escape`,
+    ``lead_html`` is what the reader must see before the cautions (the void
+    report: how well the model explains the data); empty on most pages.
+    Both must already be built from escaped parts (:func:`escape`,
     :func:`table_html`, :func:`png_img_html`).
     """
     return (
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
         f"<title>{escape(title)}</title><style>{_STYLE}</style></head><body>"
-        f"<h1>{escape(title)}</h1>{cautions_html()}{body_html}"
+        f"<h1>{escape(title)}</h1>{lead_html}{cautions_html()}{body_html}"
         f'<p class="meta">Written by {escape(generated_by)}. '
         "Self-contained page: no network access is needed to view it.</p>"
         "</body></html>\n"

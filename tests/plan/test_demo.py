@@ -202,3 +202,23 @@ def test_settings_are_validated():
 
     with pytest.raises(InputError, match="bent_iterations"):
         ChainSettings(bent_iterations=0)
+
+
+@pytest.mark.slow
+def test_demo_report_checks_every_invented_body_in_a_section_of_its_own(reduced_run):
+    # the reference is the truth model the picks were simulated from (demo_site/truth.yaml, read back
+    # with yaml.safe_load): every body, found or not, with its volume (4/3 pi abc for an ellipsoid)
+    folder, _, result = reduced_run
+    raw = yaml.safe_load((folder / "truth.yaml").read_text(encoding="utf-8"))
+    check = json.loads((result.out / "model" / "truth_check.json").read_text(encoding="utf-8"))
+    assert [b["name"] for b in check["bodies"]] == [b["name"] for b in raw["bodies"]]
+    for entry, body in zip(check["bodies"], raw["bodies"]):
+        a, b, c = body["semi_axes_m"]
+        assert entry["truth_volume_m3"] == pytest.approx(4 / 3 * np.pi * a * b * c)
+        assert entry["truth_roof_depth_m"] is not None
+    page = result.report_path.read_text(encoding="utf-8")
+    section = page[page.index("Check against the invented truth (demo only)"):]
+    section = section[:section.index("</section>")]
+    for body in raw["bodies"]:
+        assert body["name"] in section, body["name"]
+    assert "not found" in section  # the small cavity below the resolution is listed all the same

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import csv
 import json
+import re
 
 import networkx as nx
 import numpy as np
@@ -17,12 +18,14 @@ import pytest
 
 from plan.cli import main
 from plan.report import (
+    LOW_COVERAGE_SHARE,
     MESH_LABELS,
     OPTIMISE_LABELS,
     PAIR_GRAPH_LABELS,
     SCHEDULE_LABELS,
     air_wave_warning,
     flatten_summary,
+    low_coverage_warning,
     read_mesh_links,
     summary_rows,
     unlabelled_keys,
@@ -289,3 +292,31 @@ def test_user_errors_end_in_one_clear_message(files, argv, message):
     code, out, err = _run(argv)
     assert code == 2
     assert message in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize("covered, warned", [(0.157, True), (0.141, True), (0.499, True), (0.5, False), (0.9, False)])
+def test_low_coverage_warning_below_half_of_the_target_volume(covered, warned):
+    # below half the target volume covered to the standard, more of the ground under the works is unseen
+    # than seen (our threshold: common practice, no published source); the demo plan covers 14-16 %
+    warning = low_coverage_warning({"covered_fraction": covered})
+    assert (warning is not None) == warned == (covered < LOW_COVERAGE_SHARE)
+    if warned:
+        assert f"covers only {100 * covered:.1f} % of the target volume" in warning
+        assert f"the other {100 * (1 - covered):.1f} %" in warning
+        assert not re.search(r"\b(safe|clear)\b", warning)
+    assert low_coverage_warning({}) is None and low_coverage_warning(None) is None
+
+
+def test_report_page_warns_when_the_layout_covers_little_of_the_target_volume(files):
+    # the share is read back from coverage_summary.json with the standard library's json
+    folder, site, nodes = files
+    plan = folder / "plan"
+    code, _, err = _run(["coverage", "--site", site, "--nodes", nodes, "--out", plan, "--quiet"])
+    assert code == 0, err
+    (plan / "nodes.csv").write_text(nodes.read_text(encoding="utf-8"), encoding="utf-8")
+    code, _, err = _run(["report", plan, "--site", site, "--quiet"])
+    assert code == 0, err
+    covered = json.loads((plan / "coverage_summary.json").read_text())["target_volume"]["covered_fraction"]
+    page = (plan / "plan_report.html").read_text(encoding="utf-8")
+    assert covered < LOW_COVERAGE_SHARE  # two holes and three surface nodes under a 20 m road
+    assert f"<h2>Warning</h2><p>This layout covers only {100 * covered:.1f} %" in page

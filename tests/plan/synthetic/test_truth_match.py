@@ -99,3 +99,18 @@ def test_bad_arguments_are_refused():
     with pytest.raises(ValueError, match="expected_resolved"):
         match_truth_bodies([AIR], [], background_velocity_m_per_ns=ROCK, tolerance_m=1.0,
                            expected_resolved=[True, False])
+
+
+def test_roof_depths_of_the_truth_and_of_the_body_found_are_kept_side_by_side():
+    # the truth roof depth is the caller's (ground minus the top of the body); the found one is the
+    # void table's roof_depth_m; a body not found has none
+    row = dict(_row(1, (42.5, 16.0, 90.0), FILL_AIR), roof_depth_m=7.0)
+    air_roof = 100.0 - (AIR.centre_m[2] + AIR.half_size_m[2])
+    matches = match_truth_bodies([AIR, CLAY], [row], background_velocity_m_per_ns=ROCK, tolerance_m=4.0,
+                                 truth_roof_depths_m=[air_roof, 10.0])
+    assert matches[0].truth_roof_depth_m == pytest.approx(7.5) and matches[0].found_roof_depth_m == 7.0
+    assert matches[1].outcome == "not found" and matches[1].found_roof_depth_m is None
+    assert matches[1].as_dict()["truth_roof_depth_m"] == 10.0
+    with pytest.raises(ValueError, match="truth_roof_depths_m has 1 entries, expected 2"):
+        match_truth_bodies([AIR, CLAY], [row], background_velocity_m_per_ns=ROCK, tolerance_m=4.0,
+                           truth_roof_depths_m=[1.0])

@@ -51,3 +51,9 @@ def test_figure_png_is_a_real_png_of_the_figure_size():
     assert 'alt="a &lt;line&gt;"' in tag
     with pytest.raises(ValueError, match="PNG"):
         png_img_html(b"GIF89a", alt="x")
+
+
+def test_lead_goes_between_the_title_and_the_cautions():
+    page = html_document("Report", "<p>body</p>", lead_html="<p>fit first</p>")
+    assert page.index("<h1>Report</h1>") < page.index("<p>fit first</p>") < page.index(escape(CAUTIONS[0]))
+    assert page.index(escape(CAUTIONS[-1])) < page.index("<p>body</p>")

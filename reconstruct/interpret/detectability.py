@@ -181,8 +181,9 @@ class WeakIndication:
 
     ``peak_anomaly_ns_per_m`` is signed (negative: faster than the background,
     fill ``air``); ``noise_floor_ns_per_m`` and ``threshold_ns_per_m`` are
-    those of the depth slab of the peak; ``nearest_work`` and ``standoff_m``
-    as for a body (shortest 3D distance to the outline of a planned work).
+    those of the depth slab of the peak; ``nearest_work``, ``standoff_m``,
+    ``roof_below_work_m`` and ``roof_below_work_name`` as for a body (to a
+    blast pattern's holes, collar to toe, when they are known).
     """
 
     indication_id: int
@@ -202,6 +203,8 @@ class WeakIndication:
     mean_ray_count: float
     nearest_work: str | None
     standoff_m: float
+    roof_below_work_m: float = math.inf
+    roof_below_work_name: str | None = None
 
     @property
     def tier(self) -> str:
@@ -409,7 +412,7 @@ def _indication_from_cells(grid: Grid, ijk, anomaly, slab_index, per_slab, conte
     tops = _column_tops_m(grid, ijk)
     roof_column = max(tops, key=lambda c: tops[c])
     span, _, _ = _plan_extent(grid, list(tops))
-    nearest, standoff, _, _ = _work_relations(grid, ijk, tops, context["works_points"])
+    nearest, standoff, below_name, below = _work_relations(grid, ijk, tops, context["works_points"])
     return WeakIndication(
         indication_id=0, fill=FILL_AIR if anomaly[peak_cell] < 0 else FILL_WATER_OR_CLAY,
         n_cells=int(ijk[0].size), volume_m3=float(ijk[0].size * np.prod(cell)),
@@ -423,7 +426,8 @@ def _indication_from_cells(grid: Grid, ijk, anomaly, slab_index, per_slab, conte
         noise_floor_ns_per_m=float(per_slab["noise_floor"][k]),
         threshold_ns_per_m=float(per_slab["threshold"][k]),
         mean_ray_count=float(np.asarray(context["ray_count"])[ijk].mean()),
-        nearest_work=nearest, standoff_m=float(standoff))
+        nearest_work=nearest, standoff_m=float(standoff), roof_below_work_m=float(below),
+        roof_below_work_name=below_name)
 
 
 def find_weak_indications(grid: Grid, analysis, ground, ray_count, surface_m, planned_works=(),

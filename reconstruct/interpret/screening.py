@@ -77,11 +77,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, fields
+from types import SimpleNamespace
 
 import numpy as np
 
 from reconstruct.errors import InputError
-from reconstruct.interpret.bodies import FILL_AIR, STATUS_RESOLVED
+from reconstruct.interpret.bodies import FILL_AIR, STATUS_RESOLVED, body_tier
 
 __all__ = [
     "SCREENING_NOTE",
@@ -119,6 +120,9 @@ CLOSE_STANDOFF_SPANS = 1.0
 #: fall in the same band are ranked by their roofs. The project's choice (no published source): a
 #: body's edge is uncertain by a cell or more, so a metre or two should not decide the order.
 RANKING_BAND_M = 5.0
+
+#: Status of a weak indication in the screening (a body's is ``resolved`` or ``unresolved``).
+STATUS_WEAK = "weak"
 
 #: The ranking rule in words, as the reports print it.
 RANKING_RULE = (
@@ -306,11 +310,15 @@ class ScreeningEntry:
     ``roof_thickness_m`` ... ``length_m`` are the best estimates (the fit's
     values when refined, else the cube's); the ``cautious_*`` figures are
     those the scaled span, the ranking and the hole check use, and
-    ``bounds`` says where they come from.
+    ``bounds`` says where they come from. A body has a ``body_id``; a weak
+    indication (below the detection threshold) an ``indication_id``, status
+    ``weak`` and, as its cautious extent, the resolution ("up to about").
     """
 
     rank: int
-    body_id: int
+    body_id: int | None
+    indication_id: int | None
+    tier: str
     status: str
     fill: str
     confidence: str
@@ -355,6 +363,18 @@ def _thin(estimate):
     """The thinnest plausible figure (``low95``), never below 0; 0 when no lower bound is known."""
     low = estimate.cautious_low()
     return max(low, 0.0) if math.isfinite(low) else 0.0
+
+
+def _weak_as_body(w):
+    """A weak indication in the shape the screening reads: its extent taken up to the resolution
+    (its true size cannot be measured), its roof at the top of its cells, no fit."""
+    extent = max(w.span_m, w.resolution_m)
+    return SimpleNamespace(
+        body_id=None, indication_id=w.indication_id, tier=w.tier, status=STATUS_WEAK, fill=w.fill,
+        confidence="low", refined=None, volume_m3=w.volume_m3, bbox_min_m=w.bbox_min_m, bbox_max_m=w.bbox_max_m,
+        roof_thickness_m=w.roof_depth_m, roof_below_work_m=w.roof_below_work_m,
+        roof_below_work_name=w.roof_below_work_name, span_m=extent, width_m=extent, length_m=extent,
+        standoff_m=w.standoff_m, nearest_work=w.nearest_work, strength=w.strength_noise_floors)
 
 
 def _figures(b) -> dict:
@@ -473,7 +493,12 @@ def _reasons(b, fig, cs, sc, thickness, options, holes) -> tuple[list, int]:
         concerns += 1
         reasons.append(f"blast hole {nearest_name} comes within {nearest_hole:.1f} m of it, closer than its own "
                        "span")
-    if b.status != STATUS_RESOLVED:
+    if b.status == STATUS_WEAK:
+        reasons[0] = (f"weak indication: {kind.split(' (')[0]} anomaly of {b.strength:.1f} noise floors, below the "
+                      f"detection threshold, roof {fig['roof']:.1f} m below the ground surface, up to about "
+                      f"{fig['width']:.0f} m across (its size cannot be measured)")
+        reasons.append("it may be noise or a body the data see only faintly: check it if near works")
+    elif b.status != STATUS_RESOLVED:
         reasons.append("below the resolution at its depth: confirm or rule out by drilling if near works")
     reasons.append(f"confidence {b.confidence}; sizes: {fig['bounds']}")
     return reasons, concerns
@@ -498,7 +523,8 @@ def _screen_one(b, options: ScreeningOptions, planned_works) -> dict:
         distance = 0.0
     best_thin = fig["roof"] if fig["below"] is None else min(fig["roof"], fig["below"])
     row = dict(
-        body_id=b.body_id, status=b.status, fill=b.fill, confidence=b.confidence,
+        body_id=b.body_id, indication_id=getattr(b, "indication_id", None),
+        tier=getattr(b, "tier", None) or body_tier(b.status), status=b.status, fill=b.fill, confidence=b.confidence,
         roof_thickness_m=fig["roof"], roof_below_work_m=fig["below"], thinnest_roof_m=best_thin,
         span_m=fig["span"], width_m=fig["width"], length_m=fig["length"],
         thinnest_roof_to_width=best_thin / fig["width"] if fig["width"] > 0 else math.inf,
@@ -509,11 +535,12 @@ def _screen_one(b, options: ScreeningOptions, planned_works) -> dict:
         standoff_m=fig["standoff"], cautious_standoff_m=fig["c_standoff"], nearest_work=b.nearest_work,
         holes_met=holes_text, nearest_hole_m=nearest_hole, concerns=concerns, reasons="; ".join(reasons))
     band = math.floor(distance / RANKING_BAND_M) if math.isfinite(distance) else math.inf
-    key = (band, thickness, -cs, -fig["volume"], b.body_id)
+    key = (band, thickness, -cs, -fig["volume"], b.body_id is None, b.body_id or getattr(b, "indication_id", 0))
     return row, key
 
 
-def screen_voids(bodies, options: ScreeningOptions = ScreeningOptions(), planned_works=()) -> list[ScreeningEntry]:
+def screen_voids(bodies, options: ScreeningOptions = ScreeningOptions(), planned_works=(),
+                 weak_indications=()) -> list[ScreeningEntry]:
     """Rank bodies and indications together by consequence, with plain-language reasons.
 
     Parameters
@@ -524,6 +551,9 @@ def screen_voids(bodies, options: ScreeningOptions = ScreeningOptions(), planned
     options : ScreeningOptions
     planned_works : sequence of reconstruct.io.site.PlannedWork
         Checked hole by hole where a blast pattern's holes are known.
+    weak_indications : sequence of reconstruct.interpret.detectability.WeakIndication
+        Ranked among the bodies by the same rule, their extent taken up to
+        the resolution at their depth.
 
     Returns
     -------
@@ -534,7 +564,8 @@ def screen_voids(bodies, options: ScreeningOptions = ScreeningOptions(), planned
         a planned work over the body and its roof; it is the ``T`` of the
         scaled span.
     """
-    rows = sorted((_screen_one(b, options, planned_works) for b in bodies), key=lambda pair: pair[1])
+    subjects = list(bodies) + [_weak_as_body(w) for w in weak_indications]
+    rows = sorted((_screen_one(b, options, planned_works) for b in subjects), key=lambda pair: pair[1])
     return [ScreeningEntry(rank=i, **row) for i, (row, _) in enumerate(rows, start=1)]
 
 

@@ -43,20 +43,19 @@ CAUTIONS = (
     "Radar transmitters fall under local radio-spectrum rules; check the licence "
     "conditions before fieldwork.",
     # the standard and the guide are cited from memory (titles not checked)
-    "Radio-frequency energy can fire electric detonators. Where nodes sit in or near blast "
-    "holes, keep every node, radio and gateway at least the separation distances of the "
-    "applicable standard from charged or primed holes and from electric detonators, for "
-    "example BS 6657 (Assessment of inadvertent initiation of bridge wire electro-explosive "
-    "devices by radio-frequency radiation) or the explosives industry's guide to "
-    "radio-frequency risks with commercial electric detonators (both cited from memory); "
-    "never place a node in a charged or primed hole, and defer to the site's explosives rules.",
+    "Radio-frequency energy can fire electric detonators: keep nodes, radios and gateways at "
+    "least the separation distances of the applicable standard (for example BS 6657, Assessment "
+    "of inadvertent initiation of bridge wire electro-explosive devices by radio-frequency "
+    "radiation, or the explosives industry's guide to radio-frequency risks with commercial "
+    "electric detonators; both cited from memory) from charged or primed holes, never place a "
+    "node in one, and defer to the site's explosives rules.",
 )
 
 # the page colours are CSS custom properties set from reconstruct.report.colours
 _STYLE = ":root { " + " ".join(f"--{name}: {value};" for name, value in PAGE_COLOURS.items()) + " }" + """
 body { font-family: sans-serif; margin: 1.5em auto; max-width: 70em; color: var(--text);
        line-height: 1.4; padding: 0 1em; }
-h1 { font-size: 1.5em; } h2 { font-size: 1.2em; margin-top: 1.6em; }
+h1 { font-size: 1.5em; } h2 { font-size: 1.2em; margin-top: 1.2em; }
 .cautions { border: 2px solid var(--caution-border); background: var(--caution-background); padding: 0.6em 1em; }
 .cautions h2 { margin-top: 0.2em; }
 table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.9em; }

@@ -43,7 +43,8 @@ FILL_WORDS = {FILL_AIR: "air-filled (faster than the rock)",
               FILL_WATER_OR_CLAY: "water- or clay-filled (slower than the rock)"}
 
 #: Words for the tiers (column ``status``) in the ranked table.
-STATUS_WORDS = {STATUS_RESOLVED: "void", "unresolved": "indication (below the resolution)"}
+STATUS_WORDS = {STATUS_RESOLVED: "void", "unresolved": "indication (below the resolution)",
+                "weak": "weak indication (below the threshold)"}
 
 #: Words for the keys the page shows; a key not here is shown as words made from it (:func:`label_for`).
 LABELS = {
@@ -57,9 +58,11 @@ LABELS = {
     "volume_m3": "volume (m³)", "centroid_x_m": "centre x (m)", "centroid_y_m": "centre y (m)",
     "centroid_z_m": "centre z (m)", "extreme_velocity_m_per_ns": "extreme velocity (m/ns)",
     "ray_covered_fraction": "its cells crossed by rays (%)", "confidence_reason": "why",
-    "cautious_roof_m": "cautious roof, thinnest plausible (m)", "cautious_span_m": "cautious span, widest plausible (m)",
-    "factor_of_safety": "factor of safety", "factor_of_safety_class": "acceptance class",
-    "holes_met": "blast holes that meet it or come close", "strength": "strength",
+    "cautious_roof_m": "roof, thinnest plausible (m)", "cautious_span_m": "span, widest plausible (m)",
+    "crown_fos": "crown FoS", "crown_class": "class (Carter 2014)",
+    "cautious_standoff_m": "stand-off, least plausible (m)", "nearest_hole_m": "nearest blast hole (m)",
+    "indication_id": "indication",
+    "holes_met": "blast holes near it", "strength": "strength",
     "covered_fraction": "zone crossed by rays (%)", "not_covered_fraction": "zone not crossed by rays (%)",
     "work": "planned work", "smallest_air_void_m3": "smallest air-filled void it would show (m³)",
     "smallest_slow_body_m3": "smallest slow body it would show (m³)", "velocity_m_per_ns": "velocity (m/ns)",
@@ -79,12 +82,14 @@ _NOISE = 1e-9
 
 #: Keys of ``screening.ranked`` left out of the page's table (all are in screening.csv): the two
 #: roofs whose thinner is ``thinnest_roof_m``, the plan length, and the tallies behind the order.
-_RANKED_ONLY_IN_CSV = ("roof_thickness_m", "roof_below_work_m", "length_m", "thinnest_roof_to_width", "concerns")
+_RANKED_ONLY_IN_CSV = ("roof_thickness_m", "roof_below_work_m", "length_m", "thinnest_roof_to_width", "concerns",
+                       "tier", "standoff_m", "thinnest_roof_m", "width_m", "cautious_width_m", "cautious_length_m",
+                       "extent_at_least", "bounds", "crown_assessment", "nearest_hole_m", "critical_span_m")
 
 #: Shown first, in this order, in the ranked table; other keys follow in their own order, reasons last.
-_RANKED_FIRST = ("rank", "body_id", "status", "fill", "confidence", "nearest_work", "standoff_m", "thinnest_roof_m",
-                 "cautious_roof_m", "span_m", "cautious_span_m", "scaled_span_m", "critical_span_m",
-                 "factor_of_safety", "factor_of_safety_class", "holes_met")
+_RANKED_FIRST = ("rank", "body_id", "indication_id", "status", "fill", "confidence", "nearest_work",
+                 "cautious_standoff_m", "cautious_roof_m", "span_m", "cautious_span_m", "scaled_span_m",
+                 "crown_fos", "crown_class", "holes_met")
 
 
 def label_for(key: str) -> str:
@@ -286,7 +291,7 @@ def _fit_html(folder: Path, summary: dict) -> str:
 def _threshold_override_html(voids: dict) -> str:
     """Framed, on the first screen, when the user changed the detection threshold."""
     override = voids.get("threshold_override")
-    if not override:
+    if not override or (isinstance(override, dict) and override.get("overridden") is False):
         return ""
     words = str((override.get("words") if isinstance(override, dict) else override) or "")
     return ('<div class="warning"><b>The detection threshold was changed by the user.</b> '
@@ -298,12 +303,11 @@ def _ranked_html(voids: dict) -> str:
     counts = voids.get("counts", {})
     screening = voids.get("screening", {})
     ranked = [r for r in screening.get("ranked", []) if isinstance(r, dict)]
-    parts = [f"<h2>Bodies and indications, ranked</h2><p>{int(counts.get('resolved', 0))} void(s) and "
-             f"{int(counts.get('unresolved', 0))} indication(s) (bodies smaller than the resolution at their "
-             "depth), most urgent first. A void is a place to drill, not a proven cavity.</p>"]
-    rule = screening.get("rule")
-    if rule:
-        parts.append(f"<p><b>Ranking rule:</b> {escape(rule)}</p>")
+    weak = (f", {int(counts['weak_indications'])} weak indication(s) (below the detection threshold)"
+            if "weak_indications" in counts else "")
+    parts = [f"<h2>Bodies and indications, ranked</h2><p>{int(counts.get('resolved', 0))} void(s), "
+             f"{int(counts.get('unresolved', 0))} unresolved bod(ies) (below the resolution){weak}; most urgent "
+             "first, by the rule under the table. A void is a place to drill, not a proven cavity.</p>"]
     if ranked:
         keys = _keys_in_order(ranked, first=_RANKED_FIRST, skip=_RANKED_ONLY_IN_CSV + ("reasons",))
         parts.append(_ranked_table(ranked, keys))
@@ -311,6 +315,8 @@ def _ranked_html(voids: dict) -> str:
         parts.append("<p><b>No body passed the detection threshold.</b> This is not proof that the ground holds "
                      "no void: see how small a void each planned work's zone could hide, and which part of it "
                      "no ray crossed.</p>")
+    if screening.get("rule"):
+        parts.append(f"<p><b>Ranking rule:</b> {escape(screening['rule'])}</p>")
     if screening.get("note"):
         parts.append(f"<p>{escape(screening['note'])}</p>")
     parts.append("<p>A body is a group of cells whose velocity departs from the background by more than the "

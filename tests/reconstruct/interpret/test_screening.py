@@ -294,3 +294,23 @@ def test_a_hole_beyond_the_standoff_but_closer_than_the_span_is_named():
     assert "blast hole H5 (next blast) comes within 6.0 m of it, closer than its own span" in entry.reasons
     far = screen_voids([_body()], planned_works=[_pattern([("H6", (12.0, 0.0, 94.0))])])[0]
     assert "H6" not in far.reasons and far.nearest_hole_m == pytest.approx(9.0)
+
+
+def test_weak_indications_are_ranked_with_the_bodies():
+    # the project's ranking rule (RANKING_RULE, its own choice); distances worked by hand: a weak
+    # indication 2 m from a planned work falls in the first 5 m band, a void 30 m away in the seventh
+    from reconstruct.interpret.detectability import WeakIndication
+
+    void = _body(nearest_work="road", standoff_m=30.0)
+    weak = WeakIndication(
+        indication_id=4, fill=FILL_AIR, n_cells=3, volume_m3=3.0, centroid_m=(5.0, 5.0, 90.0),
+        bbox_min_m=(4.0, 4.0, 89.0), bbox_max_m=(6.0, 6.0, 91.0), roof_elevation_m=91.0, roof_depth_m=9.0,
+        span_m=2.0, resolution_m=6.0, peak_anomaly_ns_per_m=-0.5, noise_floor_ns_per_m=0.2,
+        threshold_ns_per_m=0.8, mean_ray_count=12.0, nearest_work="road", standoff_m=2.0)
+    ranked = screen_voids([void], weak_indications=[weak])
+    first, second = ranked
+    assert (first.indication_id, first.body_id, first.tier) == (4, None, "weak_indication")
+    assert second.body_id == void.body_id and second.indication_id is None and second.tier == "void"
+    # its extent is taken up to the resolution (6 m), not its 2 m of cells
+    assert first.cautious_width_m == pytest.approx(6.0)
+    assert "2.5 noise floors" in first.reasons and "up to about 6 m across" in first.reasons

@@ -167,7 +167,7 @@ def test_ranked_table_shows_voids_and_indications_together_from_the_keys_present
     ranked = voids["screening"]["ranked"]
     indication = dict(ranked[0], rank=2, body_id=7, status="unresolved", fill="water_or_clay",
                       reasons="a slow indication 3 m from the road")
-    voids["screening"]["ranked"] = [dict(r, cautious_roof_m=2.5, factor_of_safety=1.3, hole_clearance_m=4.0)
+    voids["screening"]["ranked"] = [dict(r, cautious_roof_m=2.5, crown_fos=1.3, hole_clearance_m=4.0)
                                     for r in ranked + [indication]]
     voids["screening"]["rule"] = "by distance to planned works, then cautious roof, then factor of safety"
     page = build_report_html(void_folder, voids=voids)
@@ -175,14 +175,14 @@ def test_ranked_table_shows_voids_and_indications_together_from_the_keys_present
     table = next(t for t in _tables(page) if t and "tier" in t[0])
     head = table[0]
     # known keys in words, an unknown key in words made from it, the unit from its ending
-    for label in ("rank", "body", "likely fill", "cautious roof, thinnest plausible (m)", "factor of safety",
-                  "hole clearance (m)", "stand-off (m)"):
+    for label in ("rank", "body", "likely fill", "roof, thinnest plausible (m)", "crown FoS",
+                  "hole clearance (m)", "stand-off, least plausible (m)"):
         assert label in head, label
     rows = [r for r in table[1:] if len(r) == len(head)]
     assert [r[head.index("body")] for r in rows] == [str(r["body_id"]) for r in voids["screening"]["ranked"]]
     assert [r[head.index("tier")] for r in rows] == ["void", "indication (below the resolution)"]
     assert rows[1][head.index("likely fill")] == "water- or clay-filled"
-    assert rows[0][head.index("cautious roof, thinnest plausible (m)")] == "2.5"
+    assert rows[0][head.index("roof, thinnest plausible (m)")] == "2.5"
     why = [r[0] for r in table[1:] if len(r) == 1]  # the reasons, each on a row across the table
     assert why == ["Why: " + r["reasons"] for r in voids["screening"]["ranked"]]
     text = page.split("<h2>Provenance</h2>")[0]

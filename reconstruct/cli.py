@@ -385,7 +385,9 @@ def _cmd_voids(args) -> int:
     for entry in content["detectability"]:
         print(f"  {entry['work']}: {entry['words']}")
     for entry in content["screening"]["ranked"][:5]:
-        print(f"  {entry['rank']}. body {entry['body_id']} ({entry['status']}, confidence {entry['confidence']}): "
+        what = (f"body {entry['body_id']}" if entry.get("body_id") is not None
+                else f"weak indication {entry.get('indication_id')}")
+        print(f"  {entry['rank']}. {what} ({entry['status']}, confidence {entry['confidence']}): "
               f"{entry['reasons']}")
     print(f"pictures: {content['rendering']}")
     print(f"output: {Path(args.folder)} (voids.csv, voids.json, weak_indications.csv, screening.csv, "

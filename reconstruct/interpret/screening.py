@@ -380,14 +380,15 @@ def _weak_as_body(w):
 def _figures(b) -> dict:
     """Best and cautious sizes of a body: the fit's 95 % bounds when refined, else the cube's figures."""
     r = b.refined
-    if r is None:
+    if r is None or not getattr(r, "converged", True):
         below = b.roof_below_work_m if _finite(b.roof_below_work_m) else None
         standoff = b.standoff_m if _finite(b.standoff_m) else None
         return dict(roof=b.roof_thickness_m, below=below, below_name=b.roof_below_work_name if below is not None
                     else None, span=b.span_m, width=b.width_m, length=b.length_m, volume=b.volume_m3,
                     standoff=standoff, c_roof=b.roof_thickness_m, c_below=below, c_span=b.span_m,
                     c_width=b.width_m, c_length=b.length_m, c_standoff=standoff, at_least=False,
-                    bounds="none available: figures cut from the cube")
+                    bounds="none available: figures cut from the cube" if r is None else
+                    "none available (the fit against the picks did not converge): figures cut from the cube")
     below_name = min(r.roof_below_work_m, key=lambda k: r.roof_below_work_m[k].cautious_low(), default=None)
     below = r.roof_below_work_m[below_name] if below_name is not None else None
     (c_span, open_span), (c_width, open_width), (c_length, open_length) = (

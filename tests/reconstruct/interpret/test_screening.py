@@ -314,3 +314,17 @@ def test_weak_indications_are_ranked_with_the_bodies():
     # its extent is taken up to the resolution (6 m), not its 2 m of cells
     assert first.cautious_width_m == pytest.approx(6.0)
     assert "2.5 noise floors" in first.reasons and "up to about 6 m across" in first.reasons
+
+
+def test_a_fit_that_did_not_converge_falls_back_to_the_cube():
+    # a failed fit carries no usable sizes (NaN estimates): the screening must use the cube's figures
+    from types import SimpleNamespace
+
+    nan = Estimate(math.nan, math.nan, -math.inf, math.inf)
+    failed = SimpleNamespace(converged=False, roof_thickness_m=nan, span_m=nan, width_m=nan, length_m=nan,
+                             standoff_m=nan, volume_m3=nan, roof_below_work_m={}, lower_bound=False)
+    body = _body()
+    entry = screen_voids([dataclasses.replace(body, refined=failed)], ScreeningOptions(rock_mass_q=4.0))[0]
+    cube = screen_voids([body], ScreeningOptions(rock_mass_q=4.0))[0]
+    assert entry.cautious_roof_m == cube.cautious_roof_m and entry.crown_fos == pytest.approx(cube.crown_fos)
+    assert "did not converge" in entry.bounds

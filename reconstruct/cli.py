@@ -353,6 +353,7 @@ def _void_settings(args):
     if args.max_pictures < 0:
         raise InputError(f"--max-pictures must be >= 0 (got {args.max_pictures})")
     return ProcessingSettings(
+        refine_bodies=not args.no_refine,
         voids=VoidOptions(sigmas=args.threshold_sigmas, false_alarm=args.false_alarm),
         screening=ScreeningOptions(specific_gravity=args.specific_gravity, dip_deg=args.wall_dip_deg,
                                 rock_mass_q=args.rock_mass_q))
@@ -480,6 +481,9 @@ def _add_voids_parser(sub):
                    help="rock mass quality Q of the crown (dimensionless); when given, the critical span is "
                         "compared")
     p.add_argument("--no-pictures", action="store_true", help="write tables and meshes but no PNG pictures")
+    p.add_argument("--no-refine", action="store_true",
+                   help="do not fit each body again against the picks as a sharp ellipsoid (faster; the "
+                        "sizes are then the cube's, without bounds)")
     p.add_argument("--max-pictures", type=int, default=20, metavar="N",
                    help="draw plan and section slices for at most N voids (default 20)")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")

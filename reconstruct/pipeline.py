@@ -100,6 +100,9 @@ class ProcessingSettings:
         Keep the final bent rays (for ``rays.vtp``); bent rays only.
     find_bodies : bool
         Find and screen the bodies after the inversion.
+    refine_bodies : bool
+        Fit each body found again, directly to the picks, as a sharp
+        ellipsoid with bounds (:mod:`reconstruct.interpret.refine`).
     voids : VoidOptions
         Detection threshold (robust standard deviations of the anomaly, or
         derived from the false-alarm chance).
@@ -120,6 +123,7 @@ class ProcessingSettings:
     snap_tolerance_m: float | None = None
     keep_rays: bool = False
     find_bodies: bool = True
+    refine_bodies: bool = True
     voids: VoidOptions = field(default_factory=VoidOptions)
     screening: ScreeningOptions = field(default_factory=ScreeningOptions)
     anisotropy_from_picks: bool = False
@@ -261,7 +265,31 @@ def interpret_inversion(inversion: InversionFolder, settings: ProcessingSettings
     resolved = sum(b.status == STATUS_RESOLVED for b in analysis.bodies)
     _say(progress, f"bodies: {len(analysis.bodies)} ({resolved} resolved, "
                    f"{len(analysis.bodies) - resolved} unresolved)")
+    if settings.refine_bodies and analysis.bodies:
+        analysis, screening = _refined(inversion, analysis, settings, progress)
     return analysis, tuple(screening)
+
+
+def _refined(inversion: InversionFolder, analysis, settings: ProcessingSettings, progress):
+    """The analysis with every body refined against the picks, and the screening of the refined bodies."""
+    from reconstruct.interpret.refine import RefinementInputs, failed_refinement, refine_bodies
+    from reconstruct.interpret.screening import screen_voids
+
+    if inversion.pick_times is None:
+        reason = failed_refinement("not refined: the folder holds no residuals.csv and nodes_used.csv")
+        bodies = tuple(dataclasses.replace(b, refined=reason) for b in analysis.bodies)
+    else:
+        velocity = inversion.velocity_m_per_ns
+        usable = np.isfinite(velocity) & (velocity > 0)  # air cells as written; else at the speed of light
+        inputs = RefinementInputs(
+            grid=inversion.grid, slowness_ns_per_m=np.where(usable, 1.0 / np.where(usable, velocity, 1.0),
+                                                            1.0 / 0.299792458),
+            ground=inversion.ground, background_slowness_ns_per_m=analysis.background_slowness_ns_per_m,
+            labels=analysis.labels, picks=inversion.pick_times, surface_elevation_m=inversion.site.ground.elevation_m,
+            planned_works=tuple(inversion.site.planned_works))
+        bodies = refine_bodies(inputs, analysis.bodies, progress=progress)
+    analysis = dataclasses.replace(analysis, bodies=bodies)
+    return analysis, screen_voids(bodies, settings.screening)
 
 
 def node_positions_from_surveys(site, nodes, progress=None):
@@ -376,6 +404,7 @@ def write_processing(result: ProcessingResult, out, *, inputs: dict, parameters:
 def interpretation_parameters(settings: ProcessingSettings, site_path, pictures: bool, max_pictures: int) -> dict:
     """The parameters of the void search recorded in the manifest and ``voids.json``."""
     return {"threshold_sigmas": settings.voids.sigmas, "false_alarm": settings.voids.false_alarm,
+            "refine_bodies": settings.refine_bodies,
             "site": str(site_path), "pictures": pictures, "max_pictures": max_pictures,
             "screening": {"specific_gravity": settings.screening.specific_gravity,
                        "wall_dip_deg": settings.screening.dip_deg,

@@ -68,7 +68,7 @@ from scipy.optimize import least_squares
 from reconstruct.errors import InputError
 from reconstruct.forward.first_arrivals import first_arrival_times, unique_pairs
 from reconstruct.forward.sharp_body import Ellipsoid, ellipsoid_delay_ns
-from reconstruct.interpret.bodies import FILL_AIR, _work_points_m
+from reconstruct.interpret.bodies import FILL_AIR, STATUS_RESOLVED, _work_points_m
 from reconstruct.interpret.estimates import Z_95, Estimate, estimate_from_sigma
 from reconstruct.parallel import Executor
 
@@ -80,6 +80,10 @@ AIR_VELOCITY_M_PER_NS = 0.299792458
 SLOW_RATIO_RANGE = (0.03, 0.9)
 #: The size figures that are only lower bounds for a slow body.
 _SIZE_FIGURES = ("volume_m3", "span_m", "width_m", "length_m")
+#: A pair whose background time is this fraction below its straight-line time arrives another way.
+_PATH_SLACK = 0.03
+#: At most this many node pairs, the nearest to the body, are fitted.
+_MAX_PAIRS = 600
 #: Eigenvalues of J^T J below this fraction of the largest count as unconstrained directions.
 _RCOND = 1e-8
 
@@ -123,6 +127,12 @@ class RefineOptions:
     reach_sizes : float
         Picks whose straight path passes within this many times the body's
         largest semi-axis (plus one resolution length) of its centre are used.
+    grow_resolutions : float
+        The body's cells, grown by this many resolution lengths, are replaced
+        by the background for the background times.
+    loss : {"linear", "soft_l1", "huber"}
+        Loss of :func:`scipy.optimize.least_squares` on the residuals in
+        sigmas ("linear": plain least squares).
     n_bootstrap : int
         Resamples of the node bootstrap (0: covariance only).
     max_bodies : int
@@ -135,6 +145,8 @@ class RefineOptions:
     """
 
     reach_sizes: float = 3.0
+    grow_resolutions: float = 1.0
+    loss: str = "linear"
     n_bootstrap: int = 200
     max_bodies: int = 8
     max_evaluations: int = 200
@@ -148,6 +160,10 @@ class RefineOptions:
             value = getattr(self, name)
             if not isinstance(value, int) or value < 0:
                 problems.append(f"{name} must be a whole number >= 0 (got {value!r})")
+        if self.loss not in ("linear", "soft_l1", "huber"):
+            problems.append(f"loss must be one of linear, soft_l1, huber (got {self.loss!r})")
+        if not (isinstance(self.grow_resolutions, (int, float)) and self.grow_resolutions >= 0):
+            problems.append(f"grow_resolutions must be >= 0 (got {self.grow_resolutions!r})")
         if problems:
             raise InputError(problems, source="refinement options")
 
@@ -274,18 +290,34 @@ def _segment_distance_m(a, b, point):
     return np.linalg.norm(a + t[:, None] * d - point, axis=1)
 
 
-def _background_correction(inputs: RefinementInputs, body_id, grow_cells, pair_a, pair_b):
-    """Time without the body's region minus time through the cube, per pair (ns), by the forward model."""
+def _background_times(inputs: RefinementInputs, body_id, grow_cells, pair_a, pair_b, exact=True):
+    """Per pair: time without the body's region minus time through the cube (ns, by the forward model),
+    and whether the pair's background first arrival runs through the rock near its straight line.
+
+    A pair whose time without the body is more than ``_PATH_SLACK`` below the
+    straight-line time through the same model arrives by another way (the
+    air wave along the ground, a fast layer): the sharp-body delay, computed
+    for a path through rock, does not apply to it, and it is left out.
+    With ``exact=False`` (an unresolved body, whose cube anomaly is weak and
+    small) the difference is taken along the straight lines instead of by
+    two sets of travel-time fields, and no pair is left out.
+    """
+    from reconstruct.forward.straight_rays import straight_ray_matrix
+
     region = ndimage.binary_dilation(inputs.labels == body_id, structure=np.ones((3, 3, 3), bool),
                                      iterations=max(int(grow_cells), 0)) & inputs.ground
     slowness = np.asarray(inputs.slowness_ns_per_m, dtype=float)
     without = np.where(region, inputs.background_slowness_ns_per_m, slowness)
-    if np.allclose(without[region], slowness[region], rtol=1e-12, atol=0.0):
-        return np.zeros(pair_a.size)
     xyz = inputs.picks.nodes_xyz_m
+    straight = straight_ray_matrix(inputs.grid, xyz[pair_a], xyz[pair_b]) @ without.ravel()
+    if np.allclose(without[region], slowness[region], rtol=1e-12, atol=0.0):
+        return np.zeros(pair_a.size), np.ones(pair_a.size, dtype=bool)
+    if not exact:
+        cube = straight_ray_matrix(inputs.grid, xyz[pair_a], xyz[pair_b]) @ slowness.ravel()
+        return straight - cube, cube  # the caller compares the run's predicted times with ``cube``
     with_body = first_arrival_times(inputs.grid, slowness, xyz, pair_a, pair_b, executor=inputs.executor)
     no_body = first_arrival_times(inputs.grid, without, xyz, pair_a, pair_b, executor=inputs.executor)
-    return no_body - with_body
+    return no_body - with_body, no_body >= (1.0 - _PATH_SLACK) * straight
 
 
 @dataclass(frozen=True)
@@ -295,6 +327,7 @@ class _Problem:
     a_xyz_m: np.ndarray  # (n, 3) one end of each pick
     b_xyz_m: np.ndarray
     time_ns: np.ndarray
+    predicted_ns: np.ndarray  # the run's prediction through the cube
     base_ns: np.ndarray  # background time of each pick, time-zero terms included
     sigma_ns: np.ndarray
     tx: np.ndarray
@@ -317,7 +350,7 @@ class _Problem:
         return (self.time_ns - self.base_ns - delay) / self.sigma_ns, state
 
 
-def _build_problem(inputs: RefinementInputs, body, centre, radius_m, reach_m, max_pairs):
+def _build_problem(inputs: RefinementInputs, body, centre, reach_m, max_pairs, grow_resolutions):
     """The picks near the body and their background times; None when no pick passes near it."""
     picks = inputs.picks
     xyz = np.asarray(picks.nodes_xyz_m, dtype=float)
@@ -328,8 +361,16 @@ def _build_problem(inputs: RefinementInputs, body, centre, radius_m, reach_m, ma
         near = near[np.argsort(distance[near], kind="stable")[:max_pairs]]
     if near.size == 0:
         return None
-    grow = math.ceil(body.resolution_m / float(min(inputs.grid.cell_m)))
-    correction = _background_correction(inputs, body.body_id, grow, pair_a[near], pair_b[near])
+    grow = math.ceil(grow_resolutions * body.resolution_m / float(min(inputs.grid.cell_m)))
+    exact = body.status == STATUS_RESOLVED
+    correction, through_rock = _background_times(inputs, body.body_id, grow, pair_a[near], pair_b[near], exact)
+    if not exact:  # the run's predicted time (time-zero terms aside) against the straight-line time
+        slowest = np.full(pair_a.size, np.inf)
+        np.minimum.at(slowest, pick_pair, np.asarray(picks.predicted_time_ns, float))
+        through_rock = slowest[near] >= (1.0 - _PATH_SLACK) * through_rock
+    near, correction = near[through_rock], correction[through_rock]
+    if near.size == 0:
+        return None
     lookup = np.full(pair_a.size, -1)
     lookup[near] = np.arange(near.size)
     use = np.flatnonzero(lookup[pick_pair] >= 0)
@@ -337,6 +378,7 @@ def _build_problem(inputs: RefinementInputs, body, centre, radius_m, reach_m, ma
     s0 = _background_at(inputs, centre)
     return _Problem(
         a_xyz_m=xyz[tx], b_xyz_m=xyz[rx], time_ns=np.asarray(picks.time_ns, float)[use],
+        predicted_ns=np.asarray(picks.predicted_time_ns, float)[use],
         base_ns=np.asarray(picks.predicted_time_ns, float)[use] + correction[lookup[pick_pair[use]]],
         sigma_ns=np.asarray(picks.sigma_ns, float)[use], tx=tx, rx=rx, s0_ns_per_m=s0,
         air=body.fill == FILL_AIR)
@@ -464,7 +506,7 @@ def _cautious(value, sigma, samples, key, *, lower_limit=-math.inf, open_above=F
     return Estimate(value, spread, low, math.inf if open_above else high)
 
 
-def _fit(problem: _Problem, theta0, bounds, max_evaluations):
+def _fit(problem: _Problem, theta0, bounds, max_evaluations, loss="linear"):
     """Bounded least squares from ``theta0``; returns the scipy result (warm starts carried between calls)."""
     memo = {"warm": None}
 
@@ -475,7 +517,7 @@ def _fit(problem: _Problem, theta0, bounds, max_evaluations):
         return residual
 
     scale = np.array([1.0, 1.0, 1.0, 0.2, 0.2, 0.2, 0.5, 0.5])[:theta0.size]
-    return least_squares(fun, theta0, bounds=bounds, x_scale=scale, diff_step=1e-3, ftol=1e-6, xtol=1e-6,
+    return least_squares(fun, theta0, bounds=bounds, x_scale=scale, diff_step=1e-3, ftol=1e-6, xtol=1e-6, loss=loss,
                          max_nfev=max(1, max_evaluations // (theta0.size + 1)), method="trf")
 
 
@@ -518,8 +560,13 @@ def _assemble(problem, geometry, theta, result, samples, chi2_cube, seconds, n_b
         velocity = estimate_from_sigma(v, v * ratio_sigma, lower_limit=0.0)
     else:
         velocity = Estimate(AIR_VELOCITY_M_PER_NS, 0.0, AIR_VELOCITY_M_PER_NS, AIR_VELOCITY_M_PER_NS)
+    converged = bool(result.success) and result.status > 0 and chi2 / n <= chi2_cube
+    if chi2 / n > chi2_cube:
+        words_fail = "the sharp body explains these picks worse than the cube does: read the cube's body instead; "
+    else:
+        words_fail = "" if converged else "the fit stopped at its evaluation limit before converging; "
     sigma_axes = np.exp(theta[3:6]) * np.sqrt(np.maximum(np.diag(covariance)[3:6], 0.0))
-    words = (f"fitted to {n} picks in {result.nfev} iterations ({result.message.rstrip('.')}); "
+    words = words_fail + (f"fitted to {n} picks in {result.nfev} iterations ({result.message.rstrip('.')}); "
              f"chi2 per pick {chi2_cube:.2f} with the cube, {chi2 / n:.2f} with the refined body; "
              f"95 % bounds the wider of the covariance and a {len(samples)}-resample node bootstrap")
     return RefinedBody(
@@ -535,7 +582,7 @@ def _assemble(problem, geometry, theta, result, samples, chi2_cube, seconds, n_b
                             "picks see only the part that blocks their paths; its size is at least this, "
                             "its roof may lie higher and its stand-off be smaller" if slow else ""),
         chi2_per_pick_cube=chi2_cube, chi2_per_pick_refined=chi2 / n, n_picks=n, n_bootstrap=n_boot,
-        converged=bool(result.success) and result.status > 0, message=words, seconds=seconds,
+        converged=converged, message=words, seconds=seconds,
         semi_axes_sigma_m=tuple(float(v) for v in sigma_axes))
 
 
@@ -558,16 +605,16 @@ def refine_body(inputs: RefinementInputs, body, options: RefineOptions = RefineO
     started = time.perf_counter()
     centre, axes, azimuth = _initial_shape(inputs.grid, inputs.labels, body.body_id)
     reach = options.reach_sizes * float(axes.max()) + body.resolution_m
-    problem = _build_problem(inputs, body, centre, float(axes.max()), reach, max_pairs=1500)
+    problem = _build_problem(inputs, body, centre, reach, _MAX_PAIRS, options.grow_resolutions)
     if problem is None or problem.time_ns.size < 12:
         return failed_refinement(f"not refined: fewer than 12 picks pass within {reach:.1f} m of the body",
                                  time.perf_counter() - started)
-    chi2_cube = float((((problem.time_ns - problem.base_ns) / problem.sigma_ns) ** 2).mean())
+    chi2_cube = float((((problem.time_ns - problem.predicted_ns) / problem.sigma_ns) ** 2).mean())
     theta0, bounds = _start_and_bounds(body, centre, axes, azimuth, body.resolution_m)
     geometry = _Geometry(inputs.surface_elevation_m, tuple(
         (w.name, _work_points_m(w, 0.5 * float(min(inputs.grid.cell_m[:2])))) for w in inputs.planned_works))
     try:
-        result = _fit(problem, theta0, bounds, options.max_evaluations)
+        result = _fit(problem, theta0, bounds, options.max_evaluations, options.loss)
         theta = result.x
         samples = _node_bootstrap(problem, geometry, theta, result.jac, result.fun, bounds, options.n_bootstrap,
                                   options.seed)
@@ -595,3 +642,89 @@ def refine_bodies(inputs: RefinementInputs, bodies, options: RefineOptions = Ref
                          + ("" if fit.converged else f": {fit.message}"))
         out.append(replace(body, refined=fit))
     return tuple(out)
+
+
+#: Picks whose robust weight in the run fell below this are left out of the refinement (gross errors).
+_LEAST_ROBUST_WEIGHT = 0.5
+
+
+def pick_times_from_run(run) -> PickTimes:
+    """The picks of an inversion in memory (:class:`reconstruct.inverse.straight.TomographyRun`)."""
+    picks, used, result = run.picks, np.asarray(run.used), run.result
+    sigma = (np.asarray(picks.sigma_ns, dtype=float)[used] if picks.sigma_ns is not None
+             else np.full(used.size, np.nan))
+    sigma = np.where(np.isfinite(sigma) & (sigma > 0), sigma, float(result.rms_ns))
+    keep = np.ones(used.size, dtype=bool)
+    if getattr(result, "robust_weight", None) is not None:
+        keep = np.asarray(result.robust_weight) >= _LEAST_ROBUST_WEIGHT
+    return PickTimes(nodes_xyz_m=np.asarray(run.placement.xyz_m, dtype=float), tx=np.asarray(picks.tx)[used][keep],
+                     rx=np.asarray(picks.rx)[used][keep], time_ns=np.asarray(picks.time_ns, float)[used][keep],
+                     predicted_time_ns=np.asarray(result.predicted_ns, float)[keep], sigma_ns=sigma[keep],
+                     source=str(picks.source))
+
+
+def read_pick_times(folder, rms_ns: float) -> PickTimes | None:
+    """The picks of an inversion folder (``residuals.csv`` with ``nodes_used.csv``); None when either is absent.
+
+    A blank ``sigma_ns`` takes the run's RMS misfit ``rms_ns``. Raises
+    InputError naming the file and line of a value that is not a number.
+    """
+    import csv
+    from pathlib import Path
+
+    folder = Path(folder)
+    residuals, nodes = folder / "residuals.csv", folder / "nodes_used.csv"
+    if not residuals.is_file() or not nodes.is_file():
+        return None
+    hint = "write the folder again with 'voidcube reconstruct invert'"
+    with open(nodes, newline="", encoding="utf-8") as handle:
+        rows = list(csv.DictReader(handle))
+    try:
+        ids = {r["node_id"]: k for k, r in enumerate(rows)}
+        xyz = np.array([[float(r["x_m"]), float(r["y_m"]), float(r["z_m"])] for r in rows]).reshape(-1, 3)
+    except (KeyError, TypeError, ValueError):
+        raise InputError(f"{nodes}: node_id, x_m, y_m, z_m missing or not numbers; {hint}") from None
+    columns = {"tx": [], "rx": [], "time_ns": [], "predicted_time_ns": [], "sigma_ns": []}
+    with open(residuals, newline="", encoding="utf-8") as handle:
+        for line, row in enumerate(csv.DictReader(handle), start=2):
+            try:
+                weight = row.get("robust_weight")
+                if weight not in (None, "") and float(weight) < _LEAST_ROBUST_WEIGHT:
+                    continue
+                tx, rx = ids[row["tx"]], ids[row["rx"]]
+                values = [float(row["time_ns"]), float(row["predicted_time_ns"])]
+                sigma = float(row["sigma_ns"]) if row.get("sigma_ns") not in (None, "") else rms_ns
+            except KeyError as missing:
+                raise InputError(f"{residuals}: line {line}: {missing} missing or not in {nodes.name}; {hint}") from None
+            except (TypeError, ValueError):
+                raise InputError(f"{residuals}: line {line}: a time or sigma is not a number; {hint}") from None
+            for key, value in zip(columns, (tx, rx, *values, sigma if sigma > 0 else rms_ns)):
+                columns[key].append(value)
+    return PickTimes(nodes_xyz_m=xyz, tx=np.asarray(columns["tx"], dtype=np.int64),
+                     rx=np.asarray(columns["rx"], dtype=np.int64), time_ns=np.asarray(columns["time_ns"]),
+                     predicted_time_ns=np.asarray(columns["predicted_time_ns"]),
+                     sigma_ns=np.asarray(columns["sigma_ns"]), source=str(residuals))
+
+
+#: Columns of ``voids.csv`` from the refinement: the fitted value and its cautious 95 % bounds.
+REFINED_COLUMNS = (
+    "refined_converged", "refined_lower_bound",
+    "refined_volume_m3", "refined_volume_low95_m3", "refined_volume_high95_m3",
+    "refined_roof_thickness_m", "refined_roof_thickness_low95_m", "refined_roof_thickness_high95_m",
+    "refined_span_m", "refined_span_low95_m", "refined_span_high95_m",
+    "refined_standoff_m", "refined_standoff_low95_m", "refined_standoff_high95_m",
+)
+
+
+def refined_table_values(body) -> dict:
+    """The :data:`REFINED_COLUMNS` of one body; None where not refined or not finite (open bounds)."""
+    fit = body.refined
+    out = dict.fromkeys(REFINED_COLUMNS)
+    if fit is None:
+        return out
+    out["refined_converged"], out["refined_lower_bound"] = fit.converged, fit.lower_bound
+    for name, unit in (("volume", "m3"), ("roof_thickness", "m"), ("span", "m"), ("standoff", "m")):
+        e = getattr(fit, f"{name}_{unit}")
+        for suffix, value in (("", e.value), ("_low95", e.low95), ("_high95", e.high95)):
+            out[f"refined_{name}{suffix}_{unit}"] = float(value) if math.isfinite(value) else None
+    return out

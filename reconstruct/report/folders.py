@@ -14,6 +14,7 @@ import numpy as np
 
 from reconstruct.interpret.bodies import STATUS_RESOLVED, VOID_TABLE_COLUMNS, void_table_rows
 from reconstruct.interpret.folder import InversionFolder
+from reconstruct.interpret.refine import REFINED_COLUMNS, refined_table_values
 from reconstruct.interpret.screening import SCREENING_COLUMNS, SCREENING_NOTE
 from reconstruct.inverse.straight import TomographyRun, run_summary
 from reconstruct.io.outputs import (
@@ -214,8 +215,12 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
     out = data.path
     written = []
     rows = void_table_rows(analysis.bodies)
-    written.append(write_csv_atomic(out / "voids.csv", VOID_TABLE_COLUMNS,
-                                    ([_csv_value(r[c]) for c in VOID_TABLE_COLUMNS] for r in rows)))
+    csv_rows = [{**row, **refined_table_values(body)} for row, body in zip(rows, analysis.bodies)]
+    for row, body in zip(rows, analysis.bodies):  # the fit against the picks, with bounds
+        row["refined"] = body.refined.as_dict() if body.refined is not None else None
+    columns = VOID_TABLE_COLUMNS + REFINED_COLUMNS
+    written.append(write_csv_atomic(out / "voids.csv", columns,
+                                    ([_csv_value(r[c]) for c in columns] for r in csv_rows)))
     screening_rows = [{c: getattr(e, c) for c in SCREENING_COLUMNS} for e in screening]
     written.append(write_csv_atomic(out / "screening.csv", SCREENING_COLUMNS,
                                     ([_csv_value(r[c]) for c in SCREENING_COLUMNS] for r in screening_rows)))

@@ -68,3 +68,39 @@ def test_water_filled_sphere_is_reported_as_a_lower_bound():
     assert fit.volume_m3.low95 <= case.volume_m3
     assert 0.03 * 0.115 <= fit.velocity_m_per_ns.value <= 0.9 * 0.115
     assert fit.chi2_per_pick_refined < fit.chi2_per_pick_cube
+
+
+def test_voids_command_writes_each_fit_and_can_be_turned_off(make_inversion_folder):
+    import csv
+
+    from reconstruct.cli import main
+
+    folder, _ = make_inversion_folder()
+    assert main(["voids", str(folder), "--no-pictures", "--quiet"]) == 0
+    body = json.loads((folder / "voids.json").read_text(encoding="utf-8"))["bodies"][0]
+    fit = body["refined"]
+    assert set(fit) >= {"volume_m3", "roof_thickness_m", "span_m", "standoff_m", "converged", "message",
+                        "lower_bound", "chi2_per_pick_refined"}
+    assert fit["message"]  # in words, whether the fit converged or not
+    with open(folder / "voids.csv", newline="", encoding="utf-8") as handle:
+        row = next(csv.DictReader(handle))
+    assert "refined_volume_low95_m3" in row and "refined_roof_thickness_low95_m" in row
+    assert main(["voids", str(folder), "--no-pictures", "--quiet", "--no-refine"]) == 0
+    body = json.loads((folder / "voids.json").read_text(encoding="utf-8"))["bodies"][0]
+    assert body["refined"] is None
+
+
+def test_a_damaged_residuals_table_is_one_clear_error(tmp_path):
+    from reconstruct.errors import InputError
+    from reconstruct.interpret.refine import read_pick_times
+
+    (tmp_path / "nodes_used.csv").write_text("node_id,x_m,y_m,z_m\nA,0,0,0\nB,10,0,0\n", encoding="utf-8")
+    (tmp_path / "residuals.csv").write_text(
+        "input_line,tx,rx,time_ns,predicted_time_ns,sigma_ns\n2,A,B,87.1,86.9,0.5\n3,A,B,eighty,86.9,0.5\n",
+        encoding="utf-8")
+    with pytest.raises(InputError, match=r"residuals.csv: line 3: .*not a number"):
+        read_pick_times(tmp_path, 0.5)
+    (tmp_path / "residuals.csv").write_text(
+        "input_line,tx,rx,time_ns,predicted_time_ns,sigma_ns\n2,A,C,87.1,86.9,\n", encoding="utf-8")
+    with pytest.raises(InputError, match=r"line 2: 'C' missing or not in nodes_used.csv"):
+        read_pick_times(tmp_path, 0.5)

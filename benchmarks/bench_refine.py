@@ -1,0 +1,141 @@
+"""Calibration of the body refinement's 95 % bounds on independent single-void cases (issue 15, part 1).
+
+Cases
+-----
+20 random spheres (seeded): radius 1.5-4 m, roof 3-12 m below flat ground,
+centre within 2 m of the middle of four boreholes, air-filled (SI speed of
+light) or water-filled (0.033 m/ns; Davis and Annan 1989, tests/REFERENCES.md)
+in rock of 0.115 m/ns. Picks: the exact first arrivals past the sphere
+(tests/references/sphere.py: Fermat's principle, straight, refracted and
+around paths minimised with scipy.optimize; never voidcube's own forward
+model) plus 0.5 ns Gaussian noise. The refinement starts from a crude cube
+body, 30 % too large or too small and shifted up to a metre
+(tests/reconstruct/interpret/refine_cases.py).
+
+Counted: in how many cases the cautious 95 % bounds of the volume and of the
+roof thickness (rock between the roof and the ground) contain the truth
+(target: at least 18 of 20 each). A water-filled body's size is a lower
+bound (its upper end is open), so its volume counts as contained when the
+lower end is at or below the truth. Time: the refinement of each case against
+the time the independent reference took for the same case's picks (same run,
+same machine load).
+
+``--sphere-case`` also processes the case of benchmarks/bench_sphere_case.py
+(an air sphere under flat ground with air above, 6,320 picks from the exact
+reference with the air wave; default processing with the refinement on) and
+prints chi^2/N over all picks with the cube alone and with the refined body
+in place of the cube's body for the picks the refinement used (issue 14
+wanted chi^2/N <= 1.5 there).
+
+Run: ``nice python3 benchmarks/bench_refine.py [--cases 20] [--seed 15] [--sphere-case]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout too
+
+from reconstruct.interpret.refine import RefineOptions, refine_body  # noqa: E402
+from tests.reconstruct.interpret.refine_cases import FILL_AIR, FILL_WATER_OR_CLAY, sphere_case  # noqa: E402
+
+
+def run_cases(n_cases: int, seed: int, n_bootstrap: int):
+    rng = np.random.default_rng(seed)
+    rows = []
+    for k in range(n_cases):
+        radius = float(rng.uniform(1.5, 4.0))
+        roof = float(rng.uniform(3.0, 12.0))
+        fill = FILL_AIR if rng.uniform() < 0.5 else FILL_WATER_OR_CLAY
+        started = time.perf_counter()
+        case = sphere_case(rng, radius_m=radius, depth_m=roof + radius, fill=fill)
+        reference_s = time.perf_counter() - started
+        fit = refine_body(case.inputs, case.body, RefineOptions(n_bootstrap=n_bootstrap))
+        v, t = fit.volume_m3, fit.roof_thickness_m
+        v_in = v.low95 <= case.volume_m3 <= v.high95
+        t_in = t.low95 <= case.roof_thickness_m <= t.high95
+        rows.append((k, fill, radius, case.volume_m3, v, case.roof_thickness_m, t, v_in, t_in, fit, reference_s))
+        print(f"{k:>3} {fill:<14} r {radius:4.2f} m  volume {case.volume_m3:6.1f} m^3 -> {v.value:6.1f} "
+              f"[{v.low95:6.1f}, {v.high95:6.1f}] {'in ' if v_in else 'OUT'}  roof {case.roof_thickness_m:5.2f} m -> "
+              f"{t.value:5.2f} [{t.low95:5.2f}, {t.high95:5.2f}] {'in ' if t_in else 'OUT'}  "
+              f"chi2/N {fit.chi2_per_pick_cube:7.1f} -> {fit.chi2_per_pick_refined:5.2f}  "
+              f"{fit.n_picks} picks  fit {fit.seconds:5.1f} s (reference {reference_s:5.1f} s)"
+              + ("" if fit.converged else f"  NOT CONVERGED: {fit.message}"), flush=True)
+    return rows
+
+
+def summary(rows):
+    n = len(rows)
+    v_in = sum(r[7] for r in rows)
+    t_in = sum(r[8] for r in rows)
+    air = [r for r in rows if r[1] == FILL_AIR]
+    radius_err = [((3 * r[4].value / (4 * math.pi)) ** (1 / 3) / r[2] - 1) for r in air]
+    fit_s = sum(r[9].seconds for r in rows)
+    ref_s = sum(r[10] for r in rows)
+    print()
+    print(f"95 % bounds contain the truth: volume {v_in}/{n}, roof thickness {t_in}/{n} (target >= 18/20 each)")
+    if air:
+        print(f"air-filled: equivalent radius error median {100 * np.median(radius_err):+.1f} %, "
+              f"largest |error| {100 * np.max(np.abs(radius_err)):.1f} % over {len(air)} cases")
+    print(f"converged: {sum(r[9].converged for r in rows)}/{n}; time: refinement {fit_s:.0f} s in all "
+          f"({fit_s / n:.1f} s per case) against {ref_s:.0f} s for the independent reference times")
+
+
+def sphere_case_chi2():
+    """chi^2/N of benchmarks/bench_sphere_case.py's case: the cube alone and with the refined body."""
+    import tempfile
+
+    import benchmarks.bench_sphere_case as case
+    from reconstruct.io.site import load_site
+    from reconstruct.io.tables import read_nodes, read_picks
+    from reconstruct.parallel import Executor
+    from reconstruct.pipeline import ProcessingSettings, process_survey
+
+    ids, xyz, kinds, holes = case.layout()
+    i, j, times, _ = case.independent_times(xyz, Path(tempfile.gettempdir()) / "voidcube_bench_sphere")
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        case.write_inputs(folder, 1.0, ids, xyz, kinds, holes, i, j, times)
+        started = time.perf_counter()
+        result = process_survey(load_site(folder / "site.yaml"), read_nodes(folder / "nodes.csv"),
+                                read_picks(folder / "picks.csv", read_nodes(folder / "nodes.csv")),
+                                ProcessingSettings(), executor=Executor(kind="serial"),
+                                progress=lambda m: print(f"  [{time.perf_counter() - started:6.0f} s] {m}",
+                                                         flush=True))
+    run = result.run
+    n = run.result.predicted_ns.size
+    chi2_cube = float(run.result.chi2)
+    print(f"sphere case: chi^2/N {chi2_cube / n:.3f} with the cube alone ({n} picks)")
+    for body in result.analysis.bodies:
+        fit = body.refined
+        if fit is None or not fit.n_picks:
+            continue
+        swapped = chi2_cube - fit.chi2_per_pick_cube * fit.n_picks + fit.chi2_per_pick_refined * fit.n_picks
+        print(f"  body {body.body_id} ({body.fill}, {body.status}): on its {fit.n_picks} picks chi^2/N "
+              f"{fit.chi2_per_pick_cube:.3f} (cube) -> {fit.chi2_per_pick_refined:.3f} (refined); over all picks "
+              f"{swapped / n:.3f} with the refined body in place; volume {fit.volume_m3.words('m^3')} "
+              f"(truth {case.VOLUME_M3:.1f}), roof thickness {fit.roof_thickness_m.words('m')} "
+              f"(truth {case.ROOF_DEPTH_M:.1f}); {fit.message}")
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--cases", type=int, default=20)
+    parser.add_argument("--seed", type=int, default=15)
+    parser.add_argument("--bootstrap", type=int, default=RefineOptions().n_bootstrap)
+    parser.add_argument("--sphere-case", action="store_true", help="also the case of bench_sphere_case.py")
+    args = parser.parse_args(argv)
+    if args.cases:
+        summary(run_cases(args.cases, args.seed, args.bootstrap))
+    if args.sphere_case:
+        sphere_case_chi2()
+
+
+if __name__ == "__main__":
+    main()

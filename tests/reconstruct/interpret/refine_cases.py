@@ -46,7 +46,7 @@ class SphereCase:
         return GROUND_M - (self.centre_m[2] + self.radius_m)
 
 
-def _exact_times(xyz, tx, rx, centre, radius, v_body):
+def _exact_times(xyz, tx, rx, centre, radius, v_body, starts):
     """Exact first arrivals; pairs that cannot feel the sphere are timed straight (no minimisation needed:
     a path that enters it costs at least s0 (|A-C| - R + |B-C| - R) at rock slowness)."""
     s0 = 1.0 / ROCK
@@ -59,12 +59,14 @@ def _exact_times(xyz, tx, rx, centre, radius, v_body):
                 >= s0 * length):
             times[k] = s0 * length
         else:
-            times[k] = first_arrival_ns(a, b, centre, radius, v_body, ROCK, starts=3)
+            times[k] = first_arrival_ns(a, b, centre, radius, v_body, ROCK, starts=starts)
     return times
 
 
-def sphere_case(rng, *, radius_m, depth_m, fill, noise_ns=0.5, spacing_m=3.5, crude=0.3) -> SphereCase:
-    """A random single-sphere case (see the module docstring); ``depth_m`` to the sphere's centre."""
+def sphere_case(rng, *, radius_m, depth_m, fill, noise_ns=0.5, spacing_m=3.5, crude=0.3,
+                reference_starts=3) -> SphereCase:
+    """A random single-sphere case (see the module docstring); ``depth_m`` to the sphere's centre;
+    ``reference_starts`` starts of the reference's refracted-path search per pair."""
     centre = np.array([20.0 + rng.uniform(-2, 2), 20.0 + rng.uniform(-2, 2), GROUND_M - depth_m])
     holes = [(20.0 + dx, 20.0 + dy) for dx, dy in ((-9, -9), (9, -8), (8, 9), (-8, 8))]
     depths = np.arange(2.0, depth_m + radius_m + 8.0, spacing_m)
@@ -75,7 +77,7 @@ def sphere_case(rng, *, radius_m, depth_m, fill, noise_ns=0.5, spacing_m=3.5, cr
     keep = hole[tx] < hole[rx]
     tx, rx = tx[keep], rx[keep]
     v_body = AIR if fill == FILL_AIR else WATER
-    exact = _exact_times(xyz, tx, rx, centre, radius_m, v_body)
+    exact = _exact_times(xyz, tx, rx, centre, radius_m, v_body, reference_starts)
     time_ns = exact + rng.normal(0.0, noise_ns, exact.size)
     grid = Grid((0.0, 0.0, GROUND_M - 40.0), (2.0, 2.0, 2.0), (20, 20, 20))
     s0 = 1.0 / ROCK

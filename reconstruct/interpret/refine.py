@@ -460,8 +460,12 @@ def _steps(n_params: int) -> np.ndarray:
     return np.array([0.02, 0.02, 0.02, 0.005, 0.005, 0.005, 0.005, 0.005][:n_params])
 
 
-def _figure_sigmas(geometry: _Geometry, theta, covariance):
-    """Value and 1-sigma of each derived figure (linear propagation, central differences)."""
+def _figure_sigmas(geometry: _Geometry, theta, covariance, unconstrained):
+    """Value and 1-sigma of each derived figure (linear propagation, central differences).
+
+    A figure that changes along a direction the picks do not constrain
+    (columns of ``unconstrained``, unit vectors) gets an infinite sigma.
+    """
     base = geometry.figures(theta)
     steps = _steps(theta.size)
     gradients = {k: np.zeros(theta.size) for k in base}
@@ -473,7 +477,12 @@ def _figure_sigmas(geometry: _Geometry, theta, covariance):
         for k in base:
             if k in f_up and k in f_down:
                 gradients[k][i] = (f_up[k] - f_down[k]) / (2 * h)
-    return {k: (v, float(math.sqrt(max(gradients[k] @ covariance @ gradients[k], 0.0)))) for k, v in base.items()}
+    out = {}
+    for k, v in base.items():
+        g = gradients[k]
+        free = unconstrained.shape[1] and np.abs(g @ unconstrained).max() > 1e-3 * max(np.abs(g).max(), 1e-300)
+        out[k] = (v, math.inf if free else float(math.sqrt(max(g @ covariance @ g, 0.0))))
+    return out
 
 
 def _node_bootstrap(problem: _Problem, geometry: _Geometry, theta, jacobian, residual, bounds, n, seed):
@@ -542,9 +551,14 @@ def _assemble(problem, geometry, theta, result, samples, chi2_cube, seconds, n_b
     n, p = problem.time_ns.size, theta.size
     chi2 = float((result.fun**2).sum())
     jac = result.jac
-    # directions the picks do not constrain (the azimuth of a body round in plan) are left out
-    covariance = np.linalg.pinv(jac.T @ jac, rcond=_RCOND, hermitian=True) * max(1.0, chi2 / max(n - p, 1))
-    figures = _figure_sigmas(geometry, theta, covariance)
+    # directions the picks do not constrain (the azimuth of a body round in plan, a body no path meets)
+    # are left out of the inverse; a figure that moves along them is unbounded
+    normal = jac.T @ jac
+    values, vectors = np.linalg.eigh(normal)
+    kept = values > _RCOND * max(values.max(), 0.0) if values.max() > 0 else np.zeros(p, dtype=bool)
+    covariance = (vectors[:, kept] / values[kept]) @ vectors[:, kept].T * max(1.0, chi2 / max(n - p, 1))
+    scale = np.array([1.0, 1.0, 1.0, 0.2, 0.2, 0.2, 0.5, 0.5])[:p]  # metres, log-axes, radians alike
+    figures = _figure_sigmas(geometry, theta, covariance, vectors[:, ~kept] * scale[:, None])
     slow = not problem.air
 
     def est(key, lower_limit=-math.inf, size=False):
@@ -560,8 +574,10 @@ def _assemble(problem, geometry, theta, result, samples, chi2_cube, seconds, n_b
         velocity = estimate_from_sigma(v, v * ratio_sigma, lower_limit=0.0)
     else:
         velocity = Estimate(AIR_VELOCITY_M_PER_NS, 0.0, AIR_VELOCITY_M_PER_NS, AIR_VELOCITY_M_PER_NS)
-    converged = bool(result.success) and result.status > 0 and chi2 / n <= chi2_cube
-    if chi2 / n > chi2_cube:
+    converged = bool(result.success and result.status > 0 and chi2 / n <= chi2_cube and kept[:6].all())
+    if not kept[:6].any():
+        words_fail = "the picks do not constrain this body (no path it would change); "
+    elif chi2 / n > chi2_cube:
         words_fail = "the sharp body explains these picks worse than the cube does: read the cube's body instead; "
     else:
         words_fail = "" if converged else "the fit stopped at its evaluation limit before converging; "

@@ -546,6 +546,33 @@ def _start_and_bounds(body, centre, axes, azimuth, resolution_m):
     return theta0, (np.array(low), np.array(high))
 
 
+def _covariance(jac, factor):
+    """Covariance ``(J^T J)^-1 factor`` over the directions the picks constrain, and the others.
+
+    The azimuth of a body round in plan changes no time: when its column is
+    negligible it is held fixed (no variance, no effect on the sizes). Any
+    other direction whose eigenvalue of ``J^T J`` is below ``_RCOND`` times
+    the largest is unconstrained and returned as a column of ``free`` (a
+    body no path meets: every direction).
+    """
+    p = jac.shape[1]
+    scale = np.array([1.0, 1.0, 1.0, 0.2, 0.2, 0.2, 0.5, 0.5])[:p]  # metres, log-axes, radians alike
+    scaled = jac * scale
+    norms = (scaled**2).sum(axis=0)
+    use = np.ones(p, dtype=bool)
+    if norms[6] < 1e-6 * norms.max():
+        use[6] = False
+    values, vectors = np.linalg.eigh(scaled[:, use].T @ scaled[:, use])
+    kept = values > _RCOND * values.max() if values.max() > 0 else np.zeros(values.size, dtype=bool)
+    inverse = (vectors[:, kept] / values[kept]) @ vectors[:, kept].T
+    covariance = np.zeros((p, p))
+    covariance[np.ix_(use, use)] = inverse * np.outer(scale[use], scale[use]) * factor
+    free = np.zeros((p, int((~kept).sum())))
+    free[use] = vectors[:, ~kept] * scale[use][:, None]
+    norms = np.linalg.norm(free, axis=0)
+    return covariance, free / np.where(norms > 0, norms, 1.0)
+
+
 def _assemble(problem, geometry, theta, result, samples, chi2_cube, seconds, n_boot):
     """The :class:`RefinedBody` of a finished fit."""
     n, p = problem.time_ns.size, theta.size
@@ -553,12 +580,10 @@ def _assemble(problem, geometry, theta, result, samples, chi2_cube, seconds, n_b
     jac = result.jac
     # directions the picks do not constrain (the azimuth of a body round in plan, a body no path meets)
     # are left out of the inverse; a figure that moves along them is unbounded
-    normal = jac.T @ jac
-    values, vectors = np.linalg.eigh(normal)
-    kept = values > _RCOND * max(values.max(), 0.0) if values.max() > 0 else np.zeros(p, dtype=bool)
-    covariance = (vectors[:, kept] / values[kept]) @ vectors[:, kept].T * max(1.0, chi2 / max(n - p, 1))
-    scale = np.array([1.0, 1.0, 1.0, 0.2, 0.2, 0.2, 0.5, 0.5])[:p]  # metres, log-axes, radians alike
-    figures = _figure_sigmas(geometry, theta, covariance, vectors[:, ~kept] * scale[:, None])
+    covariance, free = _covariance(jac, max(1.0, chi2 / max(n - p, 1)))
+    kept = np.ones(p, dtype=bool)
+    kept[:6] = np.abs(free[:6]).max(axis=1) < 0.5 if free.shape[1] else True
+    figures = _figure_sigmas(geometry, theta, covariance, free)
     slow = not problem.air
 
     def est(key, lower_limit=-math.inf, size=False):

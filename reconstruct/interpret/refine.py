@@ -659,8 +659,13 @@ def refine_body(inputs: RefinementInputs, body, options: RefineOptions = RefineO
         theta = result.x
         samples = _node_bootstrap(problem, geometry, theta, result.jac, result.fun, bounds, options.n_bootstrap,
                                   options.seed)
-        return _assemble(problem, geometry, theta, result, samples, chi2_cube, time.perf_counter() - started,
-                         len(samples))
+        fit = _assemble(problem, geometry, theta, result, samples, chi2_cube, time.perf_counter() - started,
+                        len(samples))
+        if not fit.chi2_per_pick_refined <= chi2_cube or not any(math.isfinite(e.sigma) for e in fit.centre_m):
+            # no sizes from a fit that explains the picks worse than the cube or that they do not constrain
+            return replace(failed_refinement("not refined: " + fit.message, fit.seconds, chi2_cube=chi2_cube,
+                                             n_picks=fit.n_picks), chi2_per_pick_refined=fit.chi2_per_pick_refined)
+        return fit
     except (np.linalg.LinAlgError, ValueError, FloatingPointError) as error:
         return failed_refinement(f"not refined: the fit failed ({error})", time.perf_counter() - started,
                                  chi2_cube=chi2_cube, n_picks=int(problem.time_ns.size))

@@ -58,7 +58,7 @@ def test_no_pick_near_the_body_keeps_it_with_the_reason(air_case):
 
 @pytest.mark.slow
 def test_water_filled_sphere_is_reported_as_a_lower_bound():
-    case = sphere_case(np.random.default_rng(4), radius_m=3.0, depth_m=12.0, fill=FILL_WATER_OR_CLAY,
+    case = sphere_case(np.random.default_rng(4), radius_m=3.0, depth_m=8.0, fill=FILL_WATER_OR_CLAY,
                        spacing_m=6.0, reference_starts=1)
     fit = refine_body(case.inputs, case.body, RefineOptions(n_bootstrap=20))
     assert fit.lower_bound and "first arrivals go around it" in fit.lower_bound_reason

@@ -662,7 +662,9 @@ def void_table_rows(bodies) -> list[dict]:
     """One flat dictionary per body with the keys of :data:`VOID_TABLE_COLUMNS`.
 
     Distances to planned works are None when the site has none (or, for
-    ``roof_below_work_m``, when no work lies over the body in plan).
+    ``roof_below_work_m``, when no work lies over the body in plan). A body
+    refined against the picks adds the key ``refined``
+    (:meth:`reconstruct.interpret.refine.RefinedBody.as_dict`).
     """
     rows = []
     for b in bodies:
@@ -674,5 +676,7 @@ def void_table_rows(bodies) -> list[dict]:
         for key in VOID_TABLE_COLUMNS[13:]:
             value = getattr(b, key)
             row[key] = None if isinstance(value, float) and not math.isfinite(value) else value
+        if b.refined is not None:  # the fit against the picks, for voids.json; not a column of voids.csv
+            row["refined"] = b.refined.as_dict()
         rows.append(row)
     return rows

@@ -720,18 +720,25 @@ _LEAST_ROBUST_WEIGHT = 0.5
 
 
 def pick_times_from_run(run) -> PickTimes:
-    """The picks of an inversion in memory (:class:`reconstruct.inverse.straight.TomographyRun`)."""
+    """The picks of an inversion in memory (:class:`reconstruct.inverse.straight.TomographyRun`).
+
+    Times, sigmas and positions are rounded as ``residuals.csv`` and
+    ``nodes_used.csv`` hold them (4 decimals), so that a result in memory and
+    its folder give the same refinement.
+    """
     picks, used, result = run.picks, np.asarray(run.used), run.result
     sigma = (np.asarray(picks.sigma_ns, dtype=float)[used] if picks.sigma_ns is not None
              else np.full(used.size, np.nan))
+    sigma = np.round(sigma, 4)
     sigma = np.where(np.isfinite(sigma) & (sigma > 0), sigma, float(result.rms_ns))
     keep = np.ones(used.size, dtype=bool)
     if getattr(result, "robust_weight", None) is not None:
-        keep = np.asarray(result.robust_weight) >= _LEAST_ROBUST_WEIGHT
-    return PickTimes(nodes_xyz_m=np.asarray(run.placement.xyz_m, dtype=float), tx=np.asarray(picks.tx)[used][keep],
-                     rx=np.asarray(picks.rx)[used][keep], time_ns=np.asarray(picks.time_ns, float)[used][keep],
-                     predicted_time_ns=np.asarray(result.predicted_ns, float)[keep], sigma_ns=sigma[keep],
-                     source=str(picks.source))
+        keep = np.round(np.asarray(result.robust_weight, dtype=float), 4) >= _LEAST_ROBUST_WEIGHT
+    return PickTimes(nodes_xyz_m=np.round(np.asarray(run.placement.xyz_m, dtype=float), 4),
+                     tx=np.asarray(picks.tx)[used][keep], rx=np.asarray(picks.rx)[used][keep],
+                     time_ns=np.round(np.asarray(picks.time_ns, float)[used][keep], 4),
+                     predicted_time_ns=np.round(np.asarray(result.predicted_ns, float)[keep], 4),
+                     sigma_ns=sigma[keep], source=str(picks.source))
 
 
 def read_pick_times(folder, rms_ns: float) -> PickTimes | None:

@@ -216,8 +216,6 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
     written = []
     rows = void_table_rows(analysis.bodies)
     csv_rows = [{**row, **refined_table_values(body)} for row, body in zip(rows, analysis.bodies)]
-    for row, body in zip(rows, analysis.bodies):  # the fit against the picks, with bounds
-        row["refined"] = body.refined.as_dict() if body.refined is not None else None
     columns = VOID_TABLE_COLUMNS + REFINED_COLUMNS
     written.append(write_csv_atomic(out / "voids.csv", columns,
                                     ([_csv_value(r[c]) for c in columns] for r in csv_rows)))

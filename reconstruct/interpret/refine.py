@@ -55,13 +55,14 @@ Measured (2026-12-04, 2 cores shared with other work)
 * The demo quarry (cavity of 147 m^3, roof 7.5 m below the haul road): refined
   214 m^3 (95 %: 176-246), roof 7.3 m (95 %: 6.6-8.1), chi^2/N of its 380
   picks 25.8 -> 23.8; 15 s for its three bodies. The volume bound misses the
-  truth: the demo's picks are simulated through a voxel model (a cell is
-  air when its centre is inside the body, 1 m cells), which
-  benchmarks/bench_sharp_bodies.py measures 4.2 ns early (median) against
-  exact times past a sphere, so a sharp body fitted to them comes out larger
-  (not verified on the demo's own geometry); and the picks near the cavity
-  are not explained to their noise (chi^2/N near 24), which no bound from
-  the noise covers.
+  truth: the demo's picks are simulated through a voxel model (a 1 m cell
+  is air when its centre is inside the body), and on the demo's own pairs
+  that voxel cavity advances the first arrivals 5.9 ns more (median) than
+  the exact sharp ellipsoid of the truth (benchmarks/bench_refine.py
+  ``--demo-folder``), so a sharp body fitted to them comes out larger; and
+  the picks near the cavity are not explained to their noise (chi^2/N near
+  24), which no bound from the noise covers. The roof bound does contain
+  the truth.
 
 References
 ----------

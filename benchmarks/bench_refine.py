@@ -151,7 +151,26 @@ def sphere_case_chi2():
     n = run.result.predicted_ns.size
     chi2_cube = float(run.result.chi2)
     print(f"sphere case: chi^2/N {chi2_cube / n:.3f} with the cube alone ({n} picks)")
-    for body in result.analysis.bodies:
+    _print_refined(result.analysis.bodies, chi2_cube, n, case)
+    for grow in (0.5, 1.5):  # the region replaced by the background, in resolution lengths
+        print(f"  again with the body's region grown by {grow} resolution lengths:")
+        _print_refined(_refined_again(result, RefineOptions(grow_resolutions=grow)), chi2_cube, n, case)
+
+
+def _refined_again(result, options):
+    from reconstruct.interpret.refine import RefinementInputs, refine_bodies
+
+    inversion, analysis = result.inversion, result.analysis
+    inputs = RefinementInputs(
+        grid=inversion.grid, slowness_ns_per_m=1.0 / inversion.velocity_m_per_ns, ground=inversion.ground,
+        background_slowness_ns_per_m=analysis.background_slowness_ns_per_m, labels=analysis.labels,
+        picks=inversion.pick_times, surface_elevation_m=inversion.site.ground.elevation_m,
+        planned_works=tuple(inversion.site.planned_works))
+    return refine_bodies(inputs, [b for b in analysis.bodies if b.status == "resolved" and b.fill == "air"], options)
+
+
+def _print_refined(bodies, chi2_cube, n, case):
+    for body in bodies:
         fit = body.refined
         if fit is None or not fit.n_picks:
             continue

@@ -325,7 +325,9 @@ def _background_times(inputs: RefinementInputs, body_id, grow_cells, pair_a, pai
     for a path through rock, does not apply to it, and it is left out.
     With ``exact=False`` (an unresolved body, whose cube anomaly is weak and
     small) the difference is taken along the straight lines instead of by
-    two sets of travel-time fields, and no pair is left out.
+    two sets of travel-time fields, and the second value returned is the
+    straight-line time through the cube, against which the caller compares
+    the run's predicted times.
     """
     from reconstruct.forward.straight_rays import straight_ray_matrix
 
@@ -334,11 +336,12 @@ def _background_times(inputs: RefinementInputs, body_id, grow_cells, pair_a, pai
     slowness = np.asarray(inputs.slowness_ns_per_m, dtype=float)
     without = np.where(region, inputs.background_slowness_ns_per_m, slowness)
     xyz = inputs.picks.nodes_xyz_m
-    straight = straight_ray_matrix(inputs.grid, xyz[pair_a], xyz[pair_b]) @ without.ravel()
+    lines = straight_ray_matrix(inputs.grid, xyz[pair_a], xyz[pair_b])
+    straight = lines @ without.ravel()
     if np.allclose(without[region], slowness[region], rtol=1e-12, atol=0.0):
         return np.zeros(pair_a.size), np.ones(pair_a.size, dtype=bool)
     if not exact:
-        cube = straight_ray_matrix(inputs.grid, xyz[pair_a], xyz[pair_b]) @ slowness.ravel()
+        cube = lines @ slowness.ravel()
         return straight - cube, cube  # the caller compares the run's predicted times with ``cube``
     with_body = first_arrival_times(inputs.grid, slowness, xyz, pair_a, pair_b, executor=inputs.executor)
     no_body = first_arrival_times(inputs.grid, without, xyz, pair_a, pair_b, executor=inputs.executor)
@@ -390,9 +393,9 @@ def _build_problem(inputs: RefinementInputs, body, centre, reach_m, max_pairs, g
     exact = body.status == STATUS_RESOLVED
     correction, through_rock = _background_times(inputs, body.body_id, grow, pair_a[near], pair_b[near], exact)
     if not exact:  # the run's predicted time (time-zero terms aside) against the straight-line time
-        slowest = np.full(pair_a.size, np.inf)
-        np.minimum.at(slowest, pick_pair, np.asarray(picks.predicted_time_ns, float))
-        through_rock = slowest[near] >= (1.0 - _PATH_SLACK) * through_rock
+        earliest = np.full(pair_a.size, np.inf)
+        np.minimum.at(earliest, pick_pair, np.asarray(picks.predicted_time_ns, float))
+        through_rock = earliest[near] >= (1.0 - _PATH_SLACK) * through_rock
     near, correction = near[through_rock], correction[through_rock]
     if near.size == 0:
         return None

@@ -353,6 +353,7 @@ def _void_settings(args):
     if args.max_pictures < 0:
         raise InputError(f"--max-pictures must be >= 0 (got {args.max_pictures})")
     return ProcessingSettings(
+        refine_bodies=not args.no_refine,
         voids=VoidOptions(sigmas=args.threshold_sigmas, false_alarm=args.false_alarm),
         screening=ScreeningOptions(specific_gravity=args.specific_gravity, dip_deg=args.wall_dip_deg,
                                 rock_mass_q=args.rock_mass_q, hole_standoff_m=args.hole_standoff))
@@ -372,8 +373,9 @@ def _cmd_voids(args) -> int:
         start_offscreen_probe()  # runs while the cube is read and searched
     data = load_inversion_folder(args.folder, args.site)
     say(f"cube {data.grid.shape[0]} x {data.grid.shape[1]} x {data.grid.shape[2]} cells, site {data.site_path}")
-    analysis, screening = interpret_inversion(data, settings, say)
-    content = write_interpretation(data, analysis, screening, settings, pictures=not args.no_pictures,
+    analysis, screening, detectability = interpret_inversion(data, settings, say)
+    content = write_interpretation(data, analysis, screening, settings, detectability=detectability,
+                                   pictures=not args.no_pictures,
                                    max_pictures=args.max_pictures, started=started, progress=say)
     counts = content["counts"]
     print(f"site: {content['site']}")
@@ -490,6 +492,9 @@ def _add_voids_parser(sub):
                    help="list the blast holes whose charged column or subdrill comes within this distance of "
                         f"a body, metres (default {h.hole_standoff_m:g}, about one burden)")
     p.add_argument("--no-pictures", action="store_true", help="write tables and meshes but no PNG pictures")
+    p.add_argument("--no-refine", action="store_true",
+                   help="do not fit each body again against the picks as a sharp ellipsoid (faster; the "
+                        "sizes are then the cube's, without bounds)")
     p.add_argument("--max-pictures", type=int, default=20, metavar="N",
                    help="draw plan and section slices for at most N voids (default 20)")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")

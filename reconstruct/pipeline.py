@@ -49,10 +49,11 @@ from reconstruct.checks.picks import (
 )
 from reconstruct.errors import InputError, is_whole_number
 from reconstruct.interpret.bodies import STATUS_RESOLVED, VoidOptions
-from reconstruct.interpret.folder import InversionFolder, inversion_from_run, screen_folder
+from reconstruct.interpret.folder import InversionFolder, find_folder_bodies, inversion_from_run
 from reconstruct.interpret.screening import ScreeningOptions
 from reconstruct.inverse.solver import InversionOptions
 from reconstruct.inverse.straight import TomographyRun
+from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 from reconstruct.parallel import Executor
 
 __all__ = ["DEFAULT_BENT_ITERATIONS", "ProcessingSettings", "ProcessingResult", "robust_rule",
@@ -100,6 +101,9 @@ class ProcessingSettings:
         Keep the final bent rays (for ``rays.vtp``); bent rays only.
     find_bodies : bool
         Find and screen the bodies after the inversion.
+    refine_bodies : bool
+        Fit each body found again, directly to the picks, as a sharp
+        ellipsoid with bounds (:mod:`reconstruct.interpret.refine`).
     voids : VoidOptions
         Detection threshold (robust standard deviations of the anomaly, or
         derived from the false-alarm chance).
@@ -120,6 +124,7 @@ class ProcessingSettings:
     snap_tolerance_m: float | None = None
     keep_rays: bool = False
     find_bodies: bool = True
+    refine_bodies: bool = True
     voids: VoidOptions = field(default_factory=VoidOptions)
     screening: ScreeningOptions = field(default_factory=ScreeningOptions)
     anisotropy_from_picks: bool = False
@@ -162,7 +167,8 @@ class ProcessingResult:
     (empty when usable), ``run`` the inversion, and, when bodies were
     searched, ``inversion`` (the cube as the interpretation reads it),
     ``analysis`` (bodies, background, threshold) and ``screening`` (ranked
-    entries). ``node_positions`` says which nodes took their position from
+    entries) and ``detectability`` (weak indications, what each planned
+    work's zone could hide). ``node_positions`` says which nodes took their position from
     the deviation survey of their hole (:func:`node_positions_from_surveys`).
     """
 
@@ -174,6 +180,7 @@ class ProcessingResult:
     inversion: InversionFolder | None = None
     analysis: object = None
     screening: tuple | None = None
+    detectability: object = None
     node_positions: dict = dataclasses.field(default_factory=dict)
 
     @property
@@ -251,17 +258,54 @@ def _invert(site, nodes, chosen, exempt, settings: ProcessingSettings, executor,
 
 def interpret_inversion(inversion: InversionFolder, settings: ProcessingSettings = ProcessingSettings(),
                         progress=None):
-    """Bodies and screening of an inversion, from memory or from a folder.
+    """Bodies, their fit against the picks, detectability and screening of an inversion.
 
     ``inversion`` comes from :func:`reconstruct.interpret.folder.inversion_from_run`
     (a result in memory) or :func:`reconstruct.interpret.folder.load_inversion_folder`
-    (a folder on disk). Returns ``(analysis, screening entries)``.
+    (a folder on disk). The bodies are found in the cube, refined against
+    the picks when ``settings.refine_bodies``, then the weak indications and
+    the detectability at each planned work are assessed
+    (:func:`reconstruct.interpret.detectability.assess_detectability`), and
+    bodies and weak indications are ranked together.
+
+    Returns
+    -------
+    tuple
+        ``(analysis, screening entries, detectability)``.
     """
-    analysis, screening = screen_folder(inversion, settings.voids, settings.screening)
+    from reconstruct.interpret.detectability import assess_detectability
+    from reconstruct.interpret.screening import screen_voids
+
+    analysis = find_folder_bodies(inversion, settings.voids)
     resolved = sum(b.status == STATUS_RESOLVED for b in analysis.bodies)
     _say(progress, f"bodies: {len(analysis.bodies)} ({resolved} resolved, "
                    f"{len(analysis.bodies) - resolved} unresolved)")
-    return analysis, tuple(screening)
+    if settings.refine_bodies and analysis.bodies:
+        analysis = _refined(inversion, analysis, progress)
+    detectability = assess_detectability(inversion, analysis)
+    screening = screen_voids(analysis.bodies, settings.screening, inversion.site.planned_works,
+                             detectability.weak_indications)
+    return analysis, tuple(screening), detectability
+
+
+def _refined(inversion: InversionFolder, analysis, progress):
+    """The analysis with every body refined against the picks (:mod:`reconstruct.interpret.refine`)."""
+    from reconstruct.interpret.refine import RefinementInputs, failed_refinement, refine_bodies
+
+    if inversion.pick_times is None:
+        reason = failed_refinement("not refined: the folder holds no residuals.csv and nodes_used.csv")
+        bodies = tuple(dataclasses.replace(b, refined=reason) for b in analysis.bodies)
+    else:
+        velocity = inversion.velocity_m_per_ns
+        usable = np.isfinite(velocity) & (velocity > 0)  # air cells as written; else at the speed of light
+        inputs = RefinementInputs(
+            grid=inversion.grid, slowness_ns_per_m=np.where(usable, 1.0 / np.where(usable, velocity, 1.0),
+                                                            1.0 / AIR_VELOCITY_M_PER_NS),
+            ground=inversion.ground, background_slowness_ns_per_m=analysis.background_slowness_ns_per_m,
+            labels=analysis.labels, picks=inversion.pick_times, surface_elevation_m=inversion.site.ground.elevation_m,
+            planned_works=tuple(inversion.site.planned_works))
+        bodies = refine_bodies(inputs, analysis.bodies, progress=progress)
+    return dataclasses.replace(analysis, bodies=bodies)
 
 
 def node_positions_from_surveys(site, nodes, progress=None):
@@ -323,8 +367,9 @@ def process_survey(site, nodes, picks, settings: ProcessingSettings = Processing
     if not settings.find_bodies:
         return result
     inversion = inversion_from_run(run)
-    analysis, screening = interpret_inversion(inversion, settings, progress)
-    return dataclasses.replace(result, inversion=inversion, analysis=analysis, screening=screening)
+    analysis, screening, detectability = interpret_inversion(inversion, settings, progress)
+    return dataclasses.replace(result, inversion=inversion, analysis=analysis, screening=screening,
+                               detectability=detectability)
 
 
 def write_inversion(result: ProcessingResult, out, *, inputs: dict, parameters: dict, started: str,
@@ -341,19 +386,21 @@ def write_inversion(result: ProcessingResult, out, *, inputs: dict, parameters: 
 
 
 def write_interpretation(inversion: InversionFolder, analysis, screening, settings: ProcessingSettings, *,
-                         pictures: bool = True, max_pictures: int = 20, started: str, progress=None) -> dict:
+                         detectability=None, pictures: bool = True, max_pictures: int = 20, started: str,
+                         progress=None) -> dict:
     """Write the void outputs into the inversion folder ``inversion.path`` (written first).
 
     ``inversion`` is a folder read back or a result in memory whose ``path``
-    names the folder. Returns the content of ``voids.json`` (see
-    :func:`reconstruct.report.folders.write_void_outputs`).
+    names the folder; ``detectability`` the third item that
+    :func:`interpret_inversion` returns. Returns the content of ``voids.json``
+    (see :func:`reconstruct.report.folders.write_void_outputs`).
     """
     from reconstruct.report.folders import write_void_outputs
 
     return write_void_outputs(inversion, analysis, list(screening), pictures=pictures, max_pictures=max_pictures,
                               parameters=interpretation_parameters(settings, inversion.site_path, pictures,
                                                                    max_pictures),
-                              started=started, progress=progress)
+                              started=started, progress=progress, detectability=detectability)
 
 
 def write_processing(result: ProcessingResult, out, *, inputs: dict, parameters: dict, started: str, command: str,
@@ -369,13 +416,14 @@ def write_processing(result: ProcessingResult, out, *, inputs: dict, parameters:
     inversion = dataclasses.replace(result.inversion, path=Path(out),
                                     site_path=Path(inputs.get("site") or result.inversion.site_path))
     content = write_interpretation(inversion, result.analysis, result.screening, result.settings,
-                                   pictures=pictures, max_pictures=max_pictures, started=started, progress=progress)
+                                   detectability=result.detectability, pictures=pictures, max_pictures=max_pictures, started=started, progress=progress)
     return summary, content
 
 
 def interpretation_parameters(settings: ProcessingSettings, site_path, pictures: bool, max_pictures: int) -> dict:
     """The parameters of the void search recorded in the manifest and ``voids.json``."""
     return {"threshold_sigmas": settings.voids.sigmas, "false_alarm": settings.voids.false_alarm,
+            "refine_bodies": settings.refine_bodies,
             "site": str(site_path), "pictures": pictures, "max_pictures": max_pictures,
             "screening": {"specific_gravity": settings.screening.specific_gravity,
                        "wall_dip_deg": settings.screening.dip_deg,

@@ -752,6 +752,8 @@ def void_table_rows(bodies) -> list[dict]:
     body carries no noise floor); ``size_up_to_m`` the resolution at its
     depth for an unresolved body (None for a void); ``lower_bound`` true for
     a slow body; ``size_words`` from :func:`size_words`.
+    A body refined against the picks adds the key ``refined``
+    (:meth:`reconstruct.interpret.refine.RefinedBody.as_dict`).
     """
     rows = []
     for b in bodies:
@@ -768,5 +770,7 @@ def void_table_rows(bodies) -> list[dict]:
         for key in VOID_TABLE_COLUMNS[13:]:
             value = derived[key] if key in derived else getattr(b, key)
             row[key] = None if isinstance(value, float) and not math.isfinite(value) else value
+        if b.refined is not None:  # the fit against the picks, for voids.json; not a column of voids.csv
+            row["refined"] = b.refined.as_dict()
         rows.append(row)
     return rows

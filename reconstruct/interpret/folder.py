@@ -72,8 +72,9 @@ from reconstruct.interpret.bodies import (
     VoidOptions,
     find_voids,
 )
+from reconstruct.interpret.refine import pick_times_from_run, read_pick_times
 
-__all__ = ["InversionFolder", "load_inversion_folder", "inversion_from_run", "screen_folder", "read_json_object"]
+__all__ = ["InversionFolder", "load_inversion_folder", "inversion_from_run", "screen_folder", "find_folder_bodies", "read_json_object"]
 
 _CUBE_ARRAYS = ("velocity_m_per_ns", "ray_length_m", "ray_count", "ground")
 
@@ -97,6 +98,7 @@ class InversionFolder:
     rms_ns: float
     nodes_xyz_m: np.ndarray | None
     notes: tuple
+    pick_times: object = None  # reconstruct.interpret.refine.PickTimes of the picks inverted, for the refinement
 
 
 def read_json_object(path: Path, hint: str) -> dict:
@@ -202,7 +204,8 @@ def inversion_from_run(run, *, path=None, site_path=None) -> InversionFolder:
         path=Path(path or "."), grid=grid, velocity_m_per_ns=velocity, ray_count=run.ray_count,
         ray_length_m=run.ray_length_m, ground=run.ground, surface_m=surface, summary=run_summary(run),
         site=site, site_path=Path(site_path or site.source_path or "site"),
-        path_length_m=float(np.median(lengths)), rms_ns=float(run.result.rms_ns), nodes_xyz_m=xyz, notes=())
+        path_length_m=float(np.median(lengths)), rms_ns=float(run.result.rms_ns), nodes_xyz_m=xyz, notes=(),
+        pick_times=pick_times_from_run(run))
 
 
 def _read_nodes_used(path: Path):
@@ -266,15 +269,21 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
         path=folder, grid=grid, velocity_m_per_ns=velocity, ray_count=arrays["ray_count"],
         ray_length_m=arrays["ray_length_m"], ground=ground, surface_m=surface, summary=summary,
         site=site, site_path=site_file, path_length_m=_median_path_length_m(folder / "residuals.csv"),
-        rms_ns=float(rms), nodes_xyz_m=_read_nodes_used(folder / "nodes_used.csv"), notes=tuple(notes))
+        rms_ns=float(rms), nodes_xyz_m=_read_nodes_used(folder / "nodes_used.csv"), notes=tuple(notes),
+        pick_times=read_pick_times(folder, float(rms)))
+
+
+def find_folder_bodies(data: InversionFolder, void_options=VoidOptions()):
+    """The body search of :func:`reconstruct.interpret.bodies.find_voids` on an inversion (no files written)."""
+    return find_voids(
+        data.grid, data.velocity_m_per_ns, data.ground, data.ray_count, data.surface_m,
+        frequency_mhz=data.site.rock.antenna_frequency_mhz, path_length_m=data.path_length_m,
+        rms_ns=data.rms_ns, planned_works=data.site.planned_works, options=void_options)
 
 
 def screen_folder(data: InversionFolder, void_options=VoidOptions(), screening_options=ScreeningOptions()):
     """Find the bodies and rank them (no files written). Returns (analysis, screening entries)."""
-    analysis = find_voids(
-        data.grid, data.velocity_m_per_ns, data.ground, data.ray_count, data.surface_m,
-        frequency_mhz=data.site.rock.antenna_frequency_mhz, path_length_m=data.path_length_m,
-        rms_ns=data.rms_ns, planned_works=data.site.planned_works, options=void_options)
+    analysis = find_folder_bodies(data, void_options)
     return analysis, screen_voids(analysis.bodies, screening_options, data.site.planned_works)
 
 

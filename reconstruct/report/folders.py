@@ -16,6 +16,7 @@ from reconstruct.interpret.bodies import STATUS_RESOLVED, VOID_TABLE_COLUMNS, vo
 from reconstruct.interpret.detectability import (WEAK_INDICATION_COLUMNS, assess_detectability, detectability_rows,
                                                  weak_indication_rows)
 from reconstruct.interpret.folder import InversionFolder
+from reconstruct.interpret.refine import REFINED_COLUMNS, refined_table_values
 from reconstruct.interpret.screening import RANKING_RULE, SCREENING_COLUMNS, SCREENING_NOTE
 from reconstruct.inverse.straight import TomographyRun, run_summary
 from reconstruct.io.outputs import (
@@ -238,8 +239,10 @@ def write_void_outputs(data: InversionFolder, analysis, screening, *, pictures: 
     out = data.path
     written = []
     rows = void_table_rows(analysis.bodies)
-    written.append(write_csv_atomic(out / "voids.csv", VOID_TABLE_COLUMNS,
-                                    ([_csv_value(r[c]) for c in VOID_TABLE_COLUMNS] for r in rows)))
+    csv_rows = [{**row, **refined_table_values(body)} for row, body in zip(rows, analysis.bodies)]
+    columns = VOID_TABLE_COLUMNS + REFINED_COLUMNS
+    written.append(write_csv_atomic(out / "voids.csv", columns,
+                                    ([_csv_value(r[c]) for c in columns] for r in csv_rows)))
     if detectability is None:
         detectability = assess_detectability(data, analysis)
     weak_rows = weak_indication_rows(detectability.weak_indications)

@@ -340,12 +340,19 @@ def _detectability_html(voids: dict) -> str:
             + (_generic_table(entries, keys, caption="Detectability and ray coverage by planned work") if keys else ""))
 
 
+#: Keys of a body's ``refined`` block left out of the page (all are in voids.json).
+_REFINED_NOT_SHOWN = ("lower_bound", "shape", "semi_axes_sigma_m", "n_bootstrap", "seconds", "converged")
+
+
 def _refined_rows(body: dict) -> list[list]:
     refined = body.get("refined")
     lower_bound = bool(refined.get("lower_bound"))
+    if refined.get("converged") is False:  # no sizes: the reason in words, the cube's figures stand
+        return [[body.get("body_id"), "not refined", _text(refined.get("message") or "the fit did not converge")
+                 + "; the figures cut from the cube stand, without bounds", "-"]]
     rows = []
     for key, value in refined.items():
-        if key == "lower_bound":
+        if key in _REFINED_NOT_SHOWN:
             continue
         if _is_estimate(value):
             text = estimate_words(value, _unit_of(key), key=key, lower_bound=lower_bound)

@@ -235,7 +235,14 @@ def test_refined_sizes_with_their_95_percent_bounds_and_lower_bounds_for_slow_bo
     # a slow body's extent is a lower bound: "at least" its cautious low end
     assert "at least 160 m³" in page and "at least 6.0 m" in page
     assert "Sizes fitted against the picks" in page and "lower bound" in page
-    assert "Sizes fitted against the picks" not in build_report_html(void_folder)
+    unrefined = [{k: v for k, v in b.items() if k != "refined"} for b in voids["bodies"]]
+    assert "Sizes fitted against the picks" not in build_report_html(void_folder, voids=dict(voids, bodies=unrefined))
+    # a fit that did not converge shows its reason, not a row of empty figures
+    failed = dict(voids["bodies"][0], refined={"converged": False, "message": "too few picks near the body",
+                                               "volume_m3": {"value": None, "sigma": None, "low95": None,
+                                                             "high95": None}})
+    page = build_report_html(void_folder, voids=dict(voids, bodies=[failed]))
+    assert "too few picks near the body; the figures cut from the cube stand" in page
 
 
 def test_provenance_is_a_short_table_with_short_hashes_and_a_link_to_the_manifest(void_folder):

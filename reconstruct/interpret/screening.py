@@ -377,6 +377,15 @@ def _weak_as_body(w):
         standoff_m=w.standoff_m, nearest_work=w.nearest_work, strength=w.strength_noise_floors)
 
 
+def _no_bounds_words(b, fit) -> str:
+    """Why a row carries no bounds, in words."""
+    if b.status == STATUS_WEAK:
+        return "none: a weak indication's size cannot be measured (taken up to the resolution)"
+    if fit is None:
+        return "none available: figures cut from the cube"
+    return "none available (the fit against the picks did not converge): figures cut from the cube"
+
+
 def _figures(b) -> dict:
     """Best and cautious sizes of a body: the fit's 95 % bounds when refined, else the cube's figures."""
     r = b.refined
@@ -387,8 +396,7 @@ def _figures(b) -> dict:
                     else None, span=b.span_m, width=b.width_m, length=b.length_m, volume=b.volume_m3,
                     standoff=standoff, c_roof=b.roof_thickness_m, c_below=below, c_span=b.span_m,
                     c_width=b.width_m, c_length=b.length_m, c_standoff=standoff, at_least=False,
-                    bounds="none available: figures cut from the cube" if r is None else
-                    "none available (the fit against the picks did not converge): figures cut from the cube")
+                    bounds=_no_bounds_words(b, r))
     below_name = min(r.roof_below_work_m, key=lambda k: r.roof_below_work_m[k].cautious_low(), default=None)
     below = r.roof_below_work_m[below_name] if below_name is not None else None
     (c_span, open_span), (c_width, open_width), (c_length, open_length) = (

@@ -516,7 +516,8 @@ def _reasons(b, fig, cs, sc, thickness, options, holes) -> tuple[list, int]:
 def _screen_one(b, options: ScreeningOptions, planned_works) -> dict:
     """One body's screening row (without its rank) and its ranking key."""
     fig = _figures(b)
-    thickness = fig["c_roof"] if fig["c_below"] is None else min(fig["c_roof"], fig["c_below"])
+    # no rock left (a hole reaching below the roof gives a negative gap) is a roof of 0 m
+    thickness = max(fig["c_roof"] if fig["c_below"] is None else min(fig["c_roof"], fig["c_below"]), 0.0)
     width = max(fig["c_width"], 1e-9)
     cs = scaled_span_m(width, thickness, max(fig["c_length"], width), options.specific_gravity, options.dip_deg)
     sc = critical_span_m(options.rock_mass_q) if options.rock_mass_q is not None else None

@@ -84,12 +84,13 @@ _NOISE = 1e-9
 #: roofs whose thinner is ``thinnest_roof_m``, the plan length, and the tallies behind the order.
 _RANKED_ONLY_IN_CSV = ("roof_thickness_m", "roof_below_work_m", "length_m", "thinnest_roof_to_width", "concerns",
                        "tier", "standoff_m", "thinnest_roof_m", "width_m", "cautious_width_m", "cautious_length_m",
-                       "extent_at_least", "bounds", "crown_assessment", "nearest_hole_m", "critical_span_m")
+                       "extent_at_least", "bounds", "crown_assessment", "nearest_hole_m", "critical_span_m",
+                       "holes_met")
 
 #: Shown first, in this order, in the ranked table; other keys follow in their own order, reasons last.
 _RANKED_FIRST = ("rank", "body_id", "indication_id", "status", "fill", "confidence", "nearest_work",
                  "cautious_standoff_m", "cautious_roof_m", "span_m", "cautious_span_m", "scaled_span_m",
-                 "crown_fos", "crown_class", "holes_met")
+                 "crown_fos", "crown_class")
 
 
 def label_for(key: str) -> str:

@@ -158,7 +158,9 @@ def test_collar_points_become_blast_holes_with_the_depth_of_the_entry(tmp_path):
     site = _load(tmp_path, {**_entry(), "hole_depth_m": 10.5, "subdrill_m": 1.0})
     (pattern,) = [w for w in site.planned_works if "COLLARS" in w.name]
     assert pattern.has_holes and len(pattern.holes) == len(COLLARS)
-    assert sorted(h.collar_m for h in pattern.holes) == pytest.approx(sorted(COLLARS), abs=TOL_M)
+    # flat arrays: pytest.approx takes no nested sequences
+    got = np.array(sorted(h.collar_m for h in pattern.holes), dtype=float)
+    assert np.allclose(got, np.array(sorted(COLLARS), dtype=float), rtol=0.0, atol=TOL_M)
     # collar elevation, then 10.5 m down to the end of the charge and 1 m more to the toe
     for hole, (top, charge, toe) in zip(pattern.holes, pattern.hole_columns_m()):
         assert (top - charge, charge - toe) == pytest.approx((10.5, 1.0))

@@ -108,6 +108,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from types import SimpleNamespace
 
 import numpy as np
 from scipy import ndimage
@@ -586,6 +587,10 @@ def _work_entry(grid, work, zone, covered, labels, indication_labels, slab_index
         words=_work_words(work.name, ground_cells, covered_cells, void_d, slow_d, body_ids, indication_ids))
 
 
+#: The zone assessed when the site names no planned work: every ground cell of the model box.
+WHOLE_MODEL = SimpleNamespace(name="the whole model box (the site names no planned work)", kind="whole_model")
+
+
 def assess_detectability(inversion, analysis, *, margin_m: float = ZONE_MARGIN_M, depth_m: float = ZONE_DEPTH_M,
                          floors: float = WEAK_INDICATION_FLOORS) -> Detectability:
     """Weak indications, detectability per planned work and the threshold record of one analysis.
@@ -612,9 +617,13 @@ def assess_detectability(inversion, analysis, *, margin_m: float = ZONE_MARGIN_M
                                for t, v, w in zip(per_slab["threshold"], per_slab["background"],
                                                   per_slab["resolution"])])
                 for key, fill in (("air", FILL_AIR), ("slow", FILL_WATER_OR_CLAY))}
-    covered = np.asarray(inversion.ground, dtype=bool) & (np.asarray(inversion.ray_count) > 0)
+    ground = np.asarray(inversion.ground, dtype=bool)
+    covered = ground & (np.asarray(inversion.ray_count) > 0)
     entries = tuple(_work_entry(grid, w, zone_of_influence(grid, inversion.ground, w, margin_m, depth_m), covered,
                                 analysis.labels, indication_labels, slab_index, smallest) for w in works)
+    if not works:  # no planned work: the whole ground of the model box, so that an empty table still says how much
+        entries = (_work_entry(grid, WHOLE_MODEL, ground, covered, analysis.labels, indication_labels, slab_index,
+                               smallest),)
     p = analysis.parameters
     sigma_model = float(p["sigma_model_ns_per_m"])
     u = floors * float(per_slab["noise_floor"].min()) / sigma_model if sigma_model > 0 else math.inf
@@ -645,7 +654,8 @@ def assess_detectability(inversion, analysis, *, margin_m: float = ZONE_MARGIN_M
                            for s, f, a, b in zip(analysis.slabs, per_slab["noise_floor"], smallest["air"],
                                                  smallest["slow"])],
     }
-    notes = () if works else ("the site has no planned works: no zone of influence is assessed",)
+    notes = () if works else ("the site has no planned works: detectability is given for the whole ground of "
+                              "the model box instead of a zone of influence",)
     return Detectability(weak_indications=weak, labels=indication_labels, works=entries, expected_from_noise=expected,
                          method=method, threshold_override=threshold_override(inversion, analysis, weak), notes=notes)
 

@@ -276,6 +276,27 @@ def test_a_layout_with_a_gap_under_a_planned_work_reports_the_gap_as_not_covered
         assert not any(word in row["words"].lower() for word in FORBIDDEN)
 
 
+def test_a_site_without_planned_works_gets_the_whole_model_box_as_its_zone():
+    # the same gap layout: the covered cells counted again by sampling the rays (no Siddon), over all ground cells
+    site = _site([])
+    grid = site.grid()
+    tx, rx = _gap_layout(grid)
+    _, ray_count = ray_coverage(straight_ray_matrix(grid, tx, rx), grid)
+    data = _inversion(site, ray_count)
+    analysis = find_voids(data.grid, data.velocity_m_per_ns, data.ground, ray_count, data.surface_m,
+                          frequency_mhz=100.0, path_length_m=25.0, rms_ns=0.5, planned_works=())
+    assessed = assess_detectability(data, analysis)
+    row, = detectability_rows(assessed)
+    assert row["kind"] == "whole_model" and row["ground_cells"] == data.ground.sum() == 40 * 20 * 20
+    sampled = _covered_by_sampling(grid, tx, rx)[data.ground].sum()
+    assert row["covered_cells"] == pytest.approx(sampled, abs=0.01 * data.ground.sum())
+    # rays stay west of x = 18.7 m: more than half of the 40 m box is not covered, and the sentence says so
+    assert row["not_covered_percent"] >= 100.0 * 21 / 40
+    assert f"{row['not_covered_percent']:.0f} % not covered" in row["words"]
+    assert "whole ground of the model box" in assessed.notes[0]
+    assert not any(word in row["words"].lower() for word in FORBIDDEN)
+
+
 def test_empty_tables_never_read_as_a_verdict_and_a_body_in_the_zone_is_named():
     site = _site([{"name": "road", "kind": "haul_road", "polyline_m": [[0, 10, 20], [40, 10, 20]]}])
     grid = site.grid()

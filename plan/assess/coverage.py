@@ -56,7 +56,7 @@ import scipy.sparse as sp
 from reconstruct.errors import InputError, is_whole_number
 from reconstruct.model.grid import Grid, ground_top_m
 from reconstruct.model.resolution import fresnel_half_width_m, wavelength_m
-from reconstruct.io.site import Site, points_in_polygon
+from reconstruct.io.site import Site, work_footprint
 from reconstruct.forward.straight_rays import straight_ray_matrix
 from reconstruct.io.site import model_grid
 from reconstruct.forward.straight_rays import ray_coverage
@@ -266,29 +266,6 @@ def resolution_floor_m(operator, grid: Grid, tx_xyz_m, rx_xyz_m, wavelength: flo
     return floor
 
 
-def _segment_distance_m(px, py, a, b):
-    """Plan distance of points (px, py) from the segment a-b."""
-    ab = np.asarray(b, float) - np.asarray(a, float)
-    denom = float(ab @ ab)
-    if denom == 0.0:
-        return np.hypot(px - a[0], py - a[1])
-    t = np.clip(((px - a[0]) * ab[0] + (py - a[1]) * ab[1]) / denom, 0.0, 1.0)
-    return np.hypot(px - (a[0] + t * ab[0]), py - (a[1] + t * ab[1]))
-
-
-def _work_footprint(work, x2, y2, buffer_m):
-    pts = np.asarray(work.points_m, dtype=float)
-    xy = pts[:, :2]
-    near = np.zeros(x2.shape, dtype=bool)
-    segments = list(zip(xy[:-1], xy[1:]))
-    if work.geometry == "polygon":
-        near |= points_in_polygon(x2, y2, xy)
-        segments.append((xy[-1], xy[0]))
-    for a, b in segments:
-        near |= _segment_distance_m(x2, y2, a, b) <= buffer_m
-    return near, float(pts[:, 2].min())
-
-
 def target_mask(site: Site, grid: Grid, ground: np.ndarray, standard: CoverageStandard):
     """The target volume as a boolean ``(nx, ny, nz)`` array, and a note saying what it is.
 
@@ -303,7 +280,7 @@ def target_mask(site: Site, grid: Grid, ground: np.ndarray, standard: CoverageSt
     if site.planned_works:
         bottom = np.full(top.shape, np.inf)
         for work in site.planned_works:
-            near, work_z = _work_footprint(work, x2, y2, standard.works_buffer_m)
+            near, work_z = work_footprint(work, x2, y2, standard.works_buffer_m)
             level = np.minimum(top, work_z) - standard.depth_of_interest_m
             bottom = np.where(near, np.minimum(bottom, level), bottom)
         note = (f"ground under the {len(site.planned_works)} planned works (plan footprint widened by "

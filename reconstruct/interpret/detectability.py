@@ -129,7 +129,7 @@ from reconstruct.interpret.bodies import (
     find_voids,
     size_words,
 )
-from reconstruct.io.site import points_in_polygon
+from reconstruct.io.site import work_footprint
 from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS
 from reconstruct.model.grid import Grid, ground_top_m
 
@@ -373,19 +373,8 @@ def zone_of_influence(grid: Grid, ground, work, margin_m: float = ZONE_MARGIN_M,
     """Ground cells of the zone of influence of a planned work (module docstring), (nx, ny, nz) bool."""
     ground = np.asarray(ground, dtype=bool)
     x2, y2 = np.meshgrid(grid.centres_m(0), grid.centres_m(1), indexing="ij")
-    points = np.asarray(work.points_m, dtype=float)
-    xy = points[:, :2]
-    near = np.zeros(x2.shape, dtype=bool)
-    segments = list(zip(xy[:-1], xy[1:]))
-    if work.geometry == "polygon":
-        near |= points_in_polygon(x2, y2, xy)
-        segments.append((xy[-1], xy[0]))
-    for a, b in segments:
-        ab = b - a
-        length2 = float(ab @ ab)
-        t = 0.0 if length2 == 0 else np.clip(((x2 - a[0]) * ab[0] + (y2 - a[1]) * ab[1]) / length2, 0.0, 1.0)
-        near |= np.hypot(x2 - (a[0] + t * ab[0]), y2 - (a[1] + t * ab[1])) <= margin_m
-    bottom = np.minimum(ground_top_m(grid, ground), float(points[:, 2].min())) - depth_m
+    near, lowest_m = work_footprint(work, x2, y2, margin_m)
+    bottom = np.minimum(ground_top_m(grid, ground), lowest_m) - depth_m
     with np.errstate(invalid="ignore"):
         return ground & near[:, :, None] & (grid.centres_m(2)[None, None, :] >= bottom[:, :, None])
 

@@ -98,6 +98,7 @@ __all__ = [
     "load_site",
     "parse_site",
     "points_in_polygon",
+    "work_footprint",
 ]
 
 #: Accepted rock velocity, m/ns. The upper end is ``c`` rounded up so that a
@@ -225,6 +226,39 @@ def points_in_polygon(x_m, y_m, polygon_xy_m) -> np.ndarray:
             inside ^= crosses & (x < x_edge)
         xj, yj = xi, yi
     return inside
+
+
+def work_footprint(work, x_m, y_m, margin_m: float) -> tuple[np.ndarray, float]:
+    """Plan positions within ``margin_m`` of a planned work, and the work's lowest elevation.
+
+    Parameters
+    ----------
+    work : PlannedWork
+        A polyline (within the margin of any segment) or a polygon (inside,
+        or within the margin of its outline).
+    x_m, y_m : numpy.ndarray
+        Plan positions, m, of one shape.
+    margin_m : float
+        Plan distance, m.
+
+    Returns
+    -------
+    (numpy.ndarray of bool, float)
+        True where near the work; the lowest elevation of its points, m.
+    """
+    points = np.asarray(work.points_m, dtype=float)
+    xy = points[:, :2]
+    near = np.zeros(np.shape(x_m), dtype=bool)
+    segments = list(zip(xy[:-1], xy[1:]))
+    if work.geometry == "polygon":
+        near |= points_in_polygon(x_m, y_m, xy)
+        segments.append((xy[-1], xy[0]))
+    for a, b in segments:
+        ab = b - a
+        length2 = float(ab @ ab)
+        t = 0.0 if length2 == 0 else np.clip(((x_m - a[0]) * ab[0] + (y_m - a[1]) * ab[1]) / length2, 0.0, 1.0)
+        near |= np.hypot(x_m - (a[0] + t * ab[0]), y_m - (a[1] + t * ab[1])) <= margin_m
+    return near, float(points[:, 2].min())
 
 
 def _polygon_area_m2(polygon_xy) -> float:

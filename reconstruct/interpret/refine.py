@@ -95,12 +95,11 @@ from reconstruct.forward.first_arrivals import first_arrival_times, unique_pairs
 from reconstruct.forward.sharp_body import Ellipsoid, ellipsoid_delay_ns
 from reconstruct.interpret.bodies import FILL_AIR, STATUS_RESOLVED, _work_points_m
 from reconstruct.interpret.estimates import Estimate, estimate_from_sigma
+from reconstruct.model.constants import AIR_VELOCITY_M_PER_NS  # an air-filled body: the speed of light
 from reconstruct.parallel import Executor
 
 __all__ = ["AIR_VELOCITY_M_PER_NS", "PickTimes", "RefineOptions", "RefinedBody", "refine_body", "refine_bodies"]
 
-#: Velocity of an air-filled body: the speed of light in vacuum (SI definition), m/ns.
-AIR_VELOCITY_M_PER_NS = 0.299792458
 #: Range of a slow body's velocity as a fraction of the background.
 SLOW_RATIO_RANGE = (0.03, 0.9)
 #: The size figures that are only lower bounds for a slow body.

@@ -265,12 +265,13 @@ def load_inversion_folder(folder, site_path=None) -> InversionFolder:
         raise InputError(f"{folder / 'summary.json'}: misfit.rms_ns missing or not > 0; the threshold "
                          "needs the RMS misfit of the inversion; write the folder again")
     surface = _surface_m(grid, site)
+    picks = read_pick_times(folder, float(rms))  # reads nodes_used.csv too: its positions serve the pictures
     return InversionFolder(
         path=folder, grid=grid, velocity_m_per_ns=velocity, ray_count=arrays["ray_count"],
         ray_length_m=arrays["ray_length_m"], ground=ground, surface_m=surface, summary=summary,
         site=site, site_path=site_file, path_length_m=_median_path_length_m(folder / "residuals.csv"),
-        rms_ns=float(rms), nodes_xyz_m=_read_nodes_used(folder / "nodes_used.csv"), notes=tuple(notes),
-        pick_times=read_pick_times(folder, float(rms)))
+        rms_ns=float(rms), notes=tuple(notes), pick_times=picks,
+        nodes_xyz_m=picks.nodes_xyz_m if picks is not None else _read_nodes_used(folder / "nodes_used.csv"))
 
 
 def find_folder_bodies(data: InversionFolder, void_options=VoidOptions()):
